@@ -1,0 +1,11 @@
+//! flexure-engine: curvature attributes from local quadric fits to interpreted horizon grids.
+//!
+//! Data flows one way: [`io`] reads a raster into a [`grid::Grid`], [`horizon`] turns it into
+//! positive-down depth in CRS length units, [`window`] fits a local quadric at every cell,
+//! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
+//! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
+//! that build the demo data and the tests.
+
+pub mod error;
+pub mod grid;
+pub mod window;

@@ -1,0 +1,546 @@
+//! The least-squares window mechanism: for every cell, fit the quadric
+//! `z = a x^2 + b y^2 + c x y + d x + e y + f` to the valid cells of the N x N window centred on
+//! it (Evans 1979; Wood 1996, PhD thesis, Univ. of Leicester, for windows larger than 3 x 3).
+//!
+//! - Coordinates are true cell-centre offsets in the CRS: x grid east, y grid north, in CRS
+//!   units, so rotated geotransforms and non-square bins are handled exactly. The fit itself is
+//!   done in scaled cell-index offsets `s = di/m`, `t = dj/m` (m = (N-1)/2), which keeps the
+//!   normal equations well conditioned for every window size, then mapped to map coordinates
+//!   through the inverse Jacobian (a quadric stays a quadric under an affine map, so the least
+//!   squares solution is the same).
+//! - Nulls and grid edges are one case: a cell outside the grid is a null. The fit uses the
+//!   valid cells only (exact masked least squares through the 6 x 6 normal equations built from
+//!   the mask's moments). No value is padded, reflected or smeared into a gap.
+//! - Every moment is a separable correlation (a power of the column offset times a power of the
+//!   row offset), computed with one pass along rows and one along columns, so the cost per cell
+//!   grows linearly with N. Full windows use the precomputed inverse of the constant normal
+//!   matrix (the classic fixed kernels); only windows holding nulls get their own solve.
+//! - A cell is null when its centre is null, when fewer than `min_valid` of its window's cells
+//!   are valid, or when the valid cells do not determine the quadric: the 1-norm condition
+//!   number of the scaled normal matrix exceeds [`CONDITION_LIMIT`] or its Cholesky factor fails.
+//! - Rows are processed in fixed tiles in parallel (rayon); each cell's sums run in a fixed
+//!   order, so results are bit-identical whatever the thread count.
+
+use crate::error::{FlexureError, Result};
+use crate::grid::GridGeometry;
+use nalgebra::{Matrix6, Vector6};
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
+
+/// Largest accepted 1-norm condition number of the normal matrix in scaled window
+/// coordinates (a full window has about 10 to 30); above it the valid cells are treated as
+/// not determining the quadric.
+pub const CONDITION_LIMIT: f64 = 1e6;
+
+/// Smallest and largest window edge length in cells.
+pub const WINDOW_RANGE: (usize, usize) = (3, 101);
+
+/// Rows per parallel tile (fixed, so tiling never depends on the thread count).
+const TILE_ROWS: usize = 16;
+
+/// Exponents (p, q) of the basis functions s^p t^q, in coefficient order a, b, c, d, e, f.
+const BASIS: [(usize, usize); 6] = [(2, 0), (0, 2), (1, 1), (1, 0), (0, 1), (0, 0)];
+
+/// The local quadric of one cell, `z = a x^2 + b y^2 + c x y + d x + e y + f`, with x grid
+/// east and y grid north in CRS units measured from the cell centre, z in the same length unit.
+/// So `z_xx = 2a`, `z_yy = 2b`, `z_xy = c`, `z_x = d`, `z_y = e`, and `f` is the fitted value.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Quadric {
+    pub a: f64,
+    pub b: f64,
+    pub c: f64,
+    pub d: f64,
+    pub e: f64,
+    pub f: f64,
+}
+
+/// How to fit: window edge length in cells (odd, 3..=101) and the least share of valid cells.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct WindowSpec {
+    /// Window edge length N in cells.
+    pub size: usize,
+    /// Least share (0..1] of the N x N cells that must be valid for a fit.
+    pub min_valid: f64,
+}
+
+impl WindowSpec {
+    /// Checks the window against the allowed range and the grid size.
+    pub fn validate(&self, cols: usize, rows: usize) -> Result<()> {
+        let n = self.size;
+        let (lo, hi) = WINDOW_RANGE;
+        if n % 2 == 0 || n < lo || n > hi {
+            return Err(FlexureError::Parameter(format!(
+                "window {n} is not allowed: use an odd number of cells from {lo} to {hi}"
+            )));
+        }
+        if n > cols || n > rows {
+            return Err(FlexureError::Parameter(format!(
+                "window {n} is larger than the grid ({cols} x {rows} cells): use a smaller window"
+            )));
+        }
+        if !(self.min_valid > 0.0 && self.min_valid <= 1.0) {
+            return Err(FlexureError::Parameter(format!(
+                "min-valid {} is outside (0, 1]: give a share such as 0.75",
+                self.min_valid
+            )));
+        }
+        Ok(())
+    }
+
+    fn half(&self) -> usize {
+        (self.size - 1) / 2
+    }
+
+    /// Least number of valid cells for a fit (never below the 6 unknowns).
+    fn min_count(&self) -> f64 {
+        let cells = (self.size * self.size) as f64;
+        (self.min_valid * cells - 1e-9).ceil().max(6.0)
+    }
+}
+
+/// Quadrics for every cell of a grid; `None` where the cell is null.
+pub struct QuadricField {
+    /// Columns of the grid.
+    pub cols: usize,
+    /// Rows of the grid.
+    pub rows: usize,
+    /// Row-major cells.
+    pub cells: Vec<Option<Quadric>>,
+}
+
+impl QuadricField {
+    /// The quadric of cell (`col`, `row`).
+    pub fn get(&self, col: usize, row: usize) -> Option<Quadric> {
+        self.cells[row * self.cols + col]
+    }
+}
+
+/// Fits the quadric at every cell of `values` (`[row, col]`, NaN = null; z in CRS length
+/// units) over `spec`'s window. `progress` is called with the number of rows finished by each
+/// tile. Fails only on an invalid window.
+pub fn fit_quadrics(
+    values: ArrayView2<f64>,
+    geometry: &GridGeometry,
+    spec: &WindowSpec,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Result<QuadricField> {
+    let (rows, cols) = values.dim();
+    spec.validate(cols, rows)?;
+    let fitter = Fitter::new(values, geometry, spec)?;
+    let tiles: Vec<usize> = (0..rows).step_by(TILE_ROWS).collect();
+    let cells: Vec<Option<Quadric>> = tiles
+        .par_iter()
+        .flat_map_iter(|&r0| {
+            let r1 = (r0 + TILE_ROWS).min(rows);
+            let out = fitter.fit_tile(r0, r1);
+            progress(r1 - r0);
+            out
+        })
+        .collect();
+    Ok(QuadricField { cols, rows, cells })
+}
+
+/// Fixed-window least-squares weights: entry `[k][(row, col)]` of the result is the weight of
+/// the cell at window position (row, col) (row 0 = first grid row of the window) in coefficient
+/// k of (a, b, c, d, e, f), for a full window on `geometry`'s cells. Coefficients are in CRS
+/// units as in [`Quadric`]; these are the kernels of Evans (1979) for N = 3 and their least
+/// squares generalisation for larger N.
+pub fn full_window_kernels(geometry: &GridGeometry, size: usize) -> Result<[Array2<f64>; 6]> {
+    let spec = WindowSpec {
+        size,
+        min_valid: 1.0,
+    };
+    spec.validate(usize::MAX, usize::MAX)?;
+    let map = CoefficientMap::new(geometry, spec.half())?;
+    let inv = full_normal_matrix(spec.half())
+        .try_inverse()
+        .expect("the full-window normal matrix is positive definite");
+    let m = spec.half() as isize;
+    let mut kernels: [Array2<f64>; 6] = std::array::from_fn(|_| Array2::zeros((size, size)));
+    for (wr, dv) in (-m..=m).enumerate() {
+        for (wc, du) in (-m..=m).enumerate() {
+            let (s, t) = (du as f64 / m as f64, dv as f64 / m as f64);
+            let phi = Vector6::from_fn(|k, _| basis_value(k, s, t));
+            let q = map.to_map(&(inv * phi), 0.0);
+            for (k, v) in [q.a, q.b, q.c, q.d, q.e, q.f].into_iter().enumerate() {
+                kernels[k][(wr, wc)] = v;
+            }
+        }
+    }
+    Ok(kernels)
+}
+
+/// Value of basis function k at scaled offset (s, t).
+fn basis_value(k: usize, s: f64, t: f64) -> f64 {
+    let (p, q) = BASIS[k];
+    s.powi(p as i32) * t.powi(q as i32)
+}
+
+/// Index of the mask moment sum(M s^p t^q), p + q <= 4, in a flat array of 15.
+fn moment_index(p: usize, q: usize) -> usize {
+    let deg = p + q;
+    deg * (deg + 1) / 2 + q
+}
+
+/// The normal matrix of a full window in scaled coordinates.
+fn full_normal_matrix(m: usize) -> Matrix6<f64> {
+    let mut moments = [0.0; 15];
+    let mi = m as isize;
+    for v in -mi..=mi {
+        for u in -mi..=mi {
+            let (s, t) = (u as f64 / m as f64, v as f64 / m as f64);
+            for p in 0..=4 {
+                for q in 0..=(4 - p) {
+                    moments[moment_index(p, q)] += s.powi(p as i32) * t.powi(q as i32);
+                }
+            }
+        }
+    }
+    normal_matrix(&moments)
+}
+
+/// Assembles the 6 x 6 normal matrix from the 15 mask moments.
+fn normal_matrix(moments: &[f64; 15]) -> Matrix6<f64> {
+    Matrix6::from_fn(|k, l| {
+        let (pk, qk) = BASIS[k];
+        let (pl, ql) = BASIS[l];
+        moments[moment_index(pk + pl, qk + ql)]
+    })
+}
+
+/// 1-norm of a 6 x 6 matrix (largest absolute column sum).
+fn norm1(m: &Matrix6<f64>) -> f64 {
+    m.column_iter()
+        .map(|c| c.iter().map(|v| v.abs()).sum::<f64>())
+        .fold(0.0, f64::max)
+}
+
+/// Maps scaled-window coefficients (A..F in s, t) to map-coordinate coefficients.
+struct CoefficientMap {
+    /// Inverse Jacobian: (di, dj) = K (dx, dy).
+    k: [[f64; 2]; 2],
+    m: f64,
+}
+
+impl CoefficientMap {
+    fn new(geometry: &GridGeometry, half: usize) -> Result<Self> {
+        if !geometry.is_invertible() {
+            return Err(FlexureError::Parameter(
+                "the grid's geotransform is degenerate (cells of zero area)".into(),
+            ));
+        }
+        let [[a, b], [c, d]] = geometry.jacobian();
+        let det = a * d - b * c;
+        Ok(Self {
+            k: [[d / det, -b / det], [-c / det, a / det]],
+            m: half as f64,
+        })
+    }
+
+    /// Chain rule: gradient K^T g, Hessian K^T H K, with g, H in cell-index offsets.
+    fn to_map(&self, scaled: &Vector6<f64>, z_shift: f64) -> Quadric {
+        let m = self.m;
+        let (m2, k) = (m * m, &self.k);
+        let g = [scaled[3] / m, scaled[4] / m];
+        let h = [
+            [2.0 * scaled[0] / m2, scaled[2] / m2],
+            [scaled[2] / m2, 2.0 * scaled[1] / m2],
+        ];
+        let grad = |x: usize| k[0][x] * g[0] + k[1][x] * g[1];
+        let hess = |x: usize, y: usize| {
+            let mut sum = 0.0;
+            for (r, hr) in h.iter().enumerate() {
+                for (c, hrc) in hr.iter().enumerate() {
+                    sum += k[r][x] * hrc * k[c][y];
+                }
+            }
+            sum
+        };
+        Quadric {
+            a: hess(0, 0) / 2.0,
+            b: hess(1, 1) / 2.0,
+            c: hess(0, 1),
+            d: grad(0),
+            e: grad(1),
+            f: scaled[5] + z_shift,
+        }
+    }
+}
+
+/// Everything a tile needs: the data, window geometry and precomputed full-window solution.
+struct Fitter<'a> {
+    values: ArrayView2<'a, f64>,
+    half: usize,
+    /// s = u/m for u = -m..=m.
+    offsets: Vec<f64>,
+    full_count: f64,
+    min_count: f64,
+    full_inverse: Matrix6<f64>,
+    map: CoefficientMap,
+    /// Mean of the valid values, subtracted before the sums for precision.
+    z_shift: f64,
+}
+
+/// Row sums of one tile: `mask[p]` = sum over u of s^p M, `data[p]` = sum of s^p M z.
+struct RowSums {
+    mask: [Vec<f64>; 5],
+    data: [Vec<f64>; 3],
+}
+
+impl<'a> Fitter<'a> {
+    fn new(values: ArrayView2<'a, f64>, geometry: &GridGeometry, spec: &WindowSpec) -> Result<Self> {
+        let half = spec.half();
+        let valid: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+        let z_shift = if valid.is_empty() {
+            0.0
+        } else {
+            valid.iter().sum::<f64>() / valid.len() as f64
+        };
+        let full = full_normal_matrix(half);
+        Ok(Self {
+            values,
+            half,
+            offsets: (-(half as isize)..=half as isize)
+                .map(|u| u as f64 / half as f64)
+                .collect(),
+            full_count: (spec.size * spec.size) as f64,
+            min_count: spec.min_count(),
+            full_inverse: full
+                .try_inverse()
+                .expect("the full-window normal matrix is positive definite"),
+            map: CoefficientMap::new(geometry, half)?,
+            z_shift,
+        })
+    }
+
+    /// Value at (row, col) as (mask, shifted z); cells outside the grid are nulls.
+    fn cell(&self, row: isize, col: usize) -> (f64, f64) {
+        let rows = self.values.nrows() as isize;
+        if row < 0 || row >= rows {
+            return (0.0, 0.0);
+        }
+        let v = self.values[(row as usize, col)];
+        if v.is_finite() {
+            (1.0, v - self.z_shift)
+        } else {
+            (0.0, 0.0)
+        }
+    }
+
+    /// Pass along each grid row `row`: the sums over u of s^p M and s^p M z.
+    fn row_sums(&self, row: isize) -> RowSums {
+        let cols = self.values.ncols();
+        let (mut mask_row, mut data_row) = (vec![0.0; cols], vec![0.0; cols]);
+        for col in 0..cols {
+            (mask_row[col], data_row[col]) = self.cell(row, col);
+        }
+        let mut sums = RowSums {
+            mask: std::array::from_fn(|_| vec![0.0; cols]),
+            data: std::array::from_fn(|_| vec![0.0; cols]),
+        };
+        let m = self.half as isize;
+        for (iu, u) in (-m..=m).enumerate() {
+            let s = self.offsets[iu];
+            let powers = [1.0, s, s * s, s * s * s, s * s * s * s];
+            let lo = (-u).max(0) as usize;
+            let hi = (cols as isize - u.max(0)).max(0) as usize;
+            for col in lo..hi {
+                let src = (col as isize + u) as usize;
+                let (mv, zv) = (mask_row[src], data_row[src]);
+                for p in 0..5 {
+                    sums.mask[p][col] += powers[p] * mv;
+                }
+                for p in 0..3 {
+                    sums.data[p][col] += powers[p] * zv;
+                }
+            }
+        }
+        sums
+    }
+
+    /// Fits output rows r0..r1.
+    fn fit_tile(&self, r0: usize, r1: usize) -> Vec<Option<Quadric>> {
+        let m = self.half;
+        let first = r0 as isize - m as isize;
+        let sums: Vec<RowSums> = (first..(r1 + m) as isize)
+            .map(|r| self.row_sums(r))
+            .collect();
+        let cols = self.values.ncols();
+        let mut out = Vec::with_capacity((r1 - r0) * cols);
+        for row in r0..r1 {
+            let window = &sums[row - r0..row - r0 + 2 * m + 1];
+            out.extend((0..cols).map(|col| self.fit_cell(window, row, col)));
+        }
+        out
+    }
+
+    /// Fits one cell from the row sums of the 2m+1 rows of its window.
+    fn fit_cell(&self, window: &[RowSums], row: usize, col: usize) -> Option<Quadric> {
+        if !self.values[(row, col)].is_finite() {
+            return None;
+        }
+        let column_sum = |line: fn(&RowSums) -> &Vec<f64>, q: usize| -> f64 {
+            window
+                .iter()
+                .zip(&self.offsets)
+                .map(|(r, &t)| t.powi(q as i32) * line(r)[col])
+                .sum()
+        };
+        let count = column_sum(|r| &r.mask[0], 0);
+        if count < self.min_count {
+            return None;
+        }
+        let data_line: [fn(&RowSums) -> &Vec<f64>; 3] = [|r| &r.data[0], |r| &r.data[1], |r| &r.data[2]];
+        let rhs = Vector6::from_fn(|k, _| {
+            let (p, q) = BASIS[k];
+            column_sum(data_line[p], q)
+        });
+        let scaled = if count == self.full_count {
+            self.full_inverse * rhs
+        } else {
+            let mask_line: [fn(&RowSums) -> &Vec<f64>; 5] = [
+                |r| &r.mask[0],
+                |r| &r.mask[1],
+                |r| &r.mask[2],
+                |r| &r.mask[3],
+                |r| &r.mask[4],
+            ];
+            let mut moments = [0.0; 15];
+            for p in 0..=4 {
+                for q in 0..=(4 - p) {
+                    moments[moment_index(p, q)] = column_sum(mask_line[p], q);
+                }
+            }
+            solve_masked(&normal_matrix(&moments), &rhs)?
+        };
+        Some(self.map.to_map(&scaled, self.z_shift))
+    }
+}
+
+/// Solves the masked normal equations, refusing singular or ill-conditioned systems.
+fn solve_masked(normal: &Matrix6<f64>, rhs: &Vector6<f64>) -> Option<Vector6<f64>> {
+    let chol = normal.cholesky()?;
+    let inverse = chol.inverse();
+    let condition = norm1(normal) * norm1(&inverse);
+    (condition.is_finite() && condition <= CONDITION_LIMIT).then(|| chol.solve(rhs))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    fn square(h: f64) -> GridGeometry {
+        GridGeometry {
+            cols: 64,
+            rows: 64,
+            geo_transform: [0.0, h, 0.0, 0.0, 0.0, -h],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        }
+    }
+
+    #[test]
+    fn moment_index_is_a_bijection_onto_15() {
+        let mut seen = [false; 15];
+        for p in 0..=4 {
+            for q in 0..=(4 - p) {
+                seen[moment_index(p, q)] = true;
+            }
+        }
+        assert!(seen.iter().all(|&s| s));
+    }
+
+    #[test]
+    fn three_by_three_kernels_match_evans() {
+        // Evans (1979) 3x3 least-squares coefficients as given in REFERENCES.md section 3
+        // (Wood 1996): rows z1 z2 z3 = north row; a = [(z1+z3+z4+z6+z7+z9)/6 - (z2+z5+z8)/3]/h^2,
+        // c = (z3+z7-z1-z9)/(4h^2), d = (z3+z6+z9-z1-z4-z7)/(6h), e = (z1+z2+z3-z7-z8-z9)/(6h).
+        let h = 10.0;
+        let k = full_window_kernels(&square(h), 3).unwrap();
+        let z = |i: usize| ((i - 1) / 3, (i - 1) % 3); // z1..z9 -> (row, col), row 0 north
+        let expect_a = [1.0 / 6.0, -1.0 / 3.0, 1.0 / 6.0];
+        for i in 1..=9 {
+            let (r, c) = z(i);
+            assert_relative_eq!(k[0][(r, c)] * h * h, expect_a[c], epsilon = 1e-12);
+            assert_relative_eq!(k[1][(r, c)] * h * h, expect_a[r], epsilon = 1e-12);
+        }
+        let (c1, c3, c7, c9) = (k[2][(0, 0)], k[2][(0, 2)], k[2][(2, 0)], k[2][(2, 2)]);
+        for (v, s) in [(c1, -1.0), (c3, 1.0), (c7, 1.0), (c9, -1.0)] {
+            assert_relative_eq!(v * 4.0 * h * h, s, epsilon = 1e-12);
+        }
+        assert_relative_eq!(k[3][(1, 2)] * 6.0 * h, 1.0, epsilon = 1e-12);
+        assert_relative_eq!(k[3][(0, 0)] * 6.0 * h, -1.0, epsilon = 1e-12);
+        assert_relative_eq!(k[4][(0, 1)] * 6.0 * h, 1.0, epsilon = 1e-12);
+        assert_relative_eq!(k[4][(2, 2)] * 6.0 * h, -1.0, epsilon = 1e-12);
+    }
+
+    #[test]
+    fn n_by_n_kernels_match_closed_forms() {
+        // REFERENCES.md section 3 [D]: S2 = m(m+1)(2m+1)/3, S4 = m(m+1)(2m+1)(3m^2+3m-1)/15;
+        // d = sum z i / (N S2 h); c = sum z i j / (S2^2 h^2);
+        // a = sum z (i^2 - S2/N) / (N (S4 - S2^2/N) h^2), j counted northward.
+        let h = 25.0;
+        for n in [5usize, 7, 9, 21] {
+            let m = (n - 1) / 2;
+            let (mf, nf) = (m as f64, n as f64);
+            let s2 = mf * (mf + 1.0) * (2.0 * mf + 1.0) / 3.0;
+            let s4 = s2 * (3.0 * mf * mf + 3.0 * mf - 1.0) / 5.0;
+            let k = full_window_kernels(&square(h), n).unwrap();
+            for r in 0..n {
+                for c in 0..n {
+                    let i = c as f64 - mf;
+                    let j = mf - r as f64;
+                    let a = (i * i - s2 / nf) / (nf * (s4 - s2 * s2 / nf) * h * h);
+                    assert_relative_eq!(k[0][(r, c)], a, epsilon = 1e-14, max_relative = 1e-9);
+                    assert_relative_eq!(k[2][(r, c)], i * j / (s2 * s2 * h * h), epsilon = 1e-14, max_relative = 1e-9);
+                    assert_relative_eq!(k[3][(r, c)], i / (nf * s2 * h), epsilon = 1e-14, max_relative = 1e-9);
+                    assert_relative_eq!(k[4][(r, c)], j / (nf * s2 * h), epsilon = 1e-14, max_relative = 1e-9);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn full_window_noise_gains_match_table() {
+        // REFERENCES.md section 3 noise gains (consistent with Florinsky 1998, IJGIS 12(1):47-61):
+        // var(z_x) h^2/s^2 = 1/6, 1/50, 1/196, 1/540; var(z_xx) h^4/s^2 = 2, 2/35, 1/147, 1/693;
+        // var(z_xy) h^4/s^2 = 1/4, 1/100, 1/784, 1/3600 for N = 3, 5, 7, 9.
+        let h = 1.0;
+        let table = [
+            (3, 1.0 / 6.0, 2.0, 0.25),
+            (5, 1.0 / 50.0, 2.0 / 35.0, 0.01),
+            (7, 1.0 / 196.0, 1.0 / 147.0, 1.0 / 784.0),
+            (9, 1.0 / 540.0, 1.0 / 693.0, 1.0 / 3600.0),
+        ];
+        for (n, zx, zxx, zxy) in table {
+            let k = full_window_kernels(&square(h), n).unwrap();
+            let ss = |w: &Array2<f64>, scale: f64| w.iter().map(|v| (v * scale).powi(2)).sum::<f64>();
+            assert_relative_eq!(ss(&k[3], 1.0), zx, max_relative = 1e-12);
+            assert_relative_eq!(ss(&k[0], 2.0), zxx, max_relative = 1e-12);
+            assert_relative_eq!(ss(&k[2], 1.0), zxy, max_relative = 1e-12);
+        }
+    }
+
+    #[test]
+    fn even_and_oversized_windows_are_refused() {
+        for n in [2usize, 4, 1, 103] {
+            let spec = WindowSpec { size: n, min_valid: 0.75 };
+            assert!(spec.validate(200, 200).is_err(), "window {n}");
+        }
+        let spec = WindowSpec { size: 9, min_valid: 0.75 };
+        assert!(spec.validate(8, 200).is_err());
+        assert!(spec.validate(9, 9).is_ok());
+    }
+
+    #[test]
+    fn collinear_valid_cells_are_refused() {
+        // Only one row valid: a quadric in two variables is not determined (linear algebra).
+        let g = square(10.0);
+        let mut v = Array2::from_elem((9, 9), f64::NAN);
+        v.row_mut(4).fill(3.0);
+        let spec = WindowSpec { size: 3, min_valid: 0.1 };
+        let field = fit_quadrics(v.view(), &g, &spec, &|_| {}).unwrap();
+        assert!(field.cells.iter().all(|c| c.is_none()));
+    }
+}

@@ -1,0 +1,1 @@
+//! Root package of the flexure workspace: integration tests and benches live here.
