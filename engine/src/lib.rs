@@ -9,3 +9,5 @@
 pub mod error;
 pub mod grid;
 pub mod window;
+pub mod curvature;
+pub mod synthetic;
