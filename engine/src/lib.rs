@@ -11,3 +11,5 @@ pub mod grid;
 pub mod window;
 pub mod curvature;
 pub mod synthetic;
+pub mod horizon;
+pub mod io;

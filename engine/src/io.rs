@@ -1,0 +1,305 @@
+//! Raster input and output through GDAL.
+//!
+//! Reading: any single-band raster GDAL opens (GeoTIFF, GDAL's XYZ text grids, ...), with a
+//! projected (or local) CRS in linear units; the declared nodata value and every NaN/inf are
+//! nulls. Writing: float32 GeoTIFF, one band per attribute, DEFLATE with the floating-point
+//! predictor, tiled 256 x 256, declared nodata, band descriptions and unit types.
+//! Every output is written under a temporary name in the target folder, read back to check it,
+//! and renamed when complete, so an interrupted run never leaves a truncated file under a final
+//! name. GDAL's own messages are captured and reported as one line instead of printed.
+
+use crate::error::{FlexureError, Result};
+use crate::grid::{Grid, GridGeometry};
+use gdal::raster::{Buffer, RasterCreationOptions};
+use gdal::spatial_ref::SpatialRef;
+use gdal::{Dataset, DriverManager, Metadata};
+use ndarray::Array2;
+use std::path::{Path, PathBuf};
+use std::sync::{Mutex, Once};
+
+/// Nodata value declared in float outputs.
+pub const NODATA: f32 = -99999.0;
+
+static GDAL_MESSAGES: Mutex<Vec<String>> = Mutex::new(Vec::new());
+static INSTALL_HANDLER: Once = Once::new();
+
+/// Routes GDAL's warnings and errors into a buffer (instead of stderr) once per process.
+fn capture_gdal_messages() {
+    INSTALL_HANDLER.call_once(|| {
+        gdal::config::set_error_handler(|kind, _code, msg| {
+            if matches!(kind, gdal::errors::CplErrType::Failure | gdal::errors::CplErrType::Fatal) {
+                if let Ok(mut m) = GDAL_MESSAGES.lock() {
+                    m.push(msg.trim().to_string());
+                }
+            }
+        });
+    });
+}
+
+/// Takes the GDAL failure messages collected since the last call.
+fn take_gdal_messages() -> Vec<String> {
+    GDAL_MESSAGES.lock().map(|mut m| std::mem::take(&mut *m)).unwrap_or_default()
+}
+
+/// Reads band 1 of a single-band raster. `assign_crs` (any definition GDAL accepts, e.g.
+/// "EPSG:32625") is used only when the file declares no CRS.
+pub fn read_grid(path: &Path, assign_crs: Option<&str>) -> Result<Grid> {
+    capture_gdal_messages();
+    if !path.is_file() {
+        return Err(FlexureError::read(path, "no such file"));
+    }
+    let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
+    if ds.raster_count() != 1 {
+        return Err(FlexureError::input(
+            path,
+            format!("has {} bands; give a single-band horizon grid", ds.raster_count()),
+        ));
+    }
+    let geometry = read_geometry(&ds, path, assign_crs)?;
+    let band = ds.rasterband(1).map_err(|e| FlexureError::read(path, e))?;
+    let nodata = band.no_data_value();
+    let size = (geometry.cols, geometry.rows);
+    let buffer = band
+        .read_as::<f64>((0, 0), size, size, None)
+        .map_err(|e| FlexureError::read(path, e))?;
+    let values = buffer
+        .to_array()
+        .map_err(|e| FlexureError::read(path, e))?
+        .mapv(|v| null_to_nan(v, nodata));
+    take_gdal_messages();
+    Ok(Grid { geometry, values })
+}
+
+fn null_to_nan(v: f64, nodata: Option<f64>) -> f64 {
+    let is_nodata = nodata.is_some_and(|nd| v == nd || (nd.is_nan() && v.is_nan()));
+    if is_nodata || !v.is_finite() {
+        f64::NAN
+    } else {
+        v
+    }
+}
+
+fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<GridGeometry> {
+    let (cols, rows) = ds.raster_size();
+    let geo_transform = ds.geo_transform().map_err(|_| {
+        FlexureError::input(path, "has no geotransform: give a georeferenced grid")
+    })?;
+    let srs = match (ds.spatial_ref(), assign_crs) {
+        (Ok(srs), _) if !srs.to_wkt().unwrap_or_default().is_empty() => srs,
+        (_, Some(def)) => SpatialRef::from_definition(def).map_err(|_| {
+            FlexureError::Parameter(format!("--crs '{def}' is not a CRS GDAL knows: give e.g. EPSG:32625"))
+        })?,
+        _ => {
+            return Err(FlexureError::input(
+                path,
+                "declares no CRS: give its projected CRS with --crs (e.g. --crs EPSG:32625)",
+            ))
+        }
+    };
+    if srs.is_geographic() {
+        return Err(FlexureError::input(
+            path,
+            "has a geographic CRS (degrees); curvature needs distances: reproject it to a projected CRS in metres or feet",
+        ));
+    }
+    let metres_per_unit = srs.linear_units();
+    if !(metres_per_unit.is_finite() && metres_per_unit > 0.0) {
+        return Err(FlexureError::input(path, "its CRS has no linear unit: give a projected CRS in metres or feet"));
+    }
+    let geometry = GridGeometry {
+        cols,
+        rows,
+        geo_transform,
+        crs_wkt: srs.to_wkt().map_err(|e| FlexureError::read(path, e))?,
+        metres_per_unit,
+    };
+    if !geometry.is_invertible() {
+        return Err(FlexureError::input(path, "has a degenerate geotransform (cells of zero area)"));
+    }
+    Ok(geometry)
+}
+
+/// One band to write: its values (NaN = null), description and unit.
+pub struct BandOut<'a> {
+    /// Band description (attribute id).
+    pub description: &'a str,
+    /// Unit type of the values.
+    pub unit: &'a str,
+    /// Values `[row, col]`.
+    pub values: Array2<f32>,
+}
+
+/// Writes a float32 multi-band GeoTIFF on `geometry` atomically (temporary name, read-back
+/// check, rename). `metadata` is written as dataset-level items of the default domain.
+pub fn write_float_geotiff(
+    path: &Path,
+    geometry: &GridGeometry,
+    bands: &[BandOut],
+    metadata: &[(String, String)],
+) -> Result<()> {
+    capture_gdal_messages();
+    let temp = temporary_path(path);
+    let written = write_bands(&temp, geometry, bands, metadata).and_then(|_| verify(&temp, geometry, bands.len()));
+    match written {
+        Ok(()) => std::fs::rename(&temp, path).map_err(|e| {
+            let _ = std::fs::remove_file(&temp);
+            FlexureError::write(path, e)
+        }),
+        Err(reason) => {
+            let _ = std::fs::remove_file(&temp);
+            Err(FlexureError::write(path, reason))
+        }
+    }
+}
+
+/// `DIR/.NAME.partial-PID.tif`: a hidden sibling of the final path.
+pub fn temporary_path(path: &Path) -> PathBuf {
+    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+    path.with_file_name(format!(".{name}.partial-{}.tif", std::process::id()))
+}
+
+fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
+    let mut messages = take_gdal_messages();
+    messages.push(e.to_string());
+    format!("{context}: {}", messages.join("; "))
+}
+
+fn write_bands(temp: &Path, geometry: &GridGeometry, bands: &[BandOut], metadata: &[(String, String)]) -> std::result::Result<(), String> {
+    take_gdal_messages();
+    let driver = DriverManager::get_driver_by_name("GTiff").map_err(|e| gdal_failure("GTiff driver", e))?;
+    let options = RasterCreationOptions::from_iter([
+        "COMPRESS=DEFLATE",
+        "PREDICTOR=3",
+        "TILED=YES",
+        "BLOCKXSIZE=256",
+        "BLOCKYSIZE=256",
+        "BIGTIFF=IF_SAFER",
+    ]);
+    let mut ds = driver
+        .create_with_band_type_with_options::<f32, _>(temp, geometry.cols, geometry.rows, bands.len(), &options)
+        .map_err(|e| gdal_failure("create", e))?;
+    ds.set_geo_transform(&geometry.geo_transform).map_err(|e| gdal_failure("geotransform", e))?;
+    let srs = SpatialRef::from_wkt(&geometry.crs_wkt).map_err(|e| gdal_failure("CRS", e))?;
+    ds.set_spatial_ref(&srs).map_err(|e| gdal_failure("CRS", e))?;
+    for (key, value) in metadata {
+        ds.set_metadata_item(key, value, "").map_err(|e| gdal_failure("metadata", e))?;
+    }
+    for (i, band) in bands.iter().enumerate() {
+        let mut rb = ds.rasterband(i + 1).map_err(|e| gdal_failure("band", e))?;
+        rb.set_description(band.description).map_err(|e| gdal_failure("band description", e))?;
+        rb.set_no_data_value(Some(NODATA as f64)).map_err(|e| gdal_failure("nodata", e))?;
+        set_unit(&rb, band.unit);
+        let data: Vec<f32> = band.values.iter().map(|&v| if v.is_finite() { v } else { NODATA }).collect();
+        let mut buffer = Buffer::new((geometry.cols, geometry.rows), data);
+        rb.write((0, 0), (geometry.cols, geometry.rows), &mut buffer).map_err(|e| gdal_failure("write", e))?;
+    }
+    ds.flush_cache().map_err(|e| gdal_failure("flush", e))?;
+    drop(ds);
+    let messages = take_gdal_messages();
+    if messages.is_empty() {
+        Ok(())
+    } else {
+        Err(messages.join("; "))
+    }
+}
+
+/// Sets a band's unit type (GDALSetRasterUnitType; the gdal crate has no safe wrapper).
+fn set_unit(band: &gdal::raster::RasterBand, unit: &str) {
+    if let Ok(c_unit) = std::ffi::CString::new(unit) {
+        // SAFETY: the band handle is valid for the lifetime of `band`; GDAL copies the string.
+        unsafe {
+            gdal_sys::GDALSetRasterUnitType(band.c_rasterband(), c_unit.as_ptr());
+        }
+    }
+}
+
+/// Reopens a written file and checks its size and band count (GDAL < 3.7 reports no error on
+/// close, so a failed write shows only here).
+fn verify(temp: &Path, geometry: &GridGeometry, bands: usize) -> std::result::Result<(), String> {
+    let ds = Dataset::open(temp).map_err(|e| gdal_failure("read-back", e))?;
+    if ds.raster_size() != (geometry.cols, geometry.rows) || ds.raster_count() != bands {
+        return Err("read-back found a different size or band count than written".into());
+    }
+    Ok(())
+}
+
+/// Checks that `dir` exists (creating it if needed) and that files can be created in it.
+pub fn prepare_output_dir(dir: &Path) -> Result<()> {
+    std::fs::create_dir_all(dir).map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
+    let probe = dir.join(format!(".flexure-write-test-{}", std::process::id()));
+    std::fs::write(&probe, b"").map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
+    let _ = std::fs::remove_file(&probe);
+    Ok(())
+}
+
+/// Refuses an output path that is one of the inputs.
+pub fn refuse_overwrite(output: &Path, inputs: &[&Path]) -> Result<()> {
+    let out = output
+        .parent()
+        .and_then(|p| p.canonicalize().ok())
+        .map(|p| p.join(output.file_name().unwrap_or_default()));
+    for input in inputs {
+        if let (Some(o), Ok(i)) = (&out, input.canonicalize()) {
+            if *o == i {
+                return Err(FlexureError::input(
+                    output,
+                    "output would overwrite an input: choose another --out folder",
+                ));
+            }
+        }
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn geometry() -> GridGeometry {
+        GridGeometry {
+            cols: 5,
+            rows: 4,
+            geo_transform: [500000.0, 25.0, 0.0, 3900000.0, 0.0, -25.0],
+            crs_wkt: SpatialRef::from_epsg(32625).unwrap().to_wkt().unwrap(),
+            metres_per_unit: 1.0,
+        }
+    }
+
+    #[test]
+    fn round_trip_keeps_values_nulls_and_georeference() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("a.tif");
+        let g = geometry();
+        let mut values = Array2::from_shape_fn((4, 5), |(r, c)| (r * 10 + c) as f32);
+        values[(1, 2)] = f32::NAN;
+        write_float_geotiff(&path, &g, &[BandOut { description: "k_mean", unit: "1/km", values }], &[]).unwrap();
+        let back = read_grid(&path, None).unwrap();
+        assert_eq!(back.geometry.geo_transform, g.geo_transform);
+        assert!(back.values[(1, 2)].is_nan());
+        assert_eq!(back.values[(3, 4)], 34.0);
+        // No temporary file is left behind.
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 1);
+    }
+
+    #[test]
+    fn unwritable_target_leaves_nothing() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("missing_sub").join("a.tif");
+        let values = Array2::zeros((4, 5));
+        let err = write_float_geotiff(&path, &geometry(), &[BandOut { description: "x", unit: "1", values }], &[]).unwrap_err();
+        assert!(err.to_string().starts_with("cannot write"), "{err}");
+        assert!(!path.exists());
+    }
+
+    #[test]
+    fn geographic_crs_is_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("geo.tif");
+        let mut g = geometry();
+        g.crs_wkt = SpatialRef::from_epsg(4326).unwrap().to_wkt().unwrap();
+        g.geo_transform = [10.0, 0.001, 0.0, 50.0, 0.0, -0.001];
+        write_float_geotiff(&path, &g, &[BandOut { description: "z", unit: "m", values: Array2::zeros((4, 5)) }], &[]).unwrap();
+        let err = read_grid(&path, None).unwrap_err().to_string();
+        assert!(err.contains("geographic"), "{err}");
+    }
+}
