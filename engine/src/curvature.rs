@@ -13,7 +13,9 @@
 //!
 //! A new attribute is one formula function and one row of [`ATTRIBUTES`].
 
-use crate::window::Quadric;
+use crate::window::{Quadric, QuadricField};
+use ndarray::Array2;
+use rayon::prelude::*;
 
 /// One attribute: its band id, unit, description and formula.
 pub struct AttributeDef {
@@ -52,6 +54,12 @@ pub fn attribute_by_id(id: &str) -> Result<&'static AttributeDef, String> {
         let known: Vec<&str> = ATTRIBUTES.iter().map(|a| a.id).collect();
         format!("unknown attribute '{id}': choose from {}", known.join(", "))
     })
+}
+
+impl std::fmt::Debug for AttributeDef {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.id)
+    }
 }
 
 impl AttributeDef {
@@ -202,6 +210,36 @@ impl LocalSurface {
         self.sloping()
             .then(|| self.d.atan2(self.e).to_degrees().rem_euclid(360.0))
     }
+}
+
+/// Evaluates `attributes` at every cell of `field` (CRS units of `metres_per_unit` metres):
+/// one `[row, col]` array per attribute in its output unit, NaN where undefined or null.
+pub fn evaluate_field(
+    field: &QuadricField,
+    attributes: &[&AttributeDef],
+    metres_per_unit: f64,
+    tolerance: FlatTolerance,
+) -> Vec<Array2<f32>> {
+    let n = attributes.len();
+    let interleaved: Vec<f32> = field
+        .cells
+        .par_iter()
+        .flat_map_iter(|cell| {
+            let surface = cell.map(|q| LocalSurface::new(&q, metres_per_unit, tolerance));
+            attributes.iter().map(move |a| {
+                surface
+                    .and_then(|s| a.evaluate(&s))
+                    .map_or(f32::NAN, |v| v as f32)
+            })
+        })
+        .collect();
+    (0..n)
+        .map(|k| {
+            Array2::from_shape_fn((field.rows, field.cols), |(r, c)| {
+                interleaved[(r * field.cols + c) * n + k]
+            })
+        })
+        .collect()
 }
 
 #[cfg(test)]

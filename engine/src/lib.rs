@@ -13,3 +13,5 @@ pub mod curvature;
 pub mod synthetic;
 pub mod horizon;
 pub mod io;
+pub mod jobs;
+pub mod demo;

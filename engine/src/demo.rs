@@ -1,0 +1,180 @@
+//! The demo scenario: the invented Tessary Basin, with two interpreted horizons built from
+//! analytic surfaces ([`crate::synthetic`]) so their true curvature is known exactly.
+//!
+//! Everything here is invented: the basin, horizon names and structures. Coordinates are in
+//! WGS 84 / UTM zone 25N (EPSG:32625) and placed over open ocean so no real place is depicted.
+//! - `orrimund_shale_top_depth.tif`: depth in metres, north-up 25 m bins; a dome, an anticline
+//!   and a syncline on a regional dip, cut by a fault with a null gap, a patch of missing picks,
+//!   and 0.4 m of white picking noise.
+//! - `kelvane_marl_twt.tif`: two-way time in ms (average velocity 3200 m/s) on a survey grid
+//!   rotated 25 degrees with 25 m x 12.5 m bins, with 0.5 ms of noise.
+
+use crate::error::{FlexureError, Result};
+use crate::grid::GridGeometry;
+use crate::horizon::Domain;
+use crate::io::{write_float_geotiff, BandOut};
+use crate::jobs::{CurvatureJob, CurvatureReport, Progress, VelocitySource};
+use crate::synthetic::{SeededNoise, Shape, Surface};
+use gdal::spatial_ref::SpatialRef;
+use ndarray::Array2;
+use std::path::{Path, PathBuf};
+
+/// EPSG code of the demo CRS (WGS 84 / UTM zone 25N).
+pub const DEMO_EPSG: u32 = 32625;
+
+/// Windows the demo runs.
+pub const DEMO_WINDOWS: [usize; 4] = [3, 5, 9, 17];
+
+/// One demo horizon: its file, truth and how it was picked.
+#[derive(Clone, Debug)]
+pub struct DemoHorizon {
+    /// File name in the demo folder.
+    pub file: &'static str,
+    /// Invented horizon name.
+    pub name: &'static str,
+    /// Domain of the stored values.
+    pub domain: Domain,
+    /// Grid the horizon is picked on.
+    pub geometry: GridGeometry,
+    /// True depth surface in metres, positive down.
+    pub surface: Surface,
+    /// Average velocity (m/s) of a time horizon.
+    pub velocity: Option<f64>,
+    /// Standard deviation of the picking noise, in the stored unit.
+    pub noise_sd: f64,
+    /// Cells closer than this (m) to a fault trace are null (the fault gap).
+    pub fault_gap: f64,
+    /// Rectangles of missing picks, (col0, row0, col1, row1) exclusive ends.
+    pub gaps: Vec<(usize, usize, usize, usize)>,
+    /// Seed of the noise.
+    pub seed: u64,
+}
+
+/// A grid whose columns run at `column_azimuth` degrees from north, rows 90 degrees clockwise
+/// from that, with bins `dx` along columns and `dy` along rows, top-left corner `origin`.
+pub fn survey_geometry(origin: (f64, f64), column_azimuth: f64, (dx, dy): (f64, f64), (cols, rows): (usize, usize)) -> GridGeometry {
+    // Sines and cosines of multiples of 90 degrees snapped to exact 0 and +-1, so north-up
+    // grids get a geotransform without round-off rotation terms.
+    let snap = |v: f64| if v.abs() < 1e-12 { 0.0 } else { v };
+    let trig = |deg: f64| {
+        let (s, c) = deg.to_radians().sin_cos();
+        (snap(s), snap(c))
+    };
+    let (sc, cc) = trig(column_azimuth);
+    let (sr, cr) = trig(column_azimuth + 90.0);
+    GridGeometry {
+        cols,
+        rows,
+        geo_transform: [origin.0, dx * sc, dy * sr, origin.1, dx * cc, dy * cr],
+        crs_wkt: SpatialRef::from_epsg(DEMO_EPSG).and_then(|s| s.to_wkt()).unwrap_or_default(),
+        metres_per_unit: 1.0,
+    }
+}
+
+/// The demo horizons of the Tessary Basin.
+pub fn demo_horizons() -> Vec<DemoHorizon> {
+    let fault = Shape::Step { origin: (483_500.0, 3_902_500.0), azimuth: 160.0, throw: 35.0 };
+    let structures = |shift: (f64, f64)| {
+        let at = |x: f64, y: f64| (x + shift.0, y + shift.1);
+        vec![
+            Shape::Quadratic { origin: at(483_000.0, 3_902_500.0), coeffs: [0.0, 0.0, 0.0, 0.015, -0.01, 0.0] },
+            Shape::GaussianDome { centre: at(482_000.0, 3_903_200.0), amplitude: 55.0, sigma: 550.0 },
+            Shape::GaussianDome { centre: at(481_200.0, 3_901_200.0), amplitude: 12.0, sigma: 180.0 },
+            Shape::Fold { origin: at(484_300.0, 3_901_500.0), axis_azimuth: 35.0, amplitude: 30.0, sigma: 350.0 },
+            Shape::Fold { origin: at(485_300.0, 3_900_700.0), axis_azimuth: 35.0, amplitude: -22.0, sigma: 300.0 },
+        ]
+    };
+    let mut upper = structures((0.0, 0.0));
+    upper.push(fault.clone());
+    let mut lower = structures((150.0, -100.0));
+    lower.push(fault);
+    vec![
+        DemoHorizon {
+            file: "orrimund_shale_top_depth.tif",
+            name: "Orrimund Shale top",
+            domain: Domain::Depth,
+            geometry: survey_geometry((480_000.0, 3_905_000.0), 90.0, (25.0, 25.0), (240, 200)),
+            surface: Surface { datum: 2450.0, shapes: upper },
+            velocity: None,
+            noise_sd: 0.4,
+            fault_gap: 30.0,
+            gaps: vec![(20, 150, 36, 166)],
+            seed: 11,
+        },
+        DemoHorizon {
+            file: "kelvane_marl_twt.tif",
+            name: "Kelvane Marl",
+            domain: Domain::Time,
+            geometry: survey_geometry((480_300.0, 3_903_800.0), 115.0, (25.0, 12.5), (180, 300)),
+            surface: Surface { datum: 3150.0, shapes: lower },
+            velocity: Some(3200.0),
+            noise_sd: 0.5,
+            fault_gap: 30.0,
+            gaps: vec![],
+            seed: 12,
+        },
+    ]
+}
+
+impl DemoHorizon {
+    /// Stored values (depth m or two-way time ms), with nulls in fault gaps and pick gaps and,
+    /// if `noise`, the seeded picking noise.
+    pub fn values(&self, noise: bool) -> Array2<f64> {
+        let g = &self.geometry;
+        let mut rng = SeededNoise::new(self.seed);
+        let to_stored = |z: f64| match self.velocity {
+            Some(v) => 2000.0 * z / v,
+            None => z,
+        };
+        Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+            let (x, y) = g.cell_centre(c, r);
+            let jitter = rng.gaussian() * self.noise_sd;
+            let in_gap = self.gaps.iter().any(|&(c0, r0, c1, r1)| (c0..c1).contains(&c) && (r0..r1).contains(&r));
+            if in_gap || self.surface.fault_distance(x, y) < self.fault_gap {
+                f64::NAN
+            } else {
+                to_stored(self.surface.eval(x, y).z) + if noise { jitter } else { 0.0 }
+            }
+        })
+    }
+}
+
+/// Writes the demo horizons into `dir` (the shipped `demo_horizons/` is made this way).
+pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
+    std::fs::create_dir_all(dir).map_err(|e| FlexureError::write(dir, e))?;
+    demo_horizons()
+        .iter()
+        .map(|h| {
+            let path = dir.join(h.file);
+            let unit = if h.domain == Domain::Time { "ms" } else { "m" };
+            let band = BandOut { description: h.name, unit, values: h.values(true).mapv(|v| v as f32) };
+            let meta = vec![("FLEXURE_DEMO".to_string(), "invented Tessary Basin scenario".to_string())];
+            write_float_geotiff(&path, &h.geometry, &[band], &meta)?;
+            Ok(path)
+        })
+        .collect()
+}
+
+/// The curvature job the demo runs on one horizon in `data_dir`, writing into `out_dir`.
+pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> CurvatureJob {
+    let mut job = CurvatureJob::new(data_dir.join(h.file), out_dir.join("curvature"), DEMO_WINDOWS.to_vec());
+    job.domain = h.domain;
+    if let Some(v) = h.velocity {
+        job.velocity = VelocitySource::Constant(v);
+    }
+    job
+}
+
+/// Runs the demo: curvature at the demo windows on every demo horizon.
+pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<Vec<CurvatureReport>> {
+    let horizons = demo_horizons();
+    for h in &horizons {
+        if !data_dir.join(h.file).is_file() {
+            return Err(FlexureError::input(
+                data_dir.join(h.file),
+                "demo horizon not found: run from the repository root or give --data DIR",
+            ));
+        }
+    }
+    horizons.iter().map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress)).collect()
+}
