@@ -12,7 +12,8 @@ use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-const CAUTION: &str = "Caution: these maps inform interpretation; they do not replace a geomechanical study. \
+const CAUTION: &str =
+    "Caution: these maps inform interpretation; they do not replace a geomechanical study. \
 Drilling and completion decisions belong to licensed professionals under local regulations.";
 
 #[derive(Parser)]
@@ -140,7 +141,8 @@ impl Bar {
             ProgressBar::hidden()
         } else {
             ProgressBar::new(0).with_style(
-                ProgressStyle::with_template("{bar:40} {pos}/{len} rows {eta}").unwrap_or_else(|_| ProgressStyle::default_bar()),
+                ProgressStyle::with_template("{bar:40} {pos}/{len} rows {eta}")
+                    .unwrap_or_else(|_| ProgressStyle::default_bar()),
             )
         };
         Self(bar)
@@ -174,17 +176,31 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
             }
         }
         Command::Demo { out, data, quiet } => {
-            let progress: Box<dyn Progress> = if quiet { Box::new(Silent) } else { Box::new(Bar::new(false)) };
+            let progress: Box<dyn Progress> = if quiet {
+                Box::new(Silent)
+            } else {
+                Box::new(Bar::new(false))
+            };
             let reports = run_demo(&data, &out, progress.as_ref())?;
             if !quiet {
                 let mut text: String = reports.iter().map(|r| r.to_string()).collect();
                 text += &format!("Demo results are in {}\n", out.join("curvature").display());
-                text += &format!("Bands of each file: {}\n", ATTRIBUTES.iter().map(|a| a.id).collect::<Vec<_>>().join(", "));
+                text += &format!(
+                    "Bands of each file: {}\n",
+                    ATTRIBUTES
+                        .iter()
+                        .map(|a| a.id)
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                );
                 say(&(text + CAUTION));
             }
         }
         Command::DemoData { out } => {
-            let written: Vec<String> = write_demo_data(&out)?.iter().map(|p| format!("wrote {}", p.display())).collect();
+            let written: Vec<String> = write_demo_data(&out)?
+                .iter()
+                .map(|p| format!("wrote {}", p.display()))
+                .collect();
             say(&written.join("\n"));
         }
     }

@@ -30,19 +30,84 @@ pub struct AttributeDef {
 
 /// The Roberts (2001) attribute set, in the band order written.
 pub const ATTRIBUTES: [AttributeDef; 13] = [
-    AttributeDef { id: "k_mean", unit: "1/km", description: "mean curvature", formula: |s| Some(s.k_mean * KM) },
-    AttributeDef { id: "k_gauss", unit: "1/km^2", description: "Gaussian curvature", formula: |s| Some(s.k_gauss * KM * KM) },
-    AttributeDef { id: "k_max", unit: "1/km", description: "maximum principal curvature", formula: |s| Some(s.k_max * KM) },
-    AttributeDef { id: "k_min", unit: "1/km", description: "minimum principal curvature", formula: |s| Some(s.k_min * KM) },
-    AttributeDef { id: "k_pos", unit: "1/km", description: "most-positive curvature", formula: |s| Some(s.k_pos() * KM) },
-    AttributeDef { id: "k_neg", unit: "1/km", description: "most-negative curvature", formula: |s| Some(s.k_neg() * KM) },
-    AttributeDef { id: "k_dip", unit: "1/km", description: "dip curvature", formula: |s| s.k_dip().map(|k| k * KM) },
-    AttributeDef { id: "k_strike", unit: "1/km", description: "strike curvature", formula: |s| s.k_strike().map(|k| k * KM) },
-    AttributeDef { id: "k_contour", unit: "1/km", description: "contour curvature", formula: |s| s.k_contour().map(|k| k * KM) },
-    AttributeDef { id: "curvedness", unit: "1/km", description: "curvedness", formula: |s| Some(s.curvedness() * KM) },
-    AttributeDef { id: "shape_index", unit: "1", description: "shape index (dome +1, bowl -1)", formula: LocalSurface::shape_index },
-    AttributeDef { id: "dip", unit: "degree", description: "dip angle", formula: |s| Some(s.dip_degrees()) },
-    AttributeDef { id: "dip_azimuth", unit: "degree", description: "down-dip azimuth from grid north", formula: LocalSurface::dip_azimuth },
+    AttributeDef {
+        id: "k_mean",
+        unit: "1/km",
+        description: "mean curvature",
+        formula: |s| Some(s.k_mean * KM),
+    },
+    AttributeDef {
+        id: "k_gauss",
+        unit: "1/km^2",
+        description: "Gaussian curvature",
+        formula: |s| Some(s.k_gauss * KM * KM),
+    },
+    AttributeDef {
+        id: "k_max",
+        unit: "1/km",
+        description: "maximum principal curvature",
+        formula: |s| Some(s.k_max * KM),
+    },
+    AttributeDef {
+        id: "k_min",
+        unit: "1/km",
+        description: "minimum principal curvature",
+        formula: |s| Some(s.k_min * KM),
+    },
+    AttributeDef {
+        id: "k_pos",
+        unit: "1/km",
+        description: "most-positive curvature",
+        formula: |s| Some(s.k_pos() * KM),
+    },
+    AttributeDef {
+        id: "k_neg",
+        unit: "1/km",
+        description: "most-negative curvature",
+        formula: |s| Some(s.k_neg() * KM),
+    },
+    AttributeDef {
+        id: "k_dip",
+        unit: "1/km",
+        description: "dip curvature",
+        formula: |s| s.k_dip().map(|k| k * KM),
+    },
+    AttributeDef {
+        id: "k_strike",
+        unit: "1/km",
+        description: "strike curvature",
+        formula: |s| s.k_strike().map(|k| k * KM),
+    },
+    AttributeDef {
+        id: "k_contour",
+        unit: "1/km",
+        description: "contour curvature",
+        formula: |s| s.k_contour().map(|k| k * KM),
+    },
+    AttributeDef {
+        id: "curvedness",
+        unit: "1/km",
+        description: "curvedness",
+        formula: |s| Some(s.curvedness() * KM),
+    },
+    AttributeDef {
+        id: "shape_index",
+        unit: "1",
+        description: "shape index (dome +1, bowl -1)",
+        formula: LocalSurface::shape_index,
+    },
+    AttributeDef {
+        id: "dip",
+        unit: "degree",
+        description: "dip angle",
+        formula: |s| Some(s.dip_degrees()),
+    },
+    AttributeDef {
+        id: "dip_azimuth",
+        unit: "degree",
+        description: "down-dip azimuth from grid north",
+        formula: LocalSurface::dip_azimuth,
+    },
 ];
 
 /// Metres per kilometre.
@@ -248,7 +313,14 @@ mod tests {
     use approx::assert_relative_eq;
 
     fn surface(a: f64, b: f64, c: f64, d: f64, e: f64) -> LocalSurface {
-        let q = Quadric { a, b, c, d, e, f: 0.0 };
+        let q = Quadric {
+            a,
+            b,
+            c,
+            d,
+            e,
+            f: 0.0,
+        };
         LocalSurface::new(&q, 1.0, FlatTolerance::EXACT)
     }
 
@@ -272,7 +344,11 @@ mod tests {
         assert_relative_eq!(s.shape_index().unwrap(), 0.929553, epsilon = 1e-6);
         // Mean curvature is the average of dip and strike curvature on a surface of
         // revolution (REFERENCES.md section 4).
-        assert_relative_eq!(s.k_mean, (s.k_dip().unwrap() + s.k_strike().unwrap()) / 2.0, max_relative = 1e-12);
+        assert_relative_eq!(
+            s.k_mean,
+            (s.k_dip().unwrap() + s.k_strike().unwrap()) / 2.0,
+            max_relative = 1e-12
+        );
     }
 
     #[test]
@@ -292,8 +368,18 @@ mod tests {
         assert_relative_eq!(cyl.k_min, 0.0, epsilon = 1e-15);
         assert_relative_eq!(cyl.shape_index().unwrap(), 0.5, epsilon = 1e-12);
         // A valley (negative cylinder) and a bowl: -0.5 and -1.
-        assert_relative_eq!(surface(-0.5 / r, 0.0, 0.0, 0.0, 0.0).shape_index().unwrap(), -0.5, epsilon = 1e-12);
-        assert_relative_eq!(surface(-0.5 / r, -0.5 / r, 0.0, 0.0, 0.0).shape_index().unwrap(), -1.0, epsilon = 1e-12);
+        assert_relative_eq!(
+            surface(-0.5 / r, 0.0, 0.0, 0.0, 0.0).shape_index().unwrap(),
+            -0.5,
+            epsilon = 1e-12
+        );
+        assert_relative_eq!(
+            surface(-0.5 / r, -0.5 / r, 0.0, 0.0, 0.0)
+                .shape_index()
+                .unwrap(),
+            -1.0,
+            epsilon = 1e-12
+        );
     }
 
     #[test]
@@ -301,12 +387,29 @@ mod tests {
         // Plane z = 0.03 x - 0.04 y (positive down): dip atan(0.05), down-dip azimuth
         // atan2(0.03, -0.04) = 143.13 deg (elementary geometry).
         let s = surface(0.0, 0.0, 0.0, 0.03, -0.04);
-        for id in ["k_mean", "k_gauss", "k_pos", "k_neg", "k_dip", "k_strike", "k_contour", "curvedness"] {
+        for id in [
+            "k_mean",
+            "k_gauss",
+            "k_pos",
+            "k_neg",
+            "k_dip",
+            "k_strike",
+            "k_contour",
+            "curvedness",
+        ] {
             assert_eq!(value(&s, id), Some(0.0), "{id}");
         }
         assert_eq!(value(&s, "shape_index"), None);
-        assert_relative_eq!(value(&s, "dip").unwrap(), 0.05f64.atan().to_degrees(), max_relative = 1e-12);
-        assert_relative_eq!(value(&s, "dip_azimuth").unwrap(), 0.03f64.atan2(-0.04).to_degrees(), max_relative = 1e-12);
+        assert_relative_eq!(
+            value(&s, "dip").unwrap(),
+            0.05f64.atan().to_degrees(),
+            max_relative = 1e-12
+        );
+        assert_relative_eq!(
+            value(&s, "dip_azimuth").unwrap(),
+            0.03f64.atan2(-0.04).to_degrees(),
+            max_relative = 1e-12
+        );
         // Flat cell: dip-dependent curvatures and azimuth undefined.
         let flat = surface(0.001, 0.001, 0.0, 0.0, 0.0);
         for id in ["k_dip", "k_strike", "k_contour", "dip_azimuth"] {
@@ -323,7 +426,14 @@ mod tests {
         assert_relative_eq!(value(&s, "k_mean").unwrap(), 0.5, max_relative = 1e-12);
         assert_relative_eq!(value(&s, "k_gauss").unwrap(), 0.25, max_relative = 1e-12);
         // The same bend on a grid in feet (radius 2000 m = 6561.7 ft) still reads 0.5 /km.
-        let q = Quadric { a: 0.5 / (r / 0.3048), b: 0.5 / (r / 0.3048), c: 0.0, d: 0.0, e: 0.0, f: 0.0 };
+        let q = Quadric {
+            a: 0.5 / (r / 0.3048),
+            b: 0.5 / (r / 0.3048),
+            c: 0.0,
+            d: 0.0,
+            e: 0.0,
+            f: 0.0,
+        };
         let feet = LocalSurface::new(&q, 0.3048, FlatTolerance::EXACT);
         assert_relative_eq!(feet.k_mean * KM, 0.5, max_relative = 1e-12);
     }

@@ -52,7 +52,12 @@ pub struct DemoHorizon {
 
 /// A grid whose columns run at `column_azimuth` degrees from north, rows 90 degrees clockwise
 /// from that, with bins `dx` along columns and `dy` along rows, top-left corner `origin`.
-pub fn survey_geometry(origin: (f64, f64), column_azimuth: f64, (dx, dy): (f64, f64), (cols, rows): (usize, usize)) -> GridGeometry {
+pub fn survey_geometry(
+    origin: (f64, f64),
+    column_azimuth: f64,
+    (dx, dy): (f64, f64),
+    (cols, rows): (usize, usize),
+) -> GridGeometry {
     // Sines and cosines of multiples of 90 degrees snapped to exact 0 and +-1, so north-up
     // grids get a geotransform without round-off rotation terms.
     let snap = |v: f64| if v.abs() < 1e-12 { 0.0 } else { v };
@@ -66,22 +71,49 @@ pub fn survey_geometry(origin: (f64, f64), column_azimuth: f64, (dx, dy): (f64, 
         cols,
         rows,
         geo_transform: [origin.0, dx * sc, dy * sr, origin.1, dx * cc, dy * cr],
-        crs_wkt: SpatialRef::from_epsg(DEMO_EPSG).and_then(|s| s.to_wkt()).unwrap_or_default(),
+        crs_wkt: SpatialRef::from_epsg(DEMO_EPSG)
+            .and_then(|s| s.to_wkt())
+            .unwrap_or_default(),
         metres_per_unit: 1.0,
     }
 }
 
 /// The demo horizons of the Tessary Basin.
 pub fn demo_horizons() -> Vec<DemoHorizon> {
-    let fault = Shape::Step { origin: (483_500.0, 3_902_500.0), azimuth: 160.0, throw: 35.0 };
+    let fault = Shape::Step {
+        origin: (483_500.0, 3_902_500.0),
+        azimuth: 160.0,
+        throw: 35.0,
+    };
     let structures = |shift: (f64, f64)| {
         let at = |x: f64, y: f64| (x + shift.0, y + shift.1);
         vec![
-            Shape::Quadratic { origin: at(483_000.0, 3_902_500.0), coeffs: [0.0, 0.0, 0.0, 0.015, -0.01, 0.0] },
-            Shape::GaussianDome { centre: at(482_000.0, 3_903_200.0), amplitude: 55.0, sigma: 550.0 },
-            Shape::GaussianDome { centre: at(481_200.0, 3_901_200.0), amplitude: 12.0, sigma: 180.0 },
-            Shape::Fold { origin: at(484_300.0, 3_901_500.0), axis_azimuth: 35.0, amplitude: 30.0, sigma: 350.0 },
-            Shape::Fold { origin: at(485_300.0, 3_900_700.0), axis_azimuth: 35.0, amplitude: -22.0, sigma: 300.0 },
+            Shape::Quadratic {
+                origin: at(483_000.0, 3_902_500.0),
+                coeffs: [0.0, 0.0, 0.0, 0.015, -0.01, 0.0],
+            },
+            Shape::GaussianDome {
+                centre: at(482_000.0, 3_903_200.0),
+                amplitude: 55.0,
+                sigma: 550.0,
+            },
+            Shape::GaussianDome {
+                centre: at(481_200.0, 3_901_200.0),
+                amplitude: 12.0,
+                sigma: 180.0,
+            },
+            Shape::Fold {
+                origin: at(484_300.0, 3_901_500.0),
+                axis_azimuth: 35.0,
+                amplitude: 30.0,
+                sigma: 350.0,
+            },
+            Shape::Fold {
+                origin: at(485_300.0, 3_900_700.0),
+                axis_azimuth: 35.0,
+                amplitude: -22.0,
+                sigma: 300.0,
+            },
         ]
     };
     let mut upper = structures((0.0, 0.0));
@@ -94,7 +126,10 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             name: "Orrimund Shale top",
             domain: Domain::Depth,
             geometry: survey_geometry((480_000.0, 3_905_000.0), 90.0, (25.0, 25.0), (240, 200)),
-            surface: Surface { datum: 2450.0, shapes: upper },
+            surface: Surface {
+                datum: 2450.0,
+                shapes: upper,
+            },
             velocity: None,
             noise_sd: 0.4,
             fault_gap: 30.0,
@@ -106,7 +141,10 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             name: "Kelvane Marl",
             domain: Domain::Time,
             geometry: survey_geometry((480_300.0, 3_903_800.0), 115.0, (25.0, 12.5), (180, 300)),
-            surface: Surface { datum: 3150.0, shapes: lower },
+            surface: Surface {
+                datum: 3150.0,
+                shapes: lower,
+            },
             velocity: Some(3200.0),
             noise_sd: 0.5,
             fault_gap: 30.0,
@@ -129,7 +167,10 @@ impl DemoHorizon {
         Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);
             let jitter = rng.gaussian() * self.noise_sd;
-            let in_gap = self.gaps.iter().any(|&(c0, r0, c1, r1)| (c0..c1).contains(&c) && (r0..r1).contains(&r));
+            let in_gap = self
+                .gaps
+                .iter()
+                .any(|&(c0, r0, c1, r1)| (c0..c1).contains(&c) && (r0..r1).contains(&r));
             if in_gap || self.surface.fault_distance(x, y) < self.fault_gap {
                 f64::NAN
             } else {
@@ -147,8 +188,15 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
         .map(|h| {
             let path = dir.join(h.file);
             let unit = if h.domain == Domain::Time { "ms" } else { "m" };
-            let band = BandOut { description: h.name, unit, values: h.values(true).mapv(|v| v as f32) };
-            let meta = vec![("FLEXURE_DEMO".to_string(), "invented Tessary Basin scenario".to_string())];
+            let band = BandOut {
+                description: h.name,
+                unit,
+                values: h.values(true).mapv(|v| v as f32),
+            };
+            let meta = vec![(
+                "FLEXURE_DEMO".to_string(),
+                "invented Tessary Basin scenario".to_string(),
+            )];
             write_float_geotiff(&path, &h.geometry, &[band], &meta)?;
             Ok(path)
         })
@@ -157,7 +205,11 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
 
 /// The curvature job the demo runs on one horizon in `data_dir`, writing into `out_dir`.
 pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> CurvatureJob {
-    let mut job = CurvatureJob::new(data_dir.join(h.file), out_dir.join("curvature"), DEMO_WINDOWS.to_vec());
+    let mut job = CurvatureJob::new(
+        data_dir.join(h.file),
+        out_dir.join("curvature"),
+        DEMO_WINDOWS.to_vec(),
+    );
     job.domain = h.domain;
     if let Some(v) = h.velocity {
         job.velocity = VelocitySource::Constant(v);
@@ -166,7 +218,11 @@ pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> C
 }
 
 /// Runs the demo: curvature at the demo windows on every demo horizon.
-pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<Vec<CurvatureReport>> {
+pub fn run_demo(
+    data_dir: &Path,
+    out_dir: &Path,
+    progress: &dyn Progress,
+) -> Result<Vec<CurvatureReport>> {
     let horizons = demo_horizons();
     for h in &horizons {
         if !data_dir.join(h.file).is_file() {
@@ -176,5 +232,8 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
             ));
         }
     }
-    horizons.iter().map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress)).collect()
+    horizons
+        .iter()
+        .map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress))
+        .collect()
 }

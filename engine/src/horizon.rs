@@ -70,7 +70,12 @@ pub fn positive_down_depth(
     }
 }
 
-fn time_to_depth(grid: &Grid, source: &Path, velocity: &Velocity, per_unit: f64) -> Result<Array2<f64>> {
+fn time_to_depth(
+    grid: &Grid,
+    source: &Path,
+    velocity: &Velocity,
+    per_unit: f64,
+) -> Result<Array2<f64>> {
     let depth = |t: f64, v: f64| {
         if v.is_finite() && v > 0.0 {
             v * t / 2000.0 * per_unit
@@ -133,16 +138,37 @@ mod tests {
         // Vertical conversion depth = V t / 2000 (common practice): 2000 ms at 3000 m/s = 3000 m,
         // which is 9842.52 ft on a grid in feet.
         let g = grid(Array2::from_elem((2, 2), 2000.0), 0.3048);
-        let d = positive_down_depth(&g, Path::new("t.tif"), Domain::Time, ZUnit::Metre, &Velocity::Constant(3000.0)).unwrap();
+        let d = positive_down_depth(
+            &g,
+            Path::new("t.tif"),
+            Domain::Time,
+            ZUnit::Metre,
+            &Velocity::Constant(3000.0),
+        )
+        .unwrap();
         assert!((d[(0, 0)] - 3000.0 / 0.3048).abs() < 1e-9);
-        let err = positive_down_depth(&g, Path::new("t.tif"), Domain::Time, ZUnit::Metre, &Velocity::None).unwrap_err();
+        let err = positive_down_depth(
+            &g,
+            Path::new("t.tif"),
+            Domain::Time,
+            ZUnit::Metre,
+            &Velocity::None,
+        )
+        .unwrap_err();
         assert!(err.to_string().contains("--velocity"));
     }
 
     #[test]
     fn elevation_is_negated_and_feet_converted() {
         let g = grid(Array2::from_elem((1, 1), 100.0), 1.0);
-        let d = positive_down_depth(&g, Path::new("e.tif"), Domain::Elevation, ZUnit::Foot, &Velocity::None).unwrap();
+        let d = positive_down_depth(
+            &g,
+            Path::new("e.tif"),
+            Domain::Elevation,
+            ZUnit::Foot,
+            &Velocity::None,
+        )
+        .unwrap();
         assert!((d[(0, 0)] + 30.48).abs() < 1e-12);
     }
 
@@ -150,7 +176,14 @@ mod tests {
     fn velocity_grid_must_share_the_grid() {
         let g = grid(Array2::from_elem((2, 2), 1000.0), 1.0);
         let v = grid(Array2::from_elem((2, 3), 2500.0), 1.0);
-        let err = positive_down_depth(&g, Path::new("t.tif"), Domain::Time, ZUnit::Metre, &Velocity::Grid(v, "v.tif".into())).unwrap_err();
+        let err = positive_down_depth(
+            &g,
+            Path::new("t.tif"),
+            Domain::Time,
+            ZUnit::Metre,
+            &Velocity::Grid(v, "v.tif".into()),
+        )
+        .unwrap_err();
         assert!(err.to_string().starts_with("v.tif:"), "{err}");
     }
 }

@@ -27,7 +27,10 @@ static INSTALL_HANDLER: Once = Once::new();
 fn capture_gdal_messages() {
     INSTALL_HANDLER.call_once(|| {
         gdal::config::set_error_handler(|kind, _code, msg| {
-            if matches!(kind, gdal::errors::CplErrType::Failure | gdal::errors::CplErrType::Fatal) {
+            if matches!(
+                kind,
+                gdal::errors::CplErrType::Failure | gdal::errors::CplErrType::Fatal
+            ) {
                 if let Ok(mut m) = GDAL_MESSAGES.lock() {
                     m.push(msg.trim().to_string());
                 }
@@ -38,7 +41,10 @@ fn capture_gdal_messages() {
 
 /// Takes the GDAL failure messages collected since the last call.
 fn take_gdal_messages() -> Vec<String> {
-    GDAL_MESSAGES.lock().map(|mut m| std::mem::take(&mut *m)).unwrap_or_default()
+    GDAL_MESSAGES
+        .lock()
+        .map(|mut m| std::mem::take(&mut *m))
+        .unwrap_or_default()
 }
 
 /// Reads band 1 of a single-band raster. `assign_crs` (any definition GDAL accepts, e.g.
@@ -52,7 +58,10 @@ pub fn read_grid(path: &Path, assign_crs: Option<&str>) -> Result<Grid> {
     if ds.raster_count() != 1 {
         return Err(FlexureError::input(
             path,
-            format!("has {} bands; give a single-band horizon grid", ds.raster_count()),
+            format!(
+                "has {} bands; give a single-band horizon grid",
+                ds.raster_count()
+            ),
         ));
     }
     let geometry = read_geometry(&ds, path, assign_crs)?;
@@ -81,13 +90,15 @@ fn null_to_nan(v: f64, nodata: Option<f64>) -> f64 {
 
 fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<GridGeometry> {
     let (cols, rows) = ds.raster_size();
-    let geo_transform = ds.geo_transform().map_err(|_| {
-        FlexureError::input(path, "has no geotransform: give a georeferenced grid")
-    })?;
+    let geo_transform = ds
+        .geo_transform()
+        .map_err(|_| FlexureError::input(path, "has no geotransform: give a georeferenced grid"))?;
     let srs = match (ds.spatial_ref(), assign_crs) {
         (Ok(srs), _) if !srs.to_wkt().unwrap_or_default().is_empty() => srs,
         (_, Some(def)) => SpatialRef::from_definition(def).map_err(|_| {
-            FlexureError::Parameter(format!("--crs '{def}' is not a CRS GDAL knows: give e.g. EPSG:32625"))
+            FlexureError::Parameter(format!(
+                "--crs '{def}' is not a CRS GDAL knows: give e.g. EPSG:32625"
+            ))
         })?,
         _ => {
             return Err(FlexureError::input(
@@ -104,7 +115,10 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
     }
     let metres_per_unit = srs.linear_units();
     if !(metres_per_unit.is_finite() && metres_per_unit > 0.0) {
-        return Err(FlexureError::input(path, "its CRS has no linear unit: give a projected CRS in metres or feet"));
+        return Err(FlexureError::input(
+            path,
+            "its CRS has no linear unit: give a projected CRS in metres or feet",
+        ));
     }
     let geometry = GridGeometry {
         cols,
@@ -114,7 +128,10 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
         metres_per_unit,
     };
     if !geometry.is_invertible() {
-        return Err(FlexureError::input(path, "has a degenerate geotransform (cells of zero area)"));
+        return Err(FlexureError::input(
+            path,
+            "has a degenerate geotransform (cells of zero area)",
+        ));
     }
     Ok(geometry)
 }
@@ -139,7 +156,8 @@ pub fn write_float_geotiff(
 ) -> Result<()> {
     capture_gdal_messages();
     let temp = temporary_path(path);
-    let written = write_bands(&temp, geometry, bands, metadata).and_then(|_| verify(&temp, geometry, bands.len()));
+    let written = write_bands(&temp, geometry, bands, metadata)
+        .and_then(|_| verify(&temp, geometry, bands.len()));
     match written {
         Ok(()) => std::fs::rename(&temp, path).map_err(|e| {
             let _ = std::fs::remove_file(&temp);
@@ -154,7 +172,10 @@ pub fn write_float_geotiff(
 
 /// `DIR/.NAME.partial-PID.tif`: a hidden sibling of the final path.
 pub fn temporary_path(path: &Path) -> PathBuf {
-    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_default();
     path.with_file_name(format!(".{name}.partial-{}.tif", std::process::id()))
 }
 
@@ -164,9 +185,15 @@ fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
     format!("{context}: {}", messages.join("; "))
 }
 
-fn write_bands(temp: &Path, geometry: &GridGeometry, bands: &[BandOut], metadata: &[(String, String)]) -> std::result::Result<(), String> {
+fn write_bands(
+    temp: &Path,
+    geometry: &GridGeometry,
+    bands: &[BandOut],
+    metadata: &[(String, String)],
+) -> std::result::Result<(), String> {
     take_gdal_messages();
-    let driver = DriverManager::get_driver_by_name("GTiff").map_err(|e| gdal_failure("GTiff driver", e))?;
+    let driver =
+        DriverManager::get_driver_by_name("GTiff").map_err(|e| gdal_failure("GTiff driver", e))?;
     let options = RasterCreationOptions::from_iter([
         "COMPRESS=DEFLATE",
         "PREDICTOR=3",
@@ -176,22 +203,38 @@ fn write_bands(temp: &Path, geometry: &GridGeometry, bands: &[BandOut], metadata
         "BIGTIFF=IF_SAFER",
     ]);
     let mut ds = driver
-        .create_with_band_type_with_options::<f32, _>(temp, geometry.cols, geometry.rows, bands.len(), &options)
+        .create_with_band_type_with_options::<f32, _>(
+            temp,
+            geometry.cols,
+            geometry.rows,
+            bands.len(),
+            &options,
+        )
         .map_err(|e| gdal_failure("create", e))?;
-    ds.set_geo_transform(&geometry.geo_transform).map_err(|e| gdal_failure("geotransform", e))?;
+    ds.set_geo_transform(&geometry.geo_transform)
+        .map_err(|e| gdal_failure("geotransform", e))?;
     let srs = SpatialRef::from_wkt(&geometry.crs_wkt).map_err(|e| gdal_failure("CRS", e))?;
-    ds.set_spatial_ref(&srs).map_err(|e| gdal_failure("CRS", e))?;
+    ds.set_spatial_ref(&srs)
+        .map_err(|e| gdal_failure("CRS", e))?;
     for (key, value) in metadata {
-        ds.set_metadata_item(key, value, "").map_err(|e| gdal_failure("metadata", e))?;
+        ds.set_metadata_item(key, value, "")
+            .map_err(|e| gdal_failure("metadata", e))?;
     }
     for (i, band) in bands.iter().enumerate() {
         let mut rb = ds.rasterband(i + 1).map_err(|e| gdal_failure("band", e))?;
-        rb.set_description(band.description).map_err(|e| gdal_failure("band description", e))?;
-        rb.set_no_data_value(Some(NODATA as f64)).map_err(|e| gdal_failure("nodata", e))?;
+        rb.set_description(band.description)
+            .map_err(|e| gdal_failure("band description", e))?;
+        rb.set_no_data_value(Some(NODATA as f64))
+            .map_err(|e| gdal_failure("nodata", e))?;
         set_unit(&rb, band.unit);
-        let data: Vec<f32> = band.values.iter().map(|&v| if v.is_finite() { v } else { NODATA }).collect();
+        let data: Vec<f32> = band
+            .values
+            .iter()
+            .map(|&v| if v.is_finite() { v } else { NODATA })
+            .collect();
         let mut buffer = Buffer::new((geometry.cols, geometry.rows), data);
-        rb.write((0, 0), (geometry.cols, geometry.rows), &mut buffer).map_err(|e| gdal_failure("write", e))?;
+        rb.write((0, 0), (geometry.cols, geometry.rows), &mut buffer)
+            .map_err(|e| gdal_failure("write", e))?;
     }
     ds.flush_cache().map_err(|e| gdal_failure("flush", e))?;
     drop(ds);
@@ -225,9 +268,11 @@ fn verify(temp: &Path, geometry: &GridGeometry, bands: usize) -> std::result::Re
 
 /// Checks that `dir` exists (creating it if needed) and that files can be created in it.
 pub fn prepare_output_dir(dir: &Path) -> Result<()> {
-    std::fs::create_dir_all(dir).map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
+    std::fs::create_dir_all(dir)
+        .map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
     let probe = dir.join(format!(".flexure-write-test-{}", std::process::id()));
-    std::fs::write(&probe, b"").map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
+    std::fs::write(&probe, b"")
+        .map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
     let _ = std::fs::remove_file(&probe);
     Ok(())
 }
@@ -272,7 +317,17 @@ mod tests {
         let g = geometry();
         let mut values = Array2::from_shape_fn((4, 5), |(r, c)| (r * 10 + c) as f32);
         values[(1, 2)] = f32::NAN;
-        write_float_geotiff(&path, &g, &[BandOut { description: "k_mean", unit: "1/km", values }], &[]).unwrap();
+        write_float_geotiff(
+            &path,
+            &g,
+            &[BandOut {
+                description: "k_mean",
+                unit: "1/km",
+                values,
+            }],
+            &[],
+        )
+        .unwrap();
         let back = read_grid(&path, None).unwrap();
         assert_eq!(back.geometry.geo_transform, g.geo_transform);
         assert!(back.values[(1, 2)].is_nan());
@@ -286,7 +341,17 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("missing_sub").join("a.tif");
         let values = Array2::zeros((4, 5));
-        let err = write_float_geotiff(&path, &geometry(), &[BandOut { description: "x", unit: "1", values }], &[]).unwrap_err();
+        let err = write_float_geotiff(
+            &path,
+            &geometry(),
+            &[BandOut {
+                description: "x",
+                unit: "1",
+                values,
+            }],
+            &[],
+        )
+        .unwrap_err();
         assert!(err.to_string().starts_with("cannot write"), "{err}");
         assert!(!path.exists());
     }
@@ -298,7 +363,17 @@ mod tests {
         let mut g = geometry();
         g.crs_wkt = SpatialRef::from_epsg(4326).unwrap().to_wkt().unwrap();
         g.geo_transform = [10.0, 0.001, 0.0, 50.0, 0.0, -0.001];
-        write_float_geotiff(&path, &g, &[BandOut { description: "z", unit: "m", values: Array2::zeros((4, 5)) }], &[]).unwrap();
+        write_float_geotiff(
+            &path,
+            &g,
+            &[BandOut {
+                description: "z",
+                unit: "m",
+                values: Array2::zeros((4, 5)),
+            }],
+            &[],
+        )
+        .unwrap();
         let err = read_grid(&path, None).unwrap_err().to_string();
         assert!(err.contains("geographic"), "{err}");
     }

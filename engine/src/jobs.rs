@@ -67,7 +67,11 @@ pub struct CurvatureJob {
 
 impl CurvatureJob {
     /// A job with the defaults: all attributes, depth in metres, min-valid 0.75.
-    pub fn new(input: impl Into<PathBuf>, out_dir: impl Into<PathBuf>, windows: Vec<usize>) -> Self {
+    pub fn new(
+        input: impl Into<PathBuf>,
+        out_dir: impl Into<PathBuf>,
+        windows: Vec<usize>,
+    ) -> Self {
         Self {
             input: input.into(),
             out_dir: out_dir.into(),
@@ -83,7 +87,11 @@ impl CurvatureJob {
 
     /// Output path of window `n`: `DIR/<input-stem>_w<NN>.tif`.
     pub fn output_path(&self, n: usize) -> PathBuf {
-        let stem = self.input.file_stem().map(|s| s.to_string_lossy().to_string()).unwrap_or_default();
+        let stem = self
+            .input
+            .file_stem()
+            .map(|s| s.to_string_lossy().to_string())
+            .unwrap_or_default();
         self.out_dir.join(format!("{stem}_w{n:02}.tif"))
     }
 
@@ -92,15 +100,25 @@ impl CurvatureJob {
         let windows = self.checked_windows()?;
         let grid = read_grid(&self.input, self.crs.as_deref())?;
         if grid.valid_count() == 0 {
-            return Err(FlexureError::input(&self.input, "every cell is null: nothing to fit"));
+            return Err(FlexureError::input(
+                &self.input,
+                "every cell is null: nothing to fit",
+            ));
         }
         for &n in &windows {
-            WindowSpec { size: n, min_valid: self.min_valid }.validate(grid.geometry.cols, grid.geometry.rows)?;
+            WindowSpec {
+                size: n,
+                min_valid: self.min_valid,
+            }
+            .validate(grid.geometry.cols, grid.geometry.rows)?;
         }
         let velocity = self.read_velocity()?;
         let depth = positive_down_depth(&grid, &self.input, self.domain, self.z_unit, &velocity)?;
         if !depth.iter().any(|v| v.is_finite()) {
-            return Err(FlexureError::input(&self.input, "no cell has both a value and a valid velocity"));
+            return Err(FlexureError::input(
+                &self.input,
+                "no cell has both a value and a valid velocity",
+            ));
         }
         prepare_output_dir(&self.out_dir)?;
         let mut inputs: Vec<&Path> = vec![&self.input];
@@ -126,7 +144,9 @@ impl CurvatureJob {
 
     fn checked_windows(&self) -> Result<Vec<usize>> {
         if self.windows.is_empty() {
-            return Err(FlexureError::Parameter("no window given: use e.g. --windows 3,5,9".into()));
+            return Err(FlexureError::Parameter(
+                "no window given: use e.g. --windows 3,5,9".into(),
+            ));
         }
         if self.attributes.is_empty() {
             return Err(FlexureError::Parameter("no attribute chosen".into()));
@@ -135,7 +155,11 @@ impl CurvatureJob {
         w.sort_unstable();
         w.dedup();
         for &n in &w {
-            WindowSpec { size: n, min_valid: self.min_valid }.validate(usize::MAX, usize::MAX)?;
+            WindowSpec {
+                size: n,
+                min_valid: self.min_valid,
+            }
+            .validate(usize::MAX, usize::MAX)?;
         }
         Ok(w)
     }
@@ -144,23 +168,51 @@ impl CurvatureJob {
         Ok(match &self.velocity {
             VelocitySource::None => Velocity::None,
             VelocitySource::Constant(v) => Velocity::Constant(*v),
-            VelocitySource::Grid(p) => Velocity::Grid(read_grid(p, self.crs.as_deref())?, p.clone()),
+            VelocitySource::Grid(p) => {
+                Velocity::Grid(read_grid(p, self.crs.as_deref())?, p.clone())
+            }
         })
     }
 
-    fn run_window(&self, grid: &Grid, depth: &Array2<f64>, n: usize, progress: &dyn Progress) -> Result<WindowReport> {
+    fn run_window(
+        &self,
+        grid: &Grid,
+        depth: &Array2<f64>,
+        n: usize,
+        progress: &dyn Progress,
+    ) -> Result<WindowReport> {
         let geometry = &grid.geometry;
-        let spec = WindowSpec { size: n, min_valid: self.min_valid };
-        let field = fit_quadrics(depth.view(), geometry, &spec, &|rows| progress.advance(rows as u64))?;
+        let spec = WindowSpec {
+            size: n,
+            min_valid: self.min_valid,
+        };
+        let field = fit_quadrics(depth.view(), geometry, &spec, &|rows| {
+            progress.advance(rows as u64)
+        })?;
         let (sx, sy) = geometry.spacing();
-        let tolerance = FlatTolerance::for_grid(excursion(depth), sx.min(sy), geometry.metres_per_unit);
-        let values = evaluate_field(&field, &self.attributes, geometry.metres_per_unit, tolerance);
-        let ranges = self.attributes.iter().zip(&values).map(|(a, v)| (a.id, value_range(v))).collect();
+        let tolerance =
+            FlatTolerance::for_grid(excursion(depth), sx.min(sy), geometry.metres_per_unit);
+        let values = evaluate_field(
+            &field,
+            &self.attributes,
+            geometry.metres_per_unit,
+            tolerance,
+        );
+        let ranges = self
+            .attributes
+            .iter()
+            .zip(&values)
+            .map(|(a, v)| (a.id, value_range(v)))
+            .collect();
         let bands: Vec<BandOut> = self
             .attributes
             .iter()
             .zip(values)
-            .map(|(a, values)| BandOut { description: a.id, unit: a.unit, values })
+            .map(|(a, values)| BandOut {
+                description: a.id,
+                unit: a.unit,
+                values,
+            })
             .collect();
         let path = self.output_path(n);
         write_float_geotiff(&path, geometry, &bands, &self.metadata(grid, n))?;
@@ -199,10 +251,12 @@ fn excursion(z: &Array2<f64>) -> f64 {
 
 /// (min, max) of the finite values, if any.
 fn value_range(v: &Array2<f32>) -> Option<(f32, f32)> {
-    v.iter().filter(|x| x.is_finite()).fold(None, |acc, &x| match acc {
-        None => Some((x, x)),
-        Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
-    })
+    v.iter()
+        .filter(|x| x.is_finite())
+        .fold(None, |acc, &x| match acc {
+            None => Some((x, x)),
+            Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
+        })
 }
 
 /// What a curvature job wrote.
@@ -233,9 +287,21 @@ pub struct WindowReport {
 
 impl fmt::Display for CurvatureReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        writeln!(f, "{}: {}, {:.1}% null", self.input.display(), self.grid, 100.0 * self.input_null_share)?;
+        writeln!(
+            f,
+            "{}: {}, {:.1}% null",
+            self.input.display(),
+            self.grid,
+            100.0 * self.input_null_share
+        )?;
         for w in &self.windows {
-            writeln!(f, "  window {:>3}: {} ({:.1}% null)", w.window, w.path.display(), 100.0 * w.null_share)?;
+            writeln!(
+                f,
+                "  window {:>3}: {} ({:.1}% null)",
+                w.window,
+                w.path.display(),
+                100.0 * w.null_share
+            )?;
             for (id, range) in &w.ranges {
                 match range {
                     Some((lo, hi)) => writeln!(f, "    {id:<12} {lo:>12.5} .. {hi:<12.5}")?,

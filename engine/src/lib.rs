@@ -6,12 +6,12 @@
 //! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
 //! that build the demo data and the tests.
 
+pub mod curvature;
+pub mod demo;
 pub mod error;
 pub mod grid;
-pub mod window;
-pub mod curvature;
-pub mod synthetic;
 pub mod horizon;
 pub mod io;
 pub mod jobs;
-pub mod demo;
+pub mod synthetic;
+pub mod window;

@@ -261,20 +261,45 @@ mod tests {
         let zy = (z(x, y + h) - z(x, y - h)) / (2.0 * h);
         let zxx = (z(x + h, y) - 2.0 * z(x, y) + z(x - h, y)) / (h * h);
         let zyy = (z(x, y + h) - 2.0 * z(x, y) + z(x, y - h)) / (h * h);
-        let zxy = (z(x + h, y + h) - z(x + h, y - h) - z(x - h, y + h) + z(x - h, y - h))
-            / (4.0 * h * h);
-        for (num, exact) in [(zx, d.zx), (zy, d.zy), (zxx, d.zxx), (zxy, d.zxy), (zyy, d.zyy)] {
-            assert!((num - exact).abs() < 1e-5 * (1.0 + exact.abs()), "{shape:?}: {num} vs {exact}");
+        let zxy =
+            (z(x + h, y + h) - z(x + h, y - h) - z(x - h, y + h) + z(x - h, y - h)) / (4.0 * h * h);
+        for (num, exact) in [
+            (zx, d.zx),
+            (zy, d.zy),
+            (zxx, d.zxx),
+            (zxy, d.zxy),
+            (zyy, d.zyy),
+        ] {
+            assert!(
+                (num - exact).abs() < 1e-5 * (1.0 + exact.abs()),
+                "{shape:?}: {num} vs {exact}"
+            );
         }
     }
 
     #[test]
     fn closed_form_derivatives_match_finite_differences() {
         let shapes = [
-            Shape::Quadratic { origin: (10.0, 20.0), coeffs: [0.001, -0.002, 0.0005, 0.1, -0.2, 5.0] },
-            Shape::SphereDome { centre: (0.0, 0.0), radius: 1000.0, apex: 100.0 },
-            Shape::GaussianDome { centre: (50.0, -30.0), amplitude: 40.0, sigma: 300.0 },
-            Shape::Fold { origin: (0.0, 0.0), axis_azimuth: 35.0, amplitude: -25.0, sigma: 200.0 },
+            Shape::Quadratic {
+                origin: (10.0, 20.0),
+                coeffs: [0.001, -0.002, 0.0005, 0.1, -0.2, 5.0],
+            },
+            Shape::SphereDome {
+                centre: (0.0, 0.0),
+                radius: 1000.0,
+                apex: 100.0,
+            },
+            Shape::GaussianDome {
+                centre: (50.0, -30.0),
+                amplitude: 40.0,
+                sigma: 300.0,
+            },
+            Shape::Fold {
+                origin: (0.0, 0.0),
+                axis_azimuth: 35.0,
+                amplitude: -25.0,
+                sigma: 200.0,
+            },
         ];
         for s in &shapes {
             check_derivatives(s, 120.0, -85.0);
@@ -284,7 +309,11 @@ mod tests {
     #[test]
     fn step_adds_throw_on_the_right() {
         // A north-running trace: east is its right-hand side.
-        let s = Shape::Step { origin: (0.0, 0.0), azimuth: 0.0, throw: 40.0 };
+        let s = Shape::Step {
+            origin: (0.0, 0.0),
+            azimuth: 0.0,
+            throw: 40.0,
+        };
         assert_eq!(s.eval(10.0, 0.0).z, 40.0);
         assert_eq!(s.eval(-10.0, 0.0).z, 0.0);
         assert_eq!(s.fault_distance(-10.0, 5.0), Some(10.0));
@@ -297,6 +326,9 @@ mod tests {
         let xs: Vec<f64> = (0..200_000).map(|_| n.gaussian()).collect();
         let mean = xs.iter().sum::<f64>() / xs.len() as f64;
         let var = xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / xs.len() as f64;
-        assert!(mean.abs() < 0.01 && (var - 1.0).abs() < 0.015, "{mean} {var}");
+        assert!(
+            mean.abs() < 0.01 && (var - 1.0).abs() < 0.015,
+            "{mean} {var}"
+        );
     }
 }

@@ -68,7 +68,7 @@ impl WindowSpec {
     pub fn validate(&self, cols: usize, rows: usize) -> Result<()> {
         let n = self.size;
         let (lo, hi) = WINDOW_RANGE;
-        if n % 2 == 0 || n < lo || n > hi {
+        if n.is_multiple_of(2) || n < lo || n > hi {
             return Err(FlexureError::Parameter(format!(
                 "window {n} is not allowed: use an odd number of cells from {lo} to {hi}"
             )));
@@ -288,7 +288,11 @@ struct RowSums {
 }
 
 impl<'a> Fitter<'a> {
-    fn new(values: ArrayView2<'a, f64>, geometry: &GridGeometry, spec: &WindowSpec) -> Result<Self> {
+    fn new(
+        values: ArrayView2<'a, f64>,
+        geometry: &GridGeometry,
+        spec: &WindowSpec,
+    ) -> Result<Self> {
         let half = spec.half();
         let valid: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
         let z_shift = if valid.is_empty() {
@@ -347,11 +351,11 @@ impl<'a> Fitter<'a> {
             for col in lo..hi {
                 let src = (col as isize + u) as usize;
                 let (mv, zv) = (mask_row[src], data_row[src]);
-                for p in 0..5 {
-                    sums.mask[p][col] += powers[p] * mv;
+                for (line, w) in sums.mask.iter_mut().zip(&powers) {
+                    line[col] += w * mv;
                 }
-                for p in 0..3 {
-                    sums.data[p][col] += powers[p] * zv;
+                for (line, w) in sums.data.iter_mut().zip(&powers) {
+                    line[col] += w * zv;
                 }
             }
         }
@@ -390,7 +394,8 @@ impl<'a> Fitter<'a> {
         if count < self.min_count {
             return None;
         }
-        let data_line: [fn(&RowSums) -> &Vec<f64>; 3] = [|r| &r.data[0], |r| &r.data[1], |r| &r.data[2]];
+        let data_line: [fn(&RowSums) -> &Vec<f64>; 3] =
+            [|r| &r.data[0], |r| &r.data[1], |r| &r.data[2]];
         let rhs = Vector6::from_fn(|k, _| {
             let (p, q) = BASIS[k];
             column_sum(data_line[p], q)
@@ -493,9 +498,24 @@ mod tests {
                     let j = mf - r as f64;
                     let a = (i * i - s2 / nf) / (nf * (s4 - s2 * s2 / nf) * h * h);
                     assert_relative_eq!(k[0][(r, c)], a, epsilon = 1e-14, max_relative = 1e-9);
-                    assert_relative_eq!(k[2][(r, c)], i * j / (s2 * s2 * h * h), epsilon = 1e-14, max_relative = 1e-9);
-                    assert_relative_eq!(k[3][(r, c)], i / (nf * s2 * h), epsilon = 1e-14, max_relative = 1e-9);
-                    assert_relative_eq!(k[4][(r, c)], j / (nf * s2 * h), epsilon = 1e-14, max_relative = 1e-9);
+                    assert_relative_eq!(
+                        k[2][(r, c)],
+                        i * j / (s2 * s2 * h * h),
+                        epsilon = 1e-14,
+                        max_relative = 1e-9
+                    );
+                    assert_relative_eq!(
+                        k[3][(r, c)],
+                        i / (nf * s2 * h),
+                        epsilon = 1e-14,
+                        max_relative = 1e-9
+                    );
+                    assert_relative_eq!(
+                        k[4][(r, c)],
+                        j / (nf * s2 * h),
+                        epsilon = 1e-14,
+                        max_relative = 1e-9
+                    );
                 }
             }
         }
@@ -515,7 +535,8 @@ mod tests {
         ];
         for (n, zx, zxx, zxy) in table {
             let k = full_window_kernels(&square(h), n).unwrap();
-            let ss = |w: &Array2<f64>, scale: f64| w.iter().map(|v| (v * scale).powi(2)).sum::<f64>();
+            let ss =
+                |w: &Array2<f64>, scale: f64| w.iter().map(|v| (v * scale).powi(2)).sum::<f64>();
             assert_relative_eq!(ss(&k[3], 1.0), zx, max_relative = 1e-12);
             assert_relative_eq!(ss(&k[0], 2.0), zxx, max_relative = 1e-12);
             assert_relative_eq!(ss(&k[2], 1.0), zxy, max_relative = 1e-12);
@@ -525,10 +546,16 @@ mod tests {
     #[test]
     fn even_and_oversized_windows_are_refused() {
         for n in [2usize, 4, 1, 103] {
-            let spec = WindowSpec { size: n, min_valid: 0.75 };
+            let spec = WindowSpec {
+                size: n,
+                min_valid: 0.75,
+            };
             assert!(spec.validate(200, 200).is_err(), "window {n}");
         }
-        let spec = WindowSpec { size: 9, min_valid: 0.75 };
+        let spec = WindowSpec {
+            size: 9,
+            min_valid: 0.75,
+        };
         assert!(spec.validate(8, 200).is_err());
         assert!(spec.validate(9, 9).is_ok());
     }
@@ -539,7 +566,10 @@ mod tests {
         let g = square(10.0);
         let mut v = Array2::from_elem((9, 9), f64::NAN);
         v.row_mut(4).fill(3.0);
-        let spec = WindowSpec { size: 3, min_valid: 0.1 };
+        let spec = WindowSpec {
+            size: 3,
+            min_valid: 0.1,
+        };
         let field = fit_quadrics(v.view(), &g, &spec, &|_| {}).unwrap();
         assert!(field.cells.iter().all(|c| c.is_none()));
     }

@@ -1,0 +1,34 @@
+# flexure: the two set-up commands of the README are `make demo` and `make test`.
+# Both install the system packages they need first (scripts/install-system-deps.sh).
+
+CARGO ?= cargo
+export OPENBLAS_NUM_THREADS = 1
+
+.PHONY: deps build demo demo-data test lint bench
+
+deps:
+	bash scripts/install-system-deps.sh
+
+build: deps
+	$(CARGO) build --release -p flexure-cli
+
+## Run the main job on the shipped demo horizons; results in demo_output/.
+demo: build
+	./target/release/flexure demo --out demo_output
+
+## Regenerate demo_horizons/ from its analytic definition (deterministic).
+demo-data: build
+	./target/release/flexure demo-data --out demo_horizons
+
+lint: deps
+	$(CARGO) fmt --all -- --check
+	$(CARGO) clippy --workspace --all-targets -- -D warnings
+
+## The whole test suite: formatting, lints, unit and integration tests, benches compile.
+test: lint
+	$(CARGO) test --workspace
+	$(CARGO) bench --workspace --no-run
+
+## Criterion throughput benchmarks (not part of the tests).
+bench: deps
+	$(CARGO) bench --bench curvature_throughput
