@@ -11,8 +11,21 @@ use std::hint::black_box;
 const SIDE: usize = 2048;
 
 fn bench(c: &mut Criterion) {
-    let g = GridGeometry { cols: SIDE, rows: SIDE, geo_transform: [0.0, 25.0, 0.0, 0.0, 0.0, -25.0], crs_wkt: String::new(), metres_per_unit: 1.0 };
-    let surface = Surface { datum: 2000.0, shapes: vec![Shape::GaussianDome { centre: (25_600.0, -25_600.0), amplitude: 200.0, sigma: 8000.0 }] };
+    let g = GridGeometry {
+        cols: SIDE,
+        rows: SIDE,
+        geo_transform: [0.0, 25.0, 0.0, 0.0, 0.0, -25.0],
+        crs_wkt: String::new(),
+        metres_per_unit: 1.0,
+    };
+    let surface = Surface {
+        datum: 2000.0,
+        shapes: vec![Shape::GaussianDome {
+            centre: (25_600.0, -25_600.0),
+            amplitude: 200.0,
+            sigma: 8000.0,
+        }],
+    };
     let full = surface.sample(&g);
     let mut rng = SeededNoise::new(5);
     let holed = full.mapv(|v| if rng.uniform() < 0.1 { f64::NAN } else { v });
@@ -23,7 +36,10 @@ fn bench(c: &mut Criterion) {
     group.throughput(Throughput::Elements((SIDE * SIDE) as u64));
     for n in [3usize, 9, 33] {
         for (label, values) in [("full", &full), ("nulls10", &holed)] {
-            let spec = WindowSpec { size: n, min_valid: 0.75 };
+            let spec = WindowSpec {
+                size: n,
+                min_valid: 0.75,
+            };
             group.bench_with_input(BenchmarkId::new(label, n), &n, |b, _| {
                 b.iter(|| {
                     let field = fit_quadrics(values.view(), &g, &spec, &|_| {}).unwrap();

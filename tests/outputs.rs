@@ -15,17 +15,42 @@ use std::process::Command;
 fn write_input(dir: &Path) -> PathBuf {
     let g = survey_geometry((500_000.0, 3_900_000.0), 120.0, (20.0, 10.0), (90, 140));
     let centre = g.cell_centre(45, 70);
-    let surface = Surface { datum: 0.0, shapes: vec![Shape::SphereDome { centre, radius: 2000.0, apex: 1500.0 }] };
+    let surface = Surface {
+        datum: 0.0,
+        shapes: vec![Shape::SphereDome {
+            centre,
+            radius: 2000.0,
+            apex: 1500.0,
+        }],
+    };
     let mut values = surface.sample(&g).mapv(|v| v as f32);
     values[(10, 10)] = f32::NAN;
     let path = dir.join("dome.tif");
-    write_float_geotiff(&path, &g, &[BandOut { description: "depth", unit: "m", values }], &[]).unwrap();
+    write_float_geotiff(
+        &path,
+        &g,
+        &[BandOut {
+            description: "depth",
+            unit: "m",
+            values,
+        }],
+        &[],
+    )
+    .unwrap();
     path
 }
 
 fn gdalinfo(path: &Path) -> serde_json::Value {
-    let out = Command::new("gdalinfo").arg("-json").arg(path).output().expect("gdalinfo from gdal-bin");
-    assert!(out.status.success(), "gdalinfo failed on {}", path.display());
+    let out = Command::new("gdalinfo")
+        .arg("-json")
+        .arg(path)
+        .output()
+        .expect("gdalinfo from gdal-bin");
+    assert!(
+        out.status.success(),
+        "gdalinfo failed on {}",
+        path.display()
+    );
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
@@ -34,7 +59,11 @@ fn band_bits(path: &Path) -> Vec<Vec<u32>> {
     let (cols, rows) = ds.raster_size();
     (1..=ds.raster_count())
         .map(|b| {
-            let buf = ds.rasterband(b).unwrap().read_as::<f32>((0, 0), (cols, rows), (cols, rows), None).unwrap();
+            let buf = ds
+                .rasterband(b)
+                .unwrap()
+                .read_as::<f32>((0, 0), (cols, rows), (cols, rows), None)
+                .unwrap();
             buf.data().iter().map(|v| v.to_bits()).collect()
         })
         .collect()
@@ -45,15 +74,26 @@ fn gdal_reads_back_georeference_bands_and_values() {
     let dir = tempfile::tempdir().unwrap();
     let input = write_input(dir.path());
     let out = dir.path().join("out");
-    let report = CurvatureJob::new(&input, &out, vec![5, 3]).run(&Silent).unwrap();
-    assert_eq!(report.windows.iter().map(|w| w.window).collect::<Vec<_>>(), vec![3, 5]);
+    let report = CurvatureJob::new(&input, &out, vec![5, 3])
+        .run(&Silent)
+        .unwrap();
+    assert_eq!(
+        report.windows.iter().map(|w| w.window).collect::<Vec<_>>(),
+        vec![3, 5]
+    );
     let info_in = gdalinfo(&input);
     for n in [3, 5] {
         let path = out.join(format!("dome_w{n:02}.tif"));
         let info = gdalinfo(&path);
         assert_eq!(info["geoTransform"], info_in["geoTransform"]);
-        assert_eq!(info["coordinateSystem"]["wkt"], info_in["coordinateSystem"]["wkt"]);
-        assert!(info["coordinateSystem"]["wkt"].as_str().unwrap().contains("32625"));
+        assert_eq!(
+            info["coordinateSystem"]["wkt"],
+            info_in["coordinateSystem"]["wkt"]
+        );
+        assert!(info["coordinateSystem"]["wkt"]
+            .as_str()
+            .unwrap()
+            .contains("32625"));
         let bands = info["bands"].as_array().unwrap();
         assert_eq!(bands.len(), ATTRIBUTES.len());
         for (band, attr) in bands.iter().zip(ATTRIBUTES.iter()) {
@@ -77,7 +117,10 @@ fn gdal_reads_back_georeference_bands_and_values() {
     // The input reads back as the dome it was written as.
     assert!(read_grid(&input, None).unwrap().values[(10, 10)].is_nan());
     // Only final names are left in the folder.
-    let names: Vec<String> = std::fs::read_dir(&out).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().to_string()).collect();
+    let names: Vec<String> = std::fs::read_dir(&out)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+        .collect();
     assert!(names.iter().all(|n| !n.starts_with('.')), "{names:?}");
 }
 
@@ -87,13 +130,24 @@ fn results_do_not_depend_on_thread_count() {
     let input = write_input(dir.path());
     let run = |threads: usize| {
         let out = dir.path().join(format!("t{threads}"));
-        let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
-        pool.install(|| CurvatureJob::new(&input, &out, vec![3, 9]).run(&Silent).unwrap());
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        pool.install(|| {
+            CurvatureJob::new(&input, &out, vec![3, 9])
+                .run(&Silent)
+                .unwrap()
+        });
         out
     };
     let (one, two) = (run(1), run(2));
     for name in ["dome_w03.tif", "dome_w09.tif"] {
-        assert_eq!(band_bits(&one.join(name)), band_bits(&two.join(name)), "{name}");
+        assert_eq!(
+            band_bits(&one.join(name)),
+            band_bits(&two.join(name)),
+            "{name}"
+        );
     }
 }
 
@@ -103,6 +157,11 @@ fn shipped_demo_data_matches_its_generator() {
     write_demo_data(dir.path()).unwrap();
     let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_horizons");
     for h in demo_horizons() {
-        assert_eq!(band_bits(&dir.path().join(h.file)), band_bits(&shipped.join(h.file)), "{}: run `make demo-data`", h.file);
+        assert_eq!(
+            band_bits(&dir.path().join(h.file)),
+            band_bits(&shipped.join(h.file)),
+            "{}: run `make demo-data`",
+            h.file
+        );
     }
 }

@@ -10,27 +10,51 @@ use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
 fn flexure(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_flexure")).args(args).output().unwrap()
+    Command::new(env!("CARGO_BIN_EXE_flexure"))
+        .args(args)
+        .output()
+        .unwrap()
 }
 
 fn write(dir: &Path, name: &str, values: Array2<f32>, epsg: u32) -> PathBuf {
-    let mut g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (values.ncols(), values.nrows()));
+    let mut g = survey_geometry(
+        (500_000.0, 3_900_000.0),
+        90.0,
+        (25.0, 25.0),
+        (values.ncols(), values.nrows()),
+    );
     if epsg != 32625 {
         g.crs_wkt = SpatialRef::from_epsg(epsg).unwrap().to_wkt().unwrap();
         g.geo_transform = [10.0, 0.001, 0.0, 50.0, 0.0, -0.001];
     }
     let path = dir.join(name);
-    write_float_geotiff(&path, &g, &[BandOut { description: "z", unit: "m", values }], &[]).unwrap();
+    write_float_geotiff(
+        &path,
+        &g,
+        &[BandOut {
+            description: "z",
+            unit: "m",
+            values,
+        }],
+        &[],
+    )
+    .unwrap();
     path
 }
 
 fn bowl(cols: usize, rows: usize) -> Array2<f32> {
-    Array2::from_shape_fn((rows, cols), |(r, c)| 2000.0 + ((r as f32 - 10.0).powi(2) + (c as f32 - 12.0).powi(2)) * 0.5)
+    Array2::from_shape_fn((rows, cols), |(r, c)| {
+        2000.0 + ((r as f32 - 10.0).powi(2) + (c as f32 - 12.0).powi(2)) * 0.5
+    })
 }
 
 fn tifs_in(dir: &Path) -> Vec<String> {
     std::fs::read_dir(dir)
-        .map(|d| d.map(|e| e.unwrap().file_name().to_string_lossy().to_string()).filter(|n| n.contains("_w")).collect())
+        .map(|d| {
+            d.map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+                .filter(|n| n.contains("_w"))
+                .collect()
+        })
         .unwrap_or_default()
 }
 
@@ -40,7 +64,11 @@ fn fails(args: &[&str], out: &Path) -> String {
     let stderr = String::from_utf8_lossy(&o.stderr).to_string();
     assert_eq!(o.status.code(), Some(1), "args {args:?}: stderr {stderr}");
     assert!(!stderr.contains("panicked"), "{stderr}");
-    assert_eq!(stderr.trim_end().lines().count(), 1, "one line expected: {stderr}");
+    assert_eq!(
+        stderr.trim_end().lines().count(),
+        1,
+        "one line expected: {stderr}"
+    );
     assert!(stderr.starts_with("flexure: error: "), "{stderr}");
     assert!(tifs_in(out).is_empty(), "outputs left: {:?}", tifs_in(out));
     stderr
@@ -51,14 +79,34 @@ fn curvature_writes_one_file_per_window_and_a_summary() {
     let dir = tempfile::tempdir().unwrap();
     let input = write(dir.path(), "h.tif", bowl(30, 25), 32625);
     let out = dir.path().join("out");
-    let o = flexure(&["curvature", input.to_str().unwrap(), "--out", out.to_str().unwrap(), "--windows", "3,5", "--attributes", "k_mean,dip"]);
+    let o = flexure(&[
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--windows",
+        "3,5",
+        "--attributes",
+        "k_mean,dip",
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let stdout = String::from_utf8_lossy(&o.stdout);
-    assert!(stdout.contains("window   3") && stdout.contains("k_mean") && stdout.contains("Caution"), "{stdout}");
+    assert!(
+        stdout.contains("window   3") && stdout.contains("k_mean") && stdout.contains("Caution"),
+        "{stdout}"
+    );
     let mut files = tifs_in(&out);
     files.sort();
     assert_eq!(files, vec!["h_w03.tif", "h_w05.tif"]);
-    let quiet = flexure(&["curvature", input.to_str().unwrap(), "--out", out.to_str().unwrap(), "--windows", "3", "--quiet"]);
+    let quiet = flexure(&[
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--windows",
+        "3",
+        "--quiet",
+    ]);
     assert!(quiet.status.success() && quiet.stdout.is_empty());
 }
 
@@ -71,7 +119,12 @@ fn bad_inputs_fail_cleanly() {
     let nulls = write(d, "nulls.tif", Array2::from_elem((20, 20), f32::NAN), 32625);
     let geographic = write(d, "geo.tif", bowl(30, 25), 4326);
     let other_grid = write(d, "vel.tif", Array2::from_elem((10, 10), 3000.0), 32625);
-    let clash = write(d, "good_w03.tif", Array2::from_elem((25, 30), 3000.0), 32625);
+    let clash = write(
+        d,
+        "good_w03.tif",
+        Array2::from_elem((25, 30), 3000.0),
+        32625,
+    );
     let corrupt = d.join("corrupt.tif");
     std::fs::write(&corrupt, b"II*\0 this is not a tiff").unwrap();
     let blocker = d.join("a_file");
@@ -81,23 +134,94 @@ fn bad_inputs_fail_cleanly() {
     let blocked = blocker.join("sub");
     let cases: Vec<(Vec<&str>, &str)> = vec![
         (vec!["curvature", "missing.tif", "--out", o], "missing.tif"),
-        (vec!["curvature", corrupt.to_str().unwrap(), "--out", o], "corrupt.tif"),
-        (vec!["curvature", nulls.to_str().unwrap(), "--out", o], "every cell is null"),
-        (vec!["curvature", tiny.to_str().unwrap(), "--out", o, "--windows", "5"], "larger than the grid"),
+        (
+            vec!["curvature", corrupt.to_str().unwrap(), "--out", o],
+            "corrupt.tif",
+        ),
+        (
+            vec!["curvature", nulls.to_str().unwrap(), "--out", o],
+            "every cell is null",
+        ),
+        (
+            vec![
+                "curvature",
+                tiny.to_str().unwrap(),
+                "--out",
+                o,
+                "--windows",
+                "5",
+            ],
+            "larger than the grid",
+        ),
         (vec!["curvature", g, "--out", o, "--windows", "4"], "odd"),
         (vec!["curvature", g, "--out", o, "--windows", "103"], "odd"),
-        (vec!["curvature", geographic.to_str().unwrap(), "--out", o], "geographic"),
-        (vec!["curvature", g, "--out", o, "--domain", "time"], "--velocity"),
-        (vec!["curvature", g, "--out", o, "--domain", "time", "--velocity-grid", other_grid.to_str().unwrap()], "velocity grid"),
-        (vec!["curvature", g, "--out", o, "--attributes", "k_mean,k_wobble"], "k_wobble"),
-        (vec!["curvature", g, "--out", blocked.to_str().unwrap()], "writable"),
-        (vec!["curvature", g, "--out", d.to_str().unwrap(), "--windows", "3", "--domain", "time", "--velocity-grid", clash.to_str().unwrap()], "overwrite"),
-        (vec!["curvature", g, "--out", o, "--min-valid", "1.5"], "min-valid"),
+        (
+            vec!["curvature", geographic.to_str().unwrap(), "--out", o],
+            "geographic",
+        ),
+        (
+            vec!["curvature", g, "--out", o, "--domain", "time"],
+            "--velocity",
+        ),
+        (
+            vec![
+                "curvature",
+                g,
+                "--out",
+                o,
+                "--domain",
+                "time",
+                "--velocity-grid",
+                other_grid.to_str().unwrap(),
+            ],
+            "velocity grid",
+        ),
+        (
+            vec![
+                "curvature",
+                g,
+                "--out",
+                o,
+                "--attributes",
+                "k_mean,k_wobble",
+            ],
+            "k_wobble",
+        ),
+        (
+            vec!["curvature", g, "--out", blocked.to_str().unwrap()],
+            "writable",
+        ),
+        (
+            vec![
+                "curvature",
+                g,
+                "--out",
+                d.to_str().unwrap(),
+                "--windows",
+                "3",
+                "--domain",
+                "time",
+                "--velocity-grid",
+                clash.to_str().unwrap(),
+            ],
+            "overwrite",
+        ),
+        (
+            vec!["curvature", g, "--out", o, "--min-valid", "1.5"],
+            "min-valid",
+        ),
     ];
     for (args, expect) in cases {
-        let target = if args.contains(&d.to_str().unwrap()) { d.join("none") } else { out.clone() };
+        let target = if args.contains(&d.to_str().unwrap()) {
+            d.join("none")
+        } else {
+            out.clone()
+        };
         let msg = fails(&args, &target);
-        assert!(msg.contains(expect), "{args:?}: expected '{expect}' in {msg}");
+        assert!(
+            msg.contains(expect),
+            "{args:?}: expected '{expect}' in {msg}"
+        );
     }
     // The clashing velocity grid is untouched.
     assert!(clash.is_file());

@@ -36,7 +36,7 @@ pub const CONDITION_LIMIT: f64 = 1e6;
 pub const WINDOW_RANGE: (usize, usize) = (3, 101);
 
 /// Rows per parallel tile (fixed, so tiling never depends on the thread count).
-const TILE_ROWS: usize = 16;
+const TILE_ROWS: usize = 64;
 
 /// Exponents (p, q) of the basis functions s^p t^q, in coefficient order a, b, c, d, e, f.
 const BASIS: [(usize, usize); 6] = [(2, 0), (0, 2), (1, 1), (1, 0), (0, 1), (0, 0)];
@@ -273,6 +273,8 @@ struct Fitter<'a> {
     half: usize,
     /// s = u/m for u = -m..=m.
     offsets: Vec<f64>,
+    /// Powers 0..=4 of t = v/m for v = -m..=m.
+    row_powers: Vec<[f64; 5]>,
     full_count: f64,
     min_count: f64,
     full_inverse: Matrix6<f64>,
@@ -301,11 +303,16 @@ impl<'a> Fitter<'a> {
             valid.iter().sum::<f64>() / valid.len() as f64
         };
         let full = full_normal_matrix(half);
+        let offsets: Vec<f64> = (-(half as isize)..=half as isize)
+            .map(|u| u as f64 / half as f64)
+            .collect();
         Ok(Self {
             values,
             half,
-            offsets: (-(half as isize)..=half as isize)
-                .map(|u| u as f64 / half as f64)
+            offsets: offsets.clone(),
+            row_powers: offsets
+                .iter()
+                .map(|&t| [1.0, t, t * t, t * t * t, t * t * t * t])
                 .collect(),
             full_count: (spec.size * spec.size) as f64,
             min_count: spec.min_count(),
@@ -378,42 +385,34 @@ impl<'a> Fitter<'a> {
         out
     }
 
-    /// Fits one cell from the row sums of the 2m+1 rows of its window.
+    /// Fits one cell from the row sums of the 2m+1 rows of its window: one pass over the rows
+    /// for the count and right-hand side, a second for the mask moments only if the window
+    /// holds nulls.
     fn fit_cell(&self, window: &[RowSums], row: usize, col: usize) -> Option<Quadric> {
         if !self.values[(row, col)].is_finite() {
             return None;
         }
-        let column_sum = |line: fn(&RowSums) -> &Vec<f64>, q: usize| -> f64 {
-            window
-                .iter()
-                .zip(&self.offsets)
-                .map(|(r, &t)| t.powi(q as i32) * line(r)[col])
-                .sum()
-        };
-        let count = column_sum(|r| &r.mask[0], 0);
+        let mut count = 0.0;
+        let mut rhs = Vector6::zeros();
+        for (line, t) in window.iter().zip(&self.row_powers) {
+            count += line.mask[0][col];
+            for (k, &(p, q)) in BASIS.iter().enumerate() {
+                rhs[k] += t[q] * line.data[p][col];
+            }
+        }
         if count < self.min_count {
             return None;
         }
-        let data_line: [fn(&RowSums) -> &Vec<f64>; 3] =
-            [|r| &r.data[0], |r| &r.data[1], |r| &r.data[2]];
-        let rhs = Vector6::from_fn(|k, _| {
-            let (p, q) = BASIS[k];
-            column_sum(data_line[p], q)
-        });
         let scaled = if count == self.full_count {
             self.full_inverse * rhs
         } else {
-            let mask_line: [fn(&RowSums) -> &Vec<f64>; 5] = [
-                |r| &r.mask[0],
-                |r| &r.mask[1],
-                |r| &r.mask[2],
-                |r| &r.mask[3],
-                |r| &r.mask[4],
-            ];
             let mut moments = [0.0; 15];
-            for p in 0..=4 {
-                for q in 0..=(4 - p) {
-                    moments[moment_index(p, q)] = column_sum(mask_line[p], q);
+            for (line, t) in window.iter().zip(&self.row_powers) {
+                for p in 0..=4 {
+                    let mp = line.mask[p][col];
+                    for q in 0..=(4 - p) {
+                        moments[moment_index(p, q)] += t[q] * mp;
+                    }
                 }
             }
             solve_masked(&normal_matrix(&moments), &rhs)?

@@ -23,7 +23,14 @@ fn geometry(cols: usize, rows: usize, rotation_deg: f64, dx: f64, dy: f64) -> Gr
 fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
     let mut rng = SeededNoise::new(seed);
     let waves: Vec<[f64; 4]> = (0..5)
-        .map(|_| [rng.gaussian() * 20.0, rng.uniform() * 0.02, rng.uniform() * 0.02, rng.uniform() * 6.0])
+        .map(|_| {
+            [
+                rng.gaussian() * 20.0,
+                rng.uniform() * 0.02,
+                rng.uniform() * 0.02,
+                rng.uniform() * 6.0,
+            ]
+        })
         .collect();
     let quad: Vec<f64> = (0..5).map(|_| rng.gaussian()).collect();
     Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
@@ -32,7 +39,10 @@ fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
         let z = 2000.0
             + 1e-4 * (quad[0] * u * u + quad[1] * v * v + quad[2] * u * v)
             + 0.05 * (quad[3] * u + quad[4] * v)
-            + waves.iter().map(|w| w[0] * (w[1] * u + w[2] * v + w[3]).sin()).sum::<f64>()
+            + waves
+                .iter()
+                .map(|w| w[0] * (w[1] * u + w[2] * v + w[3]).sin())
+                .sum::<f64>()
             + rng.gaussian();
         if rng.uniform() < null_share {
             f64::NAN
@@ -44,7 +54,14 @@ fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
 
 /// Least squares of the quadric over the valid cells of one window, in map coordinates
 /// relative to the centre cell; `None` if fewer than `min_count` cells are valid.
-fn reference_fit(values: &Array2<f64>, g: &GridGeometry, col: usize, row: usize, n: usize, min_count: usize) -> Option<[f64; 5]> {
+fn reference_fit(
+    values: &Array2<f64>,
+    g: &GridGeometry,
+    col: usize,
+    row: usize,
+    n: usize,
+    min_count: usize,
+) -> Option<[f64; 5]> {
     if !values[(row, col)].is_finite() {
         return None;
     }
@@ -85,7 +102,10 @@ fn coefficients(q: &Quadric) -> [f64; 5] {
 fn compare(rotation: f64, dx: f64, dy: f64, n: usize, null_share: f64, seed: u64) {
     let g = geometry(41, 37, rotation, dx, dy);
     let values = random_values(&g, seed, null_share);
-    let spec = WindowSpec { size: n, min_valid: 0.75 };
+    let spec = WindowSpec {
+        size: n,
+        min_valid: 0.75,
+    };
     let min_count = ((0.75 * (n * n) as f64).ceil() as usize).max(6);
     let field = fit_quadrics(values.view(), &g, &spec, &|_| {}).unwrap();
     let mut pairs = Vec::new();
@@ -93,18 +113,30 @@ fn compare(rotation: f64, dx: f64, dy: f64, n: usize, null_share: f64, seed: u64
         for col in 0..g.cols {
             let fast = field.get(col, row);
             let reference = reference_fit(&values, &g, col, row, n, min_count);
-            assert_eq!(fast.is_some(), reference.is_some(), "cell ({col},{row}) window {n}: null mismatch");
+            assert_eq!(
+                fast.is_some(),
+                reference.is_some(),
+                "cell ({col},{row}) window {n}: null mismatch"
+            );
             if let (Some(f), Some(r)) = (fast, reference) {
                 pairs.push((coefficients(&f), r));
             }
         }
     }
-    assert!(pairs.len() > g.cols * g.rows / 3, "too few fitted cells to compare");
+    assert!(
+        pairs.len() > g.cols * g.rows / 3,
+        "too few fitted cells to compare"
+    );
     for k in 0..5 {
         let rms = (pairs.iter().map(|(_, r)| r[k] * r[k]).sum::<f64>() / pairs.len() as f64).sqrt();
         for (f, r) in &pairs {
             let tol = 1e-9 * r[k].abs().max(1e-3 * rms);
-            assert!((f[k] - r[k]).abs() <= tol, "coefficient {k}, window {n}: fast {} vs reference {}", f[k], r[k]);
+            assert!(
+                (f[k] - r[k]).abs() <= tol,
+                "coefficient {k}, window {n}: fast {} vs reference {}",
+                f[k],
+                r[k]
+            );
         }
     }
 }

@@ -14,19 +14,35 @@ use proptest::prelude::*;
 const SIZE: usize = 15;
 
 fn north_up(h: f64) -> GridGeometry {
-    GridGeometry { cols: SIZE, rows: SIZE, geo_transform: [0.0, h, 0.0, 0.0, 0.0, -h], crs_wkt: String::new(), metres_per_unit: 1.0 }
+    GridGeometry {
+        cols: SIZE,
+        rows: SIZE,
+        geo_transform: [0.0, h, 0.0, 0.0, 0.0, -h],
+        crs_wkt: String::new(),
+        metres_per_unit: 1.0,
+    }
 }
 
 /// The same array laid on a grid turned 90 degrees clockwise (columns run south).
 fn turned(g: &GridGeometry) -> GridGeometry {
     let t = g.geo_transform;
-    GridGeometry { geo_transform: [t[0], 0.0, t[5], t[3], -t[1], 0.0], ..g.clone() }
+    GridGeometry {
+        geo_transform: [t[0], 0.0, t[5], t[3], -t[1], 0.0],
+        ..g.clone()
+    }
 }
 
 fn centre_surface(values: &Array2<f64>, g: &GridGeometry, n: usize) -> LocalSurface {
-    let spec = WindowSpec { size: n, min_valid: 1.0 };
+    let spec = WindowSpec {
+        size: n,
+        min_valid: 1.0,
+    };
     let field = fit_quadrics(values.view(), g, &spec, &|_| {}).unwrap();
-    LocalSurface::new(&field.get(SIZE / 2, SIZE / 2).unwrap(), 1.0, FlatTolerance::EXACT)
+    LocalSurface::new(
+        &field.get(SIZE / 2, SIZE / 2).unwrap(),
+        1.0,
+        FlatTolerance::EXACT,
+    )
 }
 
 fn close(a: f64, b: f64, scale: f64) -> bool {
