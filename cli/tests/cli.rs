@@ -226,3 +226,41 @@ fn bad_inputs_fail_cleanly() {
     // The clashing velocity grid is untouched.
     assert!(clash.is_file());
 }
+
+#[test]
+fn xyz_text_grid_is_read_with_an_assigned_crs() {
+    // GDAL's XYZ driver (gdal.org, "XYZ -- ASCII Gridded XYZ"): one "x y z" line per cell,
+    // rows in order, equal spacing. It carries no CRS, so --crs supplies it.
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("pick.xyz");
+    let mut text = String::new();
+    for r in 0..20 {
+        for c in 0..24 {
+            let (x, y) = (500_012.5 + 25.0 * c as f64, 3_900_487.5 - 25.0 * r as f64);
+            let z = 2000.0 + 0.001 * ((x - 500_300.0).powi(2) + (y - 3_900_250.0).powi(2));
+            text += &format!("{x} {y} {z}\n");
+        }
+    }
+    std::fs::write(&path, text).unwrap();
+    let out = dir.path().join("out");
+    let (p, o) = (path.to_str().unwrap(), out.to_str().unwrap());
+    let msg = fails(&["curvature", p, "--out", o, "--windows", "3"], &out);
+    assert!(msg.contains("--crs"), "{msg}");
+    let ok = flexure(&[
+        "curvature",
+        p,
+        "--out",
+        o,
+        "--windows",
+        "3",
+        "--crs",
+        "EPSG:32625",
+        "--quiet",
+    ]);
+    assert!(
+        ok.status.success(),
+        "{}",
+        String::from_utf8_lossy(&ok.stderr)
+    );
+    assert_eq!(tifs_in(&out), vec!["pick_w03.tif"]);
+}
