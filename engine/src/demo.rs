@@ -7,7 +7,7 @@
 //!   and a syncline on a regional dip, cut by a fault with a null gap, a patch of missing picks,
 //!   and 0.4 m of white picking noise.
 //! - `kelvane_marl_twt.tif`: two-way time in ms (average velocity 3200 m/s) on a survey grid
-//!   rotated 25 degrees with 25 m x 12.5 m bins, with 0.5 ms of noise.
+//!   rotated 25 degrees with 25 m x 12.5 m bins, with 0.25 ms of noise.
 
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -146,7 +146,7 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
                 shapes: lower,
             },
             velocity: Some(3200.0),
-            noise_sd: 0.5,
+            noise_sd: 0.25,
             fault_gap: 30.0,
             gaps: vec![],
             seed: 12,
