@@ -286,23 +286,31 @@ pub fn evaluate_field(
     tolerance: FlatTolerance,
 ) -> Vec<Array2<f32>> {
     let n = attributes.len();
-    let interleaved: Vec<f32> = field
+    let cols = field.cols;
+    // Each row yields its bands one after another; rows are then joined band by band.
+    let rows: Vec<Vec<f32>> = field
         .cells
-        .par_iter()
-        .flat_map_iter(|cell| {
-            let surface = cell.map(|q| LocalSurface::new(&q, metres_per_unit, tolerance));
-            attributes.iter().map(move |a| {
-                surface
-                    .and_then(|s| a.evaluate(&s))
-                    .map_or(f32::NAN, |v| v as f32)
-            })
+        .par_chunks(cols)
+        .map(|row| {
+            let mut out = vec![f32::NAN; n * cols];
+            for (c, cell) in row.iter().enumerate() {
+                if let Some(q) = cell {
+                    let surface = LocalSurface::new(q, metres_per_unit, tolerance);
+                    for (k, a) in attributes.iter().enumerate() {
+                        out[k * cols + c] = a.evaluate(&surface).map_or(f32::NAN, |v| v as f32);
+                    }
+                }
+            }
+            out
         })
         .collect();
     (0..n)
         .map(|k| {
-            Array2::from_shape_fn((field.rows, field.cols), |(r, c)| {
-                interleaved[(r * field.cols + c) * n + k]
-            })
+            let mut band = Vec::with_capacity(field.rows * cols);
+            for row in &rows {
+                band.extend_from_slice(&row[k * cols..(k + 1) * cols]);
+            }
+            Array2::from_shape_vec((field.rows, cols), band).expect("rows x cols values")
         })
         .collect()
 }

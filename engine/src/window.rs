@@ -128,15 +128,17 @@ pub fn fit_quadrics(
     spec.validate(cols, rows)?;
     let fitter = Fitter::new(values, geometry, spec)?;
     let tiles: Vec<usize> = (0..rows).step_by(TILE_ROWS).collect();
-    let cells: Vec<Option<Quadric>> = tiles
+    let per_tile: Vec<Vec<Option<Quadric>>> = tiles
         .par_iter()
-        .flat_map_iter(|&r0| {
+        .map(|&r0| {
             let r1 = (r0 + TILE_ROWS).min(rows);
             let out = fitter.fit_tile(r0, r1);
             progress(r1 - r0);
             out
         })
         .collect();
+    let mut cells = Vec::with_capacity(rows * cols);
+    per_tile.into_iter().for_each(|t| cells.extend(t));
     Ok(QuadricField { cols, rows, cells })
 }
 
