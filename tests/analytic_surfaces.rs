@@ -276,14 +276,7 @@ fn rotated_non_square_grid_agrees_with_north_up_square() {
         // The exact local surface from the closed-form derivatives.
         let (x, y) = square.cell_centre(sc.0, sc.1);
         let d = a_surface.eval(x, y);
-        let truth = local(&Quadric {
-            a: d.zxx / 2.0,
-            b: d.zyy / 2.0,
-            c: d.zxy,
-            d: d.zx,
-            e: d.zy,
-            f: d.z,
-        });
+        let truth = local(&d.quadric());
         assert_relative_eq!(a.k_mean, truth.k_mean, max_relative = tol);
         assert_relative_eq!(a.k_mean, b.k_mean, max_relative = tol);
         assert_relative_eq!(a.k_gauss, b.k_gauss, max_relative = 2.0 * tol);

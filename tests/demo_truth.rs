@@ -8,7 +8,7 @@ use flexure_engine::curvature::{FlatTolerance, LocalSurface};
 use flexure_engine::demo::demo_horizons;
 use flexure_engine::grid::Grid;
 use flexure_engine::horizon::{positive_down_depth, Velocity, ZUnit};
-use flexure_engine::window::{fit_quadrics, Quadric, WindowSpec};
+use flexure_engine::window::{fit_quadrics, WindowSpec};
 use std::path::Path;
 
 #[test]
@@ -47,14 +47,7 @@ fn noise_free_demo_horizons_match_their_analytic_curvature() {
                     continue;
                 };
                 let d = h.surface.eval(x, y);
-                let exact = Quadric {
-                    a: d.zxx / 2.0,
-                    b: d.zyy / 2.0,
-                    c: d.zxy,
-                    d: d.zx,
-                    e: d.zy,
-                    f: d.z,
-                };
+                let exact = d.quadric();
                 let truth = LocalSurface::new(&exact, 1.0, FlatTolerance::EXACT).k_mean;
                 let fitted = LocalSurface::new(&q, 1.0, FlatTolerance::EXACT).k_mean;
                 worst = worst.max((fitted - truth).abs());

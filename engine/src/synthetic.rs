@@ -6,6 +6,7 @@
 //! Derivatives follow from elementary calculus on each closed form.
 
 use crate::grid::GridGeometry;
+use crate::window::Quadric;
 use ndarray::Array2;
 
 /// Value and exact derivatives of a surface at a point.
@@ -17,6 +18,22 @@ pub struct Derivatives {
     pub zxx: f64,
     pub zxy: f64,
     pub zyy: f64,
+}
+
+impl Derivatives {
+    /// The osculating quadric at the point (Taylor expansion to second order): the exact local
+    /// surface a window fit approximates, `a = z_xx/2`, `b = z_yy/2`, `c = z_xy`, `d = z_x`,
+    /// `e = z_y`, `f = z`.
+    pub fn quadric(&self) -> Quadric {
+        Quadric {
+            a: self.zxx / 2.0,
+            b: self.zyy / 2.0,
+            c: self.zxy,
+            d: self.zx,
+            e: self.zy,
+            f: self.z,
+        }
+    }
 }
 
 impl std::ops::Add for Derivatives {
