@@ -4,8 +4,10 @@
 //! positive-down depth in CRS length units, [`window`] fits a local quadric at every cell,
 //! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
 //! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
-//! that build the demo data and the tests.
+//! that build the demo data and the tests. [`anisotropy`] fits the cos 2phi model of
+//! azimuth-sector traveltimes in one bin (the start of the anisotropy capability).
 
+pub mod anisotropy;
 pub mod curvature;
 pub mod demo;
 pub mod error;

@@ -1,0 +1,185 @@
+//! Azimuthal anisotropy of one bin from azimuth-sector traveltimes: weighted linear least
+//! squares of `t(phi) = A + a1 cos 2phi + a2 sin 2phi` over the valid sectors.
+//!
+//! - Magnitude `B = sqrt(a1^2 + a2^2)` (ms; half the peak-to-peak variation) and slow azimuth
+//!   `phi0 = 1/2 atan2(a2, a1) mod 180` (the azimuth of maximum time); the fast azimuth is
+//!   `phi0 + 90 mod 180`. Under the single vertical fracture set (HTI) reading of weak
+//!   anisotropy (Thomsen 1986, Geophysics 51:1954; Tsvankin 1997, Geophysics 62:614), the slow
+//!   azimuth is the fracture normal and the fast azimuth the fracture strike.
+//! - Standard errors from the least-squares covariance `s^2 (G^T W G)^-1` with
+//!   `s^2 = sum w r^2 / (n - 3)`, propagated to B and phi0 by first-order (delta-method)
+//!   propagation; for equally spaced sectors and equal weights they reduce to
+//!   `sigma_B = s sqrt(2/N)` and `sigma_phi0 = s / (B sqrt(2N))` rad.
+//! - A fit is refused (`None`) with fewer than 4 valid sectors or when the doubled azimuths do
+//!   not determine the three unknowns (e.g. sectors at 0/90/180/270 only, where sin 2phi = 0):
+//!   the 1-norm condition number of `G^T W G` above [`SECTOR_CONDITION_LIMIT`].
+
+use nalgebra::{Matrix3, Vector3};
+
+/// Largest accepted 1-norm condition number of the 3 x 3 normal matrix.
+pub const SECTOR_CONDITION_LIMIT: f64 = 1e8;
+
+/// Least number of valid sectors for a fit with one degree of freedom for the error estimate.
+pub const MIN_SECTORS: usize = 4;
+
+/// The fitted cos 2phi model of one bin. Times in ms, angles in degrees from grid north.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SectorFit {
+    /// Isotropic term A (ms).
+    pub isotropic: f64,
+    /// cos 2phi coefficient a1 (ms).
+    pub a1: f64,
+    /// sin 2phi coefficient a2 (ms).
+    pub a2: f64,
+    /// Magnitude B (ms).
+    pub magnitude: f64,
+    /// Azimuth of maximum time, 0..180 degrees.
+    pub azimuth_slow: f64,
+    /// Slow azimuth + 90, 0..180 degrees.
+    pub azimuth_fast: f64,
+    /// Weighted residual variance s^2 = sum w r^2 / (n - 3) (ms^2).
+    pub residual_variance: f64,
+    /// Weighted RMS residual sqrt(sum w r^2 / sum w) (ms).
+    pub residual_rms: f64,
+    /// Weighted coefficient of determination.
+    pub r2: f64,
+    /// Standard error of B (ms).
+    pub magnitude_stderr: f64,
+    /// Standard error of the azimuths (degrees).
+    pub azimuth_stderr: f64,
+    /// Sectors used.
+    pub n_sectors: usize,
+}
+
+/// Fits one bin from `(azimuth_deg, time_ms, weight)` samples; non-finite times and
+/// non-positive weights are skipped.
+pub fn fit_sectors(samples: &[(f64, f64, f64)]) -> Option<SectorFit> {
+    let valid: Vec<(f64, f64, f64)> = samples
+        .iter()
+        .copied()
+        .filter(|&(phi, t, w)| phi.is_finite() && t.is_finite() && w.is_finite() && w > 0.0)
+        .collect();
+    let n = valid.len();
+    if n < MIN_SECTORS {
+        return None;
+    }
+    let row = |phi: f64| {
+        let (s, c) = (2.0 * phi.to_radians()).sin_cos();
+        Vector3::new(1.0, c, s)
+    };
+    let mut normal = Matrix3::zeros();
+    let mut rhs = Vector3::zeros();
+    for &(phi, t, w) in &valid {
+        let g = row(phi);
+        normal += w * g * g.transpose();
+        rhs += w * t * g;
+    }
+    let chol = normal.cholesky()?;
+    let inverse = chol.inverse();
+    if norm1(&normal) * norm1(&inverse) > SECTOR_CONDITION_LIMIT {
+        return None;
+    }
+    let x = chol.solve(&rhs);
+    let (w_sum, rss, tss) = residual_sums(&valid, &x, row);
+    let s2 = rss / (n - 3) as f64;
+    let cov = inverse * s2;
+    let (a1, a2) = (x[1], x[2]);
+    let b2 = a1 * a1 + a2 * a2;
+    let magnitude = b2.sqrt();
+    let var_b = (a1 * a1 * cov[(1, 1)] + a2 * a2 * cov[(2, 2)] + 2.0 * a1 * a2 * cov[(1, 2)]) / b2;
+    let var_phi = (a2 * a2 * cov[(1, 1)] + a1 * a1 * cov[(2, 2)] - 2.0 * a1 * a2 * cov[(1, 2)])
+        / (4.0 * b2 * b2);
+    let slow = (0.5 * a2.atan2(a1).to_degrees()).rem_euclid(180.0);
+    Some(SectorFit {
+        isotropic: x[0],
+        a1,
+        a2,
+        magnitude,
+        azimuth_slow: slow,
+        azimuth_fast: (slow + 90.0).rem_euclid(180.0),
+        residual_variance: s2,
+        residual_rms: (rss / w_sum).sqrt(),
+        r2: if tss > 0.0 { 1.0 - rss / tss } else { f64::NAN },
+        magnitude_stderr: var_b.max(0.0).sqrt(),
+        azimuth_stderr: var_phi.max(0.0).sqrt().to_degrees(),
+        n_sectors: n,
+    })
+}
+
+/// (sum w, sum w r^2, sum w (t - weighted mean)^2).
+fn residual_sums(
+    valid: &[(f64, f64, f64)],
+    x: &Vector3<f64>,
+    row: impl Fn(f64) -> Vector3<f64>,
+) -> (f64, f64, f64) {
+    let w_sum: f64 = valid.iter().map(|s| s.2).sum();
+    let mean = valid.iter().map(|s| s.1 * s.2).sum::<f64>() / w_sum;
+    valid
+        .iter()
+        .fold((w_sum, 0.0, 0.0), |(ws, rss, tss), &(phi, t, w)| {
+            let r = t - row(phi).dot(x);
+            (ws, rss + w * r * r, tss + w * (t - mean).powi(2))
+        })
+}
+
+fn norm1(m: &Matrix3<f64>) -> f64 {
+    m.column_iter()
+        .map(|c| c.iter().map(|v| v.abs()).sum::<f64>())
+        .fold(0.0, f64::max)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    #[test]
+    fn six_sector_check_values() {
+        // REFERENCES.md section 5 [D]: N = 6, phi_k = 15 + 30k, t = 1000 + 4 cos 2(phi - 30) + eps,
+        // eps = (0.5, -0.3, 0.2, -0.4, 0.1, -0.1) ms -> A 1000.000, a1 2.17321, a2 3.53077,
+        // B 4.14598 ms, phi0 29.1938 deg, s^2 0.152222, sigma_B 0.22526 ms, sigma_phi0 1.5565 deg.
+        let eps = [0.5, -0.3, 0.2, -0.4, 0.1, -0.1];
+        let samples: Vec<(f64, f64, f64)> = (0..6)
+            .map(|k| {
+                let phi = 15.0 + 30.0 * k as f64;
+                (
+                    phi,
+                    1000.0 + 4.0 * (2.0 * (phi - 30.0f64).to_radians()).cos() + eps[k],
+                    1.0,
+                )
+            })
+            .collect();
+        let f = fit_sectors(&samples).unwrap();
+        assert_relative_eq!(f.isotropic, 1000.0, epsilon = 5e-4);
+        assert_relative_eq!(f.a1, 2.17321, epsilon = 1e-5);
+        assert_relative_eq!(f.a2, 3.53077, epsilon = 1e-5);
+        assert_relative_eq!(f.magnitude, 4.14598, epsilon = 1e-5);
+        assert_relative_eq!(f.azimuth_slow, 29.1938, epsilon = 1e-4);
+        assert_relative_eq!(f.azimuth_fast, 119.1938, epsilon = 1e-4);
+        assert_relative_eq!(f.residual_variance, 0.152222, epsilon = 1e-6);
+        assert_relative_eq!(f.magnitude_stderr, 0.22526, epsilon = 1e-5);
+        assert_relative_eq!(f.azimuth_stderr, 1.5565, epsilon = 1e-4);
+        assert_eq!(f.n_sectors, 6);
+    }
+
+    #[test]
+    fn singular_and_short_sector_sets_are_refused() {
+        // sin 2phi = 0 at 0/90/180/270: a2 is not determined (REFERENCES.md section 5).
+        let cardinal: Vec<_> = [0.0, 90.0, 180.0, 270.0]
+            .iter()
+            .map(|&p| (p, 1000.0 + p / 100.0, 1.0))
+            .collect();
+        assert!(fit_sectors(&cardinal).is_none());
+        let three: Vec<_> = [0.0, 60.0, 120.0]
+            .iter()
+            .map(|&p| (p, 1000.0, 1.0))
+            .collect();
+        assert!(fit_sectors(&three).is_none());
+        // A null sector is skipped: five valid of six still fit.
+        let mut six: Vec<_> = (0..6)
+            .map(|k| (30.0 * k as f64, 1000.0 + k as f64, 1.0))
+            .collect();
+        six[2].1 = f64::NAN;
+        assert_eq!(fit_sectors(&six).unwrap().n_sectors, 5);
+    }
+}
