@@ -128,10 +128,13 @@ impl CurvatureJob {
         for &n in &windows {
             refuse_overwrite(&self.output_path(n), &inputs)?;
         }
+        let (sx, sy) = grid.geometry.spacing();
+        let tolerance =
+            FlatTolerance::for_grid(excursion(&depth), sx.min(sy), grid.geometry.metres_per_unit);
         progress.begin((grid.geometry.rows * windows.len()) as u64);
         let reports = windows
             .iter()
-            .map(|&n| self.run_window(&grid, &depth, n, progress))
+            .map(|&n| self.run_window(&grid, &depth, tolerance, n, progress))
             .collect::<Result<Vec<_>>>();
         progress.finish();
         Ok(CurvatureReport {
@@ -178,6 +181,7 @@ impl CurvatureJob {
         &self,
         grid: &Grid,
         depth: &Array2<f64>,
+        tolerance: FlatTolerance,
         n: usize,
         progress: &dyn Progress,
     ) -> Result<WindowReport> {
@@ -189,9 +193,6 @@ impl CurvatureJob {
         let field = fit_quadrics(depth.view(), geometry, &spec, &|rows| {
             progress.advance(rows as u64)
         })?;
-        let (sx, sy) = geometry.spacing();
-        let tolerance =
-            FlatTolerance::for_grid(excursion(depth), sx.min(sy), geometry.metres_per_unit);
         let values = evaluate_field(
             &field,
             &self.attributes,

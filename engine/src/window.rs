@@ -154,9 +154,7 @@ pub fn full_window_kernels(geometry: &GridGeometry, size: usize) -> Result<[Arra
     };
     spec.validate(usize::MAX, usize::MAX)?;
     let map = CoefficientMap::new(geometry, spec.half())?;
-    let inv = full_normal_matrix(spec.half())
-        .try_inverse()
-        .expect("the full-window normal matrix is positive definite");
+    let inv = full_window_inverse(spec.half());
     let m = spec.half() as isize;
     let mut kernels: [Array2<f64>; 6] = std::array::from_fn(|_| Array2::zeros((size, size)));
     for (wr, dv) in (-m..=m).enumerate() {
@@ -199,6 +197,13 @@ fn full_normal_matrix(m: usize) -> Matrix6<f64> {
         }
     }
     normal_matrix(&moments)
+}
+
+/// Inverse of the full-window normal matrix (the fixed kernels' core).
+fn full_window_inverse(m: usize) -> Matrix6<f64> {
+    full_normal_matrix(m)
+        .try_inverse()
+        .expect("the full-window normal matrix is positive definite")
 }
 
 /// Assembles the 6 x 6 normal matrix from the 15 mask moments.
@@ -304,7 +309,6 @@ impl<'a> Fitter<'a> {
         } else {
             valid.iter().sum::<f64>() / valid.len() as f64
         };
-        let full = full_normal_matrix(half);
         let offsets: Vec<f64> = (-(half as isize)..=half as isize)
             .map(|u| u as f64 / half as f64)
             .collect();
@@ -318,9 +322,7 @@ impl<'a> Fitter<'a> {
                 .collect(),
             full_count: (spec.size * spec.size) as f64,
             min_count: spec.min_count(),
-            full_inverse: full
-                .try_inverse()
-                .expect("the full-window normal matrix is positive definite"),
+            full_inverse: full_window_inverse(half),
             map: CoefficientMap::new(geometry, half)?,
             z_shift,
         })
