@@ -71,6 +71,38 @@ impl GridGeometry {
             && self.crs_wkt == other.crs_wkt
     }
 
+    /// Map coordinates (CRS units) of the centre of the whole grid.
+    pub fn centre(&self) -> (f64, f64) {
+        let g = &self.geo_transform;
+        let (i, j) = (self.cols as f64 / 2.0, self.rows as f64 / 2.0);
+        (g[0] + i * g[1] + j * g[2], g[3] + i * g[4] + j * g[5])
+    }
+
+    /// Grid convergence at the grid centre: the angle from true north to grid north, degrees,
+    /// positive clockwise (grid north east of true north). A true azimuth converts to a grid
+    /// azimuth by subtracting it. Found numerically with PROJ through GDAL: the grid direction
+    /// of a short step due north from the centre.
+    pub fn convergence(&self) -> std::result::Result<f64, String> {
+        use gdal::spatial_ref::{AxisMappingStrategy, CoordTransform, SpatialRef};
+        let mut grid = SpatialRef::from_wkt(&self.crs_wkt).map_err(|e| e.to_string())?;
+        grid.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+        let mut geographic = grid.geog_cs().map_err(|e| e.to_string())?;
+        geographic.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+        let to_geo = CoordTransform::new(&grid, &geographic).map_err(|e| e.to_string())?;
+        let to_grid = CoordTransform::new(&geographic, &grid).map_err(|e| e.to_string())?;
+        let (x0, y0) = self.centre();
+        let (mut x, mut y, mut z) = ([x0], [y0], [0.0]);
+        to_geo
+            .transform_coords(&mut x, &mut y, &mut z)
+            .map_err(|e| e.to_string())?;
+        y[0] += 1e-4;
+        to_grid
+            .transform_coords(&mut x, &mut y, &mut z)
+            .map_err(|e| e.to_string())?;
+        let true_north_in_grid = (x[0] - x0).atan2(y[0] - y0).to_degrees();
+        Ok(-true_north_in_grid)
+    }
+
     /// One-line description: size, spacing and rotation.
     pub fn describe(&self) -> String {
         let (sx, sy) = self.spacing();
@@ -140,6 +172,39 @@ mod tests {
         assert!((sx - 25.0).abs() < 1e-12 && (sy - 12.5).abs() < 1e-12);
         assert!((g.column_axis_azimuth() - 120.0).abs() < 1e-12);
         assert!(g.is_invertible());
+    }
+
+    #[test]
+    fn convergence_matches_the_transverse_mercator_formula() {
+        // Transverse Mercator on the sphere: tan(gamma) = tan(lon - lon0) sin(lat) (Snyder 1987,
+        // Map Projections - A Working Manual, USGS PP 1395, from memory); the ellipsoidal terms
+        // are below 1e-5 degrees this close to the central meridian. UTM 25N, lon0 = -33.
+        use gdal::spatial_ref::{AxisMappingStrategy, CoordTransform, SpatialRef};
+        let mut geo = SpatialRef::from_epsg(4326).unwrap();
+        geo.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+        let mut utm = SpatialRef::from_epsg(32625).unwrap();
+        utm.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+        let t = CoordTransform::new(&geo, &utm).unwrap();
+        for (lon, lat) in [(-30.0f64, 40.0f64), (-35.5, 12.0), (-33.0, 55.0)] {
+            let (mut x, mut y, mut z) = ([lon], [lat], [0.0]);
+            t.transform_coords(&mut x, &mut y, &mut z).unwrap();
+            // A 2 x 2 grid of 10 m cells centred on the point.
+            let g = GridGeometry {
+                cols: 2,
+                rows: 2,
+                geo_transform: [x[0] - 10.0, 10.0, 0.0, y[0] + 10.0, 0.0, -10.0],
+                crs_wkt: utm.to_wkt().unwrap(),
+                metres_per_unit: 1.0,
+            };
+            let expected = ((lon + 33.0).to_radians().tan() * lat.to_radians().sin())
+                .atan()
+                .to_degrees();
+            let got = g.convergence().unwrap();
+            assert!(
+                (got - expected).abs() < 1e-4,
+                "({lon},{lat}): {got} vs {expected}"
+            );
+        }
     }
 
     #[test]

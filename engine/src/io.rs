@@ -24,7 +24,7 @@ static GDAL_MESSAGES: Mutex<Vec<String>> = Mutex::new(Vec::new());
 static INSTALL_HANDLER: Once = Once::new();
 
 /// Routes GDAL's warnings and errors into a buffer (instead of stderr) once per process.
-fn capture_gdal_messages() {
+pub(crate) fn capture_gdal_messages() {
     INSTALL_HANDLER.call_once(|| {
         gdal::config::set_error_handler(|kind, _code, msg| {
             if matches!(
@@ -40,7 +40,7 @@ fn capture_gdal_messages() {
 }
 
 /// Takes the GDAL failure messages collected since the last call.
-fn take_gdal_messages() -> Vec<String> {
+pub(crate) fn take_gdal_messages() -> Vec<String> {
     GDAL_MESSAGES
         .lock()
         .map(|mut m| std::mem::take(&mut *m))
@@ -50,33 +50,47 @@ fn take_gdal_messages() -> Vec<String> {
 /// Reads band 1 of a single-band raster. `assign_crs` (any definition GDAL accepts, e.g.
 /// "EPSG:32625") is used only when the file declares no CRS.
 pub fn read_grid(path: &Path, assign_crs: Option<&str>) -> Result<Grid> {
+    let (geometry, mut bands) = read_bands(path, assign_crs)?;
+    if bands.len() != 1 {
+        return Err(FlexureError::input(
+            path,
+            format!("has {} bands; give a single-band horizon grid", bands.len()),
+        ));
+    }
+    Ok(Grid {
+        geometry,
+        values: bands.remove(0),
+    })
+}
+
+/// Reads every band of a raster (values `[row, col]`, nodata and non-finite values as NaN)
+/// and its placement; `assign_crs` as for [`read_grid`].
+pub fn read_bands(
+    path: &Path,
+    assign_crs: Option<&str>,
+) -> Result<(GridGeometry, Vec<Array2<f64>>)> {
     capture_gdal_messages();
     if !path.is_file() {
         return Err(FlexureError::read(path, "no such file"));
     }
     let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
-    if ds.raster_count() != 1 {
-        return Err(FlexureError::input(
-            path,
-            format!(
-                "has {} bands; give a single-band horizon grid",
-                ds.raster_count()
-            ),
-        ));
-    }
     let geometry = read_geometry(&ds, path, assign_crs)?;
-    let band = ds.rasterband(1).map_err(|e| FlexureError::read(path, e))?;
-    let nodata = band.no_data_value();
     let size = (geometry.cols, geometry.rows);
-    let buffer = band
-        .read_as::<f64>((0, 0), size, size, None)
-        .map_err(|e| FlexureError::read(path, e))?;
-    let values = buffer
-        .to_array()
-        .map_err(|e| FlexureError::read(path, e))?
-        .mapv(|v| null_to_nan(v, nodata));
+    let bands = (1..=ds.raster_count())
+        .map(|i| {
+            let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
+            let nodata = band.no_data_value();
+            let buffer = band
+                .read_as::<f64>((0, 0), size, size, None)
+                .map_err(|e| FlexureError::read(path, e))?;
+            Ok(buffer
+                .to_array()
+                .map_err(|e| FlexureError::read(path, e))?
+                .mapv(|v| null_to_nan(v, nodata)))
+        })
+        .collect::<Result<Vec<_>>>()?;
     take_gdal_messages();
-    Ok(Grid { geometry, values })
+    Ok((geometry, bands))
 }
 
 fn null_to_nan(v: f64, nodata: Option<f64>) -> f64 {
@@ -110,7 +124,7 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
     if srs.is_geographic() {
         return Err(FlexureError::input(
             path,
-            "has a geographic CRS (degrees); curvature needs distances: reproject it to a projected CRS in metres or feet",
+            "has a geographic CRS (degrees); flexure needs distances: reproject it to a projected CRS in metres or feet",
         ));
     }
     let metres_per_unit = srs.linear_units();
@@ -154,32 +168,89 @@ pub fn write_float_geotiff(
     bands: &[BandOut],
     metadata: &[(String, String)],
 ) -> Result<()> {
+    stage_float_geotiff(path, geometry, bands, metadata)?.commit()
+}
+
+/// Writes and checks the GeoTIFF of [`write_float_geotiff`] under a temporary name; the caller
+/// renames it into place with [`StagedFile::commit`] (with the other outputs of the same job).
+pub fn stage_float_geotiff(
+    path: &Path,
+    geometry: &GridGeometry,
+    bands: &[BandOut],
+    metadata: &[(String, String)],
+) -> Result<StagedFile> {
     capture_gdal_messages();
-    let temp = temporary_path(path);
-    let written = write_bands(&temp, geometry, bands, metadata)
-        .and_then(|_| verify(&temp, geometry, bands.len()));
-    match written {
-        Ok(()) => std::fs::rename(&temp, path).map_err(|e| {
-            let _ = std::fs::remove_file(&temp);
-            FlexureError::write(path, e)
-        }),
-        Err(reason) => {
-            let _ = std::fs::remove_file(&temp);
-            Err(FlexureError::write(path, reason))
+    let staged = StagedFile::new(path);
+    write_bands(&staged.temp, geometry, bands, metadata)
+        .and_then(|_| verify(&staged.temp, geometry, bands.len()))
+        .map_err(|reason| FlexureError::write(path, reason))?;
+    Ok(staged)
+}
+
+/// A complete output written under a temporary name beside its final path. [`commit`]
+/// renames it into place; dropped uncommitted (an error elsewhere in the job), the temporary
+/// file is removed, so a failed run leaves neither a partial nor a final file.
+///
+/// [`commit`]: StagedFile::commit
+#[derive(Debug)]
+pub struct StagedFile {
+    temp: PathBuf,
+    target: PathBuf,
+    committed: bool,
+}
+
+impl StagedFile {
+    /// Reserves the temporary name of `target` (see [`temporary_path`]); nothing is created.
+    pub fn new(target: &Path) -> Self {
+        Self {
+            temp: temporary_path(target),
+            target: target.to_path_buf(),
+            committed: false,
+        }
+    }
+
+    /// The temporary path to write to.
+    pub fn temp(&self) -> &Path {
+        &self.temp
+    }
+
+    /// Renames the temporary file to its final name.
+    pub fn commit(mut self) -> Result<()> {
+        std::fs::rename(&self.temp, &self.target)
+            .map_err(|e| FlexureError::write(&self.target, e))?;
+        self.committed = true;
+        Ok(())
+    }
+}
+
+impl Drop for StagedFile {
+    fn drop(&mut self) {
+        if !self.committed {
+            let _ = std::fs::remove_file(&self.temp);
         }
     }
 }
 
-/// `DIR/.NAME.partial-PID.tif`: a hidden sibling of the final path.
+/// Commits every staged file, in order.
+pub fn commit_all(files: Vec<StagedFile>) -> Result<()> {
+    files.into_iter().try_for_each(StagedFile::commit)
+}
+
+/// `DIR/.NAME.partial-PID.EXT`: a hidden sibling of the final path with the same extension
+/// (some GDAL drivers check it).
 pub fn temporary_path(path: &Path) -> PathBuf {
     let name = path
         .file_name()
         .map(|n| n.to_string_lossy().to_string())
         .unwrap_or_default();
-    path.with_file_name(format!(".{name}.partial-{}.tif", std::process::id()))
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_string())
+        .unwrap_or_else(|| "tmp".into());
+    path.with_file_name(format!(".{name}.partial-{}.{ext}", std::process::id()))
 }
 
-fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
+pub(crate) fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
     let mut messages = take_gdal_messages();
     messages.push(e.to_string());
     format!("{context}: {}", messages.join("; "))

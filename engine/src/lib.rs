@@ -16,4 +16,5 @@ pub mod horizon;
 pub mod io;
 pub mod jobs;
 pub mod synthetic;
+pub mod vectors;
 pub mod window;

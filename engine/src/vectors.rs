@@ -1,0 +1,301 @@
+//! Vector output through GDAL's OGR drivers: line features with numeric properties, written
+//! as an OGC GeoPackage in the grid's own CRS or as RFC 7946 GeoJSON (WGS84 longitude /
+//! latitude, reprojected by GDAL/PROJ). Files are staged under a temporary name, read back
+//! (feature count) and committed by the caller, as for rasters.
+
+use crate::error::{FlexureError, Result};
+use crate::io::{capture_gdal_messages, gdal_failure, take_gdal_messages, StagedFile};
+use gdal::spatial_ref::{AxisMappingStrategy, CoordTransform, SpatialRef};
+use gdal::vector::{
+    Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
+};
+use gdal::{Dataset, DriverManager};
+use std::path::Path;
+
+/// Output encodings of a line layer.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum VectorFormat {
+    /// OGC GeoPackage, coordinates in the grid's CRS.
+    GeoPackage,
+    /// RFC 7946 GeoJSON, coordinates reprojected to WGS84 longitude/latitude.
+    GeoJson,
+}
+
+impl VectorFormat {
+    fn driver(self) -> &'static str {
+        match self {
+            VectorFormat::GeoPackage => "GPKG",
+            VectorFormat::GeoJson => "GeoJSON",
+        }
+    }
+
+    fn layer_options(self) -> &'static [&'static str] {
+        match self {
+            VectorFormat::GeoPackage => &[],
+            VectorFormat::GeoJson => &["RFC7946=YES", "COORDINATE_PRECISION=7"],
+        }
+    }
+}
+
+/// Kind of a numeric property.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum FieldKind {
+    /// Floating point; NaN is written as null.
+    Real,
+    /// Integer (the value is rounded).
+    Integer,
+}
+
+/// A straight segment in grid CRS coordinates with one value per layer field.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LineFeature {
+    /// First end (x, y), CRS units.
+    pub start: (f64, f64),
+    /// Second end (x, y), CRS units.
+    pub end: (f64, f64),
+    /// Property values in the order of the layer's fields.
+    pub values: Vec<f64>,
+}
+
+/// Writes `features` as layer `layer` of a new file at `path` (temporary name; see
+/// [`StagedFile`]). `crs_wkt` is the CRS of the feature coordinates.
+pub fn stage_lines(
+    path: &Path,
+    format: VectorFormat,
+    crs_wkt: &str,
+    layer: &str,
+    fields: &[(&str, FieldKind)],
+    features: &[LineFeature],
+) -> Result<StagedFile> {
+    capture_gdal_messages();
+    take_gdal_messages();
+    let staged = StagedFile::new(path);
+    write_layer(staged.temp(), format, crs_wkt, layer, fields, features)
+        .and_then(|_| verify(staged.temp(), features.len()))
+        .map_err(|reason| FlexureError::write(path, reason))?;
+    Ok(staged)
+}
+
+fn write_layer(
+    temp: &Path,
+    format: VectorFormat,
+    crs_wkt: &str,
+    layer_name: &str,
+    fields: &[(&str, FieldKind)],
+    features: &[LineFeature],
+) -> std::result::Result<(), String> {
+    let mut grid_srs = SpatialRef::from_wkt(crs_wkt).map_err(|e| gdal_failure("CRS", e))?;
+    grid_srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+    let (srs, transform) = match format {
+        VectorFormat::GeoPackage => (grid_srs, None),
+        VectorFormat::GeoJson => {
+            let mut wgs84 = SpatialRef::from_epsg(4326).map_err(|e| gdal_failure("WGS84", e))?;
+            wgs84.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+            let t = CoordTransform::new(&grid_srs, &wgs84)
+                .map_err(|e| gdal_failure("reprojection to WGS84", e))?;
+            (wgs84, Some(t))
+        }
+    };
+    let driver = DriverManager::get_driver_by_name(format.driver())
+        .map_err(|e| gdal_failure("vector driver", e))?;
+    let mut ds = driver
+        .create_vector_only(temp)
+        .map_err(|e| gdal_failure("create", e))?;
+    if format == VectorFormat::GeoPackage {
+        // One SQLite transaction instead of one per feature.
+        let mut txn = ds
+            .start_transaction()
+            .map_err(|e| gdal_failure("transaction", e))?;
+        fill_layer(
+            &mut txn,
+            &srs,
+            transform.as_ref(),
+            format,
+            layer_name,
+            fields,
+            features,
+        )?;
+        txn.commit().map_err(|e| gdal_failure("commit", e))?;
+    } else {
+        fill_layer(
+            &mut ds,
+            &srs,
+            transform.as_ref(),
+            format,
+            layer_name,
+            fields,
+            features,
+        )?;
+    }
+    drop(ds);
+    let messages = take_gdal_messages();
+    if messages.is_empty() {
+        Ok(())
+    } else {
+        Err(messages.join("; "))
+    }
+}
+
+fn fill_layer(
+    ds: &mut Dataset,
+    srs: &SpatialRef,
+    transform: Option<&CoordTransform>,
+    format: VectorFormat,
+    layer_name: &str,
+    fields: &[(&str, FieldKind)],
+    features: &[LineFeature],
+) -> std::result::Result<(), String> {
+    let lyr = ds
+        .create_layer(LayerOptions {
+            name: layer_name,
+            srs: Some(srs),
+            ty: OGRwkbGeometryType::wkbLineString,
+            options: Some(format.layer_options()),
+        })
+        .map_err(|e| gdal_failure("layer", e))?;
+    let defs: Vec<(&str, u32)> = fields
+        .iter()
+        .map(|&(name, kind)| {
+            let ty = match kind {
+                FieldKind::Real => OGRFieldType::OFTReal,
+                FieldKind::Integer => OGRFieldType::OFTInteger64,
+            };
+            (name, ty)
+        })
+        .collect();
+    lyr.create_defn_fields(&defs)
+        .map_err(|e| gdal_failure("fields", e))?;
+    for f in features {
+        let mut line = Geometry::empty(OGRwkbGeometryType::wkbLineString)
+            .map_err(|e| gdal_failure("geometry", e))?;
+        line.add_point_2d(f.start);
+        line.add_point_2d(f.end);
+        if let Some(t) = transform {
+            line = line
+                .transform(t)
+                .map_err(|e| gdal_failure("reprojection", e))?;
+        }
+        let mut feature = Feature::new(lyr.defn()).map_err(|e| gdal_failure("feature", e))?;
+        feature
+            .set_geometry(line)
+            .map_err(|e| gdal_failure("geometry", e))?;
+        for (i, (&(_, kind), &v)) in fields.iter().zip(&f.values).enumerate() {
+            let set = match kind {
+                _ if !v.is_finite() => feature.set_field_null(i),
+                FieldKind::Real => feature.set_field_double(i, v),
+                FieldKind::Integer => feature.set_field_integer64(i, v.round() as i64),
+            };
+            set.map_err(|e| gdal_failure("property", e))?;
+        }
+        feature
+            .create(&lyr)
+            .map_err(|e| gdal_failure("feature", e))?;
+    }
+    Ok(())
+}
+
+/// Reopens a written file and checks it holds one layer with the expected feature count.
+fn verify(temp: &Path, count: usize) -> std::result::Result<(), String> {
+    let ds = Dataset::open(temp).map_err(|e| gdal_failure("read-back", e))?;
+    let layer = ds.layer(0).map_err(|e| gdal_failure("read-back", e))?;
+    if layer.feature_count() != count as u64 {
+        return Err(format!(
+            "read-back found {} features, {count} written",
+            layer.feature_count()
+        ));
+    }
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn utm25() -> String {
+        SpatialRef::from_epsg(32625).unwrap().to_wkt().unwrap()
+    }
+
+    fn one_line() -> Vec<LineFeature> {
+        vec![LineFeature {
+            start: (500000.0, 0.0),
+            end: (500000.0, 1000.0),
+            values: vec![2.5, f64::NAN, 7.0],
+        }]
+    }
+
+    const FIELDS: [(&str, FieldKind); 3] = [
+        ("magnitude", FieldKind::Real),
+        ("missing", FieldKind::Real),
+        ("count", FieldKind::Integer),
+    ];
+
+    #[test]
+    fn geojson_is_wgs84_lon_lat_with_properties() {
+        // UTM zone 25N: central meridian 33 W, false easting 500000 m, false northing 0 on the
+        // equator (common practice), so (500000, 0) is longitude -33, latitude 0 exactly.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("v.geojson");
+        stage_lines(
+            &path,
+            VectorFormat::GeoJson,
+            &utm25(),
+            "v",
+            &FIELDS,
+            &one_line(),
+        )
+        .unwrap()
+        .commit()
+        .unwrap();
+        let text = std::fs::read_to_string(&path).unwrap();
+        let json: serde_json::Value = serde_json::from_str(&text).unwrap();
+        let feature = &json["features"][0];
+        let start = &feature["geometry"]["coordinates"][0];
+        assert!((start[0].as_f64().unwrap() + 33.0).abs() < 1e-7, "{start}");
+        assert!(start[1].as_f64().unwrap().abs() < 1e-7, "{start}");
+        let end_lat = feature["geometry"]["coordinates"][1][1].as_f64().unwrap();
+        // 1 km north on the central meridian is about 1/111 degree of latitude.
+        assert!((end_lat - 1000.0 / 110_574.0).abs() < 1e-4, "{end_lat}");
+        assert_eq!(feature["properties"]["magnitude"], 2.5);
+        assert!(feature["properties"]["missing"].is_null());
+        assert_eq!(feature["properties"]["count"], 7);
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 1);
+    }
+
+    #[test]
+    fn geopackage_keeps_the_grid_crs() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("v.gpkg");
+        stage_lines(
+            &path,
+            VectorFormat::GeoPackage,
+            &utm25(),
+            "v",
+            &FIELDS,
+            &one_line(),
+        )
+        .unwrap()
+        .commit()
+        .unwrap();
+        let ds = Dataset::open(&path).unwrap();
+        let layer = ds.layer(0).unwrap();
+        assert_eq!(layer.spatial_ref().unwrap().auth_code().unwrap(), 32625);
+        assert_eq!(layer.feature_count(), 1);
+    }
+
+    #[test]
+    fn uncommitted_output_leaves_nothing() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("v.gpkg");
+        let staged = stage_lines(
+            &path,
+            VectorFormat::GeoPackage,
+            &utm25(),
+            "v",
+            &FIELDS,
+            &one_line(),
+        )
+        .unwrap();
+        drop(staged);
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
+    }
+}
