@@ -6,7 +6,10 @@ use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{Domain, ZUnit};
-use flexure_engine::jobs::{CurvatureJob, Progress, Silent, VelocitySource};
+use flexure_engine::jobs::{
+    AnisotropyJob, AzimuthReference, CurvatureJob, Progress, Silent, VectorAxis, VelocitySource,
+    WeightSource, HTI_CAUTION,
+};
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
@@ -17,7 +20,7 @@ const CAUTION: &str =
 Drilling and completion decisions belong to licensed professionals under local regulations.";
 
 #[derive(Parser)]
-#[command(name = "flexure", version, about = "Curvature attributes from interpreted horizon grids", after_help = CAUTION)]
+#[command(name = "flexure", version, about = "Curvature and azimuthal anisotropy from interpreted horizon and sector grids", after_help = CAUTION)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -27,7 +30,11 @@ struct Cli {
 enum Command {
     /// Fit local quadrics at each window and write the curvature attributes as GeoTIFFs.
     Curvature(CurvatureArgs),
-    /// Run the curvature job on the shipped demo horizons.
+    /// Fit t = A + a1 cos 2phi + a2 sin 2phi in every bin of azimuth-sector time grids and
+    /// write anisotropy.tif and map vectors (GeoPackage, GeoJSON).
+    #[command(after_help = anisotropy_help())]
+    Anisotropy(AnisotropyArgs),
+    /// Run the curvature and anisotropy jobs on the shipped demo data.
     Demo {
         /// Folder for the results.
         #[arg(long, default_value = "demo_output")]
@@ -45,6 +52,123 @@ enum Command {
         #[arg(long, default_value = "demo_horizons")]
         out: PathBuf,
     },
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum ReferenceArg {
+    /// Azimuths are from grid north of the grids' CRS.
+    Grid,
+    /// Azimuths are from true north (converted with --convergence, or the CRS's convergence
+    /// at the grid centre).
+    True,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum AxisArg {
+    /// Along the fast azimuth.
+    Fast,
+    /// Along the slow azimuth.
+    Slow,
+}
+
+const ANISOTROPY_OUTPUTS: &str = "Sector times are in ms (two-way times picked per sector, or \
+residual time shifts). Outputs: DIR/anisotropy.tif with bands magnitude, magnitude_unbiased, \
+azimuth_slow, azimuth_fast, isotropic, r2, residual_rms, magnitude_stderr, azimuth_stderr, \
+n_sectors (azimuths in degrees from grid north), DIR/anisotropy_vectors.gpkg (grid CRS) and \
+DIR/anisotropy_vectors.geojson (RFC 7946, WGS84).";
+
+/// Help epilogue of the anisotropy command: outputs, the HTI reading and its cautions.
+fn anisotropy_help() -> String {
+    format!("{ANISOTROPY_OUTPUTS}\n\n{HTI_CAUTION}\n\n{CAUTION}")
+}
+
+#[derive(clap::Args)]
+struct AnisotropyArgs {
+    /// Sector time grids in ms: one single-band grid per sector, or one raster with a band per
+    /// sector.
+    #[arg(required = true)]
+    sectors: Vec<PathBuf>,
+    /// Sector-centre azimuths in degrees clockwise from north, one per sector, in order.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        required = true,
+        allow_negative_numbers = true
+    )]
+    azimuths: Vec<f64>,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Sector weights (e.g. fold): one number per sector, or one weight grid per sector (or one
+    /// raster with a band per sector).
+    #[arg(long, value_delimiter = ',')]
+    weights: Vec<String>,
+    /// North the azimuths are measured from.
+    #[arg(long, value_enum, default_value = "grid")]
+    azimuth_reference: ReferenceArg,
+    /// Grid convergence in degrees (true north to grid north, clockwise positive) for
+    /// true-north azimuths; computed from the CRS at the grid centre when omitted.
+    #[arg(long, allow_negative_numbers = true)]
+    convergence: Option<f64>,
+    /// Least number of valid sectors in a bin (at least 3).
+    #[arg(long, default_value_t = 4)]
+    min_sectors: usize,
+    /// Draw a vector on every N-th bin in both directions.
+    #[arg(long, default_value_t = 1)]
+    every: usize,
+    /// Least magnitude / magnitude_stderr for a vector (0 keeps every fitted bin).
+    #[arg(long, default_value_t = 2.0)]
+    min_snr: f64,
+    /// Azimuth the vectors follow.
+    #[arg(long, value_enum, default_value = "fast")]
+    vector: AxisArg,
+    /// Vector length in metres per ms of magnitude (automatic when omitted).
+    #[arg(long)]
+    vector_scale: Option<f64>,
+    /// CRS to assume when the grids declare none (e.g. EPSG:32625).
+    #[arg(long)]
+    crs: Option<String>,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl AnisotropyArgs {
+    fn job(&self) -> Result<AnisotropyJob, FlexureError> {
+        let mut job = AnisotropyJob::new(self.sectors.clone(), self.azimuths.clone(), &self.out);
+        job.reference = match (self.azimuth_reference, self.convergence) {
+            (ReferenceArg::Grid, None) => AzimuthReference::Grid,
+            (ReferenceArg::Grid, Some(_)) => {
+                return Err(FlexureError::Parameter(
+                    "--convergence applies only with --azimuth-reference true".into(),
+                ))
+            }
+            (ReferenceArg::True, convergence) => AzimuthReference::True { convergence },
+        };
+        job.weights = weight_source(&self.weights);
+        job.min_sectors = self.min_sectors;
+        job.every = self.every;
+        job.min_snr = self.min_snr;
+        job.axis = match self.vector {
+            AxisArg::Fast => VectorAxis::Fast,
+            AxisArg::Slow => VectorAxis::Slow,
+        };
+        job.vector_scale = self.vector_scale;
+        job.crs = self.crs.clone();
+        Ok(job)
+    }
+}
+
+/// Numbers are per-sector weights; anything else names weight grids.
+fn weight_source(items: &[String]) -> WeightSource {
+    if items.is_empty() {
+        return WeightSource::Equal;
+    }
+    let numbers: Option<Vec<f64>> = items.iter().map(|s| s.trim().parse().ok()).collect();
+    match numbers {
+        Some(w) => WeightSource::PerSector(w),
+        None => WeightSource::Grids(items.iter().map(PathBuf::from).collect()),
+    }
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -175,24 +299,31 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
                 say(&format!("{report}{CAUTION}"));
             }
         }
+        Command::Anisotropy(args) => {
+            let report = args.job()?.run()?;
+            if !args.quiet {
+                say(&format!("{report}{CAUTION}"));
+            }
+        }
         Command::Demo { out, data, quiet } => {
             let progress: Box<dyn Progress> = if quiet {
                 Box::new(Silent)
             } else {
                 Box::new(Bar::new(false))
             };
-            let reports = run_demo(&data, &out, progress.as_ref())?;
+            let report = run_demo(&data, &out, progress.as_ref())?;
             if !quiet {
-                let mut text: String = reports.iter().map(|r| r.to_string()).collect();
-                text += &format!("Demo results are in {}\n", out.join("curvature").display());
+                let mut text: String = report.curvature.iter().map(|r| r.to_string()).collect();
                 text += &format!(
-                    "Bands of each file: {}\n",
+                    "Curvature results are in {}; bands of each file: {}\n",
+                    out.join("curvature").display(),
                     ATTRIBUTES
                         .iter()
                         .map(|a| a.id)
                         .collect::<Vec<_>>()
                         .join(", ")
                 );
+                text += &report.anisotropy.to_string();
                 say(&(text + CAUTION));
             }
         }

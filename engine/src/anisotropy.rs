@@ -205,6 +205,163 @@ pub fn fit_sector_grids(
         .collect()
 }
 
+impl SectorFit {
+    /// Signal-to-noise ratio of the magnitude, `B / magnitude_stderr` (NaN with 3 sectors).
+    pub fn snr(&self) -> f64 {
+        self.magnitude / self.magnitude_stderr
+    }
+
+    /// The azimuth along `axis`, degrees from grid north in 0..180.
+    pub fn azimuth(&self, axis: VectorAxis) -> f64 {
+        match axis {
+            VectorAxis::Fast => self.azimuth_fast,
+            VectorAxis::Slow => self.azimuth_slow,
+        }
+    }
+}
+
+/// One output band of a per-bin fit: identifier (the band description), unit, meaning, and
+/// how it is read from a [`SectorFit`].
+pub struct FitBand {
+    /// Band description.
+    pub id: &'static str,
+    /// Unit type.
+    pub unit: &'static str,
+    /// What the value is.
+    pub description: &'static str,
+    /// The value of one bin.
+    pub value: fn(&SectorFit) -> f64,
+}
+
+/// The bands of the anisotropy raster, in band order.
+pub const FIT_BANDS: [FitBand; 10] = [
+    FitBand {
+        id: "magnitude",
+        unit: "ms",
+        description: "B = sqrt(a1^2 + a2^2), half the peak-to-peak time variation",
+        value: |f| f.magnitude,
+    },
+    FitBand {
+        id: "magnitude_unbiased",
+        unit: "ms",
+        description: "B with the Rice bias removed (Wardle & Kronberg 1974)",
+        value: |f| f.magnitude_unbiased,
+    },
+    FitBand {
+        id: "azimuth_slow",
+        unit: "deg",
+        description: "azimuth of maximum time, degrees from grid north, 0..180",
+        value: |f| f.azimuth_slow,
+    },
+    FitBand {
+        id: "azimuth_fast",
+        unit: "deg",
+        description: "slow azimuth + 90, degrees from grid north, 0..180",
+        value: |f| f.azimuth_fast,
+    },
+    FitBand {
+        id: "isotropic",
+        unit: "ms",
+        description: "azimuth-independent term A",
+        value: |f| f.isotropic,
+    },
+    FitBand {
+        id: "r2",
+        unit: "1",
+        description: "weighted coefficient of determination",
+        value: |f| f.r2,
+    },
+    FitBand {
+        id: "residual_rms",
+        unit: "ms",
+        description: "weighted RMS residual of the fit",
+        value: |f| f.residual_rms,
+    },
+    FitBand {
+        id: "magnitude_stderr",
+        unit: "ms",
+        description: "standard error of B from the least-squares covariance",
+        value: |f| f.magnitude_stderr,
+    },
+    FitBand {
+        id: "azimuth_stderr",
+        unit: "deg",
+        description: "standard error of the azimuths from the least-squares covariance",
+        value: |f| f.azimuth_stderr,
+    },
+    FitBand {
+        id: "n_sectors",
+        unit: "count",
+        description: "sectors used in the bin",
+        value: |f| f.n_sectors as f64,
+    },
+];
+
+/// Which azimuth the map vectors follow.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum VectorAxis {
+    /// The fast azimuth (fracture strike under the HTI reading).
+    Fast,
+    /// The slow azimuth (fracture normal under the HTI reading).
+    Slow,
+}
+
+/// Bins kept for map vectors, row-major `(row, col, fit)`: every `every`-th bin in both
+/// directions (the middle bin of each `every` x `every` block) whose SNR is at least `min_snr`
+/// (`min_snr = 0` keeps every fitted bin, including 3-sector bins of unknown SNR).
+pub fn vector_bins(
+    fits: &[Option<SectorFit>],
+    cols: usize,
+    every: usize,
+    min_snr: f64,
+) -> Vec<(usize, usize, SectorFit)> {
+    let every = every.max(1);
+    let offset = every / 2;
+    fits.iter()
+        .enumerate()
+        .filter_map(|(i, f)| f.map(|f| (i / cols, i % cols, f)))
+        .filter(|&(r, c, _)| r % every == offset && c % every == offset)
+        .filter(|(_, _, f)| min_snr <= 0.0 || f.snr() >= min_snr)
+        .collect()
+}
+
+/// Default vector scale in metres per ms: the 95th-percentile magnitude of `bins` draws
+/// 0.9 of the spacing between vectors (`every` bins of `spacing_m` metres), so neighbouring
+/// vectors rarely overlap. 0 when no bin has a positive magnitude.
+pub fn default_vector_scale(
+    bins: &[(usize, usize, SectorFit)],
+    every: usize,
+    spacing_m: f64,
+) -> f64 {
+    let mut m: Vec<f64> = bins
+        .iter()
+        .map(|(_, _, f)| f.magnitude)
+        .filter(|v| v.is_finite() && *v > 0.0)
+        .collect();
+    if m.is_empty() {
+        return 0.0;
+    }
+    m.sort_by(f64::total_cmp);
+    let p95 = m[((m.len() - 1) as f64 * 0.95).round() as usize];
+    0.9 * every.max(1) as f64 * spacing_m / p95
+}
+
+/// End points (CRS units) of a segment of `length_m` metres centred on `centre` along
+/// `azimuth_deg` (clockwise from grid north).
+pub fn segment(
+    centre: (f64, f64),
+    azimuth_deg: f64,
+    length_m: f64,
+    metres_per_unit: f64,
+) -> ((f64, f64), (f64, f64)) {
+    let (s, c) = azimuth_deg.to_radians().sin_cos();
+    let half = 0.5 * length_m / metres_per_unit;
+    (
+        (centre.0 - half * s, centre.1 - half * c),
+        (centre.0 + half * s, centre.1 + half * c),
+    )
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

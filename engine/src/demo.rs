@@ -8,12 +8,20 @@
 //!   and 0.4 m of white picking noise.
 //! - `kelvane_marl_twt.tif`: two-way time in ms (average velocity 3200 m/s) on a survey grid
 //!   rotated 25 degrees with 25 m x 12.5 m bins, with 0.25 ms of noise.
+//! - `kelvane_marl_sectors.tif`: the Kelvane Marl picked on eight azimuth sectors (one band per
+//!   sector, 2 x 2 superbins of the survey grid), carrying an invented cos 2phi anisotropy: a
+//!   regional fast azimuth of 50 degrees that rotates to 95 degrees in a zone around the
+//!   anticline, magnitudes of 2 to 4.5 ms, 0.3 ms of picking noise, the fault gap in every
+//!   sector, two sectors missing along the low-fold south-west edge and only three sectors in
+//!   one corner.
 
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::horizon::Domain;
 use crate::io::{write_float_geotiff, BandOut};
-use crate::jobs::{CurvatureJob, CurvatureReport, Progress, VelocitySource};
+use crate::jobs::{
+    AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, Progress, VelocitySource,
+};
 use crate::synthetic::{SeededNoise, Shape, Surface};
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
@@ -180,10 +188,118 @@ impl DemoHorizon {
     }
 }
 
-/// Writes the demo horizons into `dir` (the shipped `demo_horizons/` is made this way).
+/// The demo's azimuth-sector picks: one horizon picked on each sector, with a known
+/// anisotropy field.
+#[derive(Clone, Debug)]
+pub struct DemoSectors {
+    /// File name in the demo folder (one band per sector).
+    pub file: &'static str,
+    /// The horizon the sectors pick.
+    pub horizon: DemoHorizon,
+    /// Superbin grid of the sector picks.
+    pub geometry: GridGeometry,
+    /// Sector-centre azimuths, degrees from grid north.
+    pub azimuths: Vec<f64>,
+    /// Standard deviation of the picking noise, ms.
+    pub noise_sd: f64,
+    /// Seed of the noise.
+    pub seed: u64,
+}
+
+/// The sector picks of the Kelvane Marl.
+pub fn demo_sectors() -> DemoSectors {
+    let horizon = demo_horizons().remove(1);
+    DemoSectors {
+        file: "kelvane_marl_sectors.tif",
+        geometry: survey_geometry((480_300.0, 3_903_800.0), 115.0, (50.0, 25.0), (90, 150)),
+        horizon,
+        azimuths: (0..8).map(|k| 11.25 + 22.5 * k as f64).collect(),
+        noise_sd: 0.3,
+        seed: 13,
+    }
+}
+
+impl DemoSectors {
+    /// True anisotropy at map point (x, y): (magnitude B in ms, fast azimuth in degrees from
+    /// grid north, 0..180).
+    pub fn truth(&self, x: f64, y: f64) -> (f64, f64) {
+        let near = |cx: f64, cy: f64, sigma: f64| {
+            (-((x - cx).powi(2) + (y - cy).powi(2)) / (2.0 * sigma * sigma)).exp()
+        };
+        let rotation = 45.0 * near(484_450.0, 3_901_400.0, 700.0);
+        let magnitude = 2.0 + 2.5 * near(483_000.0, 3_902_000.0, 1200.0);
+        (magnitude, (50.0 + rotation).rem_euclid(180.0))
+    }
+
+    /// Sector `k` is missing at bin (`col`, `row`): two sectors along the first columns (low
+    /// fold) and all but three in a corner.
+    fn missing(&self, k: usize, col: usize, row: usize) -> bool {
+        let edge = col < 8 && (k == 0 || k == 7);
+        let corner = col >= self.geometry.cols - 10 && row < 12 && !k.is_multiple_of(3);
+        edge || corner
+    }
+
+    /// Times (ms) of every sector, in sector order; with `noise`, the seeded picking noise.
+    pub fn values(&self, noise: bool) -> Vec<Array2<f64>> {
+        let g = &self.geometry;
+        let h = &self.horizon;
+        let mut rng = SeededNoise::new(self.seed);
+        let velocity = h.velocity.unwrap_or(1.0);
+        self.azimuths
+            .iter()
+            .enumerate()
+            .map(|(k, &phi)| {
+                Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+                    let (x, y) = g.cell_centre(c, r);
+                    let jitter = rng.gaussian() * self.noise_sd;
+                    if self.missing(k, c, r) || h.surface.fault_distance(x, y) < 2.0 * h.fault_gap {
+                        return f64::NAN;
+                    }
+                    let (b, fast) = self.truth(x, y);
+                    let slow = fast + 90.0;
+                    let t0 = 2000.0 * h.surface.eval(x, y).z / velocity;
+                    let t = t0 + b * (2.0 * (phi - slow).to_radians()).cos();
+                    t + if noise { jitter } else { 0.0 }
+                })
+            })
+            .collect()
+    }
+
+    /// Writes the sector raster into `dir`.
+    fn write(&self, dir: &Path) -> Result<PathBuf> {
+        let path = dir.join(self.file);
+        let names: Vec<String> = self
+            .azimuths
+            .iter()
+            .map(|a| format!("sector {a:06.2} deg"))
+            .collect();
+        let bands: Vec<BandOut> = self
+            .values(true)
+            .into_iter()
+            .zip(&names)
+            .map(|(v, name)| BandOut {
+                description: name,
+                unit: "ms",
+                values: v.mapv(|t| t as f32),
+            })
+            .collect();
+        write_float_geotiff(&path, &self.geometry, &bands, &demo_metadata())?;
+        Ok(path)
+    }
+}
+
+fn demo_metadata() -> Vec<(String, String)> {
+    vec![(
+        "FLEXURE_DEMO".to_string(),
+        "invented Tessary Basin scenario".to_string(),
+    )]
+}
+
+/// Writes the demo horizons and sector picks into `dir` (the shipped `demo_horizons/` is made
+/// this way).
 pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
     std::fs::create_dir_all(dir).map_err(|e| FlexureError::write(dir, e))?;
-    demo_horizons()
+    let mut written = demo_horizons()
         .iter()
         .map(|h| {
             let path = dir.join(h.file);
@@ -193,14 +309,12 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
                 unit,
                 values: h.values(true).mapv(|v| v as f32),
             };
-            let meta = vec![(
-                "FLEXURE_DEMO".to_string(),
-                "invented Tessary Basin scenario".to_string(),
-            )];
-            write_float_geotiff(&path, &h.geometry, &[band], &meta)?;
+            write_float_geotiff(&path, &h.geometry, &[band], &demo_metadata())?;
             Ok(path)
         })
-        .collect()
+        .collect::<Result<Vec<_>>>()?;
+    written.push(demo_sectors().write(dir)?);
+    Ok(written)
 }
 
 /// The curvature job the demo runs on one horizon in `data_dir`, writing into `out_dir`.
@@ -217,23 +331,52 @@ pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> C
     job
 }
 
-/// Runs the demo: curvature at the demo windows on every demo horizon.
-pub fn run_demo(
+/// The anisotropy job the demo runs on the sector picks in `data_dir`: vectors on every third
+/// superbin.
+pub fn demo_anisotropy_job(
+    sectors: &DemoSectors,
     data_dir: &Path,
     out_dir: &Path,
-    progress: &dyn Progress,
-) -> Result<Vec<CurvatureReport>> {
+) -> AnisotropyJob {
+    let mut job = AnisotropyJob::new(
+        vec![data_dir.join(sectors.file)],
+        sectors.azimuths.clone(),
+        out_dir.join("anisotropy"),
+    );
+    job.every = 3;
+    job
+}
+
+/// What the demo wrote.
+#[derive(Clone, Debug)]
+pub struct DemoReport {
+    /// One curvature report per demo horizon.
+    pub curvature: Vec<CurvatureReport>,
+    /// The anisotropy of the sector picks.
+    pub anisotropy: AnisotropyReport,
+}
+
+/// Runs the demo: curvature at the demo windows on every demo horizon, and anisotropy of the
+/// sector picks.
+pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<DemoReport> {
     let horizons = demo_horizons();
-    for h in &horizons {
-        if !data_dir.join(h.file).is_file() {
+    let sectors = demo_sectors();
+    let files = horizons.iter().map(|h| h.file).chain([sectors.file]);
+    for file in files {
+        if !data_dir.join(file).is_file() {
             return Err(FlexureError::input(
-                data_dir.join(h.file),
-                "demo horizon not found: run from the repository root or give --data DIR",
+                data_dir.join(file),
+                "demo data not found: run from the repository root or give --data DIR",
             ));
         }
     }
-    horizons
+    let curvature = horizons
         .iter()
         .map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress))
-        .collect()
+        .collect::<Result<Vec<_>>>()?;
+    let anisotropy = demo_anisotropy_job(&sectors, data_dir, out_dir).run()?;
+    Ok(DemoReport {
+        curvature,
+        anisotropy,
+    })
 }

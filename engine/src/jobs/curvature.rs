@@ -1,7 +1,7 @@
-//! Jobs: each strings reading, the window fit, the attribute formulas and writing together for
-//! one command, from one options struct. The command line only fills the struct and prints the
-//! report.
+//! The curvature job: read a horizon, convert it to depth, fit every window, evaluate the
+//! attributes and write one GeoTIFF per window.
 
+use super::{value_range, Progress};
 use crate::curvature::{evaluate_field, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::error::{FlexureError, Result};
 use crate::grid::Grid;
@@ -11,25 +11,6 @@ use crate::window::{fit_quadrics, WindowSpec};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
-
-/// Progress of a long job, in units of grid rows fitted.
-pub trait Progress: Sync {
-    /// A job of `total` units starts.
-    fn begin(&self, total: u64);
-    /// `done` more units are finished.
-    fn advance(&self, done: u64);
-    /// The job is over.
-    fn finish(&self);
-}
-
-/// Progress that reports nothing.
-pub struct Silent;
-
-impl Progress for Silent {
-    fn begin(&self, _total: u64) {}
-    fn advance(&self, _done: u64) {}
-    fn finish(&self) {}
-}
 
 /// Where the average velocity of a time grid comes from.
 #[derive(Clone, Debug, PartialEq)]
@@ -248,16 +229,6 @@ fn excursion(z: &Array2<f64>) -> f64 {
     let valid: Vec<f64> = z.iter().copied().filter(|v| v.is_finite()).collect();
     let mean = valid.iter().sum::<f64>() / valid.len().max(1) as f64;
     valid.iter().map(|v| (v - mean).abs()).fold(0.0, f64::max)
-}
-
-/// (min, max) of the finite values, if any.
-fn value_range(v: &Array2<f32>) -> Option<(f32, f32)> {
-    v.iter()
-        .filter(|x| x.is_finite())
-        .fold(None, |acc, &x| match acc {
-            None => Some((x, x)),
-            Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
-        })
 }
 
 /// What a curvature job wrote.
