@@ -2,76 +2,26 @@
 //! bad input named in the curvature issue getting one clear line on stderr, a non-zero exit, no
 //! panic and no output file.
 
-use flexure_engine::demo::survey_geometry;
-use flexure_engine::io::{write_float_geotiff, BandOut};
+mod common;
+
+use common::{fails, flexure, north_up, outputs_in, write_bands};
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
-
-fn flexure(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_flexure"))
-        .args(args)
-        .output()
-        .unwrap()
-}
 
 fn write(dir: &Path, name: &str, values: Array2<f32>, epsg: u32) -> PathBuf {
-    let mut g = survey_geometry(
-        (500_000.0, 3_900_000.0),
-        90.0,
-        (25.0, 25.0),
-        (values.ncols(), values.nrows()),
-    );
+    let mut g = north_up(values.ncols(), values.nrows());
     if epsg != 32625 {
         g.crs_wkt = SpatialRef::from_epsg(epsg).unwrap().to_wkt().unwrap();
         g.geo_transform = [10.0, 0.001, 0.0, 50.0, 0.0, -0.001];
     }
-    let path = dir.join(name);
-    write_float_geotiff(
-        &path,
-        &g,
-        &[BandOut {
-            description: "z",
-            unit: "m",
-            values,
-        }],
-        &[],
-    )
-    .unwrap();
-    path
+    write_bands(dir, name, &g, vec![values])
 }
 
 fn bowl(cols: usize, rows: usize) -> Array2<f32> {
     Array2::from_shape_fn((rows, cols), |(r, c)| {
         2000.0 + ((r as f32 - 10.0).powi(2) + (c as f32 - 12.0).powi(2)) * 0.5
     })
-}
-
-fn tifs_in(dir: &Path) -> Vec<String> {
-    std::fs::read_dir(dir)
-        .map(|d| {
-            d.map(|e| e.unwrap().file_name().to_string_lossy().to_string())
-                .filter(|n| n.contains("_w"))
-                .collect()
-        })
-        .unwrap_or_default()
-}
-
-/// Runs a failing command and checks the failure is clean; returns the message.
-fn fails(args: &[&str], out: &Path) -> String {
-    let o = flexure(args);
-    let stderr = String::from_utf8_lossy(&o.stderr).to_string();
-    assert_eq!(o.status.code(), Some(1), "args {args:?}: stderr {stderr}");
-    assert!(!stderr.contains("panicked"), "{stderr}");
-    assert_eq!(
-        stderr.trim_end().lines().count(),
-        1,
-        "one line expected: {stderr}"
-    );
-    assert!(stderr.starts_with("flexure: error: "), "{stderr}");
-    assert!(tifs_in(out).is_empty(), "outputs left: {:?}", tifs_in(out));
-    stderr
 }
 
 #[test]
@@ -95,7 +45,7 @@ fn curvature_writes_one_file_per_window_and_a_summary() {
         stdout.contains("window   3") && stdout.contains("k_mean") && stdout.contains("Caution"),
         "{stdout}"
     );
-    let mut files = tifs_in(&out);
+    let mut files = outputs_in(&out);
     files.sort();
     assert_eq!(files, vec!["h_w03.tif", "h_w05.tif"]);
     let quiet = flexure(&[
@@ -262,5 +212,5 @@ fn xyz_text_grid_is_read_with_an_assigned_crs() {
         "{}",
         String::from_utf8_lossy(&ok.stderr)
     );
-    assert_eq!(tifs_in(&out), vec!["pick_w03.tif"]);
+    assert_eq!(outputs_in(&out), vec!["pick_w03.tif"]);
 }

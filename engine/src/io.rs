@@ -180,6 +180,21 @@ pub fn stage_float_geotiff(
     metadata: &[(String, String)],
 ) -> Result<StagedFile> {
     capture_gdal_messages();
+    if let Some(b) = bands
+        .iter()
+        .find(|b| b.values.dim() != (geometry.rows, geometry.cols))
+    {
+        return Err(FlexureError::write(
+            path,
+            format!(
+                "band {} is {:?} (rows, cols) but the grid is {} x {}",
+                b.description,
+                b.values.dim(),
+                geometry.rows,
+                geometry.cols
+            ),
+        ));
+    }
     let staged = StagedFile::new(path);
     write_bands(&staged.temp, geometry, bands, metadata)
         .and_then(|_| verify(&staged.temp, geometry, bands.len()))

@@ -1,0 +1,73 @@
+//! Helpers shared by the executable's tests: run `flexure`, write small GeoTIFFs, and check
+//! that a failure is clean.
+
+use flexure_engine::demo::survey_geometry;
+use flexure_engine::io::{write_float_geotiff, BandOut};
+use ndarray::Array2;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+/// Runs the executable with `args`.
+pub fn flexure(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_flexure"))
+        .args(args)
+        .output()
+        .unwrap()
+}
+
+/// A north-up EPSG:32625 grid of 25 m bins with the size of `values`.
+pub fn north_up(cols: usize, rows: usize) -> flexure_engine::grid::GridGeometry {
+    survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (cols, rows))
+}
+
+/// Writes `bands` (all the same size) as a GeoTIFF on `geometry`.
+pub fn write_bands(
+    dir: &Path,
+    name: &str,
+    geometry: &flexure_engine::grid::GridGeometry,
+    bands: Vec<Array2<f32>>,
+) -> PathBuf {
+    let path = dir.join(name);
+    let bands: Vec<BandOut> = bands
+        .into_iter()
+        .map(|values| BandOut {
+            description: "z",
+            unit: "m",
+            values,
+        })
+        .collect();
+    write_float_geotiff(&path, geometry, &bands, &[]).unwrap();
+    path
+}
+
+/// Files a job may have written into `dir` (final or temporary names).
+pub fn outputs_in(dir: &Path) -> Vec<String> {
+    std::fs::read_dir(dir)
+        .map(|d| {
+            d.map(|e| e.unwrap().file_name().to_string_lossy().to_string())
+                .filter(|n| n.contains("_w") || n.contains("anisotropy") || n.contains("partial"))
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+/// Runs a failing command and checks the failure is clean (exit 1, one line, no panic, no
+/// output in `out`); returns the message.
+pub fn fails(args: &[&str], out: &Path) -> String {
+    let o = flexure(args);
+    let stderr = String::from_utf8_lossy(&o.stderr).to_string();
+    assert_eq!(o.status.code(), Some(1), "args {args:?}: stderr {stderr}");
+    assert!(!stderr.contains("panicked"), "{stderr}");
+    assert_eq!(
+        stderr.trim_end().lines().count(),
+        1,
+        "one line expected: {stderr}"
+    );
+    assert!(stderr.starts_with("flexure: error: "), "{stderr}");
+    assert!(
+        outputs_in(out).is_empty(),
+        "outputs left: {:?}",
+        outputs_in(out)
+    );
+    stderr
+}
