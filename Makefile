@@ -12,7 +12,7 @@ deps:
 build: deps
 	$(CARGO) build --release -p flexure-cli
 
-## Run the main job on the shipped demo horizons; results in demo_output/.
+## Run the main jobs on the shipped demo data; results in demo_output/.
 demo: build
 	./target/release/flexure demo --out demo_output
 

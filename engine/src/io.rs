@@ -1,12 +1,13 @@
 //! Raster input and output through GDAL.
 //!
-//! Reading: any single-band raster GDAL opens (GeoTIFF, GDAL's XYZ text grids, ...), with a
-//! projected (or local) CRS in linear units; the declared nodata value and every NaN/inf are
-//! nulls. Writing: float32 GeoTIFF, one band per attribute, DEFLATE with the floating-point
+//! Reading: any raster GDAL opens (GeoTIFF, GDAL's XYZ text grids, ...), one band or every band
+//! of a stack, with a projected (or local) CRS in linear units; the declared nodata value and
+//! every NaN/inf are nulls. Writing: float32 GeoTIFF, one band per attribute, DEFLATE with the floating-point
 //! predictor, tiled 256 x 256, declared nodata, band descriptions and unit types.
 //! Every output is written under a temporary name in the target folder, read back to check it,
-//! and renamed when complete, so an interrupted run never leaves a truncated file under a final
-//! name. GDAL's own messages are captured and reported as one line instead of printed.
+//! and renamed when complete ([`StagedFile`]), so an interrupted run never leaves a truncated
+//! file under a final name. GDAL's own messages are captured and reported as one line instead
+//! of printed.
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};

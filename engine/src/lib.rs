@@ -5,7 +5,7 @@
 //! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
 //! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
 //! that build the demo data and the tests. [`anisotropy`] fits the cos 2phi model of
-//! azimuth-sector traveltimes in one bin (the start of the anisotropy capability).
+//! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
 
 pub mod anisotropy;
 pub mod curvature;
