@@ -8,6 +8,7 @@
 //! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
 
 pub mod anisotropy;
+pub mod colour;
 pub mod curvature;
 pub mod demo;
 pub mod error;
