@@ -71,6 +71,16 @@ impl GridGeometry {
             && self.crs_wkt == other.crs_wkt
     }
 
+    /// Fractional (column, row) of map point (x, y), measured from the grid's top-left corner
+    /// (cell (i, j) spans i..i+1, j..j+1; its centre is at i + 0.5, j + 0.5).
+    pub fn map_to_grid(&self, x: f64, y: f64) -> (f64, f64) {
+        let g = &self.geo_transform;
+        let [[a, b], [c, d]] = self.jacobian();
+        let det = a * d - b * c;
+        let (u, v) = (x - g[0], y - g[3]);
+        ((d * u - b * v) / det, (-c * u + a * v) / det)
+    }
+
     /// Map coordinates (CRS units) of the centre of the whole grid.
     pub fn centre(&self) -> (f64, f64) {
         let g = &self.geo_transform;
@@ -205,6 +215,14 @@ mod tests {
                 "({lon},{lat}): {got} vs {expected}"
             );
         }
+    }
+
+    #[test]
+    fn map_to_grid_inverts_cell_centres() {
+        let g = rotated(37.0);
+        let (x, y) = g.cell_centre(3, 2);
+        let (c, r) = g.map_to_grid(x, y);
+        assert!((c - 3.5).abs() < 1e-9 && (r - 2.5).abs() < 1e-9);
     }
 
     #[test]

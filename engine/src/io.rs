@@ -11,7 +11,7 @@
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
-use gdal::raster::{Buffer, RasterCreationOptions};
+use gdal::raster::{Buffer, GdalType, RasterCreationOptions};
 use gdal::spatial_ref::SpatialRef;
 use gdal::{Dataset, DriverManager, Metadata};
 use ndarray::Array2;
@@ -180,25 +180,103 @@ pub fn stage_float_geotiff(
     bands: &[BandOut],
     metadata: &[(String, String)],
 ) -> Result<StagedFile> {
-    capture_gdal_messages();
-    if let Some(b) = bands
+    check_band_sizes(path, geometry, bands.iter().map(|b| (b.description, b.values.dim())))?;
+    let tiff_bands = bands
         .iter()
-        .find(|b| b.values.dim() != (geometry.rows, geometry.cols))
-    {
-        return Err(FlexureError::write(
+        .map(|b| TiffBand {
+            description: b.description,
+            unit: b.unit,
+            nodata: Some(NODATA as f64),
+            data: b
+                .values
+                .iter()
+                .map(|&v| if v.is_finite() { v } else { NODATA })
+                .collect(),
+        })
+        .collect();
+    stage_geotiff(path, geometry, &FLOAT_OPTIONS, tiff_bands, metadata)
+}
+
+/// Writes an 8-bit RGBA picture (`[red, green, blue, alpha]`, straight alpha, each
+/// `[row, col]`) as a GeoTIFF on `geometry`, staged like [`stage_float_geotiff`]. The alpha
+/// band is marked as such (unassociated), so GIS software shows transparent cells as holes.
+pub fn stage_rgba_geotiff(
+    path: &Path,
+    geometry: &GridGeometry,
+    rgba: &[Array2<u8>; 4],
+    metadata: &[(String, String)],
+) -> Result<StagedFile> {
+    let names = ["red", "green", "blue", "alpha"];
+    check_band_sizes(path, geometry, names.iter().zip(rgba).map(|(n, b)| (*n, b.dim())))?;
+    let tiff_bands = names
+        .iter()
+        .zip(rgba)
+        .map(|(name, band)| TiffBand {
+            description: name,
+            unit: "",
+            nodata: None,
+            data: band.iter().copied().collect(),
+        })
+        .collect();
+    stage_geotiff(path, geometry, &RGBA_OPTIONS, tiff_bands, metadata)
+}
+
+const FLOAT_OPTIONS: [&str; 6] = [
+    "COMPRESS=DEFLATE",
+    "PREDICTOR=3",
+    "TILED=YES",
+    "BLOCKXSIZE=256",
+    "BLOCKYSIZE=256",
+    "BIGTIFF=IF_SAFER",
+];
+
+const RGBA_OPTIONS: [&str; 7] = [
+    "COMPRESS=DEFLATE",
+    "PREDICTOR=2",
+    "TILED=YES",
+    "BLOCKXSIZE=256",
+    "BLOCKYSIZE=256",
+    "PHOTOMETRIC=RGB",
+    "ALPHA=UNASSOCIATED",
+];
+
+/// One band as GDAL gets it: row-major data with its description, unit and nodata.
+struct TiffBand<'a, T> {
+    description: &'a str,
+    unit: &'a str,
+    nodata: Option<f64>,
+    data: Vec<T>,
+}
+
+fn check_band_sizes<'a>(
+    path: &Path,
+    geometry: &GridGeometry,
+    mut dims: impl Iterator<Item = (&'a str, (usize, usize))>,
+) -> Result<()> {
+    match dims.find(|(_, d)| *d != (geometry.rows, geometry.cols)) {
+        Some((name, d)) => Err(FlexureError::write(
             path,
             format!(
-                "band {} is {:?} (rows, cols) but the grid is {} x {}",
-                b.description,
-                b.values.dim(),
-                geometry.rows,
-                geometry.cols
+                "band {name} is {d:?} (rows, cols) but the grid is {} x {}",
+                geometry.rows, geometry.cols
             ),
-        ));
+        )),
+        None => Ok(()),
     }
+}
+
+fn stage_geotiff<T: GdalType + Copy>(
+    path: &Path,
+    geometry: &GridGeometry,
+    options: &[&str],
+    bands: Vec<TiffBand<T>>,
+    metadata: &[(String, String)],
+) -> Result<StagedFile> {
+    capture_gdal_messages();
     let staged = StagedFile::new(path);
-    write_bands(&staged.temp, geometry, bands, metadata)
-        .and_then(|_| verify(&staged.temp, geometry, bands.len()))
+    let count = bands.len();
+    write_bands(&staged.temp, geometry, options, bands, metadata)
+        .and_then(|_| verify(&staged.temp, geometry, count))
         .map_err(|reason| FlexureError::write(path, reason))?;
     Ok(staged)
 }
@@ -272,25 +350,19 @@ pub(crate) fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
     format!("{context}: {}", messages.join("; "))
 }
 
-fn write_bands(
+fn write_bands<T: GdalType + Copy>(
     temp: &Path,
     geometry: &GridGeometry,
-    bands: &[BandOut],
+    options: &[&str],
+    bands: Vec<TiffBand<T>>,
     metadata: &[(String, String)],
 ) -> std::result::Result<(), String> {
     take_gdal_messages();
     let driver =
         DriverManager::get_driver_by_name("GTiff").map_err(|e| gdal_failure("GTiff driver", e))?;
-    let options = RasterCreationOptions::from_iter([
-        "COMPRESS=DEFLATE",
-        "PREDICTOR=3",
-        "TILED=YES",
-        "BLOCKXSIZE=256",
-        "BLOCKYSIZE=256",
-        "BIGTIFF=IF_SAFER",
-    ]);
+    let options = RasterCreationOptions::from_iter(options.iter().copied());
     let mut ds = driver
-        .create_with_band_type_with_options::<f32, _>(
+        .create_with_band_type_with_options::<T, _>(
             temp,
             geometry.cols,
             geometry.rows,
@@ -307,19 +379,18 @@ fn write_bands(
         ds.set_metadata_item(key, value, "")
             .map_err(|e| gdal_failure("metadata", e))?;
     }
-    for (i, band) in bands.iter().enumerate() {
+    for (i, band) in bands.into_iter().enumerate() {
         let mut rb = ds.rasterband(i + 1).map_err(|e| gdal_failure("band", e))?;
         rb.set_description(band.description)
             .map_err(|e| gdal_failure("band description", e))?;
-        rb.set_no_data_value(Some(NODATA as f64))
-            .map_err(|e| gdal_failure("nodata", e))?;
-        set_unit(&rb, band.unit);
-        let data: Vec<f32> = band
-            .values
-            .iter()
-            .map(|&v| if v.is_finite() { v } else { NODATA })
-            .collect();
-        let mut buffer = Buffer::new((geometry.cols, geometry.rows), data);
+        if let Some(nodata) = band.nodata {
+            rb.set_no_data_value(Some(nodata))
+                .map_err(|e| gdal_failure("nodata", e))?;
+        }
+        if !band.unit.is_empty() {
+            set_unit(&rb, band.unit);
+        }
+        let mut buffer = Buffer::new((geometry.cols, geometry.rows), band.data);
         rb.write((0, 0), (geometry.cols, geometry.rows), &mut buffer)
             .map_err(|e| gdal_failure("write", e))?;
     }

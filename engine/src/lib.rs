@@ -16,6 +16,7 @@ pub mod grid;
 pub mod horizon;
 pub mod io;
 pub mod jobs;
+pub mod render;
 pub mod synthetic;
 pub mod vectors;
 pub mod window;

@@ -1,0 +1,457 @@
+//! Map pictures: attribute colours (see [`crate::colour`]) optionally multiplied by a hillshade
+//! of the horizon, anisotropy vectors drawn anti-aliased on top (dark core, light halo, so they
+//! read on every colour), and for quicklooks a frame with title, colour bar, vector scale,
+//! north arrow and extent. Pure pixel work on `tiny-skia` pixmaps; files are written by the
+//! render job.
+//!
+//! Pixel geometry: a picture of a grid has `px.0` pixels per column and `px.1` per row, so the
+//! image is the grid's own layout (rows down, columns across); map points go to pixels through
+//! the inverse geotransform. With pixel counts proportional to the bin sizes the image keeps
+//! the map's shape (rotated with the grid; the north arrow shows where north is).
+
+use crate::colour::{short, ColourScale};
+use crate::grid::GridGeometry;
+use ab_glyph::{Font, FontRef, PxScale, ScaleFont};
+use ndarray::Array2;
+use tiny_skia::{
+    Color, LineCap, Paint, PathBuilder, Pixmap, PremultipliedColorU8, Rect, Stroke, Transform,
+};
+
+/// DejaVu Sans (Bitstream Vera licence, shipped in `engine/assets/fonts`).
+const FONT: &[u8] = include_bytes!("../assets/fonts/DejaVuSans.ttf");
+
+/// Sun azimuth of the hillshade, degrees from grid north (common practice: north-west light).
+pub const SUN_AZIMUTH: f64 = 315.0;
+/// Sun altitude of the hillshade, degrees (common practice).
+pub const SUN_ALTITUDE: f64 = 45.0;
+
+/// Relief shading of a horizon by Horn's (1981, Proc. IEEE 69:14) 3 x 3 gradient, lit from
+/// [`SUN_AZIMUTH`] at [`SUN_ALTITUDE`]: the cosine of the angle between the surface normal and
+/// the light, 0..1; NaN where a neighbour is null or at the edge. `positive_down` values (depth
+/// or time) are negated so antiforms are the lit highs. `exaggeration` multiplies the values
+/// (per metre of map distance); `None` scales so that the 95th-percentile slope is 45 degrees.
+pub fn hillshade(
+    z: &Array2<f64>,
+    geometry: &GridGeometry,
+    positive_down: bool,
+    exaggeration: Option<f64>,
+) -> Array2<f64> {
+    let sign = if positive_down { -1.0 } else { 1.0 };
+    let gradients = map_gradients(z, geometry);
+    let factor = exaggeration.unwrap_or_else(|| {
+        let mut slopes: Vec<f64> = gradients
+            .iter()
+            .filter_map(|g| g.map(|(gx, gy)| gx.hypot(gy)))
+            .filter(|s| *s > 0.0)
+            .collect();
+        slopes.sort_by(f64::total_cmp);
+        slopes
+            .get(((slopes.len().max(1) - 1) as f64 * 0.95).round() as usize)
+            .map_or(1.0, |p95| 1.0 / p95)
+    }) * sign;
+    let (az, alt) = (SUN_AZIMUTH.to_radians(), SUN_ALTITUDE.to_radians());
+    let light = [az.sin() * alt.cos(), az.cos() * alt.cos(), alt.sin()];
+    gradients.mapv(|g| match g {
+        Some((gx, gy)) => {
+            let (ex, ey) = (factor * gx, factor * gy);
+            let norm = (ex * ex + ey * ey + 1.0).sqrt();
+            ((-ex * light[0] - ey * light[1] + light[2]) / norm).max(0.0)
+        }
+        None => f64::NAN,
+    })
+}
+
+/// Horn gradients `(dz/dx, dz/dy)` per metre of map distance (x grid east, y grid north).
+fn map_gradients(z: &Array2<f64>, geometry: &GridGeometry) -> Array2<Option<(f64, f64)>> {
+    let (rows, cols) = z.dim();
+    let [[a, b], [c, d]] = geometry.jacobian();
+    let m = geometry.metres_per_unit;
+    let det = (a * d - b * c) * m * m;
+    Array2::from_shape_fn((rows, cols), |(r, col)| {
+        if r == 0 || col == 0 || r + 1 == rows || col + 1 == cols {
+            return None;
+        }
+        let at = |dr: isize, dc: isize| {
+            z[((r as isize + dr) as usize, (col as isize + dc) as usize)]
+        };
+        let dcol = ((at(-1, 1) + 2.0 * at(0, 1) + at(1, 1))
+            - (at(-1, -1) + 2.0 * at(0, -1) + at(1, -1)))
+            / 8.0;
+        let drow = ((at(1, -1) + 2.0 * at(1, 0) + at(1, 1))
+            - (at(-1, -1) + 2.0 * at(-1, 0) + at(-1, 1)))
+            / 8.0;
+        if !(dcol.is_finite() && drow.is_finite()) {
+            return None;
+        }
+        // [dz/dcol, dz/drow] = J^T [dz/dx, dz/dy]; solve with the inverse transpose.
+        let gx = (d * m * dcol - c * m * drow) / det;
+        let gy = (-b * m * dcol + a * m * drow) / det;
+        Some((gx, gy))
+    })
+}
+
+/// Straight (not premultiplied) RGBA of every cell: the scale's colour, multiplied by the
+/// shade (`0.25 + 0.85 shade`, at most 1, so flat ground is slightly darkened and lit slopes
+/// brighten); null cells transparent.
+pub fn colour_cells(
+    values: &Array2<f64>,
+    scale: &ColourScale,
+    shade: Option<&Array2<f64>>,
+) -> Array2<[u8; 4]> {
+    Array2::from_shape_fn(values.dim(), |(r, c)| match scale.colour(values[(r, c)]) {
+        None => [0, 0, 0, 0],
+        Some(rgb) => {
+            let f = shade
+                .map(|s| s[(r, c)])
+                .filter(|s| s.is_finite())
+                .map_or(1.0, |s| (0.25 + 0.85 * s).min(1.0));
+            [
+                (rgb[0] as f64 * f).round() as u8,
+                (rgb[1] as f64 * f).round() as u8,
+                (rgb[2] as f64 * f).round() as u8,
+                255,
+            ]
+        }
+    })
+}
+
+/// A pixmap of `cells` with `px` = (pixels per column, pixels per row).
+pub fn cells_to_pixmap(cells: &Array2<[u8; 4]>, px: (u32, u32)) -> Pixmap {
+    let (rows, cols) = cells.dim();
+    let (w, h) = (cols as u32 * px.0, rows as u32 * px.1);
+    let mut pixmap = Pixmap::new(w.max(1), h.max(1)).expect("non-empty picture");
+    let width = pixmap.width() as usize;
+    let pixels = pixmap.pixels_mut();
+    for ((r, c), rgba) in cells.indexed_iter() {
+        let colour = premultiplied(*rgba);
+        for y in r * px.1 as usize..(r + 1) * px.1 as usize {
+            for x in c * px.0 as usize..(c + 1) * px.0 as usize {
+                pixels[y * width + x] = colour;
+            }
+        }
+    }
+    pixmap
+}
+
+fn premultiplied([r, g, b, a]: [u8; 4]) -> PremultipliedColorU8 {
+    let scale = |v: u8| ((v as u16 * a as u16 + 127) / 255) as u8;
+    PremultipliedColorU8::from_rgba(scale(r), scale(g), scale(b), a)
+        .unwrap_or(PremultipliedColorU8::TRANSPARENT)
+}
+
+/// Straight RGBA bands `[r, g, b, a]` of a pixmap, each `[row, col]`.
+pub fn pixmap_bands(pixmap: &Pixmap) -> [Array2<u8>; 4] {
+    let (w, h) = (pixmap.width() as usize, pixmap.height() as usize);
+    let straight: Vec<[u8; 4]> = pixmap
+        .pixels()
+        .iter()
+        .map(|p| {
+            let c = p.demultiply();
+            [c.red(), c.green(), c.blue(), c.alpha()]
+        })
+        .collect();
+    std::array::from_fn(|k| Array2::from_shape_fn((h, w), |(r, c)| straight[r * w + c][k]))
+}
+
+/// A map segment to draw, end points in CRS units.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MapSegment {
+    /// First end.
+    pub a: (f64, f64),
+    /// Second end.
+    pub b: (f64, f64),
+}
+
+/// Pixel position of map point `p` in a picture of `geometry` with `px` pixels per cell.
+pub fn map_to_pixel(geometry: &GridGeometry, px: (u32, u32), p: (f64, f64)) -> (f32, f32) {
+    let (col, row) = geometry.map_to_grid(p.0, p.1);
+    ((col * px.0 as f64) as f32, (row * px.1 as f64) as f32)
+}
+
+/// Draws axial segments anti-aliased: a light halo `2.5 width` wide under a near-black core
+/// `width` pixels wide, round caps.
+pub fn draw_segments(
+    pixmap: &mut Pixmap,
+    geometry: &GridGeometry,
+    px: (u32, u32),
+    segments: &[MapSegment],
+    width: f32,
+) {
+    let mut pb = PathBuilder::new();
+    for s in segments {
+        let (ax, ay) = map_to_pixel(geometry, px, s.a);
+        let (bx, by) = map_to_pixel(geometry, px, s.b);
+        pb.move_to(ax, ay);
+        pb.line_to(bx, by);
+    }
+    let Some(path) = pb.finish() else { return };
+    for (colour, w) in [
+        (Color::from_rgba8(255, 255, 255, 230), 2.5 * width),
+        (Color::from_rgba8(20, 20, 20, 255), width),
+    ] {
+        let mut paint = Paint::default();
+        paint.set_color(colour);
+        paint.anti_alias = true;
+        let stroke = Stroke {
+            width: w,
+            line_cap: LineCap::Round,
+            ..Stroke::default()
+        };
+        pixmap.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
+    }
+}
+
+/// What the quicklook frame says.
+#[derive(Clone, Debug)]
+pub struct Legend {
+    /// Title line (attribute and window).
+    pub title: String,
+    /// Band identifier and unit, for the colour bar.
+    pub band: String,
+    /// The colour scale of the map.
+    pub scale: ColourScale,
+    /// Vector legend: (text, bar length in pixels) when vectors are drawn.
+    pub vectors: Option<(String, f32)>,
+    /// Direction of grid north in the picture, degrees clockwise from picture up.
+    pub north_in_picture: f64,
+    /// Lines describing the extent and grid.
+    pub extent: Vec<String>,
+}
+
+const MARGIN: u32 = 24;
+const TITLE_HEIGHT: u32 = 56;
+const PANEL_WIDTH: u32 = 300;
+const FOOTER_LINE: u32 = 20;
+
+/// The quicklook: `map` on a white page with the title above, the legend panel (colour bar,
+/// palette and clip, vector scale, north arrow) to the right and the extent below.
+pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
+    let footer = MARGIN + FOOTER_LINE * legend.extent.len() as u32;
+    let panel_height = 520;
+    let width = MARGIN + map.width() + MARGIN + PANEL_WIDTH;
+    let height = TITLE_HEIGHT + map.height().max(panel_height) + footer;
+    let mut page = Pixmap::new(width, height).expect("non-empty page");
+    page.fill(Color::WHITE);
+    page.draw_pixmap(
+        MARGIN as i32,
+        TITLE_HEIGHT as i32,
+        map.as_ref(),
+        &tiny_skia::PixmapPaint::default(),
+        Transform::identity(),
+        None,
+    );
+    let text = Text::new();
+    text.draw(&mut page, &legend.title, MARGIN as f32, 34.0, 20.0);
+    let x0 = (MARGIN + map.width() + MARGIN) as f32;
+    let mut y = TITLE_HEIGHT as f32 + 14.0;
+    text.draw(&mut page, &legend.band, x0, y, 15.0);
+    y += 10.0;
+    y = colour_bar(&mut page, &text, &legend.scale, x0, y);
+    text.draw(&mut page, legend.scale.palette_name(), x0, y, 11.0);
+    y += 16.0;
+    for line in wrap(&legend.scale.clip_note, 42) {
+        text.draw(&mut page, &line, x0, y, 11.0);
+        y += 15.0;
+    }
+    if let Some((note, bar)) = &legend.vectors {
+        y += 14.0;
+        segment_bar(&mut page, x0, y, *bar);
+        y += 22.0;
+        for line in wrap(note, 42) {
+            text.draw(&mut page, &line, x0, y, 11.0);
+            y += 15.0;
+        }
+    }
+    north_arrow(&mut page, &text, x0 + 40.0, y + 60.0, legend.north_in_picture);
+    let mut fy = (TITLE_HEIGHT + map.height().max(panel_height) + MARGIN) as f32;
+    for line in &legend.extent {
+        text.draw(&mut page, line, MARGIN as f32, fy, 12.0);
+        fy += FOOTER_LINE as f32;
+    }
+    page
+}
+
+/// Draws a vertical colour bar with five labelled ticks; returns the y below it.
+fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f32) -> f32 {
+    let (bar_w, bar_h) = (28.0, 240.0);
+    let steps = 120;
+    for i in 0..steps {
+        // Top is the high end.
+        let t = 1.0 - (i as f64 + 0.5) / steps as f64;
+        let v = value_at(scale, t);
+        if let (Some(rgb), Some(rect)) = (
+            scale.colour(v),
+            Rect::from_xywh(x, y + bar_h * i as f32 / steps as f32, bar_w, bar_h / steps as f32 + 0.5),
+        ) {
+            fill_rect(page, rect, rgb);
+        }
+    }
+    for k in 0..5 {
+        let t = 1.0 - k as f64 / 4.0;
+        let ty = y + bar_h * k as f32 / 4.0;
+        if let Some(rect) = Rect::from_xywh(x + bar_w, ty - 0.5, 6.0, 1.0) {
+            fill_rect(page, rect, [0, 0, 0]);
+        }
+        text.draw(page, &short(value_at(scale, t)), x + bar_w + 10.0, ty + 5.0, 12.0);
+    }
+    y + bar_h + 22.0
+}
+
+/// The value at ramp position `t` (inverse of [`ColourScale::position`] on the clipped range).
+fn value_at(scale: &ColourScale, t: f64) -> f64 {
+    if scale.kind == crate::colour::ScaleKind::Diverging && scale.lo < 0.0 && scale.hi > 0.0 {
+        if t < 0.5 {
+            -scale.lo * (2.0 * t - 1.0)
+        } else {
+            scale.hi * (2.0 * t - 1.0)
+        }
+    } else {
+        scale.lo + t * (scale.hi - scale.lo)
+    }
+}
+
+fn fill_rect(page: &mut Pixmap, rect: Rect, rgb: [u8; 3]) {
+    let mut paint = Paint::default();
+    paint.set_color(Color::from_rgba8(rgb[0], rgb[1], rgb[2], 255));
+    page.fill_rect(rect, &paint, Transform::identity(), None);
+}
+
+/// A horizontal sample vector `length` pixels long, drawn as the map vectors are.
+fn segment_bar(page: &mut Pixmap, x: f32, y: f32, length: f32) {
+    let mut pb = PathBuilder::new();
+    pb.move_to(x, y);
+    pb.line_to(x + length, y);
+    if let Some(path) = pb.finish() {
+        for (colour, w) in [
+            (Color::from_rgba8(200, 200, 200, 255), 6.0),
+            (Color::from_rgba8(20, 20, 20, 255), 2.4),
+        ] {
+            let mut paint = Paint::default();
+            paint.set_color(colour);
+            paint.anti_alias = true;
+            let stroke = Stroke {
+                width: w,
+                line_cap: LineCap::Round,
+                ..Stroke::default()
+            };
+            page.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
+        }
+    }
+}
+
+/// An arrow pointing `north_deg` clockwise from picture up, with an "N".
+fn north_arrow(page: &mut Pixmap, text: &Text, cx: f32, cy: f32, north_deg: f64) {
+    let (s, c) = north_deg.to_radians().sin_cos();
+    let (s, c) = (s as f32, c as f32);
+    let at = |along: f32, across: f32| (cx + along * s + across * c, cy - along * c + across * s);
+    let mut pb = PathBuilder::new();
+    let tip = at(40.0, 0.0);
+    pb.move_to(tip.0, tip.1);
+    let left = at(-30.0, -12.0);
+    pb.line_to(left.0, left.1);
+    let notch = at(-18.0, 0.0);
+    pb.line_to(notch.0, notch.1);
+    let right = at(-30.0, 12.0);
+    pb.line_to(right.0, right.1);
+    pb.close();
+    if let Some(path) = pb.finish() {
+        let mut paint = Paint::default();
+        paint.set_color(Color::from_rgba8(30, 30, 30, 255));
+        paint.anti_alias = true;
+        page.fill_path(&path, &paint, tiny_skia::FillRule::Winding, Transform::identity(), None);
+    }
+    let label = at(56.0, 0.0);
+    text.draw(page, "N", label.0 - 6.0, label.1 + 7.0, 16.0);
+    text.draw(page, "grid north", cx + 60.0, cy + 5.0, 11.0);
+}
+
+/// Splits `s` into lines of at most about `width` characters at spaces.
+fn wrap(s: &str, width: usize) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    for word in s.split_whitespace() {
+        match lines.last_mut() {
+            Some(line) if line.len() + word.len() < width => {
+                line.push(' ');
+                line.push_str(word);
+            }
+            _ => lines.push(word.to_string()),
+        }
+    }
+    lines
+}
+
+/// Text drawn with the embedded font, black, anti-aliased.
+struct Text {
+    font: FontRef<'static>,
+}
+
+impl Text {
+    fn new() -> Self {
+        Self {
+            font: FontRef::try_from_slice(FONT).expect("embedded DejaVu Sans parses"),
+        }
+    }
+
+    /// Draws `s` with its baseline at (`x`, `y`), `size` pixels high.
+    fn draw(&self, page: &mut Pixmap, s: &str, x: f32, y: f32, size: f32) {
+        let scaled = self.font.as_scaled(PxScale::from(size));
+        let (w, h) = (page.width() as i64, page.height() as i64);
+        let width = page.width() as usize;
+        let pixels = page.pixels_mut();
+        let mut caret = x;
+        let mut previous = None;
+        for ch in s.chars() {
+            let id = scaled.glyph_id(ch);
+            if let Some(p) = previous {
+                caret += scaled.kern(p, id);
+            }
+            let glyph = id.with_scale_and_position(size, ab_glyph::point(caret, y));
+            caret += scaled.h_advance(id);
+            previous = Some(id);
+            let Some(outline) = self.font.outline_glyph(glyph) else { continue };
+            let bounds = outline.px_bounds();
+            outline.draw(|gx, gy, coverage| {
+                let (px, py) = (bounds.min.x as i64 + gx as i64, bounds.min.y as i64 + gy as i64);
+                if px < 0 || py < 0 || px >= w || py >= h {
+                    return;
+                }
+                let i = py as usize * width + px as usize;
+                let old = pixels[i].demultiply();
+                let a = coverage.clamp(0.0, 1.0);
+                let mix = |v: u8| (v as f32 * (1.0 - a)).round() as u8;
+                pixels[i] = premultiplied([mix(old.red()), mix(old.green()), mix(old.blue()), old.alpha().max((a * 255.0) as u8)]);
+            });
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn text_and_frame_are_drawn() {
+        let scale = ColourScale::for_band(
+            "k_pos",
+            &Array2::from_shape_fn((4, 4), |(r, c)| r as f64 - c as f64),
+            crate::colour::Clip::Auto,
+        )
+        .unwrap();
+        let map = Pixmap::new(200, 150).unwrap();
+        let legend = Legend {
+            title: "Title".into(),
+            band: "k_pos (1/km)".into(),
+            scale,
+            vectors: Some(("vectors".into(), 40.0)),
+            north_in_picture: 25.0,
+            extent: vec!["extent".into()],
+        };
+        let page = quicklook(&map, &legend);
+        // Some pixels of the title row are dark (the glyphs were rasterised).
+        let dark = (10..40)
+            .flat_map(|y| (MARGIN..MARGIN + 60).map(move |x| (x, y)))
+            .filter(|&(x, y)| page.pixel(x, y).unwrap().red() < 100)
+            .count();
+        assert!(dark > 20, "{dark} dark title pixels");
+    }
+}
