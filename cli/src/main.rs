@@ -2,13 +2,14 @@
 //! options, runs the job and prints its report; errors are one line on stderr with exit code 1.
 
 use clap::{Parser, Subcommand, ValueEnum};
+use flexure_engine::colour::Clip;
 use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{Domain, ZUnit};
 use flexure_engine::jobs::{
-    AnisotropyJob, AzimuthReference, CurvatureJob, Progress, Silent, VectorAxis, VelocitySource,
-    WeightSource, HTI_CAUTION,
+    AnisotropyJob, AzimuthReference, CurvatureJob, Progress, RenderJob, Silent, VectorAxis,
+    VelocitySource, WeightSource, HTI_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -34,7 +35,11 @@ enum Command {
     /// write anisotropy.tif and map vectors (GeoPackage, GeoJSON).
     #[command(after_help = anisotropy_help())]
     Anisotropy(AnisotropyArgs),
-    /// Run the curvature and anisotropy jobs on the shipped demo data.
+    /// Draw one attribute band as a georeferenced RGBA GeoTIFF (and a PNG quicklook), optionally
+    /// shaded by the horizon and overlaid with anisotropy vectors.
+    #[command(after_help = CAUTION)]
+    Render(RenderArgs),
+    /// Run the curvature, anisotropy and render jobs on the shipped demo data.
     Demo {
         /// Folder for the results.
         #[arg(long, default_value = "demo_output")]
@@ -149,10 +154,7 @@ impl AnisotropyArgs {
         job.min_sectors = self.min_sectors;
         job.every = self.every;
         job.min_snr = self.min_snr;
-        job.axis = match self.vector {
-            AxisArg::Fast => VectorAxis::Fast,
-            AxisArg::Slow => VectorAxis::Slow,
-        };
+        job.axis = axis(self.vector);
         job.vector_scale = self.vector_scale;
         job.crs = self.crs.clone();
         Ok(job)
@@ -168,6 +170,81 @@ fn weight_source(items: &[String]) -> WeightSource {
     match numbers {
         Some(w) => WeightSource::PerSector(w),
         None => WeightSource::Grids(items.iter().map(PathBuf::from).collect()),
+    }
+}
+
+#[derive(clap::Args)]
+struct RenderArgs {
+    /// Attribute raster (a curvature or anisotropy output, or any georeferenced raster).
+    #[arg(long)]
+    attribute: PathBuf,
+    /// Band to draw, by its description (e.g. k_pos); default the first band.
+    #[arg(long)]
+    band: Option<String>,
+    /// anisotropy.tif, or the folder holding it, for vectors (same grid, or whole superbins of it).
+    #[arg(long)]
+    anisotropy: Option<PathBuf>,
+    /// Horizon to shade the colours with (same grid as the attribute).
+    #[arg(long)]
+    shade: Option<PathBuf>,
+    /// The shade horizon is elevation (positive up); default depth or time (positive down).
+    #[arg(long)]
+    shade_positive_up: bool,
+    /// Colour limits LO,HI in the band's unit; default robust percentiles (2nd/98th).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        num_args = 2,
+        allow_negative_numbers = true
+    )]
+    clip: Option<Vec<f64>>,
+    /// Draw a vector on every N-th anisotropy bin; default about 50 across the map.
+    #[arg(long)]
+    every: Option<usize>,
+    /// Azimuth the vectors follow.
+    #[arg(long, value_enum, default_value = "fast")]
+    vector: AxisArg,
+    /// Least magnitude / magnitude_stderr for a drawn vector.
+    #[arg(long, default_value_t = 2.0)]
+    min_snr: f64,
+    /// Vector length in metres per ms of magnitude (automatic when omitted).
+    #[arg(long)]
+    vector_scale: Option<f64>,
+    /// RGBA GeoTIFF to write, on the attribute's grid.
+    #[arg(long)]
+    out: PathBuf,
+    /// PNG quicklook with colour bar, vector scale, north arrow and extent.
+    #[arg(long)]
+    png: Option<PathBuf>,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl RenderArgs {
+    fn job(&self) -> RenderJob {
+        let mut job = RenderJob::new(&self.attribute, &self.out);
+        job.band = self.band.clone();
+        job.anisotropy = self.anisotropy.clone();
+        job.shade = self.shade.clone();
+        job.shade_positive_up = self.shade_positive_up;
+        job.clip = match self.clip.as_deref() {
+            Some([lo, hi]) => Clip::Range(*lo, *hi),
+            _ => Clip::Auto,
+        };
+        job.every = self.every;
+        job.axis = axis(self.vector);
+        job.min_snr = self.min_snr;
+        job.vector_scale = self.vector_scale;
+        job.png = self.png.clone();
+        job
+    }
+}
+
+fn axis(a: AxisArg) -> VectorAxis {
+    match a {
+        AxisArg::Fast => VectorAxis::Fast,
+        AxisArg::Slow => VectorAxis::Slow,
     }
 }
 
@@ -301,6 +378,12 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
         }
         Command::Anisotropy(args) => {
             let report = args.job()?.run()?;
+            if !args.quiet {
+                say(&format!("{report}{CAUTION}"));
+            }
+        }
+        Command::Render(args) => {
+            let report = args.job().run()?;
             if !args.quiet {
                 say(&format!("{report}{CAUTION}"));
             }

@@ -210,14 +210,6 @@ impl SectorFit {
     pub fn snr(&self) -> f64 {
         self.magnitude / self.magnitude_stderr
     }
-
-    /// The azimuth along `axis`, degrees from grid north in 0..180.
-    pub fn azimuth(&self, axis: VectorAxis) -> f64 {
-        match axis {
-            VectorAxis::Fast => self.azimuth_fast,
-            VectorAxis::Slow => self.azimuth_slow,
-        }
-    }
 }
 
 /// One output band of a per-bin fit: identifier (the band description), unit, meaning, and
@@ -306,44 +298,72 @@ pub enum VectorAxis {
     Slow,
 }
 
-/// Bins kept for map vectors, row-major `(row, col, fit)`: every `every`-th bin in both
-/// directions (the middle bin of each `every` x `every` block) whose SNR is at least `min_snr`
-/// (`min_snr = 0` keeps every fitted bin, including 3-sector bins of unknown SNR).
-pub fn vector_bins(
-    fits: &[Option<SectorFit>],
+/// What a map vector needs from one bin: magnitude (ms), both azimuths (degrees from grid
+/// north) and the magnitude's signal-to-noise ratio.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct VectorSample {
+    /// Magnitude B (ms).
+    pub magnitude: f64,
+    /// Fast azimuth, degrees from grid north.
+    pub azimuth_fast: f64,
+    /// Slow azimuth, degrees from grid north.
+    pub azimuth_slow: f64,
+    /// B / magnitude_stderr (NaN when unknown).
+    pub snr: f64,
+}
+
+impl VectorSample {
+    /// The azimuth along `axis`.
+    pub fn azimuth(&self, axis: VectorAxis) -> f64 {
+        match axis {
+            VectorAxis::Fast => self.azimuth_fast,
+            VectorAxis::Slow => self.azimuth_slow,
+        }
+    }
+}
+
+impl From<&SectorFit> for VectorSample {
+    fn from(f: &SectorFit) -> Self {
+        Self {
+            magnitude: f.magnitude,
+            azimuth_fast: f.azimuth_fast,
+            azimuth_slow: f.azimuth_slow,
+            snr: f.snr(),
+        }
+    }
+}
+
+/// Bins kept for map vectors, row-major `(row, col, sample)`: every `every.0`-th column and
+/// `every.1`-th row (the middle bin of each block) whose SNR is at least `min_snr`
+/// (`min_snr = 0` keeps every bin with a sample, including 3-sector bins of unknown SNR).
+pub fn vector_bins<T: Copy>(
+    samples: &[Option<T>],
     cols: usize,
-    every: usize,
+    every: (usize, usize),
     min_snr: f64,
-) -> Vec<(usize, usize, SectorFit)> {
-    let every = every.max(1);
-    let offset = every / 2;
-    fits.iter()
+    snr: impl Fn(&T) -> f64,
+) -> Vec<(usize, usize, T)> {
+    let (ec, er) = (every.0.max(1), every.1.max(1));
+    samples
+        .iter()
         .enumerate()
-        .filter_map(|(i, f)| f.map(|f| (i / cols, i % cols, f)))
-        .filter(|&(r, c, _)| r % every == offset && c % every == offset)
-        .filter(|(_, _, f)| min_snr <= 0.0 || f.snr() >= min_snr)
+        .filter_map(|(i, s)| s.map(|s| (i / cols, i % cols, s)))
+        .filter(|&(r, c, _)| r % er == er / 2 && c % ec == ec / 2)
+        .filter(|(_, _, s)| min_snr <= 0.0 || snr(s) >= min_snr)
         .collect()
 }
 
-/// Default vector scale in metres per ms: the 95th-percentile magnitude of `bins` draws
-/// 0.9 of the spacing between vectors (`every` bins of `spacing_m` metres), so neighbouring
-/// vectors rarely overlap. 0 when no bin has a positive magnitude.
-pub fn default_vector_scale(
-    bins: &[(usize, usize, SectorFit)],
-    every: usize,
-    spacing_m: f64,
-) -> f64 {
-    let mut m: Vec<f64> = bins
-        .iter()
-        .map(|(_, _, f)| f.magnitude)
-        .filter(|v| v.is_finite() && *v > 0.0)
-        .collect();
+/// Default vector scale in metres per ms: the 95th-percentile of `magnitudes` draws 0.9 of
+/// the distance between neighbouring vectors (`spacing_m`), so they rarely overlap. 0 when no
+/// magnitude is positive.
+pub fn default_vector_scale(magnitudes: impl Iterator<Item = f64>, spacing_m: f64) -> f64 {
+    let mut m: Vec<f64> = magnitudes.filter(|v| v.is_finite() && *v > 0.0).collect();
     if m.is_empty() {
         return 0.0;
     }
     m.sort_by(f64::total_cmp);
     let p95 = m[((m.len() - 1) as f64 * 0.95).round() as usize];
-    0.9 * every.max(1) as f64 * spacing_m / p95
+    0.9 * spacing_m / p95
 }
 
 /// End points (CRS units) of a segment of `length_m` metres centred on `centre` along

@@ -98,7 +98,11 @@ impl ColourScale {
             ScaleKind::Diverging => {
                 let mut magnitudes: Vec<f64> = finite.iter().map(|v| v.abs()).collect();
                 let c = positive_or_one(percentile(&mut magnitudes, 0.98));
-                (-c, c, format!("clipped at +-{} (98th percentile of |value|)", short(c)))
+                (
+                    -c,
+                    c,
+                    format!("clipped at +-{} (98th percentile of |value|)", short(c)),
+                )
             }
             ScaleKind::Sequential => {
                 let lo = percentile(&mut finite, 0.02);
@@ -106,7 +110,15 @@ impl ColourScale {
                 if hi <= lo {
                     hi = lo + positive_or_one(lo.abs() * 1e-3);
                 }
-                (lo, hi, format!("clipped to {} .. {} (2nd to 98th percentile)", short(lo), short(hi)))
+                (
+                    lo,
+                    hi,
+                    format!(
+                        "clipped to {} .. {} (2nd to 98th percentile)",
+                        short(lo),
+                        short(hi)
+                    ),
+                )
             }
         };
         Some(Self {

@@ -113,6 +113,28 @@ impl GridGeometry {
         Ok(-true_north_in_grid)
     }
 
+    /// When every cell of `self` is a block of whole cells of `fine` (same CRS and axis
+    /// directions, bins integer multiples, corners on the fine lattice), the block size
+    /// (columns, rows); `Some((1, 1))` for the same lattice. No resampling is implied: a
+    /// superbin's centre is an exact map point of the fine grid's picture.
+    pub fn superbin_of(&self, fine: &GridGeometry) -> Option<(usize, usize)> {
+        if self.crs_wkt != fine.crs_wkt {
+            return None;
+        }
+        let (g, f) = (&self.geo_transform, &fine.geo_transform);
+        let ratio = |a: f64, b: f64, c: f64, d: f64| {
+            // (a, b) = k (c, d) for a positive integer k?
+            let k = (a.hypot(b) / c.hypot(d)).round();
+            let close = (a - k * c).abs() + (b - k * d).abs() <= 1e-9 * c.hypot(d) * k.max(1.0);
+            (k >= 1.0 && close).then_some(k as usize)
+        };
+        let kc = ratio(g[1], g[4], f[1], f[4])?;
+        let kr = ratio(g[2], g[5], f[2], f[5])?;
+        let (c0, r0) = fine.map_to_grid(g[0], g[3]);
+        let on_lattice = (c0 - c0.round()).abs() < 1e-6 && (r0 - r0.round()).abs() < 1e-6;
+        on_lattice.then_some((kc, kr))
+    }
+
     /// One-line description: size, spacing and rotation.
     pub fn describe(&self) -> String {
         let (sx, sy) = self.spacing();
@@ -223,6 +245,25 @@ mod tests {
         let (x, y) = g.cell_centre(3, 2);
         let (c, r) = g.map_to_grid(x, y);
         assert!((c - 3.5).abs() < 1e-9 && (r - 2.5).abs() < 1e-9);
+    }
+
+    #[test]
+    fn superbins_nest_only_on_the_lattice() {
+        let fine = rotated(20.0);
+        let g = fine.geo_transform;
+        // Column vector (g1, g4) doubled, row vector (g2, g5) tripled, same corner.
+        let coarse = GridGeometry {
+            geo_transform: [g[0], 2.0 * g[1], 3.0 * g[2], g[3], 2.0 * g[4], 3.0 * g[5]],
+            ..fine.clone()
+        };
+        assert_eq!(coarse.superbin_of(&fine), Some((2, 3)));
+        assert_eq!(fine.superbin_of(&fine), Some((1, 1)));
+        let mut shifted = coarse.clone();
+        shifted.geo_transform[0] += 3.0;
+        assert_eq!(shifted.superbin_of(&fine), None);
+        let mut skewed = fine.clone();
+        skewed.geo_transform[1] *= 1.5;
+        assert_eq!(skewed.superbin_of(&fine), None);
     }
 
     #[test]

@@ -94,6 +94,55 @@ pub fn read_bands(
     Ok((geometry, bands))
 }
 
+/// Band descriptions and unit types, and the dataset's default-domain metadata, of a raster.
+#[derive(Clone, Debug, PartialEq)]
+pub struct RasterInfo {
+    /// Description of each band (empty when none), in band order.
+    pub names: Vec<String>,
+    /// Unit type of each band (empty when none).
+    pub units: Vec<String>,
+    /// `(key, value)` metadata items.
+    pub metadata: Vec<(String, String)>,
+}
+
+impl RasterInfo {
+    /// The value of metadata item `key`, if present.
+    pub fn item(&self, key: &str) -> Option<&str> {
+        self.metadata
+            .iter()
+            .find(|(k, _)| k == key)
+            .map(|(_, v)| v.as_str())
+    }
+}
+
+/// Reads the band descriptions, units and metadata of a raster.
+pub fn read_info(path: &Path) -> Result<RasterInfo> {
+    capture_gdal_messages();
+    if !path.is_file() {
+        return Err(FlexureError::read(path, "no such file"));
+    }
+    let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
+    let (mut names, mut units) = (Vec::new(), Vec::new());
+    for i in 1..=ds.raster_count() {
+        let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
+        names.push(band.description().unwrap_or_default());
+        units.push(band.unit());
+    }
+    let metadata = ds
+        .metadata_domain("")
+        .unwrap_or_default()
+        .iter()
+        .filter_map(|kv| kv.split_once('='))
+        .map(|(k, v)| (k.to_string(), v.to_string()))
+        .collect();
+    take_gdal_messages();
+    Ok(RasterInfo {
+        names,
+        units,
+        metadata,
+    })
+}
+
 fn null_to_nan(v: f64, nodata: Option<f64>) -> f64 {
     let is_nodata = nodata.is_some_and(|nd| v == nd || (nd.is_nan() && v.is_nan()));
     if is_nodata || !v.is_finite() {
@@ -180,7 +229,11 @@ pub fn stage_float_geotiff(
     bands: &[BandOut],
     metadata: &[(String, String)],
 ) -> Result<StagedFile> {
-    check_band_sizes(path, geometry, bands.iter().map(|b| (b.description, b.values.dim())))?;
+    check_band_sizes(
+        path,
+        geometry,
+        bands.iter().map(|b| (b.description, b.values.dim())),
+    )?;
     let tiff_bands = bands
         .iter()
         .map(|b| TiffBand {
@@ -207,7 +260,11 @@ pub fn stage_rgba_geotiff(
     metadata: &[(String, String)],
 ) -> Result<StagedFile> {
     let names = ["red", "green", "blue", "alpha"];
-    check_band_sizes(path, geometry, names.iter().zip(rgba).map(|(n, b)| (*n, b.dim())))?;
+    check_band_sizes(
+        path,
+        geometry,
+        names.iter().zip(rgba).map(|(n, b)| (*n, b.dim())),
+    )?;
     let tiff_bands = names
         .iter()
         .zip(rgba)
@@ -237,7 +294,7 @@ const RGBA_OPTIONS: [&str; 7] = [
     "BLOCKXSIZE=256",
     "BLOCKYSIZE=256",
     "PHOTOMETRIC=RGB",
-    "ALPHA=UNASSOCIATED",
+    "ALPHA=YES",
 ];
 
 /// One band as GDAL gets it: row-major data with its description, unit and nodata.

@@ -29,7 +29,7 @@ pub const SUN_ALTITUDE: f64 = 45.0;
 /// [`SUN_AZIMUTH`] at [`SUN_ALTITUDE`]: the cosine of the angle between the surface normal and
 /// the light, 0..1; NaN where a neighbour is null or at the edge. `positive_down` values (depth
 /// or time) are negated so antiforms are the lit highs. `exaggeration` multiplies the values
-/// (per metre of map distance); `None` scales so that the 95th-percentile slope is 45 degrees.
+/// (per metre of map distance); `None` scales so that the 95th-percentile slope is 30 degrees.
 pub fn hillshade(
     z: &Array2<f64>,
     geometry: &GridGeometry,
@@ -47,7 +47,7 @@ pub fn hillshade(
         slopes.sort_by(f64::total_cmp);
         slopes
             .get(((slopes.len().max(1) - 1) as f64 * 0.95).round() as usize)
-            .map_or(1.0, |p95| 1.0 / p95)
+            .map_or(1.0, |p95| 30f64.to_radians().tan() / p95)
     }) * sign;
     let (az, alt) = (SUN_AZIMUTH.to_radians(), SUN_ALTITUDE.to_radians());
     let light = [az.sin() * alt.cos(), az.cos() * alt.cos(), alt.sin()];
@@ -71,9 +71,8 @@ fn map_gradients(z: &Array2<f64>, geometry: &GridGeometry) -> Array2<Option<(f64
         if r == 0 || col == 0 || r + 1 == rows || col + 1 == cols {
             return None;
         }
-        let at = |dr: isize, dc: isize| {
-            z[((r as isize + dr) as usize, (col as isize + dc) as usize)]
-        };
+        let at =
+            |dr: isize, dc: isize| z[((r as isize + dr) as usize, (col as isize + dc) as usize)];
         let dcol = ((at(-1, 1) + 2.0 * at(0, 1) + at(1, 1))
             - (at(-1, -1) + 2.0 * at(0, -1) + at(1, -1)))
             / 8.0;
@@ -91,8 +90,8 @@ fn map_gradients(z: &Array2<f64>, geometry: &GridGeometry) -> Array2<Option<(f64
 }
 
 /// Straight (not premultiplied) RGBA of every cell: the scale's colour, multiplied by the
-/// shade (`0.25 + 0.85 shade`, at most 1, so flat ground is slightly darkened and lit slopes
-/// brighten); null cells transparent.
+/// shade (`0.55 + 0.5 shade`, at most 1, so flat ground is slightly darkened, lit slopes keep
+/// their colour and slopes facing away stay readable); null cells transparent.
 pub fn colour_cells(
     values: &Array2<f64>,
     scale: &ColourScale,
@@ -104,7 +103,7 @@ pub fn colour_cells(
             let f = shade
                 .map(|s| s[(r, c)])
                 .filter(|s| s.is_finite())
-                .map_or(1.0, |s| (0.25 + 0.85 * s).min(1.0));
+                .map_or(1.0, |s| (0.55 + 0.5 * s).min(1.0));
             [
                 (rgb[0] as f64 * f).round() as u8,
                 (rgb[1] as f64 * f).round() as u8,
@@ -262,7 +261,13 @@ pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
             y += 15.0;
         }
     }
-    north_arrow(&mut page, &text, x0 + 40.0, y + 60.0, legend.north_in_picture);
+    north_arrow(
+        &mut page,
+        &text,
+        x0 + 40.0,
+        y + 60.0,
+        legend.north_in_picture,
+    );
     let mut fy = (TITLE_HEIGHT + map.height().max(panel_height) + MARGIN) as f32;
     for line in &legend.extent {
         text.draw(&mut page, line, MARGIN as f32, fy, 12.0);
@@ -281,7 +286,12 @@ fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f3
         let v = value_at(scale, t);
         if let (Some(rgb), Some(rect)) = (
             scale.colour(v),
-            Rect::from_xywh(x, y + bar_h * i as f32 / steps as f32, bar_w, bar_h / steps as f32 + 0.5),
+            Rect::from_xywh(
+                x,
+                y + bar_h * i as f32 / steps as f32,
+                bar_w,
+                bar_h / steps as f32 + 0.5,
+            ),
         ) {
             fill_rect(page, rect, rgb);
         }
@@ -292,7 +302,13 @@ fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f3
         if let Some(rect) = Rect::from_xywh(x + bar_w, ty - 0.5, 6.0, 1.0) {
             fill_rect(page, rect, [0, 0, 0]);
         }
-        text.draw(page, &short(value_at(scale, t)), x + bar_w + 10.0, ty + 5.0, 12.0);
+        text.draw(
+            page,
+            &short(value_at(scale, t)),
+            x + bar_w + 10.0,
+            ty + 5.0,
+            12.0,
+        );
     }
     y + bar_h + 22.0
 }
@@ -358,11 +374,17 @@ fn north_arrow(page: &mut Pixmap, text: &Text, cx: f32, cy: f32, north_deg: f64)
         let mut paint = Paint::default();
         paint.set_color(Color::from_rgba8(30, 30, 30, 255));
         paint.anti_alias = true;
-        page.fill_path(&path, &paint, tiny_skia::FillRule::Winding, Transform::identity(), None);
+        page.fill_path(
+            &path,
+            &paint,
+            tiny_skia::FillRule::Winding,
+            Transform::identity(),
+            None,
+        );
     }
     let label = at(56.0, 0.0);
     text.draw(page, "N", label.0 - 6.0, label.1 + 7.0, 16.0);
-    text.draw(page, "grid north", cx + 60.0, cy + 5.0, 11.0);
+    text.draw(page, "grid north", cx + 52.0, cy + 5.0, 11.0);
 }
 
 /// Splits `s` into lines of at most about `width` characters at spaces.
@@ -408,10 +430,15 @@ impl Text {
             let glyph = id.with_scale_and_position(size, ab_glyph::point(caret, y));
             caret += scaled.h_advance(id);
             previous = Some(id);
-            let Some(outline) = self.font.outline_glyph(glyph) else { continue };
+            let Some(outline) = self.font.outline_glyph(glyph) else {
+                continue;
+            };
             let bounds = outline.px_bounds();
             outline.draw(|gx, gy, coverage| {
-                let (px, py) = (bounds.min.x as i64 + gx as i64, bounds.min.y as i64 + gy as i64);
+                let (px, py) = (
+                    bounds.min.x as i64 + gx as i64,
+                    bounds.min.y as i64 + gy as i64,
+                );
                 if px < 0 || py < 0 || px >= w || py >= h {
                     return;
                 }
@@ -419,7 +446,12 @@ impl Text {
                 let old = pixels[i].demultiply();
                 let a = coverage.clamp(0.0, 1.0);
                 let mix = |v: u8| (v as f32 * (1.0 - a)).round() as u8;
-                pixels[i] = premultiplied([mix(old.red()), mix(old.green()), mix(old.blue()), old.alpha().max((a * 255.0) as u8)]);
+                pixels[i] = premultiplied([
+                    mix(old.red()),
+                    mix(old.green()),
+                    mix(old.blue()),
+                    old.alpha().max((a * 255.0) as u8),
+                ]);
             });
         }
     }

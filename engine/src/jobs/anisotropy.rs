@@ -5,7 +5,7 @@
 
 use crate::anisotropy::{
     default_vector_scale, fit_sector_grids, segment, vector_bins, SectorFit, SectorWeight,
-    VectorAxis, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
+    VectorAxis, VectorSample, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -269,12 +269,21 @@ impl AnisotropyJob {
                 }),
             })
             .collect();
-        let kept = vector_bins(fits, geometry.cols, self.every, self.min_snr);
+        let kept = vector_bins(
+            fits,
+            geometry.cols,
+            (self.every, self.every),
+            self.min_snr,
+            SectorFit::snr,
+        );
         let (sx, sy) = geometry.spacing();
         let spacing_m = sx.min(sy) * geometry.metres_per_unit;
-        let scale = self
-            .vector_scale
-            .unwrap_or_else(|| default_vector_scale(&kept, self.every, spacing_m));
+        let scale = self.vector_scale.unwrap_or_else(|| {
+            default_vector_scale(
+                kept.iter().map(|k| k.2.magnitude),
+                self.every as f64 * spacing_m,
+            )
+        });
         let features: Vec<LineFeature> = kept
             .iter()
             .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
@@ -411,7 +420,7 @@ fn line_feature(
     let length_m = f.magnitude * scale;
     let (start, end) = segment(
         geometry.cell_centre(col, row),
-        f.azimuth(axis),
+        VectorSample::from(f).azimuth(axis),
         length_m,
         geometry.metres_per_unit,
     );

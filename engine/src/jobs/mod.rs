@@ -3,12 +3,14 @@
 
 mod anisotropy;
 mod curvature;
+mod render;
 
 pub use crate::anisotropy::VectorAxis;
 pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
 };
 pub use curvature::{CurvatureJob, CurvatureReport, VelocitySource, WindowReport};
+pub use render::{RenderJob, RenderReport};
 
 /// Progress of a long job, in units of grid rows fitted.
 pub trait Progress: Sync {
