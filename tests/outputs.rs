@@ -1,4 +1,4 @@
-//! What the curvature and anisotropy jobs write, checked by GDAL reading it back (`gdalinfo
+//! What the curvature, anisotropy and render jobs write, checked by GDAL reading it back (`gdalinfo
 //! -json` and `ogrinfo` from gdal-bin, and the gdal crate), bit-identical results for 1 and 2
 //! threads, and the shipped demo data matching its generator.
 
@@ -283,4 +283,216 @@ fn anisotropy_does_not_depend_on_thread_count() {
         job.raster_path()
     };
     assert_eq!(band_bits(&run(1)), band_bits(&run(2)));
+}
+
+/// A north-up EPSG:32625 grid of `cell` m bins.
+fn north_up(cols: usize, rows: usize, cell: f64) -> flexure_engine::grid::GridGeometry {
+    survey_geometry((500_000.0, 3_900_000.0), 90.0, (cell, cell), (cols, rows))
+}
+
+fn write_f32(
+    path: &Path,
+    g: &flexure_engine::grid::GridGeometry,
+    bands: Vec<(&str, ndarray::Array2<f32>)>,
+) {
+    let bands: Vec<BandOut> = bands
+        .into_iter()
+        .map(|(description, values)| BandOut {
+            description,
+            unit: "1/km",
+            values,
+        })
+        .collect();
+    write_float_geotiff(path, g, &bands, &[]).unwrap();
+}
+
+fn read_u8_bands(path: &Path) -> Vec<Vec<u8>> {
+    let ds = Dataset::open(path).unwrap();
+    let (cols, rows) = ds.raster_size();
+    (1..=ds.raster_count())
+        .map(|b| {
+            let buf = ds
+                .rasterband(b)
+                .unwrap()
+                .read_as::<u8>((0, 0), (cols, rows), (cols, rows), None)
+                .unwrap();
+            buf.data().to_vec()
+        })
+        .collect()
+}
+
+#[test]
+fn rendered_map_is_on_the_attribute_grid_with_published_colours() {
+    // ColorBrewer RdBu (colorbrewer2.org, 11 classes; from memory): zero is the centre colour
+    // #f7f7f7, values beyond the positive clip the red end #67001f, beyond the negative clip
+    // the blue end #053061.
+    let dir = tempfile::tempdir().unwrap();
+    let g = survey_geometry((500_000.0, 3_900_000.0), 115.0, (25.0, 12.5), (30, 20));
+    let mut values = ndarray::Array2::from_shape_fn((20, 30), |(r, c)| {
+        (c as f32 - 15.0) * 0.01 + r as f32 * 0.0
+    });
+    values[(3, 4)] = f32::NAN;
+    // Far beyond the robust clip at the 98th percentile of |value|.
+    values[(0, 0)] = 10.0;
+    values[(0, 1)] = -10.0;
+    let attribute = dir.path().join("attr.tif");
+    write_f32(
+        &attribute,
+        &g,
+        vec![("k_mean", values.clone()), ("k_pos", values)],
+    );
+    let out = dir.path().join("map.tif");
+    let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &out);
+    job.band = Some("k_pos".into());
+    job.png = Some(dir.path().join("map.png"));
+    job.run().unwrap();
+    let info = gdalinfo(&out);
+    let gt: Vec<f64> = info["geoTransform"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap())
+        .collect();
+    assert_eq!(gt, g.geo_transform.to_vec());
+    assert!(info["coordinateSystem"]["wkt"]
+        .as_str()
+        .unwrap()
+        .contains("UTM zone 25N"));
+    let interp: Vec<&str> = info["bands"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|b| b["colorInterpretation"].as_str().unwrap())
+        .collect();
+    assert_eq!(interp, ["Red", "Green", "Blue", "Alpha"]);
+    let rgba = read_u8_bands(&out);
+    let at = |r: usize, c: usize| {
+        [
+            rgba[0][r * 30 + c],
+            rgba[1][r * 30 + c],
+            rgba[2][r * 30 + c],
+            rgba[3][r * 30 + c],
+        ]
+    };
+    assert_eq!(at(3, 4)[3], 0, "null cell is transparent");
+    assert_eq!(
+        at(5, 15),
+        [0xf7, 0xf7, 0xf7, 255],
+        "zero is the centre colour"
+    );
+    assert_eq!(
+        at(0, 0),
+        [0x67, 0x00, 0x1f, 255],
+        "beyond +clip is the red end"
+    );
+    assert_eq!(
+        at(0, 1),
+        [0x05, 0x30, 0x61, 255],
+        "beyond -clip is the blue end"
+    );
+    // The PNG decodes (the png crate via tiny-skia's reader is not ours to test; GDAL's PNG
+    // driver reads it).
+    let png = Dataset::open(dir.path().join("map.png")).unwrap();
+    assert_eq!(png.raster_count(), 4);
+}
+
+#[test]
+fn vectors_change_a_few_pixels_along_the_given_azimuth() {
+    // A uniform synthetic anisotropy field (fast azimuth 30 degrees) over a uniform attribute:
+    // the pixels the vectors change must be few and spread along 30 degrees from north
+    // (principal axis of their offsets from the vector centres; elementary geometry).
+    let dir = tempfile::tempdir().unwrap();
+    let (cols, rows) = (200, 160);
+    let g = north_up(cols, rows, 10.0);
+    let attribute = dir.path().join("flat.tif");
+    write_f32(
+        &attribute,
+        &g,
+        vec![("k_pos", ndarray::Array2::zeros((rows, cols)))],
+    );
+    let fill = |v: f32| ndarray::Array2::from_elem((rows, cols), v);
+    let aniso = dir.path().join("anisotropy.tif");
+    let bands: Vec<(&str, ndarray::Array2<f32>)> = FIT_BANDS
+        .iter()
+        .map(|b| {
+            let v = match b.id {
+                "magnitude" | "magnitude_unbiased" => 3.0,
+                "azimuth_fast" => 30.0,
+                "azimuth_slow" => 120.0,
+                "magnitude_stderr" => 0.1,
+                _ => 1.0,
+            };
+            (b.id, fill(v))
+        })
+        .collect();
+    write_f32(&aniso, &g, bands);
+    let plain = dir.path().join("plain.tif");
+    flexure_engine::jobs::RenderJob::new(&attribute, &plain)
+        .run()
+        .unwrap();
+    let drawn = dir.path().join("drawn.tif");
+    let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &drawn);
+    job.anisotropy = Some(aniso);
+    job.every = Some(20);
+    let report = job.run().unwrap();
+    assert_eq!(report.vectors.unwrap().0, 10 * 8);
+    let (a, b) = (read_u8_bands(&plain), read_u8_bands(&drawn));
+    let changed: Vec<(usize, usize)> = (0..rows * cols)
+        .filter(|&i| (0..3).any(|k| a[k][i] != b[k][i]))
+        .map(|i| (i / cols, i % cols))
+        .collect();
+    let share = changed.len() as f64 / (rows * cols) as f64;
+    assert!(share > 0.005 && share < 0.25, "changed share {share}");
+    // Offsets from the nearest vector centre (centres at pixel 10 + 20 k, 10 + 20 m).
+    let (mut sxx, mut syy, mut sxy) = (0.0, 0.0, 0.0);
+    for &(r, c) in &changed {
+        let centre = |v: usize| 20.0 * ((v as f64 - 10.0) / 20.0).round() + 10.5;
+        let (dx, dy) = (c as f64 + 0.5 - centre(c), -(r as f64 + 0.5 - centre(r)));
+        sxx += dx * dx;
+        syy += dy * dy;
+        sxy += dx * dy;
+    }
+    // Principal axis angle from north (y), clockwise.
+    let axis = 0.5 * (2.0 * sxy).atan2(syy - sxx);
+    let azimuth = axis.to_degrees().rem_euclid(180.0);
+    assert!((azimuth - 30.0).abs() < 3.0, "principal azimuth {azimuth}");
+}
+
+#[test]
+fn hillshade_matches_gdaldem() {
+    // gdaldem hillshade (GDAL's reference implementation of Horn 1981, azimuth 315, altitude
+    // 45, z factor 1) stores 1 + 254 * cos(angle to the light) (GDAL documentation and source,
+    // from memory); our shade of the same elevation grid must agree to one grey level.
+    let dir = tempfile::tempdir().unwrap();
+    let (cols, rows) = (60, 50);
+    let g = north_up(cols, rows, 10.0);
+    let z = ndarray::Array2::from_shape_fn((rows, cols), |(r, c)| {
+        let (x, y) = (c as f64 * 10.0, r as f64 * 10.0);
+        (30.0 * (x / 97.0).sin() * (y / 131.0).cos() + 0.1 * x) as f32
+    });
+    let input = dir.path().join("elev.tif");
+    write_f32(&input, &g, vec![("z", z.clone())]);
+    let shaded = dir.path().join("shade.tif");
+    let status = Command::new("gdaldem")
+        .args(["hillshade", "-q", "-z", "1", "-az", "315", "-alt", "45"])
+        .arg(&input)
+        .arg(&shaded)
+        .status()
+        .expect("gdaldem from gdal-bin");
+    assert!(status.success());
+    let reference = read_u8_bands(&shaded).remove(0);
+    let ours = flexure_engine::render::hillshade(&z.mapv(f64::from), &g, false, Some(1.0));
+    let mut compared = 0;
+    for r in 1..rows - 1 {
+        for c in 1..cols - 1 {
+            let expected = reference[r * cols + c] as f64;
+            let got = 1.0 + 254.0 * ours[(r, c)];
+            assert!(
+                (got - expected).abs() <= 1.0,
+                "({c},{r}): {got} vs gdaldem {expected}"
+            );
+            compared += 1;
+        }
+    }
+    assert!(compared > 2000);
 }

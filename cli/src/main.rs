@@ -191,14 +191,9 @@ struct RenderArgs {
     #[arg(long)]
     shade_positive_up: bool,
     /// Colour limits LO,HI in the band's unit; default robust percentiles (2nd/98th).
-    #[arg(
-        long,
-        value_delimiter = ',',
-        num_args = 2,
-        allow_negative_numbers = true
-    )]
+    #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
     clip: Option<Vec<f64>>,
-    /// Draw a vector on every N-th anisotropy bin; default about 50 across the map.
+    /// Draw a vector on every N-th anisotropy bin; default about 45 across the map.
     #[arg(long)]
     every: Option<usize>,
     /// Azimuth the vectors follow.
@@ -222,22 +217,27 @@ struct RenderArgs {
 }
 
 impl RenderArgs {
-    fn job(&self) -> RenderJob {
+    fn job(&self) -> Result<RenderJob, FlexureError> {
         let mut job = RenderJob::new(&self.attribute, &self.out);
         job.band = self.band.clone();
         job.anisotropy = self.anisotropy.clone();
         job.shade = self.shade.clone();
         job.shade_positive_up = self.shade_positive_up;
         job.clip = match self.clip.as_deref() {
+            None => Clip::Auto,
             Some([lo, hi]) => Clip::Range(*lo, *hi),
-            _ => Clip::Auto,
+            Some(_) => {
+                return Err(FlexureError::Parameter(
+                    "--clip takes two values: LO,HI".into(),
+                ))
+            }
         };
         job.every = self.every;
         job.axis = axis(self.vector);
         job.min_snr = self.min_snr;
         job.vector_scale = self.vector_scale;
         job.png = self.png.clone();
-        job
+        Ok(job)
     }
 }
 
@@ -383,7 +383,7 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
             }
         }
         Command::Render(args) => {
-            let report = args.job().run()?;
+            let report = args.job()?.run()?;
             if !args.quiet {
                 say(&format!("{report}{CAUTION}"));
             }
@@ -407,6 +407,12 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
                         .join(", ")
                 );
                 text += &report.anisotropy.to_string();
+                text += &format!("Maps in {}:\n", out.join("maps").display());
+                text += &report
+                    .maps
+                    .iter()
+                    .map(|m| m.to_string())
+                    .collect::<String>();
                 say(&(text + CAUTION));
             }
         }

@@ -1,7 +1,7 @@
-//! `flexure anisotropy` end to end: per-sector files and one multi-band raster, weights as
+//! `flexure anisotropy` and `flexure render` end to end: per-sector files and one multi-band raster, weights as
 //! numbers and as grids, true-north azimuths with a given or computed grid convergence, vector
 //! options, the usual-practice notes, and every kind of bad input named in the anisotropy issue
-//! getting one clear line, a non-zero exit and no output.
+//! (and the render issue) getting one clear line, a non-zero exit and no output.
 
 mod common;
 
@@ -326,4 +326,78 @@ fn bad_anisotropy_inputs_fail_cleanly() {
     }
     // Inputs are untouched.
     assert!(files.iter().all(|p| p.is_file()) && twin.is_file());
+}
+
+#[test]
+fn render_bad_inputs_fail_cleanly() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let g = north_up(COLS, ROWS);
+    let attr = write_bands(d, "attr.tif", &g, vec![sector_times(15.0, 4.0, 0)]);
+    let nulls = write_bands(
+        d,
+        "nulls.tif",
+        &g,
+        vec![Array2::from_elem((ROWS, COLS), f32::NAN)],
+    );
+    // Half a bin off the attribute's lattice: drawing it would need resampling.
+    let mut shifted = north_up(COLS, ROWS);
+    shifted.geo_transform[0] += 12.5;
+    let other = write_bands(
+        d,
+        "anisotropy.tif",
+        &shifted,
+        vec![sector_times(15.0, 4.0, 0)],
+    );
+    let blocker = d.join("a_file");
+    std::fs::write(&blocker, b"").unwrap();
+    let out = d.join("out");
+    let map = out.join("map.tif");
+    let (a, m) = (attr.to_str().unwrap(), map.to_str().unwrap());
+    let blocked = blocker.join("map.tif");
+    let cases: Vec<(Vec<&str>, &str)> = vec![
+        (
+            vec!["render", "--attribute", a, "--band", "k_wobble", "--out", m],
+            "its bands are: z",
+        ),
+        (
+            vec![
+                "render",
+                "--attribute",
+                a,
+                "--anisotropy",
+                other.to_str().unwrap(),
+                "--out",
+                m,
+            ],
+            "24 x 20 cells",
+        ),
+        (
+            vec!["render", "--attribute", nulls.to_str().unwrap(), "--out", m],
+            "null everywhere",
+        ),
+        (
+            vec![
+                "render",
+                "--attribute",
+                a,
+                "--out",
+                blocked.to_str().unwrap(),
+            ],
+            "writable",
+        ),
+        (vec!["render", "--attribute", a, "--out", a], "overwrite"),
+        (
+            vec!["render", "--attribute", a, "--clip", "1,-1", "--out", m],
+            "--clip",
+        ),
+    ];
+    for (args, expect) in cases {
+        let msg = fails(&args, &out);
+        assert!(
+            msg.contains(expect),
+            "{args:?}: expected '{expect}' in {msg}"
+        );
+    }
+    assert!(attr.is_file());
 }

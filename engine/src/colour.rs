@@ -204,7 +204,12 @@ pub fn short(v: f64) -> String {
         return format!("{v}");
     }
     let decimals = (3 - v.abs().log10().floor() as i32).clamp(0, 8) as usize;
-    format!("{v:.decimals$}")
+    let text = format!("{v:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
 }
 
 fn positive_or_one(v: f64) -> f64 {

@@ -20,7 +20,8 @@ use crate::grid::GridGeometry;
 use crate::horizon::Domain;
 use crate::io::{write_float_geotiff, BandOut};
 use crate::jobs::{
-    AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, Progress, VelocitySource,
+    AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, Progress, RenderJob,
+    RenderReport, VelocitySource,
 };
 use crate::synthetic::{SeededNoise, Shape, Surface};
 use gdal::spatial_ref::SpatialRef;
@@ -347,6 +348,46 @@ pub fn demo_anisotropy_job(
     job
 }
 
+/// Attributes the demo draws as quicklooks for every horizon (window [`DEMO_MAP_WINDOW`]).
+pub const DEMO_QUICKLOOKS: [&str; 4] = ["k_pos", "k_neg", "shape_index", "dip"];
+
+/// Window of the demo maps.
+pub const DEMO_MAP_WINDOW: usize = 9;
+
+/// The render jobs of the demo: quicklooks of the main attributes of every horizon shaded by
+/// the horizon itself, k_pos of the Kelvane Marl with its anisotropy vectors, and the
+/// anisotropy magnitude with its vectors; all into `out_dir/maps`.
+pub fn demo_render_jobs(data_dir: &Path, out_dir: &Path) -> Vec<RenderJob> {
+    let maps = out_dir.join("maps");
+    let anisotropy = out_dir.join("anisotropy");
+    let sectors = demo_sectors();
+    let mut jobs = Vec::new();
+    for h in demo_horizons() {
+        let curvature = demo_curvature_job(&h, data_dir, out_dir).output_path(DEMO_MAP_WINDOW);
+        let stem = h.file.trim_end_matches(".tif");
+        for band in DEMO_QUICKLOOKS {
+            let name = format!("{stem}_{band}_w{DEMO_MAP_WINDOW:02}");
+            let mut job = RenderJob::new(&curvature, maps.join(format!("{name}.tif")));
+            job.band = Some(band.to_string());
+            job.shade = Some(data_dir.join(h.file));
+            job.png = Some(maps.join(format!("{name}.png")));
+            if h.file == sectors.horizon.file && band == "k_pos" {
+                job.anisotropy = Some(anisotropy.clone());
+            }
+            jobs.push(job);
+        }
+    }
+    let mut magnitude = RenderJob::new(
+        anisotropy.join("anisotropy.tif"),
+        maps.join("kelvane_marl_anisotropy_magnitude.tif"),
+    );
+    magnitude.band = Some("magnitude".into());
+    magnitude.anisotropy = Some(anisotropy);
+    magnitude.png = Some(maps.join("kelvane_marl_anisotropy_magnitude.png"));
+    jobs.push(magnitude);
+    jobs
+}
+
 /// What the demo wrote.
 #[derive(Clone, Debug)]
 pub struct DemoReport {
@@ -354,10 +395,12 @@ pub struct DemoReport {
     pub curvature: Vec<CurvatureReport>,
     /// The anisotropy of the sector picks.
     pub anisotropy: AnisotropyReport,
+    /// The maps drawn.
+    pub maps: Vec<RenderReport>,
 }
 
-/// Runs the demo: curvature at the demo windows on every demo horizon, and anisotropy of the
-/// sector picks.
+/// Runs the demo: curvature at the demo windows on every demo horizon, anisotropy of the
+/// sector picks, and the demo maps.
 pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<DemoReport> {
     let horizons = demo_horizons();
     let sectors = demo_sectors();
@@ -375,8 +418,13 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         .map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress))
         .collect::<Result<Vec<_>>>()?;
     let anisotropy = demo_anisotropy_job(&sectors, data_dir, out_dir).run()?;
+    let maps = demo_render_jobs(data_dir, out_dir)
+        .iter()
+        .map(RenderJob::run)
+        .collect::<Result<Vec<_>>>()?;
     Ok(DemoReport {
         curvature,
         anisotropy,
+        maps,
     })
 }

@@ -6,6 +6,7 @@
 //! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
 //! that build the demo data and the tests. [`anisotropy`] fits the cos 2phi model of
 //! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
+//! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade.
 
 pub mod anisotropy;
 pub mod colour;

@@ -167,8 +167,8 @@ pub fn map_to_pixel(geometry: &GridGeometry, px: (u32, u32), p: (f64, f64)) -> (
     ((col * px.0 as f64) as f32, (row * px.1 as f64) as f32)
 }
 
-/// Draws axial segments anti-aliased: a light halo `2.5 width` wide under a near-black core
-/// `width` pixels wide, round caps.
+/// Draws axial segments anti-aliased: a light halo one pixel wider on each side under a
+/// near-black core `width` pixels wide, round caps.
 pub fn draw_segments(
     pixmap: &mut Pixmap,
     geometry: &GridGeometry,
@@ -185,7 +185,7 @@ pub fn draw_segments(
     }
     let Some(path) = pb.finish() else { return };
     for (colour, w) in [
-        (Color::from_rgba8(255, 255, 255, 230), 2.5 * width),
+        (Color::from_rgba8(255, 255, 255, 220), width + 2.0),
         (Color::from_rgba8(20, 20, 20, 255), width),
     ] {
         let mut paint = Paint::default();

@@ -269,7 +269,10 @@ impl RenderJob {
             segments,
             every,
             scale,
-            typical_ms: m.get(m.len() / 2).copied().unwrap_or(0.0),
+            typical_ms: m
+                .get((m.len().max(1) - 1) * 19 / 20)
+                .copied()
+                .unwrap_or(0.0),
         }))
     }
 
@@ -348,7 +351,7 @@ impl RenderJob {
             source_name(parts.info, &self.attribute)
         );
         let vectors = parts.vectors.map(|v| {
-            let bar_ms = round_nice(v.typical_ms.max(1e-6));
+            let bar_ms = one_digit(v.typical_ms.max(1e-6));
             let metres_per_px = geometry.spacing().0 * geometry.metres_per_unit / px.0 as f64;
             let bar_px = (bar_ms * v.scale / metres_per_px) as f32;
             let note = format!(
@@ -391,6 +394,7 @@ struct Vectors {
     segments: Vec<MapSegment>,
     every: (usize, usize),
     scale: f64,
+    /// 95th-percentile magnitude of the drawn vectors (ms), for the legend's sample vector.
     typical_ms: f64,
 }
 
@@ -412,14 +416,10 @@ fn quicklook_pixels(geometry: &GridGeometry) -> (u32, u32) {
     (px(sx), px(sy))
 }
 
-/// 1, 2 or 5 times a power of ten, nearest below `v`.
-fn round_nice(v: f64) -> f64 {
+/// `v` rounded to one significant digit.
+fn one_digit(v: f64) -> f64 {
     let p = 10f64.powf(v.log10().floor());
-    [5.0, 2.0, 1.0]
-        .into_iter()
-        .map(|m| m * p)
-        .find(|&c| c <= v)
-        .unwrap_or(p)
+    (v / p).round() * p
 }
 
 fn band_id(info: &RasterInfo, index: usize) -> String {
