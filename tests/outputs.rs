@@ -56,7 +56,8 @@ fn gdalinfo(path: &Path) -> serde_json::Value {
     serde_json::from_slice(&out.stdout).unwrap()
 }
 
-fn band_bits(path: &Path) -> Vec<Vec<u32>> {
+/// Every band of a raster as `T`, row-major.
+fn read_bands_as<T: gdal::raster::GdalType + Copy>(path: &Path) -> Vec<Vec<T>> {
     let ds = Dataset::open(path).unwrap();
     let (cols, rows) = ds.raster_size();
     (1..=ds.raster_count())
@@ -64,10 +65,17 @@ fn band_bits(path: &Path) -> Vec<Vec<u32>> {
             let buf = ds
                 .rasterband(b)
                 .unwrap()
-                .read_as::<f32>((0, 0), (cols, rows), (cols, rows), None)
+                .read_as::<T>((0, 0), (cols, rows), (cols, rows), None)
                 .unwrap();
-            buf.data().iter().map(|v| v.to_bits()).collect()
+            buf.data().to_vec()
         })
+        .collect()
+}
+
+fn band_bits(path: &Path) -> Vec<Vec<u32>> {
+    read_bands_as::<f32>(path)
+        .into_iter()
+        .map(|b| b.iter().map(|v| v.to_bits()).collect())
         .collect()
 }
 
@@ -306,21 +314,6 @@ fn write_f32(
     write_float_geotiff(path, g, &bands, &[]).unwrap();
 }
 
-fn read_u8_bands(path: &Path) -> Vec<Vec<u8>> {
-    let ds = Dataset::open(path).unwrap();
-    let (cols, rows) = ds.raster_size();
-    (1..=ds.raster_count())
-        .map(|b| {
-            let buf = ds
-                .rasterband(b)
-                .unwrap()
-                .read_as::<u8>((0, 0), (cols, rows), (cols, rows), None)
-                .unwrap();
-            buf.data().to_vec()
-        })
-        .collect()
-}
-
 #[test]
 fn rendered_map_is_on_the_attribute_grid_with_published_colours() {
     // ColorBrewer RdBu (colorbrewer2.org, 11 classes; from memory): zero is the centre colour
@@ -365,7 +358,7 @@ fn rendered_map_is_on_the_attribute_grid_with_published_colours() {
         .map(|b| b["colorInterpretation"].as_str().unwrap())
         .collect();
     assert_eq!(interp, ["Red", "Green", "Blue", "Alpha"]);
-    let rgba = read_u8_bands(&out);
+    let rgba = read_bands_as::<u8>(&out);
     let at = |r: usize, c: usize| {
         [
             rgba[0][r * 30 + c],
@@ -436,7 +429,7 @@ fn vectors_change_a_few_pixels_along_the_given_azimuth() {
     job.every = Some(20);
     let report = job.run().unwrap();
     assert_eq!(report.vectors.unwrap().0, 10 * 8);
-    let (a, b) = (read_u8_bands(&plain), read_u8_bands(&drawn));
+    let (a, b) = (read_bands_as::<u8>(&plain), read_bands_as::<u8>(&drawn));
     let changed: Vec<(usize, usize)> = (0..rows * cols)
         .filter(|&i| (0..3).any(|k| a[k][i] != b[k][i]))
         .map(|i| (i / cols, i % cols))
@@ -480,7 +473,7 @@ fn hillshade_matches_gdaldem() {
         .status()
         .expect("gdaldem from gdal-bin");
     assert!(status.success());
-    let reference = read_u8_bands(&shaded).remove(0);
+    let reference = read_bands_as::<u8>(&shaded).remove(0);
     let ours = flexure_engine::render::hillshade(&z.mapv(f64::from), &g, false, Some(1.0));
     let mut compared = 0;
     for r in 1..rows - 1 {

@@ -74,17 +74,24 @@ fn axial(a: f64, b: f64) -> f64 {
     (a - b + 90.0).rem_euclid(180.0) - 90.0
 }
 
-#[test]
-fn sector_files_give_the_azimuths_and_the_cautions() {
+/// Runs `flexure anisotropy` on `n` equally spaced sector files of magnitude `b`; returns the
+/// folder (kept alive), the output folder and stdout.
+fn run_sectors(n: usize, b: f64) -> (tempfile::TempDir, PathBuf, String) {
     let dir = tempfile::tempdir().unwrap();
-    let az = azimuths(6);
-    let files = sector_files(dir.path(), &north_up(COLS, ROWS), &az, 4.0);
+    let az = azimuths(n);
+    let files = sector_files(dir.path(), &north_up(COLS, ROWS), &az, b);
     let out = dir.path().join("out");
     let list = list(&az);
     let mut args = vec!["anisotropy"];
     args.extend(strs(&files));
     args.extend(["--azimuths", &list, "--out", out.to_str().unwrap()]);
     let stdout = run_ok(&args);
+    (dir, out, stdout)
+}
+
+#[test]
+fn sector_files_give_the_azimuths_and_the_cautions() {
+    let (_dir, out, stdout) = run_sectors(6, 4.0);
     assert!(stdout.contains("bins fitted: 100.0%"), "{stdout}");
     assert!(
         stdout.contains("HTI") && stdout.contains("not stress"),
@@ -225,15 +232,7 @@ fn unusual_input_gets_a_note() {
     // Common practice (no published source): 6 to 8 sectors are usual and sector time
     // differences stay below about 20 ms. Four sectors and a 15 ms magnitude (30 ms peak to
     // peak) both draw a note.
-    let dir = tempfile::tempdir().unwrap();
-    let az = azimuths(4);
-    let files = sector_files(dir.path(), &north_up(COLS, ROWS), &az, 15.0);
-    let out = dir.path().join("out");
-    let list = list(&az);
-    let mut args = vec!["anisotropy"];
-    args.extend(strs(&files));
-    args.extend(["--azimuths", &list, "--out", out.to_str().unwrap()]);
-    let stdout = run_ok(&args);
+    let (_dir, _out, stdout) = run_sectors(4, 15.0);
     assert!(stdout.contains("note: only 4 sectors"), "{stdout}");
     assert!(stdout.contains("above the usual 20 ms"), "{stdout}");
 }

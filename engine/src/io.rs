@@ -453,6 +453,11 @@ fn write_bands<T: GdalType + Copy>(
     }
     ds.flush_cache().map_err(|e| gdal_failure("flush", e))?;
     drop(ds);
+    gdal_outcome()
+}
+
+/// `Ok` when GDAL reported no failure since the last take, else its messages on one line.
+pub(crate) fn gdal_outcome() -> std::result::Result<(), String> {
     let messages = take_gdal_messages();
     if messages.is_empty() {
         Ok(())

@@ -183,9 +183,16 @@ pub fn draw_segments(
         pb.move_to(ax, ay);
         pb.line_to(bx, by);
     }
-    let Some(path) = pb.finish() else { return };
+    if let Some(path) = pb.finish() {
+        stroke_with_halo(pixmap, &path, width, width + 2.0);
+    }
+}
+
+/// Strokes `path` as a near-black core `width` pixels wide over a light halo `halo` wide,
+/// anti-aliased with round caps.
+fn stroke_with_halo(pixmap: &mut Pixmap, path: &tiny_skia::Path, width: f32, halo: f32) {
     for (colour, w) in [
-        (Color::from_rgba8(255, 255, 255, 220), width + 2.0),
+        (Color::from_rgba8(255, 255, 255, 220), halo),
         (Color::from_rgba8(20, 20, 20, 255), width),
     ] {
         let mut paint = Paint::default();
@@ -196,7 +203,7 @@ pub fn draw_segments(
             line_cap: LineCap::Round,
             ..Stroke::default()
         };
-        pixmap.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
+        pixmap.stroke_path(path, &paint, &stroke, Transform::identity(), None);
     }
 }
 
@@ -338,20 +345,7 @@ fn segment_bar(page: &mut Pixmap, x: f32, y: f32, length: f32) {
     pb.move_to(x, y);
     pb.line_to(x + length, y);
     if let Some(path) = pb.finish() {
-        for (colour, w) in [
-            (Color::from_rgba8(200, 200, 200, 255), 6.0),
-            (Color::from_rgba8(20, 20, 20, 255), 2.4),
-        ] {
-            let mut paint = Paint::default();
-            paint.set_color(colour);
-            paint.anti_alias = true;
-            let stroke = Stroke {
-                width: w,
-                line_cap: LineCap::Round,
-                ..Stroke::default()
-            };
-            page.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
-        }
+        stroke_with_halo(page, &path, 2.4, 5.0);
     }
 }
 

@@ -4,7 +4,9 @@
 //! (feature count) and committed by the caller, as for rasters.
 
 use crate::error::{FlexureError, Result};
-use crate::io::{capture_gdal_messages, gdal_failure, take_gdal_messages, StagedFile};
+use crate::io::{
+    capture_gdal_messages, gdal_failure, gdal_outcome, take_gdal_messages, StagedFile,
+};
 use gdal::spatial_ref::{AxisMappingStrategy, CoordTransform, SpatialRef};
 use gdal::vector::{
     Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
@@ -101,39 +103,29 @@ fn write_layer(
     let mut ds = driver
         .create_vector_only(temp)
         .map_err(|e| gdal_failure("create", e))?;
+    let fill = |ds: &mut Dataset| {
+        fill_layer(
+            ds,
+            &srs,
+            transform.as_ref(),
+            format,
+            layer_name,
+            fields,
+            features,
+        )
+    };
     if format == VectorFormat::GeoPackage {
         // One SQLite transaction instead of one per feature.
         let mut txn = ds
             .start_transaction()
             .map_err(|e| gdal_failure("transaction", e))?;
-        fill_layer(
-            &mut txn,
-            &srs,
-            transform.as_ref(),
-            format,
-            layer_name,
-            fields,
-            features,
-        )?;
+        fill(&mut txn)?;
         txn.commit().map_err(|e| gdal_failure("commit", e))?;
     } else {
-        fill_layer(
-            &mut ds,
-            &srs,
-            transform.as_ref(),
-            format,
-            layer_name,
-            fields,
-            features,
-        )?;
+        fill(&mut ds)?;
     }
     drop(ds);
-    let messages = take_gdal_messages();
-    if messages.is_empty() {
-        Ok(())
-    } else {
-        Err(messages.join("; "))
-    }
+    gdal_outcome()
 }
 
 fn fill_layer(
@@ -229,23 +221,22 @@ mod tests {
         ("count", FieldKind::Integer),
     ];
 
+    /// Writes the test line as `name` in `format` and returns its path.
+    fn write(dir: &Path, name: &str, format: VectorFormat) -> std::path::PathBuf {
+        let path = dir.join(name);
+        stage_lines(&path, format, &utm25(), "v", &FIELDS, &one_line())
+            .unwrap()
+            .commit()
+            .unwrap();
+        path
+    }
+
     #[test]
     fn geojson_is_wgs84_lon_lat_with_properties() {
         // UTM zone 25N: central meridian 33 W, false easting 500000 m, false northing 0 on the
         // equator (common practice), so (500000, 0) is longitude -33, latitude 0 exactly.
         let dir = tempfile::tempdir().unwrap();
-        let path = dir.path().join("v.geojson");
-        stage_lines(
-            &path,
-            VectorFormat::GeoJson,
-            &utm25(),
-            "v",
-            &FIELDS,
-            &one_line(),
-        )
-        .unwrap()
-        .commit()
-        .unwrap();
+        let path = write(dir.path(), "v.geojson", VectorFormat::GeoJson);
         let text = std::fs::read_to_string(&path).unwrap();
         let json: serde_json::Value = serde_json::from_str(&text).unwrap();
         let feature = &json["features"][0];
@@ -264,18 +255,7 @@ mod tests {
     #[test]
     fn geopackage_keeps_the_grid_crs() {
         let dir = tempfile::tempdir().unwrap();
-        let path = dir.path().join("v.gpkg");
-        stage_lines(
-            &path,
-            VectorFormat::GeoPackage,
-            &utm25(),
-            "v",
-            &FIELDS,
-            &one_line(),
-        )
-        .unwrap()
-        .commit()
-        .unwrap();
+        let path = write(dir.path(), "v.gpkg", VectorFormat::GeoPackage);
         let ds = Dataset::open(&path).unwrap();
         let layer = ds.layer(0).unwrap();
         assert_eq!(layer.spatial_ref().unwrap().auth_code().unwrap(), 32625);
