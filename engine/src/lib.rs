@@ -9,6 +9,7 @@
 //! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade.
 
 pub mod anisotropy;
+pub mod circular;
 pub mod colour;
 pub mod curvature;
 pub mod demo;
@@ -20,4 +21,5 @@ pub mod jobs;
 pub mod render;
 pub mod synthetic;
 pub mod vectors;
+pub mod wells;
 pub mod window;
