@@ -1,4 +1,4 @@
-//! Vector output through GDAL's OGR drivers: line features with numeric properties, written
+//! Vector output through GDAL's OGR drivers: line or polygon features with numeric properties, written
 //! as an OGC GeoPackage in the grid's own CRS or as RFC 7946 GeoJSON (WGS84 longitude /
 //! latitude, reprojected by GDAL/PROJ). Files are staged under a temporary name, read back
 //! (feature count) and committed by the caller, as for rasters.
@@ -48,32 +48,58 @@ pub enum FieldKind {
     Integer,
 }
 
-/// A straight segment in grid CRS coordinates with one value per layer field.
+/// Geometry type of a layer.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum GeometryKind {
+    /// Each feature's points are a line string.
+    Line,
+    /// Each feature's points are the closed outer ring of a polygon.
+    Polygon,
+}
+
+impl GeometryKind {
+    fn ogr(self) -> u32 {
+        match self {
+            GeometryKind::Line => OGRwkbGeometryType::wkbLineString,
+            GeometryKind::Polygon => OGRwkbGeometryType::wkbPolygon,
+        }
+    }
+}
+
+/// A feature in grid CRS coordinates with one value per layer field.
 #[derive(Clone, Debug, PartialEq)]
-pub struct LineFeature {
-    /// First end (x, y), CRS units.
-    pub start: (f64, f64),
-    /// Second end (x, y), CRS units.
-    pub end: (f64, f64),
+pub struct VectorFeature {
+    /// Vertices (x, y), CRS units: a line, or a closed ring (first point repeated last).
+    pub points: Vec<(f64, f64)>,
     /// Property values in the order of the layer's fields.
     pub values: Vec<f64>,
 }
 
-/// Writes `features` as layer `layer` of a new file at `path` (temporary name; see
-/// [`StagedFile`]). `crs_wkt` is the CRS of the feature coordinates.
-pub fn stage_lines(
+/// A layer to write: name, geometry type, fields and features.
+pub struct Layer<'a> {
+    /// Layer name.
+    pub name: &'a str,
+    /// Geometry type of every feature.
+    pub kind: GeometryKind,
+    /// (name, kind) of each property.
+    pub fields: &'a [(&'a str, FieldKind)],
+    /// The features.
+    pub features: &'a [VectorFeature],
+}
+
+/// Writes `layer` into a new file at `path` (temporary name; see [`StagedFile`]). `crs_wkt`
+/// is the CRS of the feature coordinates.
+pub fn stage_features(
     path: &Path,
     format: VectorFormat,
     crs_wkt: &str,
-    layer: &str,
-    fields: &[(&str, FieldKind)],
-    features: &[LineFeature],
+    layer: &Layer,
 ) -> Result<StagedFile> {
     capture_gdal_messages();
     take_gdal_messages();
     let staged = StagedFile::new(path);
-    write_layer(staged.temp(), format, crs_wkt, layer, fields, features)
-        .and_then(|_| verify(staged.temp(), features.len()))
+    write_layer(staged.temp(), format, crs_wkt, layer)
+        .and_then(|_| verify(staged.temp(), layer.features.len()))
         .map_err(|reason| FlexureError::write(path, reason))?;
     Ok(staged)
 }
@@ -82,9 +108,7 @@ fn write_layer(
     temp: &Path,
     format: VectorFormat,
     crs_wkt: &str,
-    layer_name: &str,
-    fields: &[(&str, FieldKind)],
-    features: &[LineFeature],
+    layer: &Layer,
 ) -> std::result::Result<(), String> {
     let mut grid_srs = SpatialRef::from_wkt(crs_wkt).map_err(|e| gdal_failure("CRS", e))?;
     grid_srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
@@ -103,17 +127,7 @@ fn write_layer(
     let mut ds = driver
         .create_vector_only(temp)
         .map_err(|e| gdal_failure("create", e))?;
-    let fill = |ds: &mut Dataset| {
-        fill_layer(
-            ds,
-            &srs,
-            transform.as_ref(),
-            format,
-            layer_name,
-            fields,
-            features,
-        )
-    };
+    let fill = |ds: &mut Dataset| fill_layer(ds, &srs, transform.as_ref(), format, layer);
     if format == VectorFormat::GeoPackage {
         // One SQLite transaction instead of one per feature.
         let mut txn = ds
@@ -133,15 +147,14 @@ fn fill_layer(
     srs: &SpatialRef,
     transform: Option<&CoordTransform>,
     format: VectorFormat,
-    layer_name: &str,
-    fields: &[(&str, FieldKind)],
-    features: &[LineFeature],
+    layer: &Layer,
 ) -> std::result::Result<(), String> {
+    let fields = layer.fields;
     let lyr = ds
         .create_layer(LayerOptions {
-            name: layer_name,
+            name: layer.name,
             srs: Some(srs),
-            ty: OGRwkbGeometryType::wkbLineString,
+            ty: layer.kind.ogr(),
             options: Some(format.layer_options()),
         })
         .map_err(|e| gdal_failure("layer", e))?;
@@ -157,11 +170,8 @@ fn fill_layer(
         .collect();
     lyr.create_defn_fields(&defs)
         .map_err(|e| gdal_failure("fields", e))?;
-    for f in features {
-        let mut line = Geometry::empty(OGRwkbGeometryType::wkbLineString)
-            .map_err(|e| gdal_failure("geometry", e))?;
-        line.add_point_2d(f.start);
-        line.add_point_2d(f.end);
+    for f in layer.features {
+        let mut line = geometry(layer.kind, &f.points).map_err(|e| gdal_failure("geometry", e))?;
         if let Some(t) = transform {
             line = line
                 .transform(t)
@@ -186,6 +196,26 @@ fn fill_layer(
     Ok(())
 }
 
+/// An OGR line string or single-ring polygon through `points`.
+fn geometry(kind: GeometryKind, points: &[(f64, f64)]) -> gdal::errors::Result<Geometry> {
+    let ring_kind = match kind {
+        GeometryKind::Line => OGRwkbGeometryType::wkbLineString,
+        GeometryKind::Polygon => OGRwkbGeometryType::wkbLinearRing,
+    };
+    let mut ring = Geometry::empty(ring_kind)?;
+    for &p in points {
+        ring.add_point_2d(p);
+    }
+    match kind {
+        GeometryKind::Line => Ok(ring),
+        GeometryKind::Polygon => {
+            let mut polygon = Geometry::empty(OGRwkbGeometryType::wkbPolygon)?;
+            polygon.add_geometry(ring)?;
+            Ok(polygon)
+        }
+    }
+}
+
 /// Reopens a written file and checks it holds one layer with the expected feature count.
 fn verify(temp: &Path, count: usize) -> std::result::Result<(), String> {
     let ds = Dataset::open(temp).map_err(|e| gdal_failure("read-back", e))?;
@@ -207,10 +237,9 @@ mod tests {
         SpatialRef::from_epsg(32625).unwrap().to_wkt().unwrap()
     }
 
-    fn one_line() -> Vec<LineFeature> {
-        vec![LineFeature {
-            start: (500000.0, 0.0),
-            end: (500000.0, 1000.0),
+    fn one_line() -> Vec<VectorFeature> {
+        vec![VectorFeature {
+            points: vec![(500000.0, 0.0), (500000.0, 1000.0)],
             values: vec![2.5, f64::NAN, 7.0],
         }]
     }
@@ -221,10 +250,45 @@ mod tests {
         ("count", FieldKind::Integer),
     ];
 
+    fn layer(features: &[VectorFeature]) -> Layer<'_> {
+        Layer {
+            name: "v",
+            kind: GeometryKind::Line,
+            fields: &FIELDS,
+            features,
+        }
+    }
+
+    #[test]
+    fn polygons_are_written_as_polygons() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("p.geojson");
+        let square = vec![VectorFeature {
+            points: vec![
+                (500000.0, 0.0),
+                (500100.0, 0.0),
+                (500100.0, 100.0),
+                (500000.0, 0.0),
+            ],
+            values: vec![1.0, 2.0, 3.0],
+        }];
+        let l = Layer {
+            kind: GeometryKind::Polygon,
+            ..layer(&square)
+        };
+        stage_features(&path, VectorFormat::GeoJson, &utm25(), &l)
+            .unwrap()
+            .commit()
+            .unwrap();
+        let json: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        assert_eq!(json["features"][0]["geometry"]["type"], "Polygon");
+    }
+
     /// Writes the test line as `name` in `format` and returns its path.
     fn write(dir: &Path, name: &str, format: VectorFormat) -> std::path::PathBuf {
         let path = dir.join(name);
-        stage_lines(&path, format, &utm25(), "v", &FIELDS, &one_line())
+        stage_features(&path, format, &utm25(), &layer(&one_line()))
             .unwrap()
             .commit()
             .unwrap();
@@ -266,13 +330,11 @@ mod tests {
     fn uncommitted_output_leaves_nothing() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("v.gpkg");
-        let staged = stage_lines(
+        let staged = stage_features(
             &path,
             VectorFormat::GeoPackage,
             &utm25(),
-            "v",
-            &FIELDS,
-            &one_line(),
+            &layer(&one_line()),
         )
         .unwrap();
         drop(staged);

@@ -12,7 +12,7 @@ use crate::grid::GridGeometry;
 use crate::io::{
     commit_all, prepare_output_dir, read_bands, refuse_overwrite, stage_float_geotiff, BandOut,
 };
-use crate::vectors::{stage_lines, FieldKind, LineFeature, VectorFormat};
+use crate::vectors::{stage_features, FieldKind, GeometryKind, Layer, VectorFeature, VectorFormat};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -284,7 +284,7 @@ impl AnisotropyJob {
                 self.every as f64 * spacing_m,
             )
         });
-        let features: Vec<LineFeature> = kept
+        let features: Vec<VectorFeature> = kept
             .iter()
             .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
             .collect();
@@ -292,13 +292,17 @@ impl AnisotropyJob {
         let raster = stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata)?;
         let mut staged = vec![raster];
         for format in [VectorFormat::GeoPackage, VectorFormat::GeoJson] {
-            staged.push(stage_lines(
+            let layer = Layer {
+                name: "anisotropy_vectors",
+                kind: GeometryKind::Line,
+                fields: &VECTOR_FIELDS,
+                features: &features,
+            };
+            staged.push(stage_features(
                 &self.vector_path(format),
                 format,
                 &geometry.crs_wkt,
-                "anisotropy_vectors",
-                &VECTOR_FIELDS,
-                &features,
+                &layer,
             )?);
         }
         commit_all(staged)?;
@@ -416,7 +420,7 @@ fn line_feature(
     f: &SectorFit,
     axis: VectorAxis,
     scale: f64,
-) -> LineFeature {
+) -> VectorFeature {
     let length_m = f.magnitude * scale;
     let (start, end) = segment(
         geometry.cell_centre(col, row),
@@ -424,9 +428,8 @@ fn line_feature(
         length_m,
         geometry.metres_per_unit,
     );
-    LineFeature {
-        start,
-        end,
+    VectorFeature {
+        points: vec![start, end],
         values: vec![
             f.magnitude,
             f.magnitude_unbiased,
