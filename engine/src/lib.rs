@@ -14,6 +14,7 @@ pub mod colour;
 pub mod curvature;
 pub mod demo;
 pub mod error;
+pub mod figure;
 pub mod grid;
 pub mod horizon;
 pub mod io;

@@ -397,19 +397,27 @@ fn wrap(s: &str, width: usize) -> Vec<String> {
 }
 
 /// Text drawn with the embedded font, black, anti-aliased.
-struct Text {
+pub(crate) struct Text {
     font: FontRef<'static>,
 }
 
 impl Text {
-    fn new() -> Self {
+    pub(crate) fn new() -> Self {
         Self {
             font: FontRef::try_from_slice(FONT).expect("embedded DejaVu Sans parses"),
         }
     }
 
+    /// Advance width of `s` at `size` pixels.
+    pub(crate) fn width(&self, s: &str, size: f32) -> f32 {
+        let scaled = self.font.as_scaled(PxScale::from(size));
+        s.chars()
+            .map(|c| scaled.h_advance(scaled.glyph_id(c)))
+            .sum()
+    }
+
     /// Draws `s` with its baseline at (`x`, `y`), `size` pixels high.
-    fn draw(&self, page: &mut Pixmap, s: &str, x: f32, y: f32, size: f32) {
+    pub(crate) fn draw(&self, page: &mut Pixmap, s: &str, x: f32, y: f32, size: f32) {
         let scaled = self.font.as_scaled(PxScale::from(size));
         let (w, h) = (page.width() as i64, page.height() as i64);
         let width = page.width() as usize;
