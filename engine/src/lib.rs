@@ -20,6 +20,7 @@ pub mod horizon;
 pub mod io;
 pub mod jobs;
 pub mod render;
+pub mod stages;
 pub mod synthetic;
 pub mod vectors;
 pub mod wells;

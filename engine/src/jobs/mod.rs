@@ -40,3 +40,63 @@ pub(crate) fn value_range(v: &ndarray::Array2<f32>) -> Option<(f32, f32)> {
             Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
         })
 }
+
+/// The bands of an `anisotropy.tif` the other jobs use, on its grid.
+pub(crate) struct AnisotropyRaster {
+    pub(crate) path: std::path::PathBuf,
+    pub(crate) geometry: crate::grid::GridGeometry,
+    pub(crate) magnitude: ndarray::Array2<f64>,
+    pub(crate) azimuth_fast: ndarray::Array2<f64>,
+    pub(crate) azimuth_slow: ndarray::Array2<f64>,
+    pub(crate) magnitude_stderr: ndarray::Array2<f64>,
+    pub(crate) azimuth_stderr: ndarray::Array2<f64>,
+}
+
+impl AnisotropyRaster {
+    /// Reads `given` (the raster, or the folder holding `anisotropy.tif`).
+    pub(crate) fn read(given: &std::path::Path) -> crate::error::Result<Self> {
+        let path = if given.is_dir() {
+            given.join("anisotropy.tif")
+        } else {
+            given.to_path_buf()
+        };
+        let (geometry, mut bands) = crate::io::read_bands(&path, None)?;
+        let info = crate::io::read_info(&path)?;
+        let mut take = |name: &str| {
+            info.names
+                .iter()
+                .position(|n| n == name)
+                .map(|i| std::mem::take(&mut bands[i]))
+                .ok_or_else(|| {
+                    crate::error::FlexureError::input(
+                        &path,
+                        format!(
+                            "has no band '{name}': give an anisotropy.tif written by flexure anisotropy (bands: {})",
+                            info.names.join(", ")
+                        ),
+                    )
+                })
+        };
+        Ok(Self {
+            magnitude: take("magnitude")?,
+            azimuth_fast: take("azimuth_fast")?,
+            azimuth_slow: take("azimuth_slow")?,
+            magnitude_stderr: take("magnitude_stderr")?,
+            azimuth_stderr: take("azimuth_stderr")?,
+            geometry,
+            path,
+        })
+    }
+
+    /// The vector sample of bin (`row`, `col`), if fitted.
+    pub(crate) fn sample(&self, row: usize, col: usize) -> Option<crate::anisotropy::VectorSample> {
+        let at = (row, col);
+        let s = crate::anisotropy::VectorSample {
+            magnitude: self.magnitude[at],
+            azimuth_fast: self.azimuth_fast[at],
+            azimuth_slow: self.azimuth_slow[at],
+            snr: self.magnitude[at] / self.magnitude_stderr[at],
+        };
+        (s.magnitude.is_finite() && s.azimuth_fast.is_finite()).then_some(s)
+    }
+}

@@ -3,6 +3,7 @@
 //! and, optionally, as a PNG quicklook with legend. Outputs are staged and committed together.
 
 use super::anisotropy::HTI_CAUTION;
+use super::AnisotropyRaster;
 use crate::anisotropy::{default_vector_scale, segment, vector_bins, VectorAxis, VectorSample};
 use crate::colour::{short, Clip, ColourScale};
 use crate::error::{FlexureError, Result};
@@ -197,44 +198,19 @@ impl RenderJob {
         let Some(given) = &self.anisotropy else {
             return Ok(None);
         };
-        let path = if given.is_dir() {
-            given.join("anisotropy.tif")
-        } else {
-            given.clone()
-        };
-        let (g, bands) = read_bands(&path, None)?;
-        let info = read_info(&path)?;
+        let raster = AnisotropyRaster::read(given)?;
+        let g = &raster.geometry;
         if g.superbin_of(geometry).is_none() {
             return Err(other_grid(
-                &path,
-                &g,
+                &raster.path,
+                g,
                 &self.attribute,
                 geometry,
                 "anisotropy",
             ));
         }
-        let band = |name: &str| {
-            info.names.iter().position(|n| n == name).map(|i| &bands[i]).ok_or_else(|| {
-                FlexureError::input(&path, format!("has no band '{name}': give an anisotropy.tif written by flexure anisotropy (bands: {})", band_list(&info)))
-            })
-        };
-        let (magnitude, fast, slow, stderr) = (
-            band("magnitude")?,
-            band("azimuth_fast")?,
-            band("azimuth_slow")?,
-            band("magnitude_stderr")?,
-        );
         let samples: Vec<Option<VectorSample>> = (0..g.rows * g.cols)
-            .map(|i| {
-                let at = (i / g.cols, i % g.cols);
-                let s = VectorSample {
-                    magnitude: magnitude[at],
-                    azimuth_fast: fast[at],
-                    azimuth_slow: slow[at],
-                    snr: magnitude[at] / stderr[at],
-                };
-                (s.magnitude.is_finite() && s.azimuth_fast.is_finite()).then_some(s)
-            })
+            .map(|i| raster.sample(i / g.cols, i % g.cols))
             .collect();
         let (sx, sy) = g.spacing();
         let every = match self.every {
