@@ -8,8 +8,8 @@ use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{Domain, ZUnit};
 use flexure_engine::jobs::{
-    AnisotropyJob, AzimuthReference, CurvatureJob, Progress, RenderJob, Silent, VectorAxis,
-    VelocitySource, WeightSource, HTI_CAUTION,
+    AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
+    VectorAxis, VelocitySource, WeightSource, WellInput, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -39,7 +39,14 @@ enum Command {
     /// shaded by the horizon and overlaid with anisotropy vectors.
     #[command(after_help = CAUTION)]
     Render(RenderArgs),
-    /// Run the curvature, anisotropy and render jobs on the shipped demo data.
+    /// Per-stage corridor statistics of anisotropy (and curvature) along wells: stages.csv,
+    /// corridor polygons, rose diagrams and a sheet per well.
+    #[command(after_help = WELL_CAUTION)]
+    Stages(StagesArgs),
+    /// Score candidate lateral azimuths from a pad against the local fast azimuth.
+    #[command(after_help = WELL_CAUTION)]
+    Plan(PlanArgs),
+    /// Run the curvature, anisotropy, render, stages and plan jobs on the shipped demo data.
     Demo {
         /// Folder for the results.
         #[arg(long, default_value = "demo_output")]
@@ -141,15 +148,7 @@ struct AnisotropyArgs {
 impl AnisotropyArgs {
     fn job(&self) -> Result<AnisotropyJob, FlexureError> {
         let mut job = AnisotropyJob::new(self.sectors.clone(), self.azimuths.clone(), &self.out);
-        job.reference = match (self.azimuth_reference, self.convergence) {
-            (ReferenceArg::Grid, None) => AzimuthReference::Grid,
-            (ReferenceArg::Grid, Some(_)) => {
-                return Err(FlexureError::Parameter(
-                    "--convergence applies only with --azimuth-reference true".into(),
-                ))
-            }
-            (ReferenceArg::True, convergence) => AzimuthReference::True { convergence },
-        };
+        job.reference = reference(self.azimuth_reference, self.convergence)?;
         job.weights = weight_source(&self.weights);
         job.min_sectors = self.min_sectors;
         job.every = self.every;
@@ -170,6 +169,156 @@ fn weight_source(items: &[String]) -> WeightSource {
     match numbers {
         Some(w) => WeightSource::PerSector(w),
         None => WeightSource::Grids(items.iter().map(PathBuf::from).collect()),
+    }
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum MdUnitArg {
+    /// Metres.
+    M,
+    /// International feet.
+    Ft,
+}
+
+/// Parses "X,Y".
+fn point(s: &str) -> Result<(f64, f64), String> {
+    let v: Vec<f64> = s
+        .split(',')
+        .map(|p| p.trim().parse::<f64>())
+        .collect::<Result<_, _>>()
+        .map_err(|_| format!("'{s}' is not X,Y"))?;
+    match v[..] {
+        [x, y] if x.is_finite() && y.is_finite() => Ok((x, y)),
+        _ => Err(format!("'{s}' is not X,Y")),
+    }
+}
+
+#[derive(clap::Args)]
+struct StagesArgs {
+    /// anisotropy.tif, or the folder holding it.
+    #[arg(long)]
+    anisotropy: PathBuf,
+    /// Well path (md,x,y[,tvd]) or deviation survey (md,inc,azi) CSV; repeat for several wells.
+    #[arg(long, required = true)]
+    well: Vec<PathBuf>,
+    /// Stage table CSV (stage,md_top,md_base), one per --well, in the same order.
+    #[arg(long, required = true)]
+    stages: Vec<PathBuf>,
+    /// Wellhead X,Y of a survey well; repeat in --well order.
+    #[arg(long, value_parser = point, allow_negative_numbers = true)]
+    wellhead: Vec<(f64, f64)>,
+    /// TVD of the first survey station.
+    #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
+    kb: f64,
+    /// Curvature raster, or a folder of curvature outputs with --window.
+    #[arg(long)]
+    curvature: Option<PathBuf>,
+    /// Window choosing the curvature file in a folder.
+    #[arg(long)]
+    window: Option<usize>,
+    /// Corridor half width each side of the well, CRS units.
+    #[arg(long, default_value_t = 150.0)]
+    half_width: f64,
+    /// Unit of measured depths in the well and stage files.
+    #[arg(long, value_enum, default_value = "m")]
+    md_unit: MdUnitArg,
+    /// North of survey azimuths.
+    #[arg(long, value_enum, default_value = "grid")]
+    azimuth_reference: ReferenceArg,
+    /// Grid convergence in degrees for true-north surveys (computed from the CRS if omitted).
+    #[arg(long, allow_negative_numbers = true)]
+    convergence: Option<f64>,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl StagesArgs {
+    fn job(&self) -> Result<StagesJob, FlexureError> {
+        if self.well.len() != self.stages.len() {
+            return Err(FlexureError::Parameter(format!(
+                "{} --well and {} --stages given: give one stage table per well",
+                self.well.len(),
+                self.stages.len()
+            )));
+        }
+        let wells = self
+            .well
+            .iter()
+            .zip(&self.stages)
+            .enumerate()
+            .map(|(k, (well, stages))| WellInput {
+                well: well.clone(),
+                stages: stages.clone(),
+                wellhead: self.wellhead.get(k).copied(),
+                kb: self.kb,
+            })
+            .collect();
+        let mut job = StagesJob::new(&self.anisotropy, wells, &self.out);
+        job.curvature = self.curvature.clone();
+        job.window = self.window;
+        job.half_width = self.half_width;
+        job.md_unit_m = match self.md_unit {
+            MdUnitArg::M => 1.0,
+            MdUnitArg::Ft => 0.3048,
+        };
+        job.reference = reference(self.azimuth_reference, self.convergence)?;
+        Ok(job)
+    }
+}
+
+#[derive(clap::Args)]
+struct PlanArgs {
+    /// anisotropy.tif, or the folder holding it.
+    #[arg(long)]
+    anisotropy: PathBuf,
+    /// Pad (heel of the lateral) X,Y in the grid's CRS.
+    #[arg(long, value_parser = point, allow_negative_numbers = true)]
+    pad: (f64, f64),
+    /// Lateral length, CRS units.
+    #[arg(long)]
+    lateral: f64,
+    /// Candidate azimuth step, degrees (0 to < 180).
+    #[arg(long, default_value_t = 5.0)]
+    step: f64,
+    /// Curvature raster, or a folder of curvature outputs with --window.
+    #[arg(long)]
+    curvature: Option<PathBuf>,
+    /// Window choosing the curvature file in a folder.
+    #[arg(long)]
+    window: Option<usize>,
+    /// Corridor half width each side of the lateral, CRS units.
+    #[arg(long, default_value_t = 150.0)]
+    half_width: f64,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl PlanArgs {
+    fn job(&self) -> PlanJob {
+        let mut job = PlanJob::new(&self.anisotropy, self.pad, self.lateral, &self.out);
+        job.curvature = self.curvature.clone();
+        job.window = self.window;
+        job.step = self.step;
+        job.half_width = self.half_width;
+        job
+    }
+}
+
+fn reference(r: ReferenceArg, convergence: Option<f64>) -> Result<AzimuthReference, FlexureError> {
+    match (r, convergence) {
+        (ReferenceArg::Grid, None) => Ok(AzimuthReference::Grid),
+        (ReferenceArg::Grid, Some(_)) => Err(FlexureError::Parameter(
+            "--convergence applies only with --azimuth-reference true".into(),
+        )),
+        (ReferenceArg::True, convergence) => Ok(AzimuthReference::True { convergence }),
     }
 }
 
@@ -386,6 +535,18 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
             let report = args.job()?.run()?;
             if !args.quiet {
                 say(&format!("{report}{CAUTION}"));
+            }
+        }
+        Command::Stages(args) => {
+            let report = args.job()?.run()?;
+            if !args.quiet {
+                say(&report.to_string());
+            }
+        }
+        Command::Plan(args) => {
+            let report = args.job().run()?;
+            if !args.quiet {
+                say(&report.to_string());
             }
         }
         Command::Demo { out, data, quiet } => {

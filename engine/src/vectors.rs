@@ -46,6 +46,17 @@ pub enum FieldKind {
     Real,
     /// Integer (the value is rounded).
     Integer,
+    /// Text.
+    Text,
+}
+
+/// One property value of a feature.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Property {
+    /// A number (for real and integer fields; NaN is null).
+    Number(f64),
+    /// A text (for text fields).
+    Text(String),
 }
 
 /// Geometry type of a layer.
@@ -72,7 +83,7 @@ pub struct VectorFeature {
     /// Vertices (x, y), CRS units: a line, or a closed ring (first point repeated last).
     pub points: Vec<(f64, f64)>,
     /// Property values in the order of the layer's fields.
-    pub values: Vec<f64>,
+    pub values: Vec<Property>,
 }
 
 /// A layer to write: name, geometry type, fields and features.
@@ -164,6 +175,7 @@ fn fill_layer(
             let ty = match kind {
                 FieldKind::Real => OGRFieldType::OFTReal,
                 FieldKind::Integer => OGRFieldType::OFTInteger64,
+                FieldKind::Text => OGRFieldType::OFTString,
             };
             (name, ty)
         })
@@ -181,11 +193,14 @@ fn fill_layer(
         feature
             .set_geometry(line)
             .map_err(|e| gdal_failure("geometry", e))?;
-        for (i, (&(_, kind), &v)) in fields.iter().zip(&f.values).enumerate() {
-            let set = match kind {
-                _ if !v.is_finite() => feature.set_field_null(i),
-                FieldKind::Real => feature.set_field_double(i, v),
-                FieldKind::Integer => feature.set_field_integer64(i, v.round() as i64),
+        for (i, (&(_, kind), v)) in fields.iter().zip(&f.values).enumerate() {
+            let set = match (kind, v) {
+                (_, Property::Number(v)) if !v.is_finite() => feature.set_field_null(i),
+                (FieldKind::Integer, Property::Number(v)) => {
+                    feature.set_field_integer64(i, v.round() as i64)
+                }
+                (_, Property::Number(v)) => feature.set_field_double(i, *v),
+                (_, Property::Text(t)) => feature.set_field_string(i, t),
             };
             set.map_err(|e| gdal_failure("property", e))?;
         }
@@ -240,7 +255,7 @@ mod tests {
     fn one_line() -> Vec<VectorFeature> {
         vec![VectorFeature {
             points: vec![(500000.0, 0.0), (500000.0, 1000.0)],
-            values: vec![2.5, f64::NAN, 7.0],
+            values: [2.5, f64::NAN, 7.0].map(Property::Number).to_vec(),
         }]
     }
 
@@ -270,7 +285,7 @@ mod tests {
                 (500100.0, 100.0),
                 (500000.0, 0.0),
             ],
-            values: vec![1.0, 2.0, 3.0],
+            values: [1.0, 2.0, 3.0].map(Property::Number).to_vec(),
         }];
         let l = Layer {
             kind: GeometryKind::Polygon,

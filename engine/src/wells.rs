@@ -205,6 +205,8 @@ pub struct Stage {
     pub md_top: f64,
     /// Deeper measured depth.
     pub md_base: f64,
+    /// Line of the stage table it came from.
+    pub line: usize,
 }
 
 /// A small CSV table: header names and rows of fields, each with its 1-based line number.
@@ -310,6 +312,7 @@ pub fn parse_stages(text: &str, path: &Path, md_scale: f64) -> Result<Vec<Stage>
                 name,
                 md_top: top * md_scale,
                 md_base: base * md_scale,
+                line,
             })
         })
         .collect()

@@ -12,7 +12,9 @@ use crate::grid::GridGeometry;
 use crate::io::{
     commit_all, prepare_output_dir, read_bands, refuse_overwrite, stage_float_geotiff, BandOut,
 };
-use crate::vectors::{stage_features, FieldKind, GeometryKind, Layer, VectorFeature, VectorFormat};
+use crate::vectors::{
+    stage_features, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
+};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -430,7 +432,7 @@ fn line_feature(
     );
     VectorFeature {
         points: vec![start, end],
-        values: vec![
+        values: [
             f.magnitude,
             f.magnitude_unbiased,
             f.azimuth_fast,
@@ -443,7 +445,9 @@ fn line_feature(
             length_m,
             row as f64,
             col as f64,
-        ],
+        ]
+        .map(Property::Number)
+        .to_vec(),
     }
 }
 

@@ -4,6 +4,7 @@
 mod anisotropy;
 mod curvature;
 mod render;
+mod stages;
 
 pub use crate::anisotropy::VectorAxis;
 pub use anisotropy::{
@@ -11,6 +12,9 @@ pub use anisotropy::{
 };
 pub use curvature::{CurvatureJob, CurvatureReport, VelocitySource, WindowReport};
 pub use render::{RenderJob, RenderReport};
+pub use stages::{
+    PlanJob, PlanReport, StagesJob, StagesReport, WellInput, WellReport, WELL_CAUTION,
+};
 
 /// Progress of a long job, in units of grid rows fitted.
 pub trait Progress: Sync {
