@@ -167,11 +167,17 @@ fn shipped_demo_data_matches_its_generator() {
     let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_horizons");
     for fresh in write_demo_data(dir.path()).unwrap() {
         let name = fresh.file_name().unwrap();
-        assert_eq!(
-            band_bits(&fresh),
-            band_bits(&shipped.join(name)),
-            "{name:?}: run `make demo-data`"
-        );
+        let old = shipped.join(name);
+        if fresh.extension().is_some_and(|e| e == "tif") {
+            assert_eq!(
+                band_bits(&fresh),
+                band_bits(&old),
+                "{name:?}: run `make demo-data`"
+            );
+        } else {
+            let same = std::fs::read(&fresh).ok() == std::fs::read(&old).ok();
+            assert!(same, "{name:?}: run `make demo-data`");
+        }
     }
 }
 

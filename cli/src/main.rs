@@ -574,6 +574,8 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
                     .iter()
                     .map(|m| m.to_string())
                     .collect::<String>();
+                text += &report.stages.to_string();
+                text += &report.plan.to_string();
                 say(&(text + CAUTION));
             }
         }

@@ -20,8 +20,8 @@ use crate::grid::GridGeometry;
 use crate::horizon::Domain;
 use crate::io::{write_float_geotiff, BandOut};
 use crate::jobs::{
-    AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, Progress, RenderJob,
-    RenderReport, VelocitySource,
+    AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
+    RenderJob, RenderReport, StagesJob, StagesReport, VelocitySource, WellInput,
 };
 use crate::synthetic::{SeededNoise, Shape, Surface};
 use gdal::spatial_ref::SpatialRef;
@@ -315,6 +315,16 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
         })
         .collect::<Result<Vec<_>>>()?;
     written.push(demo_sectors().write(dir)?);
+    for w in demo_wells() {
+        for (name, text) in [
+            (w.well_file(), w.well_csv()),
+            (w.stages_file(), w.stages_csv()),
+        ] {
+            let path = dir.join(name);
+            std::fs::write(&path, text).map_err(|e| FlexureError::write(&path, e))?;
+            written.push(path);
+        }
+    }
     Ok(written)
 }
 
@@ -346,6 +356,194 @@ pub fn demo_anisotropy_job(
     );
     job.every = 3;
     job
+}
+
+/// How a demo well's geometry is given.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum DemoWellShape {
+    /// A deviation survey: vertical to the kick-off depth, a 90-degree build over
+    /// `build_length`, then the lateral; from `wellhead`.
+    Survey {
+        /// Wellhead (x, y).
+        wellhead: (f64, f64),
+        /// Kick-off measured depth.
+        kick_off: f64,
+        /// Measured length of the build.
+        build_length: f64,
+    },
+    /// A plan-view path of the lateral only, starting at `heel` with measured depth `heel_md`.
+    Path {
+        /// Heel (x, y).
+        heel: (f64, f64),
+        /// Measured depth at the heel.
+        heel_md: f64,
+    },
+}
+
+/// An invented lateral of the demo scenario.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DemoWell {
+    /// Invented well name (also its file stem).
+    pub name: &'static str,
+    /// Geometry.
+    pub shape: DemoWellShape,
+    /// Lateral azimuth, degrees from grid north.
+    pub azimuth: f64,
+    /// Lateral length (m).
+    pub lateral: f64,
+    /// Stage length (m).
+    pub stage_length: f64,
+}
+
+/// The demo laterals on the Kelvane Marl: two surveys and one plan path in different
+/// directions.
+pub fn demo_wells() -> Vec<DemoWell> {
+    vec![
+        DemoWell {
+            name: "tessary_3h",
+            shape: DemoWellShape::Survey {
+                wellhead: (480_900.0, 3_902_600.0),
+                kick_off: 2000.0,
+                build_length: 600.0,
+            },
+            azimuth: 140.0,
+            lateral: 1950.0,
+            stage_length: 150.0,
+        },
+        DemoWell {
+            name: "tessary_5h",
+            shape: DemoWellShape::Path {
+                heel: (481_000.0, 3_900_900.0),
+                heel_md: 2700.0,
+            },
+            azimuth: 80.0,
+            lateral: 1800.0,
+            stage_length: 150.0,
+        },
+        DemoWell {
+            name: "tessary_7h",
+            shape: DemoWellShape::Survey {
+                wellhead: (483_200.0, 3_901_700.0),
+                kick_off: 2050.0,
+                build_length: 500.0,
+            },
+            azimuth: 200.0,
+            lateral: 1500.0,
+            stage_length: 150.0,
+        },
+    ]
+}
+
+impl DemoWell {
+    /// File name of the well CSV.
+    pub fn well_file(&self) -> String {
+        format!("{}.csv", self.name)
+    }
+
+    /// File name of the stage CSV.
+    pub fn stages_file(&self) -> String {
+        format!("{}_stages.csv", self.name)
+    }
+
+    /// Measured depth at the heel.
+    fn heel_md(&self) -> f64 {
+        match self.shape {
+            DemoWellShape::Survey {
+                kick_off,
+                build_length,
+                ..
+            } => kick_off + build_length,
+            DemoWellShape::Path { heel_md, .. } => heel_md,
+        }
+    }
+
+    /// The well CSV text: a survey every 30 m, or the lateral path every 50 m.
+    pub fn well_csv(&self) -> String {
+        let heel = self.heel_md();
+        let total = heel + self.lateral;
+        match self.shape {
+            DemoWellShape::Survey {
+                kick_off,
+                build_length,
+                ..
+            } => {
+                let mut text = String::from("md,inc,azi\n");
+                let n = (total / 30.0).ceil() as usize;
+                for k in 0..=n {
+                    let md = (30.0 * k as f64).min(total);
+                    let inc = (90.0 * (md - kick_off) / build_length).clamp(0.0, 90.0);
+                    text += &format!("{md:.2},{inc:.4},{:.4}\n", self.azimuth);
+                }
+                text
+            }
+            DemoWellShape::Path {
+                heel: (x0, y0),
+                heel_md,
+            } => {
+                let (s, c) = self.azimuth.to_radians().sin_cos();
+                let mut text = String::from("md,x,y\n");
+                let n = (self.lateral / 50.0).ceil() as usize;
+                for k in 0..=n {
+                    let d = (50.0 * k as f64).min(self.lateral);
+                    text += &format!("{:.2},{:.3},{:.3}\n", heel_md + d, x0 + d * s, y0 + d * c);
+                }
+                text
+            }
+        }
+    }
+
+    /// The stage CSV text: stages of `stage_length` from 30 m past the heel to the toe.
+    pub fn stages_csv(&self) -> String {
+        let start = self.heel_md() + 30.0;
+        let n = ((self.lateral - 30.0) / self.stage_length).floor() as usize;
+        let mut text = String::from("stage,md_top,md_base\n");
+        for k in 0..n {
+            let top = start + self.stage_length * k as f64;
+            text += &format!("{},{top:.2},{:.2}\n", k + 1, top + self.stage_length);
+        }
+        text
+    }
+}
+
+/// Pad and lateral length of the demo drilling-azimuth scan.
+pub const DEMO_PAD: (f64, f64) = (481_600.0, 3_901_700.0);
+/// Lateral length of the demo scan (m).
+pub const DEMO_PLAN_LATERAL: f64 = 1500.0;
+
+/// The stages job of the demo: every demo well, anisotropy of the sector picks and the
+/// Kelvane Marl curvature at the map window.
+pub fn demo_stages_job(data_dir: &Path, out_dir: &Path) -> StagesJob {
+    let wells = demo_wells()
+        .iter()
+        .map(|w| WellInput {
+            well: data_dir.join(w.well_file()),
+            stages: data_dir.join(w.stages_file()),
+            wellhead: match w.shape {
+                DemoWellShape::Survey { wellhead, .. } => Some(wellhead),
+                DemoWellShape::Path { .. } => None,
+            },
+            kb: 0.0,
+        })
+        .collect();
+    let mut job = StagesJob::new(out_dir.join("anisotropy"), wells, out_dir.join("stages"));
+    job.curvature = Some(kelvane_curvature(data_dir, out_dir));
+    job
+}
+
+/// The drilling-azimuth scan of the demo.
+pub fn demo_plan_job(data_dir: &Path, out_dir: &Path) -> PlanJob {
+    let mut job = PlanJob::new(
+        out_dir.join("anisotropy"),
+        DEMO_PAD,
+        DEMO_PLAN_LATERAL,
+        out_dir.join("plan"),
+    );
+    job.curvature = Some(kelvane_curvature(data_dir, out_dir));
+    job
+}
+
+fn kelvane_curvature(data_dir: &Path, out_dir: &Path) -> PathBuf {
+    demo_curvature_job(&demo_sectors().horizon, data_dir, out_dir).output_path(DEMO_MAP_WINDOW)
 }
 
 /// Attributes the demo draws as quicklooks for every horizon (window [`DEMO_MAP_WINDOW`]).
@@ -397,14 +595,26 @@ pub struct DemoReport {
     pub anisotropy: AnisotropyReport,
     /// The maps drawn.
     pub maps: Vec<RenderReport>,
+    /// The stage analysis of the demo wells.
+    pub stages: StagesReport,
+    /// The drilling-azimuth scan.
+    pub plan: PlanReport,
 }
 
 /// Runs the demo: curvature at the demo windows on every demo horizon, anisotropy of the
-/// sector picks, and the demo maps.
+/// sector picks, the demo maps, the stage analysis of the demo wells and one azimuth scan.
 pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<DemoReport> {
     let horizons = demo_horizons();
     let sectors = demo_sectors();
-    let files = horizons.iter().map(|h| h.file).chain([sectors.file]);
+    let well_files: Vec<String> = demo_wells()
+        .iter()
+        .flat_map(|w| [w.well_file(), w.stages_file()])
+        .collect();
+    let files = horizons
+        .iter()
+        .map(|h| h.file)
+        .chain([sectors.file])
+        .chain(well_files.iter().map(String::as_str));
     for file in files {
         if !data_dir.join(file).is_file() {
             return Err(FlexureError::input(
@@ -422,9 +632,13 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         .iter()
         .map(RenderJob::run)
         .collect::<Result<Vec<_>>>()?;
+    let stages = demo_stages_job(data_dir, out_dir).run()?;
+    let plan = demo_plan_job(data_dir, out_dir).run()?;
     Ok(DemoReport {
         curvature,
         anisotropy,
         maps,
+        stages,
+        plan,
     })
 }

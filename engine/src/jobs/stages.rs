@@ -474,11 +474,17 @@ fn stage_table(rows: &[StageRow]) -> String {
     text
 }
 
+/// A CSV number: integers as such, tiny magnitudes (p-values) in exponent form, others with
+/// six decimals; empty for NaN.
 fn number(v: f64) -> String {
-    if v.is_finite() {
-        format!("{v:.6}")
-    } else {
+    if !v.is_finite() {
         String::new()
+    } else if v.fract() == 0.0 && v.abs() < 1e15 {
+        format!("{v:.0}")
+    } else if v.abs() < 1e-3 {
+        format!("{v:.3e}")
+    } else {
+        format!("{v:.6}")
     }
 }
 
