@@ -1,6 +1,9 @@
 //! Helpers shared by the executable's tests: run `flexure`, write small GeoTIFFs, and check
 //! that a failure is clean.
 
+// Each test binary includes this module and uses a subset of it.
+#![allow(dead_code)]
+
 use flexure_engine::demo::survey_geometry;
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use ndarray::Array2;
