@@ -480,6 +480,20 @@ mod tests {
     }
 
     #[test]
+    fn feet_and_true_north_surveys_are_converted() {
+        // 1000 ft = 304.8 m (international foot, exact); a true azimuth of 92 with a grid
+        // convergence of 2 is grid azimuth 90 (true minus convergence).
+        let text = "md,inc,azi\n0,90,92\n1000,90,92\n";
+        let s = parse_well(text, Path::new("w.csv"), Some((0.0, 0.0)), 0.0, 0.3048, 2.0).unwrap();
+        assert!(
+            (s[1].x - 304.8).abs() < 1e-9 && s[1].y.abs() < 1e-9,
+            "{:?}",
+            s[1]
+        );
+        assert!((s[1].md - 304.8).abs() < 1e-9);
+    }
+
+    #[test]
     fn tables_report_file_and_line() {
         let p = Path::new("stages.csv");
         let err = parse_stages("stage,md_top,md_base\n1,100,200\n2,300,250\n", p, 1.0).unwrap_err();
