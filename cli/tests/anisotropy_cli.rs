@@ -7,7 +7,8 @@ mod common;
 
 use common::{fails, flexure, north_up, outputs_in, write_bands};
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::read_bands;
+use flexure_engine::anisotropy::FIT_BANDS;
+use flexure_engine::io::{read_bands, write_float_geotiff, BandOut};
 use gdal::vector::LayerAccess;
 use gdal::Dataset;
 use ndarray::Array2;
@@ -342,12 +343,17 @@ fn render_bad_inputs_fail_cleanly() {
     // Half a bin off the attribute's lattice: drawing it would need resampling.
     let mut shifted = north_up(COLS, ROWS);
     shifted.geo_transform[0] += 12.5;
-    let other = write_bands(
-        d,
-        "anisotropy.tif",
-        &shifted,
-        vec![sector_times(15.0, 4.0, 0)],
-    );
+    // A complete anisotropy raster (every band flexure writes) on that shifted grid.
+    let other = d.join("anisotropy.tif");
+    let bands: Vec<BandOut> = FIT_BANDS
+        .iter()
+        .map(|b| BandOut {
+            description: b.id,
+            unit: b.unit,
+            values: Array2::from_elem((ROWS, COLS), 1.0),
+        })
+        .collect();
+    write_float_geotiff(&other, &shifted, &bands, &[]).unwrap();
     let blocker = d.join("a_file");
     std::fs::write(&blocker, b"").unwrap();
     let out = d.join("out");
