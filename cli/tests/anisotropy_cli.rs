@@ -6,8 +6,8 @@
 mod common;
 
 use common::{fails, flexure, north_up, outputs_in, write_bands};
-use flexure_engine::grid::GridGeometry;
 use flexure_engine::anisotropy::FIT_BANDS;
+use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::{read_bands, write_float_geotiff, BandOut};
 use gdal::vector::LayerAccess;
 use gdal::Dataset;

@@ -25,3 +25,4 @@ pub mod synthetic;
 pub mod vectors;
 pub mod wells;
 pub mod window;
+pub mod window_study;
