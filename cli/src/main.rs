@@ -9,7 +9,7 @@ use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{Domain, ZUnit};
 use flexure_engine::jobs::{
     AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
-    VectorAxis, VelocitySource, WeightSource, WellInput, HTI_CAUTION, WELL_CAUTION,
+    VectorAxis, VelocitySource, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -39,6 +39,9 @@ enum Command {
     /// shaded by the horizon and overlaid with anisotropy vectors.
     #[command(after_help = CAUTION)]
     Render(RenderArgs),
+    /// Measure noise against detail over several windows on one horizon and recommend a
+    /// window (window_study.json, .csv, a chart and a panel of maps).
+    WindowStudy(WindowStudyArgs),
     /// Per-stage corridor statistics of anisotropy (and curvature) along wells: stages.csv,
     /// corridor polygons, rose diagrams and a sheet per well.
     #[command(after_help = WELL_CAUTION)]
@@ -415,19 +418,17 @@ enum ZUnitArg {
     Ft,
 }
 
+/// The horizon and window options shared by `curvature` and `window-study`.
 #[derive(clap::Args)]
-struct CurvatureArgs {
+struct HorizonArgs {
     /// Horizon grid (any single-band raster GDAL reads, projected CRS).
     input: PathBuf,
-    /// Output folder; one file <input-stem>_w<NN>.tif per window.
+    /// Output folder.
     #[arg(long)]
     out: PathBuf,
     /// Window edge lengths in cells, odd, 3 to 101.
     #[arg(long, value_delimiter = ',', default_value = "3,5,9,17")]
     windows: Vec<usize>,
-    /// Attributes to write (comma separated); default all.
-    #[arg(long, value_delimiter = ',')]
-    attributes: Vec<String>,
     /// What the grid values measure.
     #[arg(long, value_enum, default_value = "depth")]
     domain: DomainArg,
@@ -451,17 +452,9 @@ struct CurvatureArgs {
     quiet: bool,
 }
 
-impl CurvatureArgs {
-    fn job(&self) -> Result<CurvatureJob, FlexureError> {
+impl HorizonArgs {
+    fn job(&self) -> CurvatureJob {
         let mut job = CurvatureJob::new(&self.input, &self.out, self.windows.clone());
-        if !self.attributes.is_empty() {
-            job.attributes = self
-                .attributes
-                .iter()
-                .map(|id| attribute_by_id(id.trim()))
-                .collect::<Result<_, _>>()
-                .map_err(FlexureError::Parameter)?;
-        }
         job.domain = match self.domain {
             DomainArg::Depth => Domain::Depth,
             DomainArg::Time => Domain::Time,
@@ -478,7 +471,54 @@ impl CurvatureArgs {
         };
         job.min_valid = self.min_valid;
         job.crs = self.crs.clone();
+        job
+    }
+}
+
+#[derive(clap::Args)]
+struct CurvatureArgs {
+    #[command(flatten)]
+    horizon: HorizonArgs,
+    /// Attributes to write (comma separated); default all. One file <input-stem>_w<NN>.tif
+    /// per window.
+    #[arg(long, value_delimiter = ',')]
+    attributes: Vec<String>,
+}
+
+impl CurvatureArgs {
+    fn job(&self) -> Result<CurvatureJob, FlexureError> {
+        let mut job = self.horizon.job();
+        if !self.attributes.is_empty() {
+            job.attributes = self
+                .attributes
+                .iter()
+                .map(|id| attribute_by_id(id.trim()))
+                .collect::<Result<_, _>>()
+                .map_err(FlexureError::Parameter)?;
+        }
         Ok(job)
+    }
+}
+
+#[derive(clap::Args)]
+struct WindowStudyArgs {
+    #[command(flatten)]
+    horizon: HorizonArgs,
+    /// Attribute to study.
+    #[arg(long, default_value = "k_pos")]
+    attribute: String,
+    /// Also write the adaptive-window map and the chosen-window grid.
+    #[arg(long)]
+    adaptive: bool,
+}
+
+impl WindowStudyArgs {
+    fn job(&self) -> Result<WindowStudyJob, FlexureError> {
+        Ok(WindowStudyJob {
+            horizon: self.horizon.job(),
+            attribute: attribute_by_id(self.attribute.trim()).map_err(FlexureError::Parameter)?,
+            adaptive: self.adaptive,
+        })
     }
 }
 
@@ -520,8 +560,8 @@ fn say(text: &str) {
 fn run(cli: Cli) -> Result<(), FlexureError> {
     match cli.command {
         Command::Curvature(args) => {
-            let report = args.job()?.run(&Bar::new(args.quiet))?;
-            if !args.quiet {
+            let report = args.job()?.run(&Bar::new(args.horizon.quiet))?;
+            if !args.horizon.quiet {
                 say(&format!("{report}{CAUTION}"));
             }
         }
@@ -534,6 +574,12 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
         Command::Render(args) => {
             let report = args.job()?.run()?;
             if !args.quiet {
+                say(&format!("{report}{CAUTION}"));
+            }
+        }
+        Command::WindowStudy(args) => {
+            let report = args.job()?.run()?;
+            if !args.horizon.quiet {
                 say(&format!("{report}{CAUTION}"));
             }
         }
@@ -576,6 +622,7 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
                     .collect::<String>();
                 text += &report.stages.to_string();
                 text += &report.plan.to_string();
+                text += &report.window_study.to_string();
                 say(&(text + CAUTION));
             }
         }

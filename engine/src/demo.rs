@@ -21,7 +21,8 @@ use crate::horizon::Domain;
 use crate::io::{write_float_geotiff, BandOut};
 use crate::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
-    RenderJob, RenderReport, StagesJob, StagesReport, VelocitySource, WellInput,
+    RenderJob, RenderReport, StagesJob, StagesReport, VelocitySource, WellInput, WindowStudyJob,
+    WindowStudyReport,
 };
 use crate::synthetic::{SeededNoise, Shape, Surface};
 use gdal::spatial_ref::SpatialRef;
@@ -546,6 +547,22 @@ fn kelvane_curvature(data_dir: &Path, out_dir: &Path) -> PathBuf {
     demo_curvature_job(&demo_sectors().horizon, data_dir, out_dir).output_path(DEMO_MAP_WINDOW)
 }
 
+/// Windows of the demo's window study.
+pub const DEMO_STUDY_WINDOWS: [usize; 8] = [3, 5, 7, 9, 11, 15, 21, 31];
+
+/// The window study of the demo: k_pos of the Orrimund Shale top, with the adaptive map.
+pub fn demo_window_study_job(data_dir: &Path, out_dir: &Path) -> WindowStudyJob {
+    let h = demo_horizons().remove(0);
+    let mut horizon = demo_curvature_job(&h, data_dir, out_dir);
+    horizon.windows = DEMO_STUDY_WINDOWS.to_vec();
+    horizon.out_dir = out_dir.join("window_study");
+    WindowStudyJob {
+        horizon,
+        attribute: crate::curvature::attribute_by_id("k_pos").expect("k_pos is an attribute"),
+        adaptive: true,
+    }
+}
+
 /// Attributes the demo draws as quicklooks for every horizon (window [`DEMO_MAP_WINDOW`]).
 pub const DEMO_QUICKLOOKS: [&str; 4] = ["k_pos", "k_neg", "shape_index", "dip"];
 
@@ -599,10 +616,13 @@ pub struct DemoReport {
     pub stages: StagesReport,
     /// The drilling-azimuth scan.
     pub plan: PlanReport,
+    /// The window study.
+    pub window_study: WindowStudyReport,
 }
 
 /// Runs the demo: curvature at the demo windows on every demo horizon, anisotropy of the
-/// sector picks, the demo maps, the stage analysis of the demo wells and one azimuth scan.
+/// sector picks, the demo maps, the stage analysis of the demo wells, one azimuth scan and a
+/// window study.
 pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<DemoReport> {
     let horizons = demo_horizons();
     let sectors = demo_sectors();
@@ -634,7 +654,9 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         .collect::<Result<Vec<_>>>()?;
     let stages = demo_stages_job(data_dir, out_dir).run()?;
     let plan = demo_plan_job(data_dir, out_dir).run()?;
+    let window_study = demo_window_study_job(data_dir, out_dir).run()?;
     Ok(DemoReport {
+        window_study,
         curvature,
         anisotropy,
         maps,

@@ -283,6 +283,45 @@ pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
     page
 }
 
+/// Maps side by side (four per row) under a title, each labelled, with one colour bar for the
+/// common `scale`.
+pub fn panel(maps: &[(String, Pixmap)], scale: &ColourScale, title: &str, band: &str) -> Pixmap {
+    let per_row = 4usize;
+    let (w, h) = maps.iter().fold((1u32, 1u32), |(w, h), (_, m)| {
+        (w.max(m.width()), h.max(m.height()))
+    });
+    let rows = maps.len().div_ceil(per_row).max(1) as u32;
+    let cols = maps.len().clamp(1, per_row) as u32;
+    let width = MARGIN + cols * (w + MARGIN) + PANEL_WIDTH;
+    let height = (TITLE_HEIGHT + rows * (h + 30 + MARGIN) + MARGIN).max(TITLE_HEIGHT + 360);
+    let mut page = Pixmap::new(width, height).expect("non-empty panel");
+    page.fill(Color::WHITE);
+    let text = Text::new();
+    text.draw(&mut page, title, MARGIN as f32, 34.0, 20.0);
+    for (k, (label, map)) in maps.iter().enumerate() {
+        let (c, r) = ((k % per_row) as u32, (k / per_row) as u32);
+        let (x, y) = (
+            MARGIN + c * (w + MARGIN),
+            TITLE_HEIGHT + r * (h + 30 + MARGIN),
+        );
+        text.draw(&mut page, label, x as f32, y as f32 + 16.0, 14.0);
+        page.draw_pixmap(
+            x as i32,
+            (y + 26) as i32,
+            map.as_ref(),
+            &tiny_skia::PixmapPaint::default(),
+            Transform::identity(),
+            None,
+        );
+    }
+    let x0 = (MARGIN + cols * (w + MARGIN)) as f32;
+    let y0 = TITLE_HEIGHT as f32 + 14.0;
+    text.draw(&mut page, band, x0, y0, 15.0);
+    let y = colour_bar(&mut page, &text, scale, x0, y0 + 10.0);
+    text.draw(&mut page, scale.palette_name(), x0, y, 11.0);
+    page
+}
+
 /// Draws a vertical colour bar with five labelled ticks; returns the y below it.
 fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f32) -> f32 {
     let (bar_w, bar_h) = (28.0, 240.0);

@@ -48,7 +48,12 @@ pub fn outputs_in(dir: &Path) -> Vec<String> {
     std::fs::read_dir(dir)
         .map(|d| {
             d.map(|e| e.unwrap().file_name().to_string_lossy().to_string())
-                .filter(|n| n.contains("_w") || n.contains("anisotropy") || n.contains("partial"))
+                .filter(|n| {
+                    n.contains("_w")
+                        || n.contains("anisotropy")
+                        || n.contains("partial")
+                        || n.contains("window_study")
+                })
                 .collect()
         })
         .unwrap_or_default()

@@ -78,6 +78,41 @@ impl CurvatureJob {
 
     /// Runs the job and reports what it wrote.
     pub fn run(&self, progress: &dyn Progress) -> Result<CurvatureReport> {
+        let Prepared {
+            windows,
+            grid,
+            depth,
+            tolerance,
+        } = self.prepare()?;
+        for &n in &windows {
+            refuse_overwrite(&self.output_path(n), &self.inputs())?;
+        }
+        progress.begin((grid.geometry.rows * windows.len()) as u64);
+        let reports = windows
+            .iter()
+            .map(|&n| self.run_window(&grid, &depth, tolerance, n, progress))
+            .collect::<Result<Vec<_>>>();
+        progress.finish();
+        Ok(CurvatureReport {
+            input: self.input.clone(),
+            grid: grid.geometry.describe(),
+            input_null_share: grid.null_share(),
+            windows: reports?,
+        })
+    }
+
+    /// The input files (horizon and velocity grid).
+    pub(crate) fn inputs(&self) -> Vec<&Path> {
+        let mut inputs: Vec<&Path> = vec![&self.input];
+        if let VelocitySource::Grid(p) = &self.velocity {
+            inputs.push(p);
+        }
+        inputs
+    }
+
+    /// Checks the options and reads the horizon as positive-down depth: the sorted, distinct
+    /// windows, the grid, the depth and the flat tolerance; prepares the output folder.
+    pub(crate) fn prepare(&self) -> Result<Prepared> {
         let windows = self.checked_windows()?;
         let grid = read_grid(&self.input, self.crs.as_deref())?;
         if grid.valid_count() == 0 {
@@ -102,27 +137,14 @@ impl CurvatureJob {
             ));
         }
         prepare_output_dir(&self.out_dir)?;
-        let mut inputs: Vec<&Path> = vec![&self.input];
-        if let VelocitySource::Grid(p) = &self.velocity {
-            inputs.push(p);
-        }
-        for &n in &windows {
-            refuse_overwrite(&self.output_path(n), &inputs)?;
-        }
         let (sx, sy) = grid.geometry.spacing();
         let tolerance =
             FlatTolerance::for_grid(excursion(&depth), sx.min(sy), grid.geometry.metres_per_unit);
-        progress.begin((grid.geometry.rows * windows.len()) as u64);
-        let reports = windows
-            .iter()
-            .map(|&n| self.run_window(&grid, &depth, tolerance, n, progress))
-            .collect::<Result<Vec<_>>>();
-        progress.finish();
-        Ok(CurvatureReport {
-            input: self.input.clone(),
-            grid: grid.geometry.describe(),
-            input_null_share: grid.null_share(),
-            windows: reports?,
+        Ok(Prepared {
+            windows,
+            grid,
+            depth,
+            tolerance,
         })
     }
 
@@ -222,6 +244,18 @@ impl CurvatureJob {
             item("FLEXURE_METHOD", "local quadric least squares (Evans 1979; Wood 1996); attributes after Roberts 2001".into()),
         ]
     }
+}
+
+/// A checked horizon ready to fit.
+pub(crate) struct Prepared {
+    /// Windows, ascending and distinct.
+    pub(crate) windows: Vec<usize>,
+    /// The horizon as read.
+    pub(crate) grid: Grid,
+    /// Positive-down depth in CRS units.
+    pub(crate) depth: Array2<f64>,
+    /// Round-off tolerance of the attributes.
+    pub(crate) tolerance: FlatTolerance,
 }
 
 /// Largest |z - mean| over the valid cells.

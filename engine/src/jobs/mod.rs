@@ -5,6 +5,7 @@ mod anisotropy;
 mod curvature;
 mod render;
 mod stages;
+mod window_study;
 
 pub use crate::anisotropy::VectorAxis;
 pub use anisotropy::{
@@ -15,6 +16,7 @@ pub use render::{RenderJob, RenderReport};
 pub use stages::{
     PlanJob, PlanReport, StagesJob, StagesReport, WellInput, WellReport, WELL_CAUTION,
 };
+pub use window_study::{WindowStudyJob, WindowStudyReport};
 
 /// Progress of a long job, in units of grid rows fitted.
 pub trait Progress: Sync {

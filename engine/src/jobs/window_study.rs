@@ -1,0 +1,451 @@
+//! The window-study job: the horizon read as for `curvature`, the study of one attribute over
+//! the windows ([`crate::window_study`]), and its outputs: `window_study.json`,
+//! `window_study.csv`, a chart (SVG and PNG) of noise and detail against window size, a panel
+//! PNG of the maps at every window on one colour scale and, with `adaptive`, the adaptive map
+//! and the chosen-window grid as a GeoTIFF. Outputs are staged and committed together.
+
+use super::curvature::{CurvatureJob, Prepared};
+use crate::colour::{short, Clip, ColourScale};
+use crate::curvature::AttributeDef;
+use crate::error::{FlexureError, Result};
+use crate::figure::{Anchor, Figure, Mark};
+use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
+use crate::render::{cells_to_pixmap, colour_cells, panel};
+use crate::window_study::{study, Study, GAMMA, NOISE_ESTIMATOR};
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+/// Options of the window study: the horizon and windows as for `curvature` (its `attributes`
+/// are not used), the attribute studied and whether to write the adaptive map.
+#[derive(Clone, Debug)]
+pub struct WindowStudyJob {
+    /// Horizon, windows, domain, velocity, min-valid, CRS and output folder.
+    pub horizon: CurvatureJob,
+    /// The attribute studied.
+    pub attribute: &'static AttributeDef,
+    /// Also write the adaptive-window map.
+    pub adaptive: bool,
+}
+
+impl WindowStudyJob {
+    /// Runs the study.
+    pub fn run(&self) -> Result<WindowStudyReport> {
+        let mut notices = Vec::new();
+        let mut sorted = self.horizon.windows.clone();
+        sorted.sort_unstable();
+        sorted.dedup();
+        if sorted != self.horizon.windows {
+            notices.push(format!(
+                "windows sorted and duplicates removed: {}",
+                join(&sorted)
+            ));
+        }
+        if sorted.len() < 2 {
+            return Err(FlexureError::Parameter(
+                "a window study needs at least two different windows, e.g. --windows 3,5,9,17"
+                    .into(),
+            ));
+        }
+        let Prepared {
+            windows,
+            grid,
+            depth,
+            tolerance,
+        } = self.horizon.prepare()?;
+        let out = &self.horizon.out_dir;
+        let names = ["window_study.json", "window_study.csv"];
+        for name in names {
+            refuse_overwrite(&out.join(name), &self.horizon.inputs())?;
+        }
+        let g = &grid.geometry;
+        let s = study(
+            depth.view(),
+            g,
+            &windows,
+            self.attribute,
+            self.horizon.min_valid,
+            tolerance,
+        )?
+        .ok_or_else(|| {
+            FlexureError::input(
+                &self.horizon.input,
+                "no full 3 x 3 window: cannot estimate the noise",
+            )
+        })?;
+        let spacing_m = {
+            let (sx, sy) = g.spacing();
+            (sx * g.metres_per_unit, sy * g.metres_per_unit)
+        };
+        let mut staged = vec![
+            stage_text(
+                &out.join("window_study.json"),
+                &self.json(&s, spacing_m, &notices),
+            )?,
+            stage_text(&out.join("window_study.csv"), &csv(&s))?,
+        ];
+        staged.extend(stage_chart(
+            &out.join("window_study_chart"),
+            &s,
+            self.attribute,
+        )?);
+        staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s, g)?);
+        let adaptive_path = self.adaptive.then(|| {
+            out.join(format!(
+                "{}_{}_adaptive.tif",
+                stem(&self.horizon.input),
+                self.attribute.id
+            ))
+        });
+        if let Some(path) = &adaptive_path {
+            refuse_overwrite(path, &self.horizon.inputs())?;
+            let bands = [
+                BandOut {
+                    description: self.attribute.id,
+                    unit: self.attribute.unit,
+                    values: s.adaptive.mapv(|v| v as f32),
+                },
+                BandOut {
+                    description: "chosen_window",
+                    unit: "cells",
+                    values: s.chosen.mapv(|w| if w == 0 { f32::NAN } else { w as f32 }),
+                },
+            ];
+            let meta = vec![("FLEXURE_METHOD".to_string(), format!("per-cell intersection of confidence intervals (Katkovnik 1999), gamma {GAMMA}, 5 x 5 median of the chosen windows"))];
+            staged.push(stage_float_geotiff(path, g, &bands, &meta)?);
+        }
+        commit_all(staged)?;
+        Ok(WindowStudyReport {
+            attribute: self.attribute.id,
+            unit: self.attribute.unit,
+            noise_sigma: s.noise.sigma * g.metres_per_unit,
+            windows: s
+                .windows
+                .iter()
+                .map(|w| (w.window, w.noise_sd, w.change_from_previous))
+                .collect(),
+            recommended: s.recommended,
+            out_dir: out.clone(),
+            adaptive: adaptive_path,
+            notices,
+        })
+    }
+
+    fn json(&self, s: &Study, spacing_m: (f64, f64), notices: &[String]) -> String {
+        let windows: Vec<serde_json::Value> = s
+            .windows
+            .iter()
+            .map(|w| {
+                serde_json::json!({
+                    "window": w.window,
+                    "window_size_m": [w.window as f64 * spacing_m.0, w.window as f64 * spacing_m.1],
+                    "noise_sd": finite(w.noise_sd),
+                    "rms": finite(w.rms),
+                    "robust_spread": finite(w.robust_spread),
+                    "change_from_previous": finite(w.change_from_previous),
+                    "share_within_noise": finite(w.share_within_noise),
+                    "valid_share": finite(w.valid_share),
+                })
+            })
+            .collect();
+        let doc = serde_json::json!({
+            "input": self.horizon.input.display().to_string(),
+            "attribute": self.attribute.id,
+            "unit": self.attribute.unit,
+            "horizon_noise_sd": s.noise.sigma,
+            "horizon_noise_unit": "CRS length unit (positive-down depth)",
+            "noise_estimator": NOISE_ESTIMATOR,
+            "noise_cells": s.noise.n,
+            "rule": format!("intersection of confidence intervals (Goldenshluger & Nemirovski 1997; Katkovnik 1999) per cell, gamma {GAMMA}; recommended = median of the per-cell choices"),
+            "windows": windows,
+            "recommended_window": s.recommended,
+            "notices": notices,
+        });
+        serde_json::to_string_pretty(&doc).unwrap_or_default() + "\n"
+    }
+
+    fn stage_panel(
+        &self,
+        path: &Path,
+        s: &Study,
+        g: &crate::grid::GridGeometry,
+    ) -> Result<StagedFile> {
+        let reference = s
+            .windows
+            .iter()
+            .position(|w| w.window == s.recommended)
+            .unwrap_or(0);
+        let scale = ColourScale::for_band(self.attribute.id, &s.maps[reference], Clip::Auto)
+            .ok_or_else(|| {
+                FlexureError::input(
+                    &self.horizon.input,
+                    "the attribute is null everywhere at the recommended window",
+                )
+            })?;
+        let (sx, sy) = g.spacing();
+        let mpp = (g.cols as f64 * sx).max(g.rows as f64 * sy) / 300.0;
+        let px = (
+            ((sx / mpp).round() as u32).max(1),
+            ((sy / mpp).round() as u32).max(1),
+        );
+        let maps: Vec<(String, tiny_skia::Pixmap)> = s
+            .windows
+            .iter()
+            .zip(&s.maps)
+            .map(|(w, m)| {
+                let mark = if w.window == s.recommended {
+                    " (recommended)"
+                } else {
+                    ""
+                };
+                (
+                    format!("window {}{mark}", w.window),
+                    cells_to_pixmap(&colour_cells(m, &scale, None), px),
+                )
+            })
+            .collect();
+        let title = format!(
+            "{} of {} at each window (one colour scale)",
+            self.attribute.id,
+            stem(&self.horizon.input)
+        );
+        let page = panel(
+            &maps,
+            &scale,
+            &title,
+            &format!("{} ({})", self.attribute.id, self.attribute.unit),
+        );
+        let bytes = page
+            .encode_png()
+            .map_err(|e| FlexureError::write(path, e))?;
+        let staged = StagedFile::new(path);
+        std::fs::write(staged.temp(), bytes).map_err(|e| FlexureError::write(path, e))?;
+        Ok(staged)
+    }
+}
+
+fn finite(v: f64) -> serde_json::Value {
+    if v.is_finite() {
+        serde_json::json!(v)
+    } else {
+        serde_json::Value::Null
+    }
+}
+
+fn join(v: &[usize]) -> String {
+    v.iter()
+        .map(|w| w.to_string())
+        .collect::<Vec<_>>()
+        .join(",")
+}
+
+fn stem(p: &Path) -> String {
+    p.file_stem()
+        .unwrap_or_default()
+        .to_string_lossy()
+        .to_string()
+}
+
+fn csv(s: &Study) -> String {
+    let mut text = String::from("window,noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,recommended\n");
+    let f = |v: f64| {
+        if v.is_finite() {
+            format!("{v:.6e}")
+        } else {
+            String::new()
+        }
+    };
+    for w in &s.windows {
+        text += &format!(
+            "{},{},{},{},{},{},{},{}\n",
+            w.window,
+            f(w.noise_sd),
+            f(w.rms),
+            f(w.robust_spread),
+            f(w.change_from_previous),
+            f(w.share_within_noise),
+            f(w.valid_share),
+            u8::from(w.window == s.recommended)
+        );
+    }
+    text
+}
+
+fn stage_text(path: &Path, text: &str) -> Result<StagedFile> {
+    let staged = StagedFile::new(path);
+    std::fs::write(staged.temp(), text).map_err(|e| FlexureError::write(path, e))?;
+    Ok(staged)
+}
+
+/// Noise (blue), detail lost (orange) and RMS (grey) against window, log scale, with the
+/// recommendation marked; as SVG and PNG.
+fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<StagedFile>> {
+    let (w, h) = (720u32, 490u32);
+    let (left, right, top, bottom) = (80.0f32, 690.0f32, 60.0f32, 380.0f32);
+    let mut fig = Figure::new(w, h);
+    fig.text(
+        20.0,
+        30.0,
+        16.0,
+        format!(
+            "{}: noise and detail against window ({})",
+            attribute.id, attribute.unit
+        ),
+        Anchor::Start,
+    );
+    let series: [(&str, [u8; 3], Vec<f64>); 3] = [
+        (
+            "noise sd",
+            [0x21, 0x71, 0xb5],
+            s.windows.iter().map(|w| w.noise_sd).collect(),
+        ),
+        (
+            "change from previous window (detail lost)",
+            [0xd9, 0x5f, 0x02],
+            s.windows.iter().map(|w| w.change_from_previous).collect(),
+        ),
+        (
+            "RMS of the attribute",
+            [0x88, 0x88, 0x88],
+            s.windows.iter().map(|w| w.rms).collect(),
+        ),
+    ];
+    let logs: Vec<f64> = series
+        .iter()
+        .flat_map(|(_, _, v)| v.iter().copied())
+        .filter(|v| *v > 0.0 && v.is_finite())
+        .map(f64::log10)
+        .collect();
+    let (lo, hi) = logs
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+            (a.min(v), b.max(v))
+        });
+    let (lo, hi) = (lo.floor(), hi.ceil().max(lo.floor() + 1.0));
+    let n = s.windows.len();
+    let x = |k: usize| left + (right - left) * k as f32 / (n - 1).max(1) as f32;
+    let y = |v: f64| bottom - (bottom - top) * ((v.log10() - lo) / (hi - lo)) as f32;
+    fig.line(
+        vec![(left, top), (left, bottom), (right, bottom)],
+        [0, 0, 0],
+        1.0,
+    );
+    for e in (lo as i32)..=(hi as i32) {
+        let yy = y(10f64.powi(e));
+        fig.line(vec![(left - 4.0, yy), (right, yy)], [0xdd, 0xdd, 0xdd], 1.0);
+        fig.text(left - 8.0, yy + 4.0, 11.0, format!("1e{e}"), Anchor::Middle);
+    }
+    for (k, wf) in s.windows.iter().enumerate() {
+        fig.text(
+            x(k),
+            bottom + 18.0,
+            11.0,
+            wf.window.to_string(),
+            Anchor::Middle,
+        );
+        if wf.window == s.recommended {
+            fig.line(vec![(x(k), top), (x(k), bottom)], [0x20, 0x20, 0x20], 2.0);
+            fig.text(
+                x(k),
+                top - 6.0,
+                12.0,
+                format!("recommended {}", wf.window),
+                Anchor::Middle,
+            );
+        }
+    }
+    fig.text(
+        (left + right) / 2.0,
+        bottom + 36.0,
+        12.0,
+        "window (cells)",
+        Anchor::Middle,
+    );
+    for (i, (label, colour, values)) in series.iter().enumerate() {
+        let points: Vec<(f32, f32)> = values
+            .iter()
+            .enumerate()
+            .filter(|(_, v)| **v > 0.0 && v.is_finite())
+            .map(|(k, v)| (x(k), y(*v)))
+            .collect();
+        if points.len() > 1 {
+            fig.line(points, *colour, 2.0);
+        }
+        let ly = bottom + 56.0 + 16.0 * i as f32;
+        fig.marks.push(Mark::Line {
+            points: vec![(left, ly - 4.0), (left + 24.0, ly - 4.0)],
+            colour: *colour,
+            width: 3.0,
+        });
+        fig.text(left + 32.0, ly, 11.0, *label, Anchor::Start);
+    }
+    fig.text(
+        right - 230.0,
+        bottom + 56.0,
+        11.0,
+        format!("horizon noise sd {}", short(s.noise.sigma)),
+        Anchor::Start,
+    );
+    let svg = stage_text(&base.with_extension("svg"), &fig.to_svg())?;
+    let png_path = base.with_extension("png");
+    let bytes = fig
+        .to_pixmap()
+        .encode_png()
+        .map_err(|e| FlexureError::write(&png_path, e))?;
+    let png = StagedFile::new(&png_path);
+    std::fs::write(png.temp(), bytes).map_err(|e| FlexureError::write(&png_path, e))?;
+    Ok(vec![svg, png])
+}
+
+/// What a window study found.
+#[derive(Clone, Debug)]
+pub struct WindowStudyReport {
+    /// Attribute studied.
+    pub attribute: &'static str,
+    /// Its unit.
+    pub unit: &'static str,
+    /// Estimated horizon noise, metres.
+    pub noise_sigma: f64,
+    /// (window, attribute noise sd, change from previous) per window.
+    pub windows: Vec<(usize, f64, f64)>,
+    /// Recommended window.
+    pub recommended: usize,
+    /// Output folder.
+    pub out_dir: PathBuf,
+    /// Adaptive map written, if any.
+    pub adaptive: Option<PathBuf>,
+    /// Notices (e.g. windows sorted).
+    pub notices: Vec<String>,
+}
+
+impl fmt::Display for WindowStudyReport {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        for n in &self.notices {
+            writeln!(f, "notice: {n}")?;
+        }
+        writeln!(
+            f,
+            "horizon noise sd {:.3} m ({NOISE_ESTIMATOR})",
+            self.noise_sigma
+        )?;
+        writeln!(
+            f,
+            "{:>8} {:>16} {:>22}",
+            "window",
+            format!("noise sd ({})", self.unit),
+            "change from previous"
+        )?;
+        for (w, sd, change) in &self.windows {
+            writeln!(f, "{w:>8} {:>16} {:>22}", short(*sd), short(*change))?;
+        }
+        writeln!(
+            f,
+            "recommended window for {}: {} cells",
+            self.attribute, self.recommended
+        )?;
+        writeln!(f, "wrote window_study.json, window_study.csv, window_study_chart.svg/png, window_study_panel.png in {}", self.out_dir.display())?;
+        if let Some(p) = &self.adaptive {
+            writeln!(f, "wrote {}", p.display())?;
+        }
+        Ok(())
+    }
+}
