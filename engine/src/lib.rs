@@ -1,4 +1,6 @@
-//! flexure-engine: curvature attributes from local quadric fits to interpreted horizon grids.
+//! flexure-engine: curvature attributes from local quadric fits to interpreted horizon grids,
+//! azimuthal anisotropy from sector grids, co-rendered maps, well and stage analysis, and a
+//! window-size study.
 //!
 //! Data flows one way: [`io`] reads a raster into a [`grid::Grid`], [`horizon`] turns it into
 //! positive-down depth in CRS length units, [`window`] fits a local quadric at every cell,
@@ -6,7 +8,9 @@
 //! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
 //! that build the demo data and the tests. [`anisotropy`] fits the cos 2phi model of
 //! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
-//! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade.
+//! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade; [`figure`]
+//! draws roses and charts as SVG and PNG. [`wells`], [`circular`] and [`stages`] give stage
+//! corridors and their statistics; [`window_study`] measures noise against detail.
 
 pub mod anisotropy;
 pub mod circular;
