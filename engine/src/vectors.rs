@@ -115,6 +115,25 @@ pub fn stage_features(
     Ok(staged)
 }
 
+/// Writes `layer` as `DIR/<layer name>.gpkg` (grid CRS) and `DIR/<layer name>.geojson`
+/// (RFC 7946, WGS84), staged.
+pub fn stage_both_formats(dir: &Path, crs_wkt: &str, layer: &Layer) -> Result<Vec<StagedFile>> {
+    [
+        ("gpkg", VectorFormat::GeoPackage),
+        ("geojson", VectorFormat::GeoJson),
+    ]
+    .iter()
+    .map(|(ext, f)| {
+        stage_features(
+            &dir.join(format!("{}.{ext}", layer.name)),
+            *f,
+            crs_wkt,
+            layer,
+        )
+    })
+    .collect()
+}
+
 fn write_layer(
     temp: &Path,
     format: VectorFormat,

@@ -13,7 +13,7 @@ use crate::io::{
     commit_all, prepare_output_dir, read_bands, refuse_overwrite, stage_float_geotiff, BandOut,
 };
 use crate::vectors::{
-    stage_features, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
 };
 use ndarray::Array2;
 use std::fmt;
@@ -293,20 +293,17 @@ impl AnisotropyJob {
         let metadata = self.metadata(sectors, grid_azimuths, convergence, scale);
         let raster = stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata)?;
         let mut staged = vec![raster];
-        for format in [VectorFormat::GeoPackage, VectorFormat::GeoJson] {
-            let layer = Layer {
-                name: "anisotropy_vectors",
-                kind: GeometryKind::Line,
-                fields: &VECTOR_FIELDS,
-                features: &features,
-            };
-            staged.push(stage_features(
-                &self.vector_path(format),
-                format,
-                &geometry.crs_wkt,
-                &layer,
-            )?);
-        }
+        let layer = Layer {
+            name: "anisotropy_vectors",
+            kind: GeometryKind::Line,
+            fields: &VECTOR_FIELDS,
+            features: &features,
+        };
+        staged.extend(stage_both_formats(
+            &self.out_dir,
+            &geometry.crs_wkt,
+            &layer,
+        )?);
         commit_all(staged)?;
         Ok(self.report(
             sectors,

@@ -106,3 +106,35 @@ impl AnisotropyRaster {
         (s.magnitude.is_finite() && s.azimuth_fast.is_finite()).then_some(s)
     }
 }
+
+/// Writes `bytes` to `path`'s temporary name (see [`crate::io::StagedFile`]).
+pub(crate) fn stage_bytes(
+    path: &std::path::Path,
+    bytes: &[u8],
+) -> crate::error::Result<crate::io::StagedFile> {
+    let staged = crate::io::StagedFile::new(path);
+    std::fs::write(staged.temp(), bytes).map_err(|e| crate::error::FlexureError::write(path, e))?;
+    Ok(staged)
+}
+
+/// Encodes `pixmap` as PNG at `path`'s temporary name.
+pub(crate) fn stage_png(
+    path: &std::path::Path,
+    pixmap: &tiny_skia::Pixmap,
+) -> crate::error::Result<crate::io::StagedFile> {
+    let bytes = pixmap
+        .encode_png()
+        .map_err(|e| crate::error::FlexureError::write(path, e))?;
+    stage_bytes(path, &bytes)
+}
+
+/// `BASE.svg` and `BASE.png` of a figure.
+pub(crate) fn stage_figure(
+    base: &std::path::Path,
+    fig: &crate::figure::Figure,
+) -> crate::error::Result<Vec<crate::io::StagedFile>> {
+    Ok(vec![
+        stage_bytes(&base.with_extension("svg"), fig.to_svg().as_bytes())?,
+        stage_png(&base.with_extension("png"), &fig.to_pixmap())?,
+    ])
+}

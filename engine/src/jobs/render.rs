@@ -3,7 +3,7 @@
 //! and, optionally, as a PNG quicklook with legend. Outputs are staged and committed together.
 
 use super::anisotropy::HTI_CAUTION;
-use super::AnisotropyRaster;
+use super::{stage_png, AnisotropyRaster};
 use crate::anisotropy::{default_vector_scale, segment, vector_bins, VectorAxis, VectorSample};
 use crate::colour::{short, Clip, ColourScale};
 use crate::error::{FlexureError, Result};
@@ -298,13 +298,7 @@ impl RenderJob {
         let mut map = cells_to_pixmap(cells, px);
         draw_segments(&mut map, geometry, px, segments, 2.0);
         let legend = self.legend(geometry, px, parts);
-        let page = quicklook(&map, &legend);
-        let bytes = page
-            .encode_png()
-            .map_err(|e| FlexureError::write(path, e))?;
-        let staged = StagedFile::new(path);
-        std::fs::write(staged.temp(), bytes).map_err(|e| FlexureError::write(path, e))?;
-        Ok(staged)
+        stage_png(path, &quicklook(&map, &legend))
     }
 
     fn legend(&self, geometry: &GridGeometry, px: (u32, u32), parts: &LegendParts) -> Legend {

@@ -4,7 +4,7 @@
 //! together.
 
 use super::anisotropy::AzimuthReference;
-use super::AnisotropyRaster;
+use super::{stage_bytes, stage_figure, AnisotropyRaster};
 use crate::circular::axial_angle;
 use crate::error::{FlexureError, Result};
 use crate::figure::{polar, rose, Anchor, Figure, Mark};
@@ -13,9 +13,7 @@ use crate::io::{commit_all, prepare_output_dir, read_bands, read_info, StagedFil
 use crate::stages::{
     cells_inside, corridor_stats, percentiles, perpendicularity_score, BinSample, CorridorStats,
 };
-use crate::vectors::{
-    stage_features, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
-};
+use crate::vectors::{stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature};
 use crate::wells::{corridor, parse_stages, parse_well, path_azimuth, Well};
 use ndarray::Array2;
 use std::fmt;
@@ -320,9 +318,9 @@ impl StagesJob {
                 lateral: lateral.stats,
             });
         }
-        staged.push(stage_text(
+        staged.push(stage_bytes(
             &self.out_dir.join("stages.csv"),
-            &stage_table(&rows),
+            stage_table(&rows).as_bytes(),
         )?);
         staged.extend(stage_corridors(
             &self.out_dir,
@@ -509,25 +507,6 @@ fn safe(s: &str) -> String {
         .collect()
 }
 
-fn stage_text(path: &Path, text: &str) -> Result<StagedFile> {
-    let staged = StagedFile::new(path);
-    std::fs::write(staged.temp(), text).map_err(|e| FlexureError::write(path, e))?;
-    Ok(staged)
-}
-
-/// `BASE.svg` and `BASE.png` of a figure.
-fn stage_figure(base: &Path, fig: &Figure) -> Result<Vec<StagedFile>> {
-    let svg = stage_text(&base.with_extension("svg"), &fig.to_svg())?;
-    let png_path = base.with_extension("png");
-    let bytes = fig
-        .to_pixmap()
-        .encode_png()
-        .map_err(|e| FlexureError::write(&png_path, e))?;
-    let png = StagedFile::new(&png_path);
-    std::fs::write(png.temp(), bytes).map_err(|e| FlexureError::write(&png_path, e))?;
-    Ok(vec![svg, png])
-}
-
 /// Corridor polygons of every row, GeoPackage and GeoJSON.
 fn stage_corridors(
     dir: &Path,
@@ -583,13 +562,7 @@ fn stage_corridors(
         fields: &fields,
         features: &features,
     };
-    [
-        ("gpkg", VectorFormat::GeoPackage),
-        ("geojson", VectorFormat::GeoJson),
-    ]
-    .iter()
-    .map(|(ext, f)| stage_features(&dir.join(format!("{name}.{ext}")), *f, &g.crs_wkt, &layer))
-    .collect()
+    stage_both_formats(dir, &g.crs_wkt, &layer)
 }
 
 fn stage_rose_figure(title: &str, c: &Corridor) -> Figure {
@@ -862,9 +835,9 @@ impl PlanJob {
             .map(|c| c.azimuth)
             .collect();
         prepare_output_dir(&self.out_dir)?;
-        let mut staged = vec![stage_text(
+        let mut staged = vec![stage_bytes(
             &self.out_dir.join("plan.csv"),
-            &plan_table(&candidates),
+            plan_table(&candidates).as_bytes(),
         )?];
         staged.extend(stage_figure(
             &self.out_dir.join("plan_scores"),
@@ -957,20 +930,7 @@ fn stage_candidates(
         fields: &fields,
         features: &features,
     };
-    [
-        ("gpkg", VectorFormat::GeoPackage),
-        ("geojson", VectorFormat::GeoJson),
-    ]
-    .iter()
-    .map(|(ext, f)| {
-        stage_features(
-            &dir.join(format!("plan_candidates.{ext}")),
-            *f,
-            &g.crs_wkt,
-            &layer,
-        )
-    })
-    .collect()
+    stage_both_formats(dir, &g.crs_wkt, &layer)
 }
 
 /// Scores on a polar chart: radius = score (0..1) at each azimuth and its opposite.

@@ -5,6 +5,7 @@
 //! and the chosen-window grid as a GeoTIFF. Outputs are staged and committed together.
 
 use super::curvature::{CurvatureJob, Prepared};
+use super::{stage_bytes, stage_figure, stage_png};
 use crate::colour::{short, Clip, ColourScale};
 use crate::curvature::AttributeDef;
 use crate::error::{FlexureError, Result};
@@ -77,11 +78,11 @@ impl WindowStudyJob {
             (sx * g.metres_per_unit, sy * g.metres_per_unit)
         };
         let mut staged = vec![
-            stage_text(
+            stage_bytes(
                 &out.join("window_study.json"),
-                &self.json(&s, spacing_m, &notices),
+                self.json(&s, spacing_m, &notices).as_bytes(),
             )?,
-            stage_text(&out.join("window_study.csv"), &csv(&s))?,
+            stage_bytes(&out.join("window_study.csv"), csv(&s).as_bytes())?,
         ];
         staged.extend(stage_chart(
             &out.join("window_study_chart"),
@@ -214,12 +215,7 @@ impl WindowStudyJob {
             &title,
             &format!("{} ({})", self.attribute.id, self.attribute.unit),
         );
-        let bytes = page
-            .encode_png()
-            .map_err(|e| FlexureError::write(path, e))?;
-        let staged = StagedFile::new(path);
-        std::fs::write(staged.temp(), bytes).map_err(|e| FlexureError::write(path, e))?;
-        Ok(staged)
+        stage_png(path, &page)
     }
 }
 
@@ -268,12 +264,6 @@ fn csv(s: &Study) -> String {
         );
     }
     text
-}
-
-fn stage_text(path: &Path, text: &str) -> Result<StagedFile> {
-    let staged = StagedFile::new(path);
-    std::fs::write(staged.temp(), text).map_err(|e| FlexureError::write(path, e))?;
-    Ok(staged)
 }
 
 /// Noise (blue), detail lost (orange) and RMS (grey) against window, log scale, with the
@@ -385,15 +375,7 @@ fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<S
         format!("horizon noise sd {}", short(s.noise.sigma)),
         Anchor::Start,
     );
-    let svg = stage_text(&base.with_extension("svg"), &fig.to_svg())?;
-    let png_path = base.with_extension("png");
-    let bytes = fig
-        .to_pixmap()
-        .encode_png()
-        .map_err(|e| FlexureError::write(&png_path, e))?;
-    let png = StagedFile::new(&png_path);
-    std::fs::write(png.temp(), bytes).map_err(|e| FlexureError::write(&png_path, e))?;
-    Ok(vec![svg, png])
+    stage_figure(base, &fig)
 }
 
 /// What a window study found.
