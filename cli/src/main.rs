@@ -196,6 +196,20 @@ fn point(s: &str) -> Result<(f64, f64), String> {
     }
 }
 
+/// Corridor options shared by `stages` and `plan`.
+#[derive(clap::Args)]
+struct CorridorArgs {
+    /// Curvature raster, or a folder of curvature outputs with --window.
+    #[arg(long)]
+    curvature: Option<PathBuf>,
+    /// Window choosing the curvature file in a folder.
+    #[arg(long)]
+    window: Option<usize>,
+    /// Corridor half width each side of the well, CRS units.
+    #[arg(long, default_value_t = 150.0)]
+    half_width: f64,
+}
+
 #[derive(clap::Args)]
 struct StagesArgs {
     /// anisotropy.tif, or the folder holding it.
@@ -213,15 +227,8 @@ struct StagesArgs {
     /// TVD of the first survey station.
     #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
     kb: f64,
-    /// Curvature raster, or a folder of curvature outputs with --window.
-    #[arg(long)]
-    curvature: Option<PathBuf>,
-    /// Window choosing the curvature file in a folder.
-    #[arg(long)]
-    window: Option<usize>,
-    /// Corridor half width each side of the well, CRS units.
-    #[arg(long, default_value_t = 150.0)]
-    half_width: f64,
+    #[command(flatten)]
+    corridor: CorridorArgs,
     /// Unit of measured depths in the well and stage files.
     #[arg(long, value_enum, default_value = "m")]
     md_unit: MdUnitArg,
@@ -261,9 +268,9 @@ impl StagesArgs {
             })
             .collect();
         let mut job = StagesJob::new(&self.anisotropy, wells, &self.out);
-        job.curvature = self.curvature.clone();
-        job.window = self.window;
-        job.half_width = self.half_width;
+        job.curvature = self.corridor.curvature.clone();
+        job.window = self.corridor.window;
+        job.half_width = self.corridor.half_width;
         job.md_unit_m = match self.md_unit {
             MdUnitArg::M => 1.0,
             MdUnitArg::Ft => 0.3048,
@@ -287,15 +294,8 @@ struct PlanArgs {
     /// Candidate azimuth step, degrees (0 to < 180).
     #[arg(long, default_value_t = 5.0)]
     step: f64,
-    /// Curvature raster, or a folder of curvature outputs with --window.
-    #[arg(long)]
-    curvature: Option<PathBuf>,
-    /// Window choosing the curvature file in a folder.
-    #[arg(long)]
-    window: Option<usize>,
-    /// Corridor half width each side of the lateral, CRS units.
-    #[arg(long, default_value_t = 150.0)]
-    half_width: f64,
+    #[command(flatten)]
+    corridor: CorridorArgs,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
@@ -307,10 +307,10 @@ struct PlanArgs {
 impl PlanArgs {
     fn job(&self) -> PlanJob {
         let mut job = PlanJob::new(&self.anisotropy, self.pad, self.lateral, &self.out);
-        job.curvature = self.curvature.clone();
-        job.window = self.window;
+        job.curvature = self.corridor.curvature.clone();
+        job.window = self.corridor.window;
         job.step = self.step;
-        job.half_width = self.half_width;
+        job.half_width = self.corridor.half_width;
         job
     }
 }

@@ -442,34 +442,42 @@ struct StageRow {
 }
 
 fn stage_table(rows: &[StageRow]) -> String {
-    let curvature_cols = rows
-        .first()
-        .map_or_else(Vec::new, |r| r.corridor.curvature_columns());
-    let mut header = vec![
-        "well".to_string(),
-        "stage".into(),
-        "md_top".into(),
-        "md_base".into(),
-    ];
+    corridor_table(
+        &["well", "stage", "md_top", "md_base"],
+        rows.iter().map(|r| {
+            let lead = vec![
+                csv_text(&r.well),
+                csv_text(&r.stage),
+                number(r.md_top),
+                number(r.md_base),
+            ];
+            (lead, &r.corridor)
+        }),
+    )
+}
+
+/// A CSV of corridors: the `lead` columns, the statistics, the flag and the curvature columns
+/// (named after the first corridor).
+fn corridor_table<'a>(
+    lead: &[&str],
+    rows: impl Iterator<Item = (Vec<String>, &'a Corridor)>,
+) -> String {
+    let mut body = String::new();
+    let mut curvature_cols = None;
+    for (mut fields, c) in rows {
+        curvature_cols.get_or_insert_with(|| c.curvature_columns());
+        let numbers = c.numbers();
+        let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
+        fields.extend(stats.iter().map(|v| number(*v)));
+        fields.push(csv_text(&c.flag));
+        fields.extend(curvature.iter().map(|v| number(*v)));
+        body += &(fields.join(",") + "\n");
+    }
+    let mut header: Vec<String> = lead.iter().map(|s| s.to_string()).collect();
     header.extend(STAT_COLUMNS.iter().map(|s| s.to_string()));
     header.push("flag".into());
-    header.extend(curvature_cols);
-    let mut text = header.join(",") + "\n";
-    for r in rows {
-        let numbers = r.corridor.numbers();
-        let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
-        let mut fields = vec![
-            csv_text(&r.well),
-            csv_text(&r.stage),
-            number(r.md_top),
-            number(r.md_base),
-        ];
-        fields.extend(stats.iter().map(|v| number(*v)));
-        fields.push(csv_text(&r.corridor.flag));
-        fields.extend(curvature.iter().map(|v| number(*v)));
-        text += &(fields.join(",") + "\n");
-    }
-    text
+    header.extend(curvature_cols.unwrap_or_default());
+    header.join(",") + "\n" + &body
 }
 
 /// A CSV number: integers as such, tiny magnitudes (p-values) in exponent form, others with
@@ -876,24 +884,12 @@ struct Candidate {
 }
 
 fn plan_table(candidates: &[Candidate]) -> String {
-    let cols = candidates
-        .first()
-        .map_or_else(Vec::new, |c| c.corridor.curvature_columns());
-    let mut header = vec!["azimuth".to_string(), "score".into()];
-    header.extend(STAT_COLUMNS.iter().map(|s| s.to_string()));
-    header.push("flag".into());
-    header.extend(cols);
-    let mut text = header.join(",") + "\n";
-    for c in candidates {
-        let numbers = c.corridor.numbers();
-        let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
-        let mut fields = vec![number(c.azimuth), number(c.score)];
-        fields.extend(stats.iter().map(|v| number(*v)));
-        fields.push(csv_text(&c.corridor.flag));
-        fields.extend(curvature.iter().map(|v| number(*v)));
-        text += &(fields.join(",") + "\n");
-    }
-    text
+    corridor_table(
+        &["azimuth", "score"],
+        candidates
+            .iter()
+            .map(|c| (vec![number(c.azimuth), number(c.score)], &c.corridor)),
+    )
 }
 
 /// Best and worst candidate laterals as lines, GeoPackage and GeoJSON.
