@@ -134,17 +134,22 @@ fn gdal_reads_back_georeference_bands_and_values() {
     assert!(names.iter().all(|n| !n.starts_with('.')), "{names:?}");
 }
 
+/// Runs `f` on a rayon pool of `threads` threads.
+fn with_threads<T: Send>(threads: usize, f: impl FnOnce() -> T + Send) -> T {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .unwrap()
+        .install(f)
+}
+
 #[test]
 fn results_do_not_depend_on_thread_count() {
     let dir = tempfile::tempdir().unwrap();
     let input = write_input(dir.path());
     let run = |threads: usize| {
         let out = dir.path().join(format!("t{threads}"));
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(threads)
-            .build()
-            .unwrap();
-        pool.install(|| {
+        with_threads(threads, || {
             CurvatureJob::new(&input, &out, vec![3, 9])
                 .run(&Silent)
                 .unwrap()
@@ -288,12 +293,8 @@ fn anisotropy_does_not_depend_on_thread_count() {
     let (sectors, azimuths) = write_hti_sectors(dir.path());
     let run = |threads: usize| {
         let out = dir.path().join(format!("t{threads}"));
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(threads)
-            .build()
-            .unwrap();
         let job = AnisotropyJob::new(sectors.clone(), azimuths.clone(), &out);
-        pool.install(|| job.run().unwrap());
+        with_threads(threads, || job.run().unwrap());
         job.raster_path()
     };
     assert_eq!(band_bits(&run(1)), band_bits(&run(2)));

@@ -62,17 +62,13 @@ pub fn estimate_noise(
     if residuals.is_empty() {
         return Ok(None);
     }
-    let median = median(&mut residuals);
+    let median = median_of(&mut residuals);
     let mut deviations: Vec<f64> = residuals.iter().map(|r| (r - median).abs()).collect();
     let mad = median_of(&mut deviations);
     Ok(Some(NoiseEstimate {
         sigma: 1.4826 * mad / (1.0 - leverage).sqrt(),
         n: residuals.len(),
     }))
-}
-
-fn median(v: &mut [f64]) -> f64 {
-    median_of(v)
 }
 
 fn median_of(v: &mut [f64]) -> f64 {

@@ -26,6 +26,9 @@ fractures form. Anisotropy is a proxy for stress and fractures, not a measuremen
 check against image logs, dipole sonic and microseismic. Drilling and completion decisions \
 belong to licensed engineers and geoscientists under local regulations.";
 
+/// Default corridor half width each side of the well, CRS units (150 m, common practice).
+pub const DEFAULT_HALF_WIDTH: f64 = 150.0;
+
 /// Petals of the rose diagrams over 0..180 degrees (10 degrees each).
 const ROSE_PETALS: usize = 18;
 
@@ -232,7 +235,7 @@ impl StagesJob {
             curvature: None,
             window: None,
             wells,
-            half_width: 150.0,
+            half_width: DEFAULT_HALF_WIDTH,
             md_unit_m: 1.0,
             reference: AzimuthReference::Grid,
             out_dir: out_dir.into(),
@@ -779,7 +782,7 @@ impl PlanJob {
             pad,
             lateral,
             step: 5.0,
-            half_width: 150.0,
+            half_width: DEFAULT_HALF_WIDTH,
             out_dir: out_dir.into(),
         }
     }
