@@ -25,7 +25,53 @@ pub struct AttributeDef {
     pub unit: &'static str,
     /// What it is, in a few words.
     pub description: &'static str,
+    /// The fitted derivatives it is mainly made of (the window study compares these between
+    /// windows).
+    pub order: DerivativeOrder,
     formula: fn(&LocalSurface) -> Option<f64>,
+}
+
+/// Which derivatives of the fitted quadric an attribute is mainly made of.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DerivativeOrder {
+    /// The gradient (z_x, z_y): dip and dip azimuth.
+    First,
+    /// The Hessian (z_xx, z_yy, z_xy): every curvature attribute.
+    Second,
+}
+
+impl DerivativeOrder {
+    /// The derivatives of this order of `q` as a vector whose Euclidean norm is rotation
+    /// invariant: (z_x, z_y, 0) or (z_xx, z_yy, sqrt(2) z_xy) (the Frobenius norm of the
+    /// Hessian), in CRS length units.
+    pub fn vector(self, q: &Quadric) -> [f64; 3] {
+        match self {
+            DerivativeOrder::First => [q.d, q.e, 0.0],
+            DerivativeOrder::Second => [2.0 * q.a, 2.0 * q.b, std::f64::consts::SQRT_2 * q.c],
+        }
+    }
+
+    /// The rows over the quadric's coefficients (a, b, c, d, e, f) of [`Self::vector`] (which
+    /// is linear in them), for noise propagation.
+    pub fn functionals(self) -> [[f64; 6]; 3] {
+        let mut rows = [[0.0; 6]; 3];
+        for j in 0..6 {
+            let mut c = [0.0; 6];
+            c[j] = 1.0;
+            let unit = Quadric {
+                a: c[0],
+                b: c[1],
+                c: c[2],
+                d: c[3],
+                e: c[4],
+                f: c[5],
+            };
+            for (row, v) in rows.iter_mut().zip(self.vector(&unit)) {
+                row[j] = v;
+            }
+        }
+        rows
+    }
 }
 
 /// The Roberts (2001) attribute set, in the band order written.
@@ -34,78 +80,91 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_mean",
         unit: "1/km",
         description: "mean curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_mean * KM),
     },
     AttributeDef {
         id: "k_gauss",
         unit: "1/km^2",
         description: "Gaussian curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_gauss * KM * KM),
     },
     AttributeDef {
         id: "k_max",
         unit: "1/km",
         description: "maximum principal curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_max * KM),
     },
     AttributeDef {
         id: "k_min",
         unit: "1/km",
         description: "minimum principal curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_min * KM),
     },
     AttributeDef {
         id: "k_pos",
         unit: "1/km",
         description: "most-positive curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_pos() * KM),
     },
     AttributeDef {
         id: "k_neg",
         unit: "1/km",
         description: "most-negative curvature",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.k_neg() * KM),
     },
     AttributeDef {
         id: "k_dip",
         unit: "1/km",
         description: "dip curvature",
+        order: DerivativeOrder::Second,
         formula: |s| s.k_dip().map(|k| k * KM),
     },
     AttributeDef {
         id: "k_strike",
         unit: "1/km",
         description: "strike curvature",
+        order: DerivativeOrder::Second,
         formula: |s| s.k_strike().map(|k| k * KM),
     },
     AttributeDef {
         id: "k_contour",
         unit: "1/km",
         description: "contour curvature",
+        order: DerivativeOrder::Second,
         formula: |s| s.k_contour().map(|k| k * KM),
     },
     AttributeDef {
         id: "curvedness",
         unit: "1/km",
         description: "curvedness",
+        order: DerivativeOrder::Second,
         formula: |s| Some(s.curvedness() * KM),
     },
     AttributeDef {
         id: "shape_index",
         unit: "1",
         description: "shape index (dome +1, bowl -1)",
+        order: DerivativeOrder::Second,
         formula: LocalSurface::shape_index,
     },
     AttributeDef {
         id: "dip",
         unit: "degree",
         description: "dip angle",
+        order: DerivativeOrder::First,
         formula: |s| Some(s.dip_degrees()),
     },
     AttributeDef {
         id: "dip_azimuth",
         unit: "degree",
         description: "down-dip azimuth from grid north",
+        order: DerivativeOrder::First,
         formula: LocalSurface::dip_azimuth,
     },
 ];
