@@ -39,8 +39,9 @@ enum Command {
     /// shaded by the horizon and overlaid with anisotropy vectors.
     #[command(after_help = CAUTION)]
     Render(RenderArgs),
-    /// Measure noise against detail over several windows on one horizon and recommend a
-    /// window (window_study.json, .csv, a chart and a panel of maps).
+    /// Measure noise against detail over several windows on one horizon, choose a window per
+    /// cell and recommend one window (window_study.json, .csv, a chart, a panel of maps and,
+    /// with --adaptive, the adaptive map).
     WindowStudy(WindowStudyArgs),
     /// Per-stage corridor statistics of anisotropy (and curvature) along wells: stages.csv,
     /// corridor polygons, rose diagrams and a sheet per well.

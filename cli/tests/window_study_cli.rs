@@ -6,6 +6,7 @@ mod common;
 
 use common::{fails, flexure, north_up, write_bands};
 use flexure_engine::synthetic::SeededNoise;
+use gdal::Metadata;
 use ndarray::Array2;
 
 /// A gentle dome with 0.5 m of seeded white noise on 25 m bins.
@@ -68,6 +69,11 @@ fn study_writes_its_figures_and_recommends_a_listed_window() {
     assert!(sds.windows(2).all(|p| p[1] < p[0]), "{sds:?}");
     let csv = std::fs::read_to_string(out.join("window_study.csv")).unwrap();
     assert_eq!(csv.lines().count(), 5);
+    // One test per step between consecutive windows, each with a threshold above 1 (a ratio to
+    // the noise-only expectation of the pooled change).
+    let steps = json["steps"].as_array().unwrap();
+    assert_eq!(steps.len(), 3);
+    assert!(steps.iter().all(|t| t["threshold"].as_f64().unwrap() > 1.0));
     for f in [
         "window_study_chart.svg",
         "window_study_chart.png",
@@ -76,6 +82,96 @@ fn study_writes_its_figures_and_recommends_a_listed_window() {
     ] {
         assert!(out.join(f).is_file(), "{f}");
     }
+}
+
+/// Band `name` of a GeoTIFF as GDAL reads it.
+fn band(path: &std::path::Path, name: &str) -> Array2<f64> {
+    let ds = gdal::Dataset::open(path).unwrap();
+    let index = (1..=ds.raster_count())
+        .find(|&i| ds.rasterband(i).unwrap().description().unwrap() == name)
+        .unwrap_or_else(|| panic!("no band {name} in {}", path.display()));
+    let b = ds.rasterband(index).unwrap();
+    let nodata = b.no_data_value();
+    b.read_as::<f64>((0, 0), b.size(), b.size(), None)
+        .unwrap()
+        .to_array()
+        .unwrap()
+        .mapv(|v| if Some(v) == nodata { f64::NAN } else { v })
+}
+
+#[test]
+fn adaptive_map_takes_each_cell_from_its_chosen_window() {
+    // Read back through GDAL: every chosen window is one of those asked for, and the adaptive
+    // value equals, bit for bit, `flexure curvature`'s value at that window (the same fit).
+    let dir = tempfile::tempdir().unwrap();
+    let input = write_bands(
+        dir.path(),
+        "dome.tif",
+        &north_up(90, 80),
+        vec![noisy_dome()],
+    );
+    let (i, study, curv) = (
+        input.to_str().unwrap(),
+        dir.path().join("study"),
+        dir.path().join("curv"),
+    );
+    for args in [
+        vec![
+            "window-study",
+            i,
+            "--windows",
+            "3,5,9",
+            "--attribute",
+            "k_pos",
+            "--adaptive",
+        ],
+        vec![
+            "curvature",
+            i,
+            "--windows",
+            "3,5,9",
+            "--attributes",
+            "k_pos",
+        ],
+    ] {
+        let out = if args[0] == "curvature" {
+            &curv
+        } else {
+            &study
+        };
+        let mut args = args.clone();
+        args.extend(["--quiet", "--out", out.to_str().unwrap()]);
+        let o = flexure(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    }
+    let adaptive_path = study.join("dome_k_pos_adaptive.tif");
+    let (adaptive, chosen) = (
+        band(&adaptive_path, "k_pos"),
+        band(&adaptive_path, "chosen_window"),
+    );
+    let maps: Vec<(f64, Array2<f64>)> = [3.0, 5.0, 9.0]
+        .into_iter()
+        .map(|w| {
+            (
+                w,
+                band(&curv.join(format!("dome_w{:02}.tif", w as usize)), "k_pos"),
+            )
+        })
+        .collect();
+    let mut compared = 0;
+    for ((at, &w), &v) in chosen.indexed_iter().zip(adaptive.iter()) {
+        if w.is_nan() {
+            assert!(v.is_nan());
+            continue;
+        }
+        let (_, map) = maps
+            .iter()
+            .find(|(window, _)| *window == w)
+            .unwrap_or_else(|| panic!("chosen window {w} was not asked for"));
+        assert_eq!(v.to_bits(), map[at].to_bits(), "cell {at:?}, window {w}");
+        compared += 1;
+    }
+    assert!(compared > 80 * 90 / 2, "{compared}");
 }
 
 #[test]

@@ -12,7 +12,10 @@ use crate::error::{FlexureError, Result};
 use crate::figure::{Anchor, Figure, Mark};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
 use crate::render::{cells_to_pixmap, colour_cells, panel};
-use crate::window_study::{study, Study, GAMMA, NOISE_ESTIMATOR};
+use crate::window_study::{
+    study, Study, WindowFigures, NOISE_BAND, NOISE_ESTIMATOR, POOL_RADIUS, PROPAGATION_ALPHA,
+    WINDOW_RULE,
+};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
@@ -111,7 +114,10 @@ impl WindowStudyJob {
                     values: s.chosen.mapv(|w| if w == 0 { f32::NAN } else { w as f32 }),
                 },
             ];
-            let meta = vec![("FLEXURE_METHOD".to_string(), format!("per-cell intersection of confidence intervals (Katkovnik 1999), gamma {GAMMA}, 5 x 5 median of the chosen windows"))];
+            let meta = vec![
+                ("FLEXURE_METHOD".to_string(), WINDOW_RULE.to_string()),
+                ("FLEXURE_STEP_THRESHOLDS".to_string(), step_list(&s)),
+            ];
             staged.push(stage_float_geotiff(path, g, &bands, &meta)?);
         }
         commit_all(staged)?;
@@ -119,11 +125,7 @@ impl WindowStudyJob {
             attribute: self.attribute.id,
             unit: self.attribute.unit,
             noise_sigma: s.noise.sigma * g.metres_per_unit,
-            windows: s
-                .windows
-                .iter()
-                .map(|w| (w.window, w.noise_sd, w.change_from_previous))
-                .collect(),
+            windows: s.windows.clone(),
             recommended: s.recommended,
             out_dir: out.clone(),
             adaptive: adaptive_path,
@@ -145,6 +147,8 @@ impl WindowStudyJob {
                     "change_from_previous": finite(w.change_from_previous),
                     "share_within_noise": finite(w.share_within_noise),
                     "valid_share": finite(w.valid_share),
+                    "rms_from_adaptive": finite(w.rms_from_adaptive),
+                    "adaptive_share": finite(w.adaptive_share),
                 })
             })
             .collect();
@@ -156,7 +160,19 @@ impl WindowStudyJob {
             "horizon_noise_unit": "CRS length unit (positive-down depth)",
             "noise_estimator": NOISE_ESTIMATOR,
             "noise_cells": s.noise.n,
-            "rule": format!("intersection of confidence intervals (Goldenshluger & Nemirovski 1997; Katkovnik 1999) per cell, gamma {GAMMA}; recommended = median of the per-cell choices"),
+            "rule": WINDOW_RULE,
+            "compared_derivatives": format!("{:?}", self.attribute.order).to_lowercase(),
+            "pooling_box_cells": 2 * POOL_RADIUS + 1,
+            "propagation_alpha": PROPAGATION_ALPHA,
+            "steps": s.steps.iter().map(|t| serde_json::json!({
+                "from_window": t.windows.0,
+                "to_window": t.windows.1,
+                "expected_squared_change": finite(t.expected),
+                "degrees_of_freedom": finite(t.dof),
+                "false_stop_probability": t.false_stop,
+                "threshold": finite(t.threshold),
+            })).collect::<Vec<_>>(),
+            "noise_band_sd": NOISE_BAND,
             "windows": windows,
             "recommended_window": s.recommended,
             "notices": notices,
@@ -188,7 +204,8 @@ impl WindowStudyJob {
             ((sx / mpp).round() as u32).max(1),
             ((sy / mpp).round() as u32).max(1),
         );
-        let maps: Vec<(String, tiny_skia::Pixmap)> = s
+        let tile = |m: &ndarray::Array2<f64>| cells_to_pixmap(&colour_cells(m, &scale, None), px);
+        let mut maps: Vec<(String, tiny_skia::Pixmap)> = s
             .windows
             .iter()
             .zip(&s.maps)
@@ -198,14 +215,12 @@ impl WindowStudyJob {
                 } else {
                     ""
                 };
-                (
-                    format!("window {}{mark}", w.window),
-                    cells_to_pixmap(&colour_cells(m, &scale, None), px),
-                )
+                (format!("window {}{mark}", w.window), tile(m))
             })
             .collect();
+        maps.push(("adaptive (window per cell)".to_string(), tile(&s.adaptive)));
         let title = format!(
-            "{} of {} at each window (one colour scale)",
+            "{} of {} at each window and adaptive (one colour scale)",
             self.attribute.id,
             stem(&self.horizon.input)
         );
@@ -217,6 +232,15 @@ impl WindowStudyJob {
         );
         stage_png(path, &page)
     }
+}
+
+/// `3-5:2.110,5-7:2.060,...`: each step's threshold, for the GeoTIFF metadata.
+fn step_list(s: &Study) -> String {
+    s.steps
+        .iter()
+        .map(|t| format!("{}-{}:{:.3}", t.windows.0, t.windows.1, t.threshold))
+        .collect::<Vec<_>>()
+        .join(",")
 }
 
 fn finite(v: f64) -> serde_json::Value {
@@ -242,7 +266,7 @@ fn stem(p: &Path) -> String {
 }
 
 fn csv(s: &Study) -> String {
-    let mut text = String::from("window,noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,recommended\n");
+    let mut text = String::from("window,noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,rms_from_adaptive,adaptive_share,recommended\n");
     let f = |v: f64| {
         if v.is_finite() {
             format!("{v:.6e}")
@@ -252,7 +276,7 @@ fn csv(s: &Study) -> String {
     };
     for w in &s.windows {
         text += &format!(
-            "{},{},{},{},{},{},{},{}\n",
+            "{},{},{},{},{},{},{},{},{},{}\n",
             w.window,
             f(w.noise_sd),
             f(w.rms),
@@ -260,16 +284,18 @@ fn csv(s: &Study) -> String {
             f(w.change_from_previous),
             f(w.share_within_noise),
             f(w.valid_share),
+            f(w.rms_from_adaptive),
+            f(w.adaptive_share),
             u8::from(w.window == s.recommended)
         );
     }
     text
 }
 
-/// Noise (blue), detail lost (orange) and RMS (grey) against window, log scale, with the
-/// recommendation marked; as SVG and PNG.
+/// Noise (blue), detail lost (orange), RMS (grey) and difference from the adaptive map (purple)
+/// against window, log scale, with the recommendation marked; as SVG and PNG.
 fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<StagedFile>> {
-    let (w, h) = (720u32, 490u32);
+    let (w, h) = (720u32, 510u32);
     let (left, right, top, bottom) = (80.0f32, 690.0f32, 60.0f32, 380.0f32);
     let mut fig = Figure::new(w, h);
     fig.text(
@@ -282,7 +308,7 @@ fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<S
         ),
         Anchor::Start,
     );
-    let series: [(&str, [u8; 3], Vec<f64>); 3] = [
+    let series: [(&str, [u8; 3], Vec<f64>); 4] = [
         (
             "noise sd",
             [0x21, 0x71, 0xb5],
@@ -297,6 +323,11 @@ fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<S
             "RMS of the attribute",
             [0x88, 0x88, 0x88],
             s.windows.iter().map(|w| w.rms).collect(),
+        ),
+        (
+            "RMS difference from the adaptive map (least = recommended)",
+            [0x75, 0x70, 0xb3],
+            s.windows.iter().map(|w| w.rms_from_adaptive).collect(),
         ),
     ];
     let logs: Vec<f64> = series
@@ -387,8 +418,8 @@ pub struct WindowStudyReport {
     pub unit: &'static str,
     /// Estimated horizon noise, metres.
     pub noise_sigma: f64,
-    /// (window, attribute noise sd, change from previous) per window.
-    pub windows: Vec<(usize, f64, f64)>,
+    /// Figures per window.
+    pub windows: Vec<WindowFigures>,
     /// Recommended window.
     pub recommended: usize,
     /// Output folder.
@@ -411,13 +442,23 @@ impl fmt::Display for WindowStudyReport {
         )?;
         writeln!(
             f,
-            "{:>8} {:>16} {:>22}",
+            "{:>8} {:>16} {:>22} {:>18} {:>15}",
             "window",
             format!("noise sd ({})", self.unit),
-            "change from previous"
+            "change from previous",
+            "from adaptive map",
+            "adaptive share"
         )?;
-        for (w, sd, change) in &self.windows {
-            writeln!(f, "{w:>8} {:>16} {:>22}", short(*sd), short(*change))?;
+        for w in &self.windows {
+            writeln!(
+                f,
+                "{:>8} {:>16} {:>22} {:>18} {:>14.1}%",
+                w.window,
+                short(w.noise_sd),
+                short(w.change_from_previous),
+                short(w.rms_from_adaptive),
+                100.0 * w.adaptive_share
+            )?;
         }
         writeln!(
             f,
