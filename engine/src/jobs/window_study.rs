@@ -455,7 +455,11 @@ impl fmt::Display for WindowStudyReport {
                 "{:>8} {:>16} {:>22} {:>18} {:>14.1}%",
                 w.window,
                 short(w.noise_sd),
-                short(w.change_from_previous),
+                if w.change_from_previous.is_finite() {
+                    short(w.change_from_previous)
+                } else {
+                    "-".to_string()
+                },
                 short(w.rms_from_adaptive),
                 100.0 * w.adaptive_share
             )?;
