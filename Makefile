@@ -31,4 +31,4 @@ test: lint
 
 ## Criterion throughput benchmarks (not part of the tests).
 bench: deps
-	$(CARGO) bench --bench curvature_throughput --bench window_study_throughput
+	$(CARGO) bench --bench throughput

@@ -18,15 +18,15 @@ fn noisy_dome() -> Array2<f32> {
     })
 }
 
+/// The noisy dome written as `dome.tif` in `dir`.
+fn dome_file(dir: &std::path::Path) -> std::path::PathBuf {
+    write_bands(dir, "dome.tif", &north_up(90, 80), vec![noisy_dome()])
+}
+
 #[test]
 fn study_writes_its_figures_and_recommends_a_listed_window() {
     let dir = tempfile::tempdir().unwrap();
-    let input = write_bands(
-        dir.path(),
-        "dome.tif",
-        &north_up(90, 80),
-        vec![noisy_dome()],
-    );
+    let input = dome_file(dir.path());
     let out = dir.path().join("study");
     let o = flexure(&[
         "window-study",
@@ -104,12 +104,7 @@ fn adaptive_map_takes_each_cell_from_its_chosen_window() {
     // Read back through GDAL: every chosen window is one of those asked for, and the adaptive
     // value equals, bit for bit, `flexure curvature`'s value at that window (the same fit).
     let dir = tempfile::tempdir().unwrap();
-    let input = write_bands(
-        dir.path(),
-        "dome.tif",
-        &north_up(90, 80),
-        vec![noisy_dome()],
-    );
+    let input = dome_file(dir.path());
     let (i, study, curv) = (
         input.to_str().unwrap(),
         dir.path().join("study"),
