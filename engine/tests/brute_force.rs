@@ -2,11 +2,12 @@
 //! `gelsd` through ndarray-linalg, an independent general-purpose reference): random surfaces,
 //! random nulls, non-square and rotated grids, several windows. Agreement to 1e-9 relative.
 
+use flexure_engine::curvature::DerivativeOrder;
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::synthetic::SeededNoise;
-use flexure_engine::window::{fit_quadrics, Quadric, WindowSpec};
+use flexure_engine::window::{fit_quadrics, fit_quadrics_with_noise, Quadric, WindowSpec};
 use ndarray::{Array1, Array2};
-use ndarray_linalg::LeastSquaresSvd;
+use ndarray_linalg::{Inverse, LeastSquaresSvd};
 
 fn geometry(cols: usize, rows: usize, rotation_deg: f64, dx: f64, dy: f64) -> GridGeometry {
     let (s, c) = rotation_deg.to_radians().sin_cos();
@@ -52,16 +53,17 @@ fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
     })
 }
 
-/// Least squares of the quadric over the valid cells of one window, in map coordinates
-/// relative to the centre cell; `None` if fewer than `min_count` cells are valid.
-fn reference_fit(
+/// The design matrix (x^2, y^2, xy, x, y, 1 in map coordinates relative to the centre cell) and
+/// the values relative to the centre over the valid cells of one window; `None` if the centre
+/// is null or fewer than `min_count` cells are valid.
+fn window_design(
     values: &Array2<f64>,
     g: &GridGeometry,
     col: usize,
     row: usize,
     n: usize,
     min_count: usize,
-) -> Option<[f64; 5]> {
+) -> Option<(Array2<f64>, Array1<f64>)> {
     if !values[(row, col)].is_finite() {
         return None;
     }
@@ -89,8 +91,22 @@ fn reference_fit(
     if rhs.len() < min_count {
         return None;
     }
-    let a = Array2::from_shape_vec((rhs.len(), 6), design).unwrap();
-    let b = Array1::from(rhs);
+    Some((
+        Array2::from_shape_vec((rhs.len(), 6), design).unwrap(),
+        Array1::from(rhs),
+    ))
+}
+
+/// Least squares of the quadric over the valid cells of one window (see [`window_design`]).
+fn reference_fit(
+    values: &Array2<f64>,
+    g: &GridGeometry,
+    col: usize,
+    row: usize,
+    n: usize,
+    min_count: usize,
+) -> Option<[f64; 5]> {
+    let (a, b) = window_design(values, g, col, row, n, min_count)?;
     let sol = a.least_squares(&b).unwrap().solution;
     Some([sol[0], sol[1], sol[2], sol[3], sol[4]])
 }
@@ -159,4 +175,47 @@ fn rotated_non_square_grid_matches_reference() {
 fn grid_without_nulls_matches_reference_at_edges() {
     // Edges are nulls outside the grid: the masked path near the border, kernels inside.
     compare(10.0, 20.0, 30.0, 9, 0.0, 7);
+}
+
+#[test]
+fn masked_noise_power_matches_the_reference_covariance() {
+    // The per-cell noise power of the fitted derivatives against least-squares theory with an
+    // independent solver: the coefficients' covariance is (X^T X)^-1 for unit noise (Seber &
+    // Lee 2003, ch. 3), inverted here by LAPACK; sum_c t_c^T (X^T X)^-1 t_c for the rows t_c
+    // of the Hessian and gradient vectors, on a rotated non-square grid with random nulls.
+    let g = geometry(33, 29, 40.0, 25.0, 12.5);
+    let values = random_values(&g, 11, 0.15);
+    let n = 7;
+    let spec = WindowSpec {
+        size: n,
+        min_valid: 0.75,
+    };
+    let min_count = (0.75 * (n * n) as f64).ceil() as usize;
+    for order in [DerivativeOrder::First, DerivativeOrder::Second] {
+        let rows = order.functionals();
+        let (_, power) = fit_quadrics_with_noise(values.view(), &g, &spec, &rows, &|_| {}).unwrap();
+        let mut compared = 0;
+        for row in 0..g.rows {
+            for col in 0..g.cols {
+                let Some((x, _)) = window_design(&values, &g, col, row, n, min_count) else {
+                    continue;
+                };
+                let cov = x.t().dot(&x).inv().unwrap();
+                let reference: f64 = rows
+                    .iter()
+                    .map(|t| {
+                        let t = Array1::from(t.to_vec());
+                        t.dot(&cov.dot(&t))
+                    })
+                    .sum();
+                let fast = power[(row, col)];
+                assert!(
+                    (fast / reference - 1.0).abs() < 1e-6,
+                    "{order:?} cell ({col},{row}): {fast} vs {reference}"
+                );
+                compared += 1;
+            }
+        }
+        assert!(compared > g.cols * g.rows / 3, "{compared}");
+    }
 }
