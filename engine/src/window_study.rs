@@ -137,6 +137,10 @@ pub struct WindowFigures {
     pub window: usize,
     /// Standard deviation of the attribute caused by the horizon's noise.
     pub noise_sd: f64,
+    /// Exact noise standard deviation of the fitted derivative vector of a full window, sigma
+    /// times the root-sum-square of its kernel weights: the Hessian `(z_xx, z_yy, sqrt(2)
+    /// z_xy)` in 1/km for curvatures, the gradient in m/m for dip.
+    pub derivative_noise_sd: f64,
     /// RMS of the attribute.
     pub rms: f64,
     /// Robust spread: interquartile range / 1.349.
@@ -201,7 +205,10 @@ pub fn study(
     let Some(noise) = estimate_noise(depth, geometry)? else {
         return Ok(None);
     };
-    let steps = step_tests(geometry, windows, attribute.order, noise.sigma)?;
+    let NoiseModel {
+        steps,
+        derivative_noise_sd,
+    } = noise_model(geometry, windows, attribute.order, noise.sigma)?;
     let mut rng = SeededNoise::new(NOISE_SEED);
     let noisy = Array2::from_shape_fn(depth.dim(), |at| depth[at] + noise.sigma * rng.gaussian());
     let attribute_map = |field: &QuadricField| -> Array2<f64> {
@@ -234,7 +241,14 @@ pub fn study(
     let adaptive = Array2::from_shape_fn(depth.dim(), |at| {
         chosen_index[at].map_or(f64::NAN, |k| maps[k][at])
     });
-    let figures = window_figures(windows, &maps, &noise_sds, &adaptive, &chosen_index);
+    let mut figures = window_figures(windows, &maps, &noise_sds, &adaptive, &chosen_index);
+    let per_km = match attribute.order {
+        DerivativeOrder::First => 1.0,
+        DerivativeOrder::Second => 1000.0 / geometry.metres_per_unit,
+    };
+    for (f, sd) in figures.iter_mut().zip(derivative_noise_sd) {
+        f.derivative_noise_sd = sd * per_km;
+    }
     let recommended = figures
         .iter()
         .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
@@ -266,6 +280,7 @@ fn window_figures(
             WindowFigures {
                 window: windows[k],
                 noise_sd,
+                derivative_noise_sd: f64::NAN,
                 rms: rms_of(values.iter().copied()),
                 robust_spread: robust_spread(&values),
                 change_from_previous: k
@@ -351,18 +366,28 @@ fn chosen_at(
     Some(chosen)
 }
 
-/// The step tests for `windows` under white noise of standard deviation `sigma` (see the
+/// The noise model of a study: the tests between consecutive windows and each window's exact
+/// derivative noise.
+pub struct NoiseModel {
+    /// The step tests, one per pair of consecutive windows.
+    pub steps: Vec<StepTest>,
+    /// Per window, the noise standard deviation of the full-window derivative vector, in CRS
+    /// length units to the power -1 (Hessian) or 0 (gradient).
+    pub derivative_noise_sd: Vec<f64>,
+}
+
+/// The noise model for `windows` under white noise of standard deviation `sigma` (see the
 /// module notes). Noise power of window k: `c_k = sum |K_k|^2` over its derivative kernels (per
 /// unit noise variance); step k's false-stop probability `p_k` solves
 /// `p_k t_k (c_(k-1) - c_K) = alpha c_K / (K - 1)`, a false stop costing about the threshold
 /// `t_k` times the smaller window's excess noise power, so the expected extra noise power of
 /// the choice on structureless ground is at most `alpha c_K` (a union bound over the steps).
-pub fn step_tests(
+pub fn noise_model(
     geometry: &GridGeometry,
     windows: &[usize],
     order: DerivativeOrder,
     sigma: f64,
-) -> Result<Vec<StepTest>> {
+) -> Result<NoiseModel> {
     let kernels = windows
         .iter()
         .map(|&n| derivative_kernels(geometry, n, order))
@@ -370,23 +395,26 @@ pub fn step_tests(
     let power: Vec<f64> = kernels.iter().map(sum_of_squares).collect();
     let largest = *power.last().unwrap_or(&0.0);
     let budget = PROPAGATION_ALPHA * largest / windows.len().saturating_sub(1).max(1) as f64;
-    Ok(kernels
+    let steps = kernels
         .windows(2)
         .zip(windows.windows(2))
         .zip(&power)
         .map(|((pair, w), &smaller_power)| {
             let noise = PooledNoise::of(&kernel_difference(&pair[1], &pair[0]), POOL_RADIUS);
             let (false_stop, threshold) = noise.step_threshold(budget, smaller_power - largest);
-            let (expected, dof) = (noise.mean(), noise.dof());
             StepTest {
                 windows: (w[0], w[1]),
-                expected: sigma * sigma * expected,
-                dof,
+                expected: sigma * sigma * noise.mean(),
+                dof: noise.dof(),
                 false_stop,
                 threshold,
             }
         })
-        .collect())
+        .collect();
+    Ok(NoiseModel {
+        steps,
+        derivative_noise_sd: power.iter().map(|p| sigma * p.sqrt()).collect(),
+    })
 }
 
 /// The full-window kernels of the derivative vector of `order` (the rows of
@@ -746,6 +774,33 @@ mod tests {
             }
             let want = vals.iter().sum::<f64>() / vals.len() as f64;
             assert!((g - want).abs() < 1e-12, "({r}, {c}): {g} vs {want}");
+        }
+    }
+
+    #[test]
+    fn derivative_noise_matches_the_closed_form_gains() {
+        // REFERENCES.md section 3 noise gains (derived; consistent with Florinsky 1998): the
+        // Hessian vector (z_xx, z_yy, sqrt(2) z_xy) has var h^4 / sigma^2 = 2 + 2 + 2 x 1/4 =
+        // 4.5 at N = 3, 2 x 2/35 + 2 / 100 at N = 5; the gradient 2 x 1/6 and 2 x 1/50.
+        let (h, sigma) = (25.0, 0.4);
+        let g = grid(40);
+        let hessian = noise_model(&g, &[3, 5], DerivativeOrder::Second, sigma).unwrap();
+        let gradient = noise_model(&g, &[3, 5], DerivativeOrder::First, sigma).unwrap();
+        let expected = [
+            (hessian.derivative_noise_sd[0], 4.5f64.sqrt() / (h * h)),
+            (
+                hessian.derivative_noise_sd[1],
+                (4.0 / 35.0 + 0.02f64).sqrt() / (h * h),
+            ),
+            (gradient.derivative_noise_sd[0], (2.0f64 / 6.0).sqrt() / h),
+            (gradient.derivative_noise_sd[1], (2.0f64 / 50.0).sqrt() / h),
+        ];
+        for (got, gain) in expected {
+            assert!(
+                (got / (sigma * gain) - 1.0).abs() < 1e-12,
+                "{got} vs {}",
+                sigma * gain
+            );
         }
     }
 

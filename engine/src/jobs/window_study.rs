@@ -7,7 +7,7 @@
 use super::curvature::{CurvatureJob, Prepared};
 use super::{stage_bytes, stage_figure, stage_png};
 use crate::colour::{short, Clip, ColourScale};
-use crate::curvature::AttributeDef;
+use crate::curvature::{AttributeDef, DerivativeOrder};
 use crate::error::{FlexureError, Result};
 use crate::figure::{Anchor, Figure, Mark};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
@@ -142,6 +142,7 @@ impl WindowStudyJob {
                     "window": w.window,
                     "window_size_m": [w.window as f64 * spacing_m.0, w.window as f64 * spacing_m.1],
                     "noise_sd": finite(w.noise_sd),
+                    "derivative_noise_sd": finite(w.derivative_noise_sd),
                     "rms": finite(w.rms),
                     "robust_spread": finite(w.robust_spread),
                     "change_from_previous": finite(w.change_from_previous),
@@ -162,6 +163,10 @@ impl WindowStudyJob {
             "noise_cells": s.noise.n,
             "rule": WINDOW_RULE,
             "compared_derivatives": format!("{:?}", self.attribute.order).to_lowercase(),
+            "derivative_noise_unit": match self.attribute.order {
+                DerivativeOrder::First => "m/m (gradient)",
+                DerivativeOrder::Second => "1/km (Hessian, z_xx, z_yy, sqrt(2) z_xy)",
+            },
             "pooling_box_cells": 2 * POOL_RADIUS + 1,
             "propagation_alpha": PROPAGATION_ALPHA,
             "steps": s.steps.iter().map(|t| serde_json::json!({
@@ -266,7 +271,7 @@ fn stem(p: &Path) -> String {
 }
 
 fn csv(s: &Study) -> String {
-    let mut text = String::from("window,noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,rms_from_adaptive,adaptive_share,recommended\n");
+    let mut text = String::from("window,noise_sd,derivative_noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,rms_from_adaptive,adaptive_share,recommended\n");
     let f = |v: f64| {
         if v.is_finite() {
             format!("{v:.6e}")
@@ -276,9 +281,10 @@ fn csv(s: &Study) -> String {
     };
     for w in &s.windows {
         text += &format!(
-            "{},{},{},{},{},{},{},{},{},{}\n",
+            "{},{},{},{},{},{},{},{},{},{},{}\n",
             w.window,
             f(w.noise_sd),
+            f(w.derivative_noise_sd),
             f(w.rms),
             f(w.robust_spread),
             f(w.change_from_previous),
