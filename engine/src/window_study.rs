@@ -241,14 +241,19 @@ pub fn study(
     let adaptive = Array2::from_shape_fn(depth.dim(), |at| {
         chosen_index[at].map_or(f64::NAN, |k| maps[k][at])
     });
-    let mut figures = window_figures(windows, &maps, &noise_sds, &adaptive, &chosen_index);
     let per_km = match attribute.order {
         DerivativeOrder::First => 1.0,
         DerivativeOrder::Second => 1000.0 / geometry.metres_per_unit,
     };
-    for (f, sd) in figures.iter_mut().zip(derivative_noise_sd) {
-        f.derivative_noise_sd = sd * per_km;
-    }
+    let derivative_noise_sd: Vec<f64> = derivative_noise_sd.iter().map(|sd| sd * per_km).collect();
+    let figures = window_figures(
+        windows,
+        &maps,
+        &noise_sds,
+        &derivative_noise_sd,
+        &adaptive,
+        &chosen_index,
+    );
     let recommended = figures
         .iter()
         .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
@@ -264,15 +269,20 @@ pub fn study(
     }))
 }
 
-/// Per-window figures once the adaptive map is known.
+/// Per-window figures once the adaptive map is known (`derivative_noise_sd` in output units).
 fn window_figures(
     windows: &[usize],
     maps: &[Array2<f64>],
     noise_sds: &[f64],
+    derivative_noise_sd: &[f64],
     adaptive: &Array2<f64>,
     chosen: &Array2<Option<usize>>,
 ) -> Vec<WindowFigures> {
-    let chosen_cells = chosen.iter().flatten().count().max(1) as f64;
+    let mut chosen_counts = vec![0usize; windows.len()];
+    for k in chosen.iter().flatten() {
+        chosen_counts[*k] += 1;
+    }
+    let chosen_cells = chosen_counts.iter().sum::<usize>().max(1) as f64;
     (0..windows.len())
         .map(|k| {
             let values: Vec<f64> = maps[k].iter().copied().filter(|v| v.is_finite()).collect();
@@ -280,7 +290,7 @@ fn window_figures(
             WindowFigures {
                 window: windows[k],
                 noise_sd,
-                derivative_noise_sd: f64::NAN,
+                derivative_noise_sd: derivative_noise_sd[k],
                 rms: rms_of(values.iter().copied()),
                 robust_spread: robust_spread(&values),
                 change_from_previous: k
@@ -293,8 +303,7 @@ fn window_figures(
                     / values.len().max(1) as f64,
                 valid_share: values.len() as f64 / maps[k].len().max(1) as f64,
                 rms_from_adaptive: rms_difference(&maps[k], adaptive),
-                adaptive_share: chosen.iter().filter(|c| **c == Some(k)).count() as f64
-                    / chosen_cells,
+                adaptive_share: chosen_counts[k] as f64 / chosen_cells,
             }
         })
         .collect()
@@ -465,9 +474,6 @@ impl PooledNoise {
     fn of(d: &Vectors, radius: usize) -> Self {
         let edge = 2 * radius + 1;
         let reach = 2 * radius as isize;
-        let table = |si: isize, sj: isize, i: usize, j: usize| -> f64 {
-            cross_correlation(&d[i], &d[j], si, sj)
-        };
         let offsets = (2 * reach + 1) as usize;
         let mut correlations = vec![[[0.0; 3]; 3]; offsets * offsets];
         for si in -reach..=reach {
@@ -476,7 +482,7 @@ impl PooledNoise {
                     &mut correlations[(si + reach) as usize * offsets + (sj + reach) as usize];
                 for (i, row) in cell.iter_mut().enumerate() {
                     for (j, c) in row.iter_mut().enumerate() {
-                        *c = table(si, sj, i, j);
+                        *c = cross_correlation(&d[i], &d[j], si, sj);
                     }
                 }
             }

@@ -97,18 +97,10 @@ fn window_design(
     ))
 }
 
-/// Least squares of the quadric over the valid cells of one window (see [`window_design`]).
-fn reference_fit(
-    values: &Array2<f64>,
-    g: &GridGeometry,
-    col: usize,
-    row: usize,
-    n: usize,
-    min_count: usize,
-) -> Option<[f64; 5]> {
-    let (a, b) = window_design(values, g, col, row, n, min_count)?;
+/// Least squares of the quadric over one window's design (see [`window_design`]): a..e.
+fn reference_fit((a, b): (Array2<f64>, Array1<f64>)) -> [f64; 5] {
     let sol = a.least_squares(&b).unwrap().solution;
-    Some([sol[0], sol[1], sol[2], sol[3], sol[4]])
+    [sol[0], sol[1], sol[2], sol[3], sol[4]]
 }
 
 fn coefficients(q: &Quadric) -> [f64; 5] {
@@ -128,7 +120,7 @@ fn compare(rotation: f64, dx: f64, dy: f64, n: usize, null_share: f64, seed: u64
     for row in 0..g.rows {
         for col in 0..g.cols {
             let fast = field.get(col, row);
-            let reference = reference_fit(&values, &g, col, row, n, min_count);
+            let reference = window_design(&values, &g, col, row, n, min_count).map(reference_fit);
             assert_eq!(
                 fast.is_some(),
                 reference.is_some(),
