@@ -5,7 +5,7 @@
 use flexure_engine::anisotropy::FIT_BANDS;
 use flexure_engine::curvature::ATTRIBUTES;
 use flexure_engine::demo::{survey_geometry, write_demo_data};
-use flexure_engine::io::{read_bands, read_grid, write_float_geotiff, BandOut};
+use flexure_engine::io::{read_grid, read_raster, write_float_geotiff, BandOut};
 use flexure_engine::jobs::{AnisotropyJob, CurvatureJob, Silent};
 use flexure_engine::synthetic::{Shape, Surface};
 use gdal::vector::LayerAccess;
@@ -125,7 +125,7 @@ fn gdal_reads_back_georeference_bands_and_values() {
     assert!((at(70, 45) - 0.5).abs() < 5e-4, "{}", at(70, 45));
     assert_eq!(at(10, 10), -99999.0);
     // The input reads back as the dome it was written as.
-    assert!(read_grid(&input, None).unwrap().values[(10, 10)].is_nan());
+    assert!(read_grid(&input, &Default::default()).unwrap().values[(10, 10)].is_nan());
     // Only final names are left in the folder.
     let names: Vec<String> = std::fs::read_dir(&out)
         .unwrap()
@@ -254,7 +254,9 @@ fn anisotropy_outputs_read_back_with_gdal_and_ogr() {
     let ids: Vec<&str> = FIT_BANDS.iter().map(|b| b.id).collect();
     assert_eq!(descriptions, ids);
     // The slow azimuth follows beta (float32 storage: 1e-3 degrees).
-    let (g, bands) = read_bands(&job.raster_path(), None).unwrap();
+    let flexure_engine::io::Raster {
+        geometry: g, bands, ..
+    } = read_raster(&job.raster_path(), &Default::default()).unwrap();
     let slow = &bands[2];
     for r in 0..g.rows {
         for c in 0..g.cols {

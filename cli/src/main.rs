@@ -6,10 +6,11 @@ use flexure_engine::colour::Clip;
 use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
-use flexure_engine::horizon::{Domain, ZUnit};
+use flexure_engine::horizon::{Domain, VelocitySource, VelocityUnit, ZUnit};
+use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
     AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
-    VectorAxis, VelocitySource, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
+    VectorAxis, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -141,12 +142,33 @@ struct AnisotropyArgs {
     /// Vector length in metres per ms of magnitude (automatic when omitted).
     #[arg(long)]
     vector_scale: Option<f64>,
-    /// CRS to assume when the grids declare none (e.g. EPSG:32625).
-    #[arg(long)]
-    crs: Option<String>,
+    #[command(flatten)]
+    read: ReadArgs,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
+}
+
+/// How input grids are read, shared by every command that reads horizons or sector grids.
+#[derive(clap::Args)]
+struct ReadArgs {
+    /// CRS to assume when an input declares none (e.g. EPSG:32625); never overrides a declared
+    /// CRS.
+    #[arg(long)]
+    crs: Option<String>,
+    /// A value that means null in inputs (e.g. -999.25); repeat for several. NaN is always
+    /// null, as is a nodata value the file declares.
+    #[arg(long, allow_negative_numbers = true)]
+    nodata: Vec<f64>,
+}
+
+impl ReadArgs {
+    fn options(&self) -> ReadOptions {
+        ReadOptions {
+            crs: self.crs.clone(),
+            nodata: self.nodata.clone(),
+        }
+    }
 }
 
 impl AnisotropyArgs {
@@ -159,7 +181,7 @@ impl AnisotropyArgs {
         job.min_snr = self.min_snr;
         job.axis = axis(self.vector);
         job.vector_scale = self.vector_scale;
-        job.crs = self.crs.clone();
+        job.read = self.read.options();
         Ok(job)
     }
 }
@@ -343,6 +365,8 @@ struct RenderArgs {
     /// The shade horizon is elevation (positive up); default depth or time (positive down).
     #[arg(long)]
     shade_positive_up: bool,
+    #[command(flatten)]
+    read: ReadArgs,
     /// Colour limits LO,HI in the band's unit; default robust percentiles (2nd/98th).
     #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
     clip: Option<Vec<f64>>,
@@ -376,6 +400,7 @@ impl RenderArgs {
         job.anisotropy = self.anisotropy.clone();
         job.shade = self.shade.clone();
         job.shade_positive_up = self.shade_positive_up;
+        job.read = self.read.options();
         job.clip = match self.clip.as_deref() {
             None => Clip::Auto,
             Some([lo, hi]) => Clip::Range(*lo, *hi),
@@ -406,6 +431,7 @@ enum DomainArg {
     /// Depth, positive down.
     Depth,
     /// Two-way time in ms, positive down (needs a velocity).
+    #[value(alias = "twt")]
     Time,
     /// Elevation, positive up.
     Elevation,
@@ -415,14 +441,26 @@ enum DomainArg {
 enum ZUnitArg {
     /// Metres.
     M,
-    /// International feet.
+    /// International feet (0.3048 m).
     Ft,
+    /// US survey feet (1200/3937 m).
+    UsFt,
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum VelocityUnitArg {
+    /// Metres per second.
+    #[value(name = "m/s")]
+    MetrePerSecond,
+    /// Feet per second.
+    #[value(name = "ft/s")]
+    FootPerSecond,
 }
 
 /// The horizon and window options shared by `curvature` and `window-study`.
 #[derive(clap::Args)]
 struct HorizonArgs {
-    /// Horizon grid (any single-band raster GDAL reads, projected CRS).
+    /// Horizon grid: any single-band raster GDAL reads (projected CRS).
     input: PathBuf,
     /// Output folder.
     #[arg(long)]
@@ -430,24 +468,29 @@ struct HorizonArgs {
     /// Window edge lengths in cells, odd, 3 to 101.
     #[arg(long, value_delimiter = ',', default_value = "3,5,9,17")]
     windows: Vec<usize>,
-    /// What the grid values measure.
-    #[arg(long, value_enum, default_value = "depth")]
-    domain: DomainArg,
-    /// Unit of depth or elevation values.
-    #[arg(long, value_enum, default_value = "m")]
-    z_unit: ZUnitArg,
-    /// Average velocity in m/s for a time grid (depth = V t / 2000).
+    /// What the grid values measure; default: what the file declares (a band unit of ms or s
+    /// means time), else depth.
+    #[arg(long, value_enum)]
+    domain: Option<DomainArg>,
+    /// Unit of depth or elevation values; default: the band's declared unit, else the CRS's
+    /// linear unit.
+    #[arg(long, value_enum)]
+    z_unit: Option<ZUnitArg>,
+    /// Average velocity for a time grid (depth = V t / 2000), in --velocity-unit.
     #[arg(long, conflicts_with = "velocity_grid")]
     velocity: Option<f64>,
-    /// Grid of average velocities in m/s on the horizon's cells.
+    /// Grid of average velocities on the horizon's cells.
     #[arg(long)]
     velocity_grid: Option<PathBuf>,
+    /// Unit of the velocity; default m/s, or the velocity grid's declared unit. Values outside
+    /// 1400-7000 m/s are refused as a probable unit mix-up.
+    #[arg(long, value_enum)]
+    velocity_unit: Option<VelocityUnitArg>,
     /// Least share of valid cells in a window for a fit.
     #[arg(long, default_value_t = 0.75)]
     min_valid: f64,
-    /// CRS to assume when the input declares none (e.g. EPSG:32625).
-    #[arg(long)]
-    crs: Option<String>,
+    #[command(flatten)]
+    read: ReadArgs,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
@@ -456,22 +499,28 @@ struct HorizonArgs {
 impl HorizonArgs {
     fn job(&self) -> CurvatureJob {
         let mut job = CurvatureJob::new(&self.input, &self.out, self.windows.clone());
-        job.domain = match self.domain {
+        let h = &mut job.horizon;
+        h.domain = self.domain.map(|d| match d {
             DomainArg::Depth => Domain::Depth,
             DomainArg::Time => Domain::Time,
             DomainArg::Elevation => Domain::Elevation,
-        };
-        job.z_unit = match self.z_unit {
+        });
+        h.z_unit = self.z_unit.map(|u| match u {
             ZUnitArg::M => ZUnit::Metre,
             ZUnitArg::Ft => ZUnit::Foot,
-        };
-        job.velocity = match (&self.velocity, &self.velocity_grid) {
+            ZUnitArg::UsFt => ZUnit::UsFoot,
+        });
+        h.velocity = match (&self.velocity, &self.velocity_grid) {
             (Some(v), _) => VelocitySource::Constant(*v),
             (None, Some(p)) => VelocitySource::Grid(p.clone()),
             (None, None) => VelocitySource::None,
         };
+        h.velocity_unit = self.velocity_unit.map(|u| match u {
+            VelocityUnitArg::MetrePerSecond => VelocityUnit::MetrePerSecond,
+            VelocityUnitArg::FootPerSecond => VelocityUnit::FootPerSecond,
+        });
         job.min_valid = self.min_valid;
-        job.crs = self.crs.clone();
+        job.read = self.read.options();
         job
     }
 }
@@ -484,11 +533,15 @@ struct CurvatureArgs {
     /// per window.
     #[arg(long, value_delimiter = ',')]
     attributes: Vec<String>,
+    /// Replace existing outputs even when they hold other bands than this run writes.
+    #[arg(long)]
+    overwrite: bool,
 }
 
 impl CurvatureArgs {
     fn job(&self) -> Result<CurvatureJob, FlexureError> {
         let mut job = self.horizon.job();
+        job.overwrite = self.overwrite;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes
@@ -516,7 +569,7 @@ struct WindowStudyArgs {
 impl WindowStudyArgs {
     fn job(&self) -> Result<WindowStudyJob, FlexureError> {
         Ok(WindowStudyJob {
-            horizon: self.horizon.job(),
+            fit: self.horizon.job(),
             attribute: attribute_by_id(self.attribute.trim()).map_err(FlexureError::Parameter)?,
             adaptive: self.adaptive,
         })
@@ -551,6 +604,20 @@ impl Progress for Bar {
     fn finish(&self) {
         self.0.finish_and_clear();
     }
+}
+
+/// This process's command line, each argument quoted when it holds a space or a quote.
+fn command_line() -> String {
+    std::env::args()
+        .map(|a| {
+            if a.is_empty() || a.contains([' ', '\'', '"']) {
+                format!("'{}'", a.replace('\'', "'\\''"))
+            } else {
+                a
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(" ")
 }
 
 /// Prints `text` and a newline to stdout; a closed pipe (e.g. `| head`) is not an error.
@@ -639,6 +706,7 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
 }
 
 fn main() -> ExitCode {
+    flexure_engine::provenance::set_command_line(command_line());
     match run(Cli::parse()) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {

@@ -8,7 +8,7 @@ mod common;
 use common::{fails, flexure, north_up, outputs_in, write_bands};
 use flexure_engine::anisotropy::FIT_BANDS;
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::{read_bands, write_float_geotiff, BandOut};
+use flexure_engine::io::{read_raster, write_float_geotiff, BandOut};
 use gdal::vector::LayerAccess;
 use gdal::Dataset;
 use ndarray::Array2;
@@ -67,7 +67,9 @@ fn run_ok(args: &[&str]) -> String {
 
 /// Band `band` (1-based) of `DIR/anisotropy.tif` at the centre bin.
 fn centre_value(out: &Path, band: usize) -> f64 {
-    let (_, bands) = read_bands(&out.join("anisotropy.tif"), None).unwrap();
+    let bands = read_raster(&out.join("anisotropy.tif"), &Default::default())
+        .unwrap()
+        .bands;
     bands[band - 1][(ROWS / 2, COLS / 2)]
 }
 

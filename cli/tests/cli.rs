@@ -48,6 +48,7 @@ fn curvature_writes_one_file_per_window_and_a_summary() {
     let mut files = outputs_in(&out);
     files.sort();
     assert_eq!(files, vec!["h_w03.tif", "h_w05.tif"]);
+    // The same bands again: a plain re-run replaces the file.
     let quiet = flexure(&[
         "curvature",
         input.to_str().unwrap(),
@@ -55,9 +56,38 @@ fn curvature_writes_one_file_per_window_and_a_summary() {
         out.to_str().unwrap(),
         "--windows",
         "3",
+        "--attributes",
+        "k_mean,dip",
         "--quiet",
     ]);
     assert!(quiet.status.success() && quiet.stdout.is_empty());
+    // Other bands into the same folder would silently replace a file: refused, nothing
+    // changes, until --overwrite is given.
+    let before = std::fs::read(out.join("h_w03.tif")).unwrap();
+    let args = [
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--windows",
+        "3",
+        "--attributes",
+        "k_pos",
+    ];
+    let o = flexure(&args);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("k_mean,dip") && err.contains("k_pos") && err.contains("--overwrite"),
+        "{err}"
+    );
+    assert_eq!(std::fs::read(out.join("h_w03.tif")).unwrap(), before);
+    let o = flexure(&[&args[..], &["--overwrite", "--quiet"]].concat());
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let bands = flexure_engine::io::read_info(&out.join("h_w03.tif"))
+        .unwrap()
+        .names;
+    assert_eq!(bands, vec!["k_pos"]);
 }
 
 #[test]

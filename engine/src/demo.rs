@@ -17,12 +17,11 @@
 
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
-use crate::horizon::Domain;
+use crate::horizon::{Domain, VelocitySource};
 use crate::io::{write_float_geotiff, BandOut};
 use crate::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
-    RenderJob, RenderReport, StagesJob, StagesReport, VelocitySource, WellInput, WindowStudyJob,
-    WindowStudyReport,
+    RenderJob, RenderReport, StagesJob, StagesReport, WellInput, WindowStudyJob, WindowStudyReport,
 };
 use crate::synthetic::{SeededNoise, Shape, Surface};
 use gdal::spatial_ref::SpatialRef;
@@ -336,9 +335,9 @@ pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> C
         out_dir.join("curvature"),
         DEMO_WINDOWS.to_vec(),
     );
-    job.domain = h.domain;
+    // The domain (depth or time) comes from the unit each demo file declares.
     if let Some(v) = h.velocity {
-        job.velocity = VelocitySource::Constant(v);
+        job.horizon.velocity = VelocitySource::Constant(v);
     }
     job
 }
@@ -553,11 +552,11 @@ pub const DEMO_STUDY_WINDOWS: [usize; 8] = [3, 5, 7, 9, 11, 15, 21, 31];
 /// The window study of the demo: k_pos of the Orrimund Shale top, with the adaptive map.
 pub fn demo_window_study_job(data_dir: &Path, out_dir: &Path) -> WindowStudyJob {
     let h = demo_horizons().remove(0);
-    let mut horizon = demo_curvature_job(&h, data_dir, out_dir);
-    horizon.windows = DEMO_STUDY_WINDOWS.to_vec();
-    horizon.out_dir = out_dir.join("window_study");
+    let mut fit = demo_curvature_job(&h, data_dir, out_dir);
+    fit.windows = DEMO_STUDY_WINDOWS.to_vec();
+    fit.out_dir = out_dir.join("window_study");
     WindowStudyJob {
-        horizon,
+        fit,
         attribute: crate::curvature::attribute_by_id("k_pos").expect("k_pos is an attribute"),
         adaptive: true,
     }

@@ -1,17 +1,25 @@
 //! Horizon domains: turns an interpreted grid into a positive-down depth in CRS length units,
-//! the form the window fit and the curvature signs expect.
+//! the form the window fit and the curvature signs expect, honouring what the file declares.
 //!
-//! - depth: positive down, in `z_unit` (metres or feet);
-//! - time: two-way time in ms, positive down; depth = V t / 2000 with V an average velocity in
-//!   m/s (constant or a grid on the same cells) — the standard vertical time-depth conversion
-//!   (common practice). Without the conversion, slope-dependent attributes mix ms and metres and
-//!   are meaningless;
+//! - depth: positive down, in `z_unit` (metres, international feet or US survey feet);
+//! - time: two-way time in ms (seconds are converted), positive down; depth = V t / 2000 with V
+//!   an average velocity in m/s (constant or a grid on the same cells) — the standard vertical
+//!   time-depth conversion (common practice). Without the conversion, slope-dependent
+//!   attributes mix ms and metres and are meaningless;
 //! - elevation: positive up, in `z_unit`; negated so that antiforms stay positive.
+//!
+//! Declarations: a band's unit type (GDAL `GetUnitType`, or the unit suffix of a point list's
+//! value column: `ft`, `foot`, `m`, `metre`, `ms`, `s`, ...) and a value name (`twt`, `time`,
+//! `depth`, `elevation`) declare the domain and unit; a caller's flag that contradicts them is
+//! refused naming both. Without a declaration the z unit defaults to the CRS's linear unit
+//! (feet for a CRS in feet) and the domain to depth; the report says which default applied.
+//! Velocities outside [`PLAUSIBLE_VELOCITY_M_S`] are refused as a probable unit mix-up.
 
 use crate::error::{FlexureError, Result};
 use crate::grid::Grid;
+use crate::io::{read_raster, ReadOptions};
 use ndarray::{Array2, Zip};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// What the grid values measure.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -24,6 +32,17 @@ pub enum Domain {
     Elevation,
 }
 
+impl Domain {
+    /// Lower-case name (`depth`, `time`, `elevation`).
+    pub fn name(self) -> &'static str {
+        match self {
+            Domain::Depth => "depth",
+            Domain::Time => "time",
+            Domain::Elevation => "elevation",
+        }
+    }
+}
+
 /// Unit of depth or elevation values.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum ZUnit {
@@ -31,6 +50,8 @@ pub enum ZUnit {
     Metre,
     /// International feet (0.3048 m).
     Foot,
+    /// US survey feet (1200/3937 m).
+    UsFoot,
 }
 
 impl ZUnit {
@@ -39,7 +60,461 @@ impl ZUnit {
         match self {
             ZUnit::Metre => 1.0,
             ZUnit::Foot => 0.3048,
+            ZUnit::UsFoot => 1200.0 / 3937.0,
         }
+    }
+
+    /// Short name (`m`, `ft`, `us-ft`).
+    pub fn name(self) -> &'static str {
+        match self {
+            ZUnit::Metre => "m",
+            ZUnit::Foot => "ft",
+            ZUnit::UsFoot => "us-ft",
+        }
+    }
+
+    /// The unit whose length in metres is `metres_per_unit` (a CRS's linear unit), if any.
+    pub fn from_metres(metres_per_unit: f64) -> Option<ZUnit> {
+        [ZUnit::Metre, ZUnit::Foot, ZUnit::UsFoot]
+            .into_iter()
+            .find(|u| (u.metres() - metres_per_unit).abs() < 1e-9)
+    }
+}
+
+/// What a unit text declares about values.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DeclaredUnit {
+    /// A length (depth or elevation).
+    Length(ZUnit),
+    /// Milliseconds.
+    Milliseconds,
+    /// Seconds (converted to ms on reading).
+    Seconds,
+}
+
+impl DeclaredUnit {
+    /// Parses a unit text (case-insensitive; `m`, `metre(s)`, `meter(s)`, `ft`, `foot`, `feet`,
+    /// `us-ft`, `ftus`, `us survey foot`, `ms`, `msec`, `millisecond(s)`, `s`, `sec`,
+    /// `second(s)`); `None` for an empty or unknown text.
+    pub fn parse(text: &str) -> Option<DeclaredUnit> {
+        let t = text.trim().to_lowercase().replace(['_', '.'], " ");
+        let t = t.trim();
+        Some(match t {
+            "m" | "metre" | "metres" | "meter" | "meters" => DeclaredUnit::Length(ZUnit::Metre),
+            "ft" | "foot" | "feet" | "international foot" | "intl ft" => {
+                DeclaredUnit::Length(ZUnit::Foot)
+            }
+            "us-ft" | "us ft" | "ftus" | "us survey foot" | "us survey feet" | "survey foot" => {
+                DeclaredUnit::Length(ZUnit::UsFoot)
+            }
+            "ms" | "msec" | "millisecond" | "milliseconds" => DeclaredUnit::Milliseconds,
+            "s" | "sec" | "second" | "seconds" => DeclaredUnit::Seconds,
+            _ => return None,
+        })
+    }
+
+    fn describe(self) -> String {
+        match self {
+            DeclaredUnit::Length(u) => u.name().to_string(),
+            DeclaredUnit::Milliseconds => "ms".into(),
+            DeclaredUnit::Seconds => "s".into(),
+        }
+    }
+}
+
+/// The domain a value name declares (`twt`, `time` -> time; `depth`, `tvdss` -> depth;
+/// `elevation`, `elev` -> elevation), case-insensitive; `None` for any other name.
+pub fn domain_from_name(name: &str) -> Option<Domain> {
+    match name.trim().to_lowercase().as_str() {
+        "twt" | "time" | "two-way time" | "twt ms" => Some(Domain::Time),
+        "depth" | "tvdss" => Some(Domain::Depth),
+        "elevation" | "elev" => Some(Domain::Elevation),
+        _ => None,
+    }
+}
+
+/// Unit of velocities.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum VelocityUnit {
+    /// Metres per second.
+    MetrePerSecond,
+    /// International feet per second.
+    FootPerSecond,
+}
+
+impl VelocityUnit {
+    /// Metres per second per unit.
+    pub fn metres_per_second(self) -> f64 {
+        match self {
+            VelocityUnit::MetrePerSecond => 1.0,
+            VelocityUnit::FootPerSecond => 0.3048,
+        }
+    }
+
+    /// Short name (`m/s`, `ft/s`).
+    pub fn name(self) -> &'static str {
+        match self {
+            VelocityUnit::MetrePerSecond => "m/s",
+            VelocityUnit::FootPerSecond => "ft/s",
+        }
+    }
+
+    /// Parses a declared unit text (`m/s`, `m s-1`, `ft/s`, `ft s-1`, ...).
+    pub fn parse(text: &str) -> Option<VelocityUnit> {
+        let t: String = text
+            .to_lowercase()
+            .chars()
+            .filter(|c| !c.is_whitespace())
+            .collect();
+        match t.as_str() {
+            "m/s" | "ms-1" | "m/sec" | "mps" => Some(VelocityUnit::MetrePerSecond),
+            "ft/s" | "fts-1" | "ft/sec" | "fps" | "feet/s" => Some(VelocityUnit::FootPerSecond),
+            _ => None,
+        }
+    }
+}
+
+/// Plausible range of average velocities of sedimentary sections, m/s: from about water
+/// velocity (1480 m/s) to fast carbonates and evaporites (common practice, rounded outwards).
+pub const PLAUSIBLE_VELOCITY_M_S: (f64, f64) = (1400.0, 7000.0);
+
+/// Where the average velocity of a time grid comes from.
+#[derive(Clone, Debug, PartialEq)]
+pub enum VelocitySource {
+    /// None given.
+    None,
+    /// One value, in the job's velocity unit.
+    Constant(f64),
+    /// A grid of values on the horizon's cells, read from the named file.
+    Grid(PathBuf),
+}
+
+/// A horizon to read and convert: the file, the domain and units the caller states (`None`:
+/// take the file's declaration or the default) and the velocity of a time horizon.
+#[derive(Clone, Debug, PartialEq)]
+pub struct HorizonSource {
+    /// Horizon grid (raster or point list).
+    pub path: PathBuf,
+    /// What the values measure; from the file's declaration, else depth, when `None`.
+    pub domain: Option<Domain>,
+    /// Unit of depth or elevation values; from the file, else the CRS unit, when `None`.
+    pub z_unit: Option<ZUnit>,
+    /// Velocity of a time horizon.
+    pub velocity: VelocitySource,
+    /// Unit of the velocity; from the velocity grid's declaration, else m/s, when `None`.
+    pub velocity_unit: Option<VelocityUnit>,
+}
+
+/// A horizon read and converted to positive-down depth.
+#[derive(Clone, Debug)]
+pub struct Horizon {
+    /// The grid as read (time in ms, lengths in the stored unit; nulls NaN).
+    pub grid: Grid,
+    /// Positive-down depth in CRS length units (NaN nulls).
+    pub depth: Array2<f64>,
+    /// What the values measure.
+    pub domain: Domain,
+    /// Unit of the stored lengths (depth and elevation horizons).
+    pub z_unit: Option<ZUnit>,
+    /// The velocity used, in words (`none`, `3200 m/s`, `grid FILE (m/s)`).
+    pub velocity: String,
+    /// How the domain and units were decided, and anything the readers noticed.
+    pub notes: Vec<String>,
+}
+
+impl HorizonSource {
+    /// A depth-or-declared horizon with no velocity.
+    pub fn new(path: impl Into<PathBuf>) -> Self {
+        Self {
+            path: path.into(),
+            domain: None,
+            z_unit: None,
+            velocity: VelocitySource::None,
+            velocity_unit: None,
+        }
+    }
+
+    /// The files read (horizon and velocity grid).
+    pub fn inputs(&self) -> Vec<&Path> {
+        let mut inputs = vec![self.path.as_path()];
+        if let VelocitySource::Grid(p) = &self.velocity {
+            inputs.push(p);
+        }
+        inputs
+    }
+
+    /// Reads the horizon (and velocity grid) and converts it to positive-down depth.
+    pub fn load(&self, read: &ReadOptions) -> Result<Horizon> {
+        let raster = read_raster(&self.path, read)?;
+        let mut notes = raster.notes.clone();
+        let name = raster.info.names.first().cloned().unwrap_or_default();
+        let (mut grid, unit_text) = raster.into_single(&self.path)?;
+        let declared = self.declaration(&unit_text, &name)?;
+        let domain = self.decide_domain(&declared, &mut notes)?;
+        if declared.unit == Some(DeclaredUnit::Seconds) {
+            grid.values.mapv_inplace(|t| t * 1000.0);
+            notes.push(format!(
+                "{}: times declared in seconds, converted to ms",
+                self.path.display()
+            ));
+        }
+        let z_unit = (domain != Domain::Time)
+            .then(|| self.decide_z_unit(&declared, &grid, &mut notes))
+            .transpose()?;
+        if domain == Domain::Time {
+            note_time_plausibility(&grid, &self.path, &mut notes);
+        }
+        let (velocity, velocity_text) = self.read_velocity(domain, read, &mut notes)?;
+        let depth = positive_down_depth(
+            &grid,
+            &self.path,
+            domain,
+            z_unit.unwrap_or(ZUnit::Metre),
+            &velocity,
+        )?;
+        Ok(Horizon {
+            grid,
+            depth,
+            domain,
+            z_unit,
+            velocity: velocity_text,
+            notes,
+        })
+    }
+
+    fn declaration(&self, unit_text: &str, name: &str) -> Result<Declaration> {
+        let unit = DeclaredUnit::parse(unit_text);
+        let unit_is_time = unit.map(|u| !matches!(u, DeclaredUnit::Length(_)));
+        let from_name = domain_from_name(name);
+        if let (Some(is_time), Some(d)) = (unit_is_time, from_name) {
+            if is_time != (d == Domain::Time) {
+                return Err(FlexureError::input(
+                    &self.path,
+                    format!(
+                        "its values are named '{name}' ({}) but their unit is '{unit_text}': fix the name or the unit in the file",
+                        d.name()
+                    ),
+                ));
+            }
+        }
+        Ok(Declaration {
+            unit,
+            unit_text: unit_text.to_string(),
+            domain: from_name.or(unit_is_time.and_then(|t| t.then_some(Domain::Time))),
+            name: name.to_string(),
+        })
+    }
+
+    fn decide_domain(&self, declared: &Declaration, notes: &mut Vec<String>) -> Result<Domain> {
+        let length_declared = matches!(declared.unit, Some(DeclaredUnit::Length(_)));
+        match (self.domain, declared.domain) {
+            (Some(flag), Some(file)) if flag != file => {
+                Err(self.contradiction(&format!("--domain {}", flag.name()), &declared.what()))
+            }
+            (Some(Domain::Time), None) if length_declared => {
+                Err(self.contradiction("--domain time", &declared.what()))
+            }
+            (Some(flag), _) => Ok(flag),
+            (None, Some(file)) => {
+                notes.push(format!(
+                    "{}: domain {} from the file ({})",
+                    self.path.display(),
+                    file.name(),
+                    declared.what()
+                ));
+                Ok(file)
+            }
+            (None, None) => {
+                notes.push(format!(
+                    "{}: the file declares no domain: read as depth (give --domain to change)",
+                    self.path.display()
+                ));
+                Ok(Domain::Depth)
+            }
+        }
+    }
+
+    fn decide_z_unit(
+        &self,
+        declared: &Declaration,
+        grid: &Grid,
+        notes: &mut Vec<String>,
+    ) -> Result<ZUnit> {
+        let file = match declared.unit {
+            Some(DeclaredUnit::Length(u)) => Some(u),
+            _ => None,
+        };
+        match (self.z_unit, file) {
+            (Some(flag), Some(file)) if flag != file => {
+                Err(self.contradiction(&format!("--z-unit {}", flag.name()), &declared.what()))
+            }
+            (Some(flag), _) => Ok(flag),
+            (None, Some(file)) => Ok(file),
+            (None, None) => {
+                let crs_unit = ZUnit::from_metres(grid.geometry.metres_per_unit);
+                let unit = crs_unit.unwrap_or(ZUnit::Metre);
+                notes.push(format!(
+                    "{}: the file declares no z unit: {} assumed ({}; give --z-unit to change)",
+                    self.path.display(),
+                    unit.name(),
+                    if crs_unit.is_some() {
+                        "the CRS's linear unit"
+                    } else {
+                        "default"
+                    }
+                ));
+                Ok(unit)
+            }
+        }
+    }
+
+    fn contradiction(&self, flag: &str, file: &str) -> FlexureError {
+        FlexureError::input(
+            &self.path,
+            format!("{flag} contradicts the file, which declares {file}: drop the option or correct the file's declaration"),
+        )
+    }
+
+    /// The velocity in m/s and its description; refuses implausible values.
+    fn read_velocity(
+        &self,
+        domain: Domain,
+        read: &ReadOptions,
+        notes: &mut Vec<String>,
+    ) -> Result<(Velocity, String)> {
+        if domain != Domain::Time {
+            if self.velocity != VelocitySource::None {
+                notes.push(format!(
+                    "{}: a velocity was given but the horizon is {}: not used",
+                    self.path.display(),
+                    domain.name()
+                ));
+            }
+            return Ok((Velocity::None, "none".into()));
+        }
+        match &self.velocity {
+            VelocitySource::None => Ok((Velocity::None, "none".into())),
+            VelocitySource::Constant(v) => {
+                let unit = self.velocity_unit.unwrap_or(VelocityUnit::MetrePerSecond);
+                let m_s = v * unit.metres_per_second();
+                check_velocity(m_s, *v, unit, None)?;
+                Ok((Velocity::Constant(m_s), format!("{v} {}", unit.name())))
+            }
+            VelocitySource::Grid(path) => {
+                let raster = read_raster(path, read)?;
+                notes.extend(raster.notes.iter().cloned());
+                let (mut vgrid, unit_text) = raster.into_single(path)?;
+                let unit = self.velocity_grid_unit(path, &unit_text)?;
+                let values: Vec<f64> = vgrid
+                    .values
+                    .iter()
+                    .copied()
+                    .filter(|v| v.is_finite())
+                    .collect();
+                let median = crate::stages::percentiles(&values).2;
+                check_velocity(median * unit.metres_per_second(), median, unit, Some(path))?;
+                let (lo, hi) = PLAUSIBLE_VELOCITY_M_S;
+                vgrid.values.mapv_inplace(|v| v * unit.metres_per_second());
+                let outside = vgrid
+                    .values
+                    .iter()
+                    .filter(|v| v.is_finite() && !(lo..=hi).contains(*v))
+                    .count();
+                if outside > 0 {
+                    notes.push(format!(
+                        "{}: {outside} cell(s) hold velocities outside {lo}..{hi} m/s (common practice range for average velocities); used as given",
+                        path.display()
+                    ));
+                }
+                let text = format!("grid {} ({})", path.display(), unit.name());
+                Ok((Velocity::Grid(vgrid, path.clone()), text))
+            }
+        }
+    }
+
+    fn velocity_grid_unit(&self, path: &Path, unit_text: &str) -> Result<VelocityUnit> {
+        let declared = VelocityUnit::parse(unit_text);
+        match (self.velocity_unit, declared) {
+            (Some(flag), Some(file)) if flag != file => Err(FlexureError::input(
+                path,
+                format!(
+                    "--velocity-unit {} contradicts the file, which declares {}: drop the option or correct the file's declaration",
+                    flag.name(),
+                    file.name()
+                ),
+            )),
+            (Some(u), _) | (None, Some(u)) => Ok(u),
+            (None, None) => Ok(VelocityUnit::MetrePerSecond),
+        }
+    }
+}
+
+/// What a file says about its values.
+#[derive(Clone, Debug)]
+struct Declaration {
+    unit: Option<DeclaredUnit>,
+    unit_text: String,
+    domain: Option<Domain>,
+    name: String,
+}
+
+impl Declaration {
+    fn what(&self) -> String {
+        let mut parts = Vec::new();
+        if let Some(u) = self.unit {
+            parts.push(format!("unit {} ('{}')", u.describe(), self.unit_text));
+        }
+        if let Some(d) = domain_from_name(&self.name) {
+            parts.push(format!("values named '{}' ({})", self.name, d.name()));
+        }
+        parts.join(" and ")
+    }
+}
+
+/// Refuses an average velocity outside [`PLAUSIBLE_VELOCITY_M_S`], naming the probable unit
+/// mix-up. `given` is the value in `unit`; `file` names a velocity grid (its median is
+/// checked).
+fn check_velocity(m_s: f64, given: f64, unit: VelocityUnit, file: Option<&Path>) -> Result<()> {
+    let (lo, hi) = PLAUSIBLE_VELOCITY_M_S;
+    if m_s.is_finite() && (lo..=hi).contains(&m_s) {
+        return Ok(());
+    }
+    let what = match file {
+        Some(p) => format!(
+            "velocity grid {} (median {given} {})",
+            p.display(),
+            unit.name()
+        ),
+        None => format!("velocity {given} {}", unit.name()),
+    };
+    let hint = if !(m_s.is_finite() && m_s > 0.0) {
+        "give a positive average velocity such as 3000 m/s".to_string()
+    } else if unit == VelocityUnit::MetrePerSecond && (lo..=hi).contains(&(m_s * 0.3048)) {
+        "it looks like ft/s: give --velocity-unit ft/s".to_string()
+    } else if unit == VelocityUnit::FootPerSecond && (lo..=hi).contains(&given) {
+        "it looks like m/s: give --velocity-unit m/s".to_string()
+    } else if (lo..=hi).contains(&(given * 1000.0)) {
+        "it looks like km/s: give the velocity in m/s (e.g. 3000) or ft/s".to_string()
+    } else {
+        "check the value and its unit".to_string()
+    };
+    Err(FlexureError::Parameter(format!(
+        "{what} is outside {lo}..{hi} m/s, the usual range of average velocities in sediments (common practice): {hint}"
+    )))
+}
+
+/// Notes a time grid whose values look like seconds although read as ms.
+fn note_time_plausibility(grid: &Grid, path: &Path, notes: &mut Vec<String>) {
+    let largest = grid
+        .values
+        .iter()
+        .filter(|v| v.is_finite())
+        .fold(0.0f64, |m, v| m.max(v.abs()));
+    if largest > 0.0 && largest < 20.0 {
+        notes.push(format!(
+            "{}: two-way times are all below 20 ms (largest {largest}): if they are seconds, declare the unit 's' in the file",
+            path.display()
+        ));
     }
 }
 
@@ -160,6 +635,7 @@ mod tests {
 
     #[test]
     fn elevation_is_negated_and_feet_converted() {
+        // International foot 0.3048 m and US survey foot 1200/3937 m (NIST SP 811, from memory).
         let g = grid(Array2::from_elem((1, 1), 100.0), 1.0);
         let d = positive_down_depth(
             &g,
@@ -170,6 +646,7 @@ mod tests {
         )
         .unwrap();
         assert!((d[(0, 0)] + 30.48).abs() < 1e-12);
+        assert!((ZUnit::UsFoot.metres() - 0.3048006096).abs() < 1e-10);
     }
 
     #[test]
@@ -185,5 +662,43 @@ mod tests {
         )
         .unwrap_err();
         assert!(err.to_string().starts_with("v.tif:"), "{err}");
+    }
+
+    #[test]
+    fn unit_texts_declare_domains() {
+        assert_eq!(
+            DeclaredUnit::parse("Metre"),
+            Some(DeclaredUnit::Length(ZUnit::Metre))
+        );
+        assert_eq!(
+            DeclaredUnit::parse("ft"),
+            Some(DeclaredUnit::Length(ZUnit::Foot))
+        );
+        assert_eq!(DeclaredUnit::parse("ms"), Some(DeclaredUnit::Milliseconds));
+        assert_eq!(DeclaredUnit::parse("s"), Some(DeclaredUnit::Seconds));
+        assert_eq!(DeclaredUnit::parse(""), None);
+        assert_eq!(domain_from_name("TWT"), Some(Domain::Time));
+        assert_eq!(domain_from_name("k_pos"), None);
+        assert_eq!(
+            VelocityUnit::parse("ft / s"),
+            Some(VelocityUnit::FootPerSecond)
+        );
+    }
+
+    #[test]
+    fn implausible_velocities_name_the_probable_unit() {
+        // 10000 "m/s" is 3048 m/s if it is ft/s; 3.2 is km/s; 3000 "ft/s" is 914 m/s but a
+        // plausible m/s value (unit conversions, NIST SP 811, from memory).
+        let msg = |v: f64, u: VelocityUnit| {
+            check_velocity(v * u.metres_per_second(), v, u, None)
+                .unwrap_err()
+                .to_string()
+        };
+        assert!(msg(10000.0, VelocityUnit::MetrePerSecond).contains("ft/s"));
+        assert!(msg(3.2, VelocityUnit::MetrePerSecond).contains("km/s"));
+        assert!(msg(3000.0, VelocityUnit::FootPerSecond).contains("looks like m/s"));
+        assert!(msg(-5.0, VelocityUnit::MetrePerSecond).contains("positive"));
+        assert!(check_velocity(3000.0, 3000.0, VelocityUnit::MetrePerSecond, None).is_ok());
+        assert!(check_velocity(2895.6, 9500.0, VelocityUnit::FootPerSecond, None).is_ok());
     }
 }

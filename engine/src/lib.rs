@@ -23,6 +23,7 @@ pub mod grid;
 pub mod horizon;
 pub mod io;
 pub mod jobs;
+pub mod provenance;
 pub mod render;
 pub mod stages;
 pub mod synthetic;

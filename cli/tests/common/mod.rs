@@ -23,7 +23,7 @@ pub fn north_up(cols: usize, rows: usize) -> flexure_engine::grid::GridGeometry 
     survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (cols, rows))
 }
 
-/// Writes `bands` (all the same size) as a GeoTIFF on `geometry`.
+/// Writes `bands` (all the same size) as a GeoTIFF on `geometry`, declaring no unit.
 pub fn write_bands(
     dir: &Path,
     name: &str,
@@ -35,7 +35,7 @@ pub fn write_bands(
         .into_iter()
         .map(|values| BandOut {
             description: "z",
-            unit: "m",
+            unit: "",
             values,
         })
         .collect();

@@ -18,6 +18,8 @@ use ndarray::Array2;
 use std::path::{Path, PathBuf};
 use std::sync::{Mutex, Once};
 
+pub mod nulls;
+
 /// Nodata value declared in float outputs.
 pub const NODATA: f32 = -99999.0;
 
@@ -48,50 +50,122 @@ pub(crate) fn take_gdal_messages() -> Vec<String> {
         .unwrap_or_default()
 }
 
-/// Reads band 1 of a single-band raster. `assign_crs` (any definition GDAL accepts, e.g.
-/// "EPSG:32625") is used only when the file declares no CRS.
-pub fn read_grid(path: &Path, assign_crs: Option<&str>) -> Result<Grid> {
-    let (geometry, mut bands) = read_bands(path, assign_crs)?;
-    if bands.len() != 1 {
-        return Err(FlexureError::input(
-            path,
-            format!("has {} bands; give a single-band horizon grid", bands.len()),
-        ));
-    }
-    Ok(Grid {
-        geometry,
-        values: bands.remove(0),
-    })
+/// How to read an input grid.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct ReadOptions {
+    /// CRS to assume when the file declares none (any definition GDAL accepts, e.g.
+    /// "EPSG:32625"); never overrides a declared CRS.
+    pub crs: Option<String>,
+    /// Values that mean null in addition to a declared nodata (sentinels such as -999.25).
+    pub nodata: Vec<f64>,
 }
 
-/// Reads every band of a raster (values `[row, col]`, nodata and non-finite values as NaN)
-/// and its placement; `assign_crs` as for [`read_grid`].
-pub fn read_bands(
-    path: &Path,
-    assign_crs: Option<&str>,
-) -> Result<(GridGeometry, Vec<Array2<f64>>)> {
+/// A raster as read: placement, every band (NaN nulls), band names, units and metadata, and
+/// what the reader noticed.
+#[derive(Clone, Debug)]
+pub struct Raster {
+    /// Where the grid lies.
+    pub geometry: GridGeometry,
+    /// Values of each band `[row, col]`, nodata, sentinels and non-finite values as NaN.
+    pub bands: Vec<Array2<f64>>,
+    /// Band descriptions, units and dataset metadata.
+    pub info: RasterInfo,
+    /// Notes for the report (e.g. values far outside the rest that were kept).
+    pub notes: Vec<String>,
+}
+
+impl Raster {
+    /// The single band of a one-band raster as a [`Grid`] with its declared unit (empty when
+    /// none); refuses a multi-band raster.
+    pub fn into_single(mut self, path: &Path) -> Result<(Grid, String)> {
+        if self.bands.len() != 1 {
+            return Err(FlexureError::input(
+                path,
+                format!("has {} bands; give a single-band grid", self.bands.len()),
+            ));
+        }
+        let grid = Grid {
+            geometry: self.geometry,
+            values: self.bands.remove(0),
+        };
+        Ok((grid, self.info.units.remove(0)))
+    }
+
+    /// Index of the band described as `name`.
+    pub fn band_index(&self, name: &str) -> Option<usize> {
+        self.info.names.iter().position(|n| n == name)
+    }
+}
+
+/// Reads band 1 of a single-band raster (see [`read_raster`]).
+pub fn read_grid(path: &Path, options: &ReadOptions) -> Result<Grid> {
+    Ok(read_raster(path, options)?.into_single(path)?.0)
+}
+
+/// Reads every band of a raster with its placement, names, units and metadata. The declared
+/// nodata value, `options.nodata` and every non-finite value are nulls (NaN). A band with no
+/// declared nodata holding a sentinel-like value far outside the rest is refused, naming the
+/// value and `--nodata` (see [`nulls`]); other far outliers are kept and noted.
+pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     capture_gdal_messages();
     if !path.is_file() {
         return Err(FlexureError::read(path, "no such file"));
     }
     let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
-    let geometry = read_geometry(&ds, path, assign_crs)?;
+    let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
     let size = (geometry.cols, geometry.rows);
-    let bands = (1..=ds.raster_count())
-        .map(|i| {
-            let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
-            let nodata = band.no_data_value();
-            let buffer = band
-                .read_as::<f64>((0, 0), size, size, None)
-                .map_err(|e| FlexureError::read(path, e))?;
-            Ok(buffer
-                .to_array()
-                .map_err(|e| FlexureError::read(path, e))?
-                .mapv(|v| null_to_nan(v, nodata)))
-        })
-        .collect::<Result<Vec<_>>>()?;
+    let mut notes = Vec::new();
+    let mut bands = Vec::new();
+    for i in 1..=ds.raster_count() {
+        let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
+        let nodata = band.no_data_value();
+        let values = band
+            .read_as::<f64>((0, 0), size, size, None)
+            .map_err(|e| FlexureError::read(path, e))?
+            .to_array()
+            .map_err(|e| FlexureError::read(path, e))?
+            .mapv(|v| nulls::null_to_nan(v, nodata, &options.nodata));
+        if nodata.is_none() {
+            notes.extend(check_undeclared_nulls(&values, path, i)?);
+        }
+        bands.push(values);
+    }
+    let info = raster_info(&ds, path)?;
     take_gdal_messages();
-    Ok((geometry, bands))
+    Ok(Raster {
+        geometry,
+        bands,
+        info,
+        notes,
+    })
+}
+
+/// Refuses a band holding an undeclared sentinel; a note about other far outliers.
+fn check_undeclared_nulls(
+    values: &Array2<f64>,
+    path: &Path,
+    band: usize,
+) -> Result<Option<String>> {
+    let Some(found) = nulls::outliers(values) else {
+        return Ok(None);
+    };
+    if let Some((v, n)) = found.sentinel() {
+        return Err(FlexureError::input(
+            path,
+            format!(
+                "band {band}: {n} cell(s) hold {v}, far outside the other values (median {:.6}) and shaped like a null sentinel, but the file declares no nodata: declare it with --nodata {v} (or fix the values)",
+                found.median
+            ),
+        ));
+    }
+    let (v, n) = found.values[0];
+    Ok(Some(format!(
+        "{} band {band}: {} distinct value(s) lie over {} median absolute deviations from the median {:.6} (e.g. {v} in {n} cell(s)); kept as data: check for picking busts",
+        path.display(),
+        found.values.len(),
+        nulls::OUTLIER_MADS,
+        found.median
+    )))
 }
 
 /// Band descriptions and unit types, and the dataset's default-domain metadata, of a raster.
@@ -115,13 +189,19 @@ impl RasterInfo {
     }
 }
 
-/// Reads the band descriptions, units and metadata of a raster.
+/// Reads the band descriptions, units and metadata of a raster without its values.
 pub fn read_info(path: &Path) -> Result<RasterInfo> {
     capture_gdal_messages();
     if !path.is_file() {
         return Err(FlexureError::read(path, "no such file"));
     }
     let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
+    let info = raster_info(&ds, path);
+    take_gdal_messages();
+    info
+}
+
+fn raster_info(ds: &Dataset, path: &Path) -> Result<RasterInfo> {
     let (mut names, mut units) = (Vec::new(), Vec::new());
     for i in 1..=ds.raster_count() {
         let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
@@ -135,21 +215,11 @@ pub fn read_info(path: &Path) -> Result<RasterInfo> {
         .filter_map(|kv| kv.split_once('='))
         .map(|(k, v)| (k.to_string(), v.to_string()))
         .collect();
-    take_gdal_messages();
     Ok(RasterInfo {
         names,
         units,
         metadata,
     })
-}
-
-fn null_to_nan(v: f64, nodata: Option<f64>) -> f64 {
-    let is_nodata = nodata.is_some_and(|nd| v == nd || (nd.is_nan() && v.is_nan()));
-    if is_nodata || !v.is_finite() {
-        f64::NAN
-    } else {
-        v
-    }
 }
 
 fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<GridGeometry> {
@@ -548,7 +618,7 @@ mod tests {
             &[],
         )
         .unwrap();
-        let back = read_grid(&path, None).unwrap();
+        let back = read_grid(&path, &ReadOptions::default()).unwrap();
         assert_eq!(back.geometry.geo_transform, g.geo_transform);
         assert!(back.values[(1, 2)].is_nan());
         assert_eq!(back.values[(3, 4)], 34.0);
@@ -594,7 +664,9 @@ mod tests {
             &[],
         )
         .unwrap();
-        let err = read_grid(&path, None).unwrap_err().to_string();
+        let err = read_grid(&path, &ReadOptions::default())
+            .unwrap_err()
+            .to_string();
         assert!(err.contains("geographic"), "{err}");
     }
 }

@@ -9,9 +9,13 @@ use crate::anisotropy::{
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
+use crate::horizon::DeclaredUnit;
+use crate::io::Raster;
 use crate::io::{
-    commit_all, prepare_output_dir, read_bands, refuse_overwrite, stage_float_geotiff, BandOut,
+    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut,
+    ReadOptions,
 };
+use crate::provenance::Provenance;
 use crate::vectors::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
 };
@@ -79,8 +83,8 @@ pub struct AnisotropyJob {
     pub axis: VectorAxis,
     /// Vector length in metres per ms of magnitude; automatic when `None`.
     pub vector_scale: Option<f64>,
-    /// CRS to assume when the inputs declare none.
-    pub crs: Option<String>,
+    /// How to read the inputs (assumed CRS, null sentinels, point-list columns).
+    pub read: ReadOptions,
 }
 
 impl AnisotropyJob {
@@ -98,7 +102,7 @@ impl AnisotropyJob {
             min_snr: 2.0,
             axis: VectorAxis::Fast,
             vector_scale: None,
-            crs: None,
+            read: ReadOptions::default(),
         }
     }
 
@@ -119,7 +123,7 @@ impl AnisotropyJob {
     /// Runs the job and reports what it wrote.
     pub fn run(&self) -> Result<AnisotropyReport> {
         self.check_parameters()?;
-        let sectors = read_stack(&self.inputs, self.crs.as_deref(), "sector")?;
+        let sectors = read_stack(&self.inputs, &self.read, Units::Time)?;
         let n = sectors.grids.len();
         if n < MIN_SECTORS_FLOOR {
             return Err(FlexureError::Parameter(format!(
@@ -217,7 +221,7 @@ impl AnisotropyJob {
                 w.len()
             ))),
             WeightSource::Grids(paths) => {
-                let stack = read_stack(paths, self.crs.as_deref(), "weight")?;
+                let stack = read_stack(paths, &self.read, Units::Weight)?;
                 if stack.grids.len() != n {
                     return Err(FlexureError::Parameter(format!(
                         "{} weight grids given for {n} sectors: give one weight grid per sector",
@@ -290,7 +294,7 @@ impl AnisotropyJob {
             .iter()
             .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
             .collect();
-        let metadata = self.metadata(sectors, grid_azimuths, convergence, scale);
+        let metadata = self.metadata(sectors, grid_azimuths, convergence, scale)?;
         let raster = stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata)?;
         let mut staged = vec![raster];
         let layer = Layer {
@@ -321,13 +325,19 @@ impl AnisotropyJob {
         grid_azimuths: &[f64],
         convergence: Option<f64>,
         scale: f64,
-    ) -> Vec<(String, String)> {
+    ) -> Result<Vec<(String, String)>> {
         let item = |k: &str, v: String| (k.to_string(), v);
         let centre_convergence = sectors
             .geometry
             .convergence()
             .map_or("unknown".to_string(), |g| format!("{g:.6}"));
-        vec![
+        let mut inputs: Vec<&Path> = self.inputs.iter().map(PathBuf::as_path).collect();
+        if let WeightSource::Grids(paths) = &self.weights {
+            inputs.extend(paths.iter().map(PathBuf::as_path));
+        }
+        let mut items = Provenance::of_inputs(&inputs)?.items().to_vec();
+        items.extend([
+            item("FLEXURE_NODATA_SENTINELS", format!("{:?}", self.read.nodata)),
             item("FLEXURE_SECTORS", sectors.labels.join(", ")),
             item("FLEXURE_SECTOR_AZIMUTHS_GRID_DEG", join_numbers(grid_azimuths)),
             item(
@@ -341,7 +351,8 @@ impl AnisotropyJob {
             item("FLEXURE_UNITS", "times ms, azimuths degrees clockwise from grid north".into()),
             item("FLEXURE_METHOD", "weighted least squares t = A + a1 cos 2phi + a2 sin 2phi per bin; covariance standard errors; Rice bias after Wardle & Kronberg 1974".into()),
             item("FLEXURE_CAUTION", HTI_CAUTION.into()),
-        ]
+        ]);
+        Ok(items)
     }
 
     fn report(
@@ -460,7 +471,47 @@ struct Stack {
 
 /// Reads `paths` as a stack of `what` grids: the bands of one file, or one band per file, all
 /// on the same grid.
-fn read_stack(paths: &[PathBuf], crs: Option<&str>, what: &str) -> Result<Stack> {
+/// What the values of a stack are: sector times (ms; declared seconds are converted, declared
+/// lengths refused) or weights (any unit).
+#[derive(Clone, Copy, PartialEq)]
+enum Units {
+    Time,
+    Weight,
+}
+
+impl Units {
+    fn what(self) -> &'static str {
+        match self {
+            Units::Time => "sector",
+            Units::Weight => "weight",
+        }
+    }
+}
+
+/// Reads one file of a stack, converting sector times declared in seconds to ms and refusing
+/// sector grids declared in a length unit.
+fn read_stack_file(path: &Path, read: &ReadOptions, units: Units) -> Result<Raster> {
+    let mut raster = read_raster(path, read)?;
+    if units == Units::Weight {
+        return Ok(raster);
+    }
+    for (band, unit) in raster.bands.iter_mut().zip(&raster.info.units) {
+        match DeclaredUnit::parse(unit) {
+            Some(DeclaredUnit::Seconds) => band.mapv_inplace(|t| t * 1000.0),
+            Some(DeclaredUnit::Length(_)) => {
+                return Err(FlexureError::input(
+                    path,
+                    format!("declares its values in '{unit}', a length: sector grids hold two-way times or time shifts in ms"),
+                ))
+            }
+            _ => {}
+        }
+    }
+    Ok(raster)
+}
+
+fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Stack> {
+    let what = units.what();
     let name = |p: &Path| {
         p.file_name()
             .unwrap_or_default()
@@ -468,7 +519,11 @@ fn read_stack(paths: &[PathBuf], crs: Option<&str>, what: &str) -> Result<Stack>
             .to_string()
     };
     if let [path] = paths {
-        let (geometry, grids) = read_bands(path, crs)?;
+        let Raster {
+            geometry,
+            bands: grids,
+            ..
+        } = read_stack_file(path, read, units)?;
         let labels = (1..=grids.len())
             .map(|b| format!("{} band {b}", name(path)))
             .collect();
@@ -488,7 +543,11 @@ fn read_stack(paths: &[PathBuf], crs: Option<&str>, what: &str) -> Result<Stack>
                 format!("is given twice as a {what} grid: give each sector once"),
             ));
         }
-        let (geometry, mut grids) = read_bands(path, crs)?;
+        let Raster {
+            geometry,
+            bands: mut grids,
+            ..
+        } = read_stack_file(path, read, units)?;
         if grids.len() != 1 {
             return Err(FlexureError::input(
                 path,

@@ -11,7 +11,7 @@ pub use crate::anisotropy::VectorAxis;
 pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
 };
-pub use curvature::{CurvatureJob, CurvatureReport, VelocitySource, WindowReport};
+pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use render::{RenderJob, RenderReport};
 pub use stages::{
     PlanJob, PlanReport, StagesJob, StagesReport, WellInput, WellReport, WELL_CAUTION,
@@ -47,6 +47,15 @@ pub(crate) fn value_range(v: &ndarray::Array2<f32>) -> Option<(f32, f32)> {
         })
 }
 
+/// `given`, or `given/anisotropy.tif` when `given` is a folder.
+pub(crate) fn anisotropy_file(given: &std::path::Path) -> std::path::PathBuf {
+    if given.is_dir() {
+        given.join("anisotropy.tif")
+    } else {
+        given.to_path_buf()
+    }
+}
+
 /// The bands of an `anisotropy.tif` the other jobs use, on its grid.
 pub(crate) struct AnisotropyRaster {
     pub(crate) path: std::path::PathBuf,
@@ -61,24 +70,20 @@ pub(crate) struct AnisotropyRaster {
 impl AnisotropyRaster {
     /// Reads `given` (the raster, or the folder holding `anisotropy.tif`).
     pub(crate) fn read(given: &std::path::Path) -> crate::error::Result<Self> {
-        let path = if given.is_dir() {
-            given.join("anisotropy.tif")
-        } else {
-            given.to_path_buf()
-        };
-        let (geometry, mut bands) = crate::io::read_bands(&path, None)?;
-        let info = crate::io::read_info(&path)?;
+        let path = anisotropy_file(given);
+        let mut raster = crate::io::read_raster(&path, &crate::io::ReadOptions::default())?;
+        let names = raster.info.names.clone();
         let mut take = |name: &str| {
-            info.names
+            names
                 .iter()
                 .position(|n| n == name)
-                .map(|i| std::mem::take(&mut bands[i]))
+                .map(|i| std::mem::take(&mut raster.bands[i]))
                 .ok_or_else(|| {
                     crate::error::FlexureError::input(
                         &path,
                         format!(
                             "has no band '{name}': give an anisotropy.tif written by flexure anisotropy (bands: {})",
-                            info.names.join(", ")
+                            names.join(", ")
                         ),
                     )
                 })
@@ -89,7 +94,7 @@ impl AnisotropyRaster {
             azimuth_slow: take("azimuth_slow")?,
             magnitude_stderr: take("magnitude_stderr")?,
             azimuth_stderr: take("azimuth_stderr")?,
-            geometry,
+            geometry: raster.geometry,
             path,
         })
     }

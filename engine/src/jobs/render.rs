@@ -3,15 +3,16 @@
 //! and, optionally, as a PNG quicklook with legend. Outputs are staged and committed together.
 
 use super::anisotropy::HTI_CAUTION;
-use super::{stage_png, AnisotropyRaster};
+use super::{anisotropy_file, stage_png, AnisotropyRaster};
 use crate::anisotropy::{default_vector_scale, segment, vector_bins, VectorAxis, VectorSample};
 use crate::colour::{short, Clip, ColourScale};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::{
-    commit_all, prepare_output_dir, read_bands, read_info, refuse_overwrite, stage_rgba_geotiff,
-    RasterInfo, StagedFile,
+    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_rgba_geotiff, RasterInfo,
+    ReadOptions, StagedFile,
 };
+use crate::provenance::Provenance;
 use crate::render::{
     cells_to_pixmap, colour_cells, draw_segments, hillshade, pixmap_bands, quicklook, Legend,
     MapSegment,
@@ -38,6 +39,8 @@ pub struct RenderJob {
     pub shade: Option<PathBuf>,
     /// The shade horizon's values increase upwards (elevation) rather than downwards.
     pub shade_positive_up: bool,
+    /// How to read the shade horizon (assumed CRS, null sentinels, point-list columns).
+    pub read: ReadOptions,
     /// Colour clipping.
     pub clip: Clip,
     /// Vector decimation in anisotropy bins; about 50 across the map when `None`.
@@ -63,6 +66,7 @@ impl RenderJob {
             anisotropy: None,
             shade: None,
             shade_positive_up: false,
+            read: ReadOptions::default(),
             clip: Clip::Auto,
             every: None,
             axis: VectorAxis::Fast,
@@ -76,8 +80,8 @@ impl RenderJob {
     /// Runs the job and reports what it drew.
     pub fn run(&self) -> Result<RenderReport> {
         self.check_parameters()?;
-        let (geometry, bands) = read_bands(&self.attribute, None)?;
-        let info = read_info(&self.attribute)?;
+        let raster = read_raster(&self.attribute, &ReadOptions::default())?;
+        let (geometry, bands, info) = (raster.geometry, raster.bands, raster.info);
         let index = self.band_index(&info)?;
         let values = &bands[index];
         let id = band_id(&info, index);
@@ -107,7 +111,12 @@ impl RenderJob {
         let segments = vectors.as_ref().map_or(&[][..], |v| &v.segments[..]);
         let mut map = cells_to_pixmap(&cells, (1, 1));
         draw_segments(&mut map, &geometry, (1, 1), segments, 1.0);
-        let metadata = self.metadata(&id, &scale, vectors.as_ref());
+        let sources: Vec<PathBuf> = std::iter::once(self.attribute.clone())
+            .chain(self.shade.clone())
+            .chain(self.anisotropy.as_deref().map(anisotropy_file))
+            .collect();
+        let sources: Vec<&Path> = sources.iter().map(PathBuf::as_path).collect();
+        let metadata = self.metadata(&id, &scale, vectors.as_ref(), &sources)?;
         let mut staged = vec![stage_rgba_geotiff(
             &self.out,
             &geometry,
@@ -176,7 +185,19 @@ impl RenderJob {
         let Some(path) = &self.shade else {
             return Ok(None);
         };
-        let (g, mut bands) = read_bands(path, None)?;
+        let (g, mut bands) = {
+            let r = read_raster(path, &self.read)?;
+            (r.geometry, r.bands)
+        };
+        if bands.len() != 1 {
+            return Err(FlexureError::input(
+                path,
+                format!(
+                    "has {} bands: give a single-band horizon to shade with",
+                    bands.len()
+                ),
+            ));
+        }
         if !g.same_grid(geometry) {
             return Err(other_grid(
                 path,
@@ -257,17 +278,18 @@ impl RenderJob {
         id: &str,
         scale: &ColourScale,
         vectors: Option<&Vectors>,
-    ) -> Vec<(String, String)> {
+        inputs: &[&Path],
+    ) -> Result<Vec<(String, String)>> {
         let item = |k: &str, v: String| (k.to_string(), v);
-        let mut m = vec![
-            item("FLEXURE_SOURCE", file_name(&self.attribute)),
+        let mut m = Provenance::of_inputs(inputs)?.items().to_vec();
+        m.extend([
             item("FLEXURE_BAND", id.to_string()),
             item("FLEXURE_COLOUR_MAP", scale.palette_name().to_string()),
             item(
                 "FLEXURE_COLOUR_RANGE",
                 format!("{} .. {}; {}", scale.lo, scale.hi, scale.clip_note),
             ),
-        ];
+        ]);
         if let Some(v) = vectors {
             m.push(item(
                 "FLEXURE_VECTORS",
@@ -283,7 +305,7 @@ impl RenderJob {
             ));
             m.push(item("FLEXURE_CAUTION", HTI_CAUTION.to_string()));
         }
-        m
+        Ok(m)
     }
 
     fn stage_png(

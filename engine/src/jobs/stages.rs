@@ -9,7 +9,7 @@ use crate::circular::axial_angle;
 use crate::error::{FlexureError, Result};
 use crate::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::grid::GridGeometry;
-use crate::io::{commit_all, prepare_output_dir, read_bands, read_info, StagedFile};
+use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
 use crate::stages::{
     cells_inside, corridor_stats, percentiles, perpendicularity_score, BinSample, CorridorStats,
 };
@@ -78,12 +78,11 @@ impl Attributes {
         } else {
             given.to_path_buf()
         };
-        let (geometry, bands) = read_bands(&path, None)?;
-        let names = read_info(&path)?.names;
+        let raster = read_raster(&path, &ReadOptions::default())?;
         Ok(Self {
-            geometry,
-            names,
-            bands,
+            geometry: raster.geometry,
+            names: raster.info.names,
+            bands: raster.bands,
         })
     }
 

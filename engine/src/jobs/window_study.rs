@@ -11,6 +11,7 @@ use crate::curvature::{AttributeDef, DerivativeOrder};
 use crate::error::{FlexureError, Result};
 use crate::figure::{Anchor, Figure, Mark};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
+use crate::provenance::Provenance;
 use crate::render::{cells_to_pixmap, colour_cells, panel};
 use crate::window_study::{
     study, Study, WindowFigures, NOISE_BAND, NOISE_ESTIMATOR, POOL_RADIUS, PROPAGATION_ALPHA,
@@ -23,8 +24,9 @@ use std::path::{Path, PathBuf};
 /// are not used), the attribute studied and whether to write the adaptive map.
 #[derive(Clone, Debug)]
 pub struct WindowStudyJob {
-    /// Horizon, windows, domain, velocity, min-valid, CRS and output folder.
-    pub horizon: CurvatureJob,
+    /// Horizon (domain, units, velocity), reading options, windows, min-valid and output
+    /// folder, as for `curvature`.
+    pub fit: CurvatureJob,
     /// The attribute studied.
     pub attribute: &'static AttributeDef,
     /// Also write the adaptive-window map.
@@ -35,10 +37,10 @@ impl WindowStudyJob {
     /// Runs the study.
     pub fn run(&self) -> Result<WindowStudyReport> {
         let mut notices = Vec::new();
-        let mut sorted = self.horizon.windows.clone();
+        let mut sorted = self.fit.windows.clone();
         sorted.sort_unstable();
         sorted.dedup();
-        if sorted != self.horizon.windows {
+        if sorted != self.fit.windows {
             notices.push(format!(
                 "windows sorted and duplicates removed: {}",
                 join(&sorted)
@@ -50,16 +52,19 @@ impl WindowStudyJob {
                     .into(),
             ));
         }
+        let prepared = self.fit.prepare()?;
+        let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
-            grid,
-            depth,
+            horizon,
             tolerance,
-        } = self.horizon.prepare()?;
-        let out = &self.horizon.out_dir;
+        } = prepared;
+        notices.extend(horizon.notes.iter().cloned());
+        let (grid, depth) = (&horizon.grid, &horizon.depth);
+        let out = &self.fit.out_dir;
         let names = ["window_study.json", "window_study.csv"];
         for name in names {
-            refuse_overwrite(&out.join(name), &self.horizon.inputs())?;
+            refuse_overwrite(&out.join(name), &self.fit.horizon.inputs())?;
         }
         let g = &grid.geometry;
         let s = study(
@@ -67,12 +72,12 @@ impl WindowStudyJob {
             g,
             &windows,
             self.attribute,
-            self.horizon.min_valid,
+            self.fit.min_valid,
             tolerance,
         )?
         .ok_or_else(|| {
             FlexureError::input(
-                &self.horizon.input,
+                &self.fit.horizon.path,
                 "no full 3 x 3 window: cannot estimate the noise",
             )
         })?;
@@ -83,7 +88,7 @@ impl WindowStudyJob {
         let mut staged = vec![
             stage_bytes(
                 &out.join("window_study.json"),
-                self.json(&s, spacing_m, &notices).as_bytes(),
+                self.json(&s, spacing_m, &notices, &provenance).as_bytes(),
             )?,
             stage_bytes(&out.join("window_study.csv"), csv(&s).as_bytes())?,
         ];
@@ -96,12 +101,12 @@ impl WindowStudyJob {
         let adaptive_path = self.adaptive.then(|| {
             out.join(format!(
                 "{}_{}_adaptive.tif",
-                stem(&self.horizon.input),
+                stem(&self.fit.horizon.path),
                 self.attribute.id
             ))
         });
         if let Some(path) = &adaptive_path {
-            refuse_overwrite(path, &self.horizon.inputs())?;
+            refuse_overwrite(path, &self.fit.horizon.inputs())?;
             let bands = [
                 BandOut {
                     description: self.attribute.id,
@@ -114,10 +119,13 @@ impl WindowStudyJob {
                     values: s.chosen.mapv(|w| if w == 0 { f32::NAN } else { w as f32 }),
                 },
             ];
-            let meta = vec![
-                ("FLEXURE_METHOD".to_string(), WINDOW_RULE.to_string()),
-                ("FLEXURE_STEP_THRESHOLDS".to_string(), step_list(&s)),
-            ];
+            let meta = provenance
+                .clone()
+                .with("attribute", self.attribute.id)
+                .with("method", WINDOW_RULE)
+                .with("step_thresholds", step_list(&s))
+                .items()
+                .to_vec();
             staged.push(stage_float_geotiff(path, g, &bands, &meta)?);
         }
         commit_all(staged)?;
@@ -133,7 +141,13 @@ impl WindowStudyJob {
         })
     }
 
-    fn json(&self, s: &Study, spacing_m: (f64, f64), notices: &[String]) -> String {
+    fn json(
+        &self,
+        s: &Study,
+        spacing_m: (f64, f64),
+        notices: &[String],
+        provenance: &Provenance,
+    ) -> String {
         let windows: Vec<serde_json::Value> = s
             .windows
             .iter()
@@ -154,7 +168,7 @@ impl WindowStudyJob {
             })
             .collect();
         let doc = serde_json::json!({
-            "input": self.horizon.input.display().to_string(),
+            "input": self.fit.horizon.path.display().to_string(),
             "attribute": self.attribute.id,
             "unit": self.attribute.unit,
             "horizon_noise_sd": s.noise.sigma,
@@ -181,6 +195,7 @@ impl WindowStudyJob {
             "windows": windows,
             "recommended_window": s.recommended,
             "notices": notices,
+            "provenance": provenance.to_json(),
         });
         serde_json::to_string_pretty(&doc).unwrap_or_default() + "\n"
     }
@@ -199,7 +214,7 @@ impl WindowStudyJob {
         let scale = ColourScale::for_band(self.attribute.id, &s.maps[reference], Clip::Auto)
             .ok_or_else(|| {
                 FlexureError::input(
-                    &self.horizon.input,
+                    &self.fit.horizon.path,
                     "the attribute is null everywhere at the recommended window",
                 )
             })?;
@@ -227,7 +242,7 @@ impl WindowStudyJob {
         let title = format!(
             "{} of {} at each window and adaptive (one colour scale)",
             self.attribute.id,
-            stem(&self.horizon.input)
+            stem(&self.fit.horizon.path)
         );
         let page = panel(
             &maps,
