@@ -6,7 +6,7 @@ use flexure_engine::colour::Clip;
 use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
-use flexure_engine::horizon::{Domain, VelocitySource, VelocityUnit, ZUnit};
+use flexure_engine::horizon::{Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit};
 use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
     AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
@@ -468,6 +468,31 @@ struct HorizonArgs {
     /// Window edge lengths in cells, odd, 3 to 101.
     #[arg(long, value_delimiter = ',', default_value = "3,5,9,17")]
     windows: Vec<usize>,
+    #[command(flatten)]
+    domain: DomainArgs,
+    /// Least share of valid cells in a window for a fit.
+    #[arg(long, default_value_t = 0.75)]
+    min_valid: f64,
+    #[command(flatten)]
+    read: ReadArgs,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl HorizonArgs {
+    fn job(&self) -> CurvatureJob {
+        let mut job = CurvatureJob::new(&self.input, &self.out, self.windows.clone());
+        job.horizon = self.domain.source(&self.input);
+        job.min_valid = self.min_valid;
+        job.read = self.read.options();
+        job
+    }
+}
+
+/// What a horizon's values measure, their unit and the velocity of a time horizon.
+#[derive(clap::Args)]
+struct DomainArgs {
     /// What the grid values measure; default: what the file declares (a band unit of ms or s
     /// means time), else depth.
     #[arg(long, value_enum)]
@@ -486,42 +511,33 @@ struct HorizonArgs {
     /// 1400-7000 m/s are refused as a probable unit mix-up.
     #[arg(long, value_enum)]
     velocity_unit: Option<VelocityUnitArg>,
-    /// Least share of valid cells in a window for a fit.
-    #[arg(long, default_value_t = 0.75)]
-    min_valid: f64,
-    #[command(flatten)]
-    read: ReadArgs,
-    /// Print nothing but errors.
-    #[arg(long)]
-    quiet: bool,
 }
 
-impl HorizonArgs {
-    fn job(&self) -> CurvatureJob {
-        let mut job = CurvatureJob::new(&self.input, &self.out, self.windows.clone());
-        let h = &mut job.horizon;
-        h.domain = self.domain.map(|d| match d {
-            DomainArg::Depth => Domain::Depth,
-            DomainArg::Time => Domain::Time,
-            DomainArg::Elevation => Domain::Elevation,
-        });
-        h.z_unit = self.z_unit.map(|u| match u {
-            ZUnitArg::M => ZUnit::Metre,
-            ZUnitArg::Ft => ZUnit::Foot,
-            ZUnitArg::UsFt => ZUnit::UsFoot,
-        });
-        h.velocity = match (&self.velocity, &self.velocity_grid) {
-            (Some(v), _) => VelocitySource::Constant(*v),
-            (None, Some(p)) => VelocitySource::Grid(p.clone()),
-            (None, None) => VelocitySource::None,
-        };
-        h.velocity_unit = self.velocity_unit.map(|u| match u {
-            VelocityUnitArg::MetrePerSecond => VelocityUnit::MetrePerSecond,
-            VelocityUnitArg::FootPerSecond => VelocityUnit::FootPerSecond,
-        });
-        job.min_valid = self.min_valid;
-        job.read = self.read.options();
-        job
+impl DomainArgs {
+    /// The horizon at `path` read with these options.
+    fn source(&self, path: &std::path::Path) -> HorizonSource {
+        HorizonSource {
+            path: path.to_path_buf(),
+            domain: self.domain.map(|d| match d {
+                DomainArg::Depth => Domain::Depth,
+                DomainArg::Time => Domain::Time,
+                DomainArg::Elevation => Domain::Elevation,
+            }),
+            z_unit: self.z_unit.map(|u| match u {
+                ZUnitArg::M => ZUnit::Metre,
+                ZUnitArg::Ft => ZUnit::Foot,
+                ZUnitArg::UsFt => ZUnit::UsFoot,
+            }),
+            velocity: match (&self.velocity, &self.velocity_grid) {
+                (Some(v), _) => VelocitySource::Constant(*v),
+                (None, Some(p)) => VelocitySource::Grid(p.clone()),
+                (None, None) => VelocitySource::None,
+            },
+            velocity_unit: self.velocity_unit.map(|u| match u {
+                VelocityUnitArg::MetrePerSecond => VelocityUnit::MetrePerSecond,
+                VelocityUnitArg::FootPerSecond => VelocityUnit::FootPerSecond,
+            }),
+        }
     }
 }
 
