@@ -296,6 +296,38 @@ fn demo_metadata() -> Vec<(String, String)> {
     )]
 }
 
+/// The Kelvane Marl as an interpretation package would export it: one line per bin with the
+/// invented Tessary 3D survey's inline and crossline numbers (inline = 1200 + row, crossline =
+/// 3400 + 2 col: rows are inlines), CDP coordinates to the centimetre and two-way time in ms
+/// to 0.1 microsecond; the fault gap is written as the sentinel -999.25 (declared to flexure
+/// with `--nodata -999.25`).
+pub const DEMO_POINT_EXPORT: &str = "kelvane_marl_twt_points.txt";
+
+/// Null sentinel of the demo point export.
+pub const DEMO_POINT_NODATA: f64 = -999.25;
+
+/// Text of [`DEMO_POINT_EXPORT`], from the stored float32 times of the Kelvane Marl.
+pub fn demo_point_export() -> String {
+    let h = demo_horizons().remove(1);
+    let g = &h.geometry;
+    let values = h.values(true).mapv(|v| v as f32);
+    let mut text = String::from(
+        "# Tessary 3D (invented survey), horizon Kelvane Marl, two-way time\n\
+         # CRS: WGS 84 / UTM zone 25N (EPSG:32625); fault gap written as -999.25\n\
+         Inline  Xline  CDP_X  CDP_Y  TWT(ms)\n",
+    );
+    for ((r, c), &t) in values.indexed_iter() {
+        let (x, y) = g.cell_centre(c, r);
+        let t = if t.is_finite() {
+            format!("{t:.4}")
+        } else {
+            format!("{DEMO_POINT_NODATA}")
+        };
+        text += &format!("{} {} {x:.2} {y:.2} {t}\n", 1200 + r, 3400 + 2 * c);
+    }
+    text
+}
+
 /// Writes the demo horizons and sector picks into `dir` (the shipped `demo_horizons/` is made
 /// this way).
 pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
@@ -315,6 +347,9 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
         })
         .collect::<Result<Vec<_>>>()?;
     written.push(demo_sectors().write(dir)?);
+    let points = dir.join(DEMO_POINT_EXPORT);
+    std::fs::write(&points, demo_point_export()).map_err(|e| FlexureError::write(&points, e))?;
+    written.push(points);
     for w in demo_wells() {
         for (name, text) in [
             (w.well_file(), w.well_csv()),
