@@ -314,7 +314,8 @@ fn sniff(bytes: &[u8], truncated: bool) -> bool {
             .next()
             .is_some_and(|c| c.is_alphabetic() || c == '_')
     };
-    if names.len() < 3 || !names.iter().all(name_like) {
+    let name_or_number = |f: &String| name_like(f) || f.parse::<f64>().is_ok();
+    if names.len() < 3 || !names.iter().all(name_or_number) || !names.iter().any(name_like) {
         return false;
     }
     significant.next().is_none_or(numeric)
@@ -367,10 +368,7 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
     };
     let mut fields = Vec::new();
     Delimiter::detect(first).split(first, &mut fields);
-    let header_line = fields
-        .iter()
-        .any(|f| f.parse::<f64>().is_err())
-        .then_some((first_no, first));
+    let header_line = is_header(&fields).then_some((first_no, first));
     let mut data = lines.peekable();
     let data_first = match header_line {
         Some(_) => data.peek().copied(),
@@ -443,7 +441,7 @@ impl Known {
             Known::Crossline => "crossline",
             Known::X => "x",
             Known::Y => "y",
-            Known::Value => "a value",
+            Known::Value => "value",
             Known::Skip => "skip",
         }
     }
@@ -517,10 +515,7 @@ fn check_roles(roles: &[ColumnRole]) -> std::result::Result<(), String> {
         }
     }
     if count(Known::X) == 0 || count(Known::Y) == 0 {
-        return Err(
-            "names no x and y columns: every point needs its map coordinates, e.g. --columns inline,xline,x,y,z"
-                .to_string(),
-        );
+        return Err("names no x and y columns: every point needs its map coordinates".to_string());
     }
     if count(Known::Inline) != count(Known::Crossline) {
         let (has, lacks) = if count(Known::Inline) == 1 {
@@ -599,11 +594,15 @@ fn resolve_columns(
             let said = role.kind();
             match recognise(bare) {
                 Some(heard) if heard != Known::Skip && said != Known::Skip && heard != said => {
+                    let what = if bare.eq_ignore_ascii_case(heard.label()) {
+                        String::new()
+                    } else {
+                        format!(" ({} column)", heard.label())
+                    };
                     return Err(format!(
-                        "--columns says column {} is {} but the header on line {line} names it '{name}' ({}); fix --columns or leave it out to use the header",
+                        "--columns says column {} is {} but the header on line {line} names it '{name}'{what}; fix --columns or leave it out to use the header",
                         k + 1,
                         role_text(role),
-                        heard.label()
                     ));
                 }
                 _ => out.push(column(role, unit)),
@@ -636,8 +635,9 @@ fn resolve_columns(
             .collect();
         check_roles(&roles).map_err(|m| {
             format!(
-                "the header on line {line} ({}) {m}; or give --columns",
-                names.join(", ")
+                "the header on line {line} ({}) {m}; say what each column holds, e.g. --columns {}",
+                names.join(", "),
+                example_from_header(&known)
             )
         })?;
         return Ok(roles.iter().map(|r| column(r, None)).collect());
@@ -668,6 +668,33 @@ fn role_text(role: &ColumnRole) -> String {
     }
 }
 
+/// A `--columns` example keeping a header's recognised roles: a lone inline or crossline
+/// becomes skip, other names become value columns; [`example_columns`] when x or y is missing.
+fn example_from_header(known: &[Option<Known>]) -> String {
+    let has = |k: Known| known.contains(&Some(k));
+    if !(has(Known::X) && has(Known::Y)) {
+        return example_columns(known.len());
+    }
+    let numbered = has(Known::Inline) && has(Known::Crossline);
+    let mut value_named = false;
+    known
+        .iter()
+        .map(|k| match k {
+            Some(Known::Inline) if numbered => "inline",
+            Some(Known::Crossline) if numbered => "xline",
+            Some(Known::Inline | Known::Crossline | Known::Skip) => "skip",
+            Some(Known::X) => "x",
+            Some(Known::Y) => "y",
+            Some(Known::Value) | None if !value_named => {
+                value_named = true;
+                "z"
+            }
+            Some(Known::Value) | None => "skip",
+        })
+        .collect::<Vec<_>>()
+        .join(",")
+}
+
 /// A `--columns` example for `n` fields.
 fn example_columns(n: usize) -> String {
     match n {
@@ -680,6 +707,15 @@ fn example_columns(n: usize) -> String {
 
 // ---------------------------------------------------------------------------------------
 // Lines and fields
+
+/// Whether the first line's fields are a header: no field is a number, or some are names
+/// flexure recognises (`inline,xline,x,y,15,45,75`). A line of numbers with a typo is data,
+/// so its error names the bad field.
+fn is_header(fields: &[&str]) -> bool {
+    let number = |f: &&str| f.parse::<f64>().is_ok();
+    let known = |f: &&str| recognise(split_unit(f).0).is_some_and(|k| k != Known::Skip);
+    !fields.iter().any(number) || (!fields.iter().all(number) && fields.iter().any(known))
+}
 
 fn is_data_line(trimmed: &str) -> bool {
     !trimmed.is_empty() && !trimmed.starts_with('#')
@@ -694,12 +730,13 @@ enum Delimiter {
 }
 
 impl Delimiter {
-    /// Comma if the line has one, else semicolon, else tab, else runs of spaces.
+    /// Semicolon if the line has one (so decimal commas are not taken for delimiters), else
+    /// comma, else tab, else runs of spaces.
     fn detect(line: &str) -> Self {
-        if line.contains(',') {
-            Delimiter::Comma
-        } else if line.contains(';') {
+        if line.contains(';') {
             Delimiter::Semicolon
+        } else if line.contains(',') {
+            Delimiter::Comma
         } else if line.contains('\t') {
             Delimiter::Tab
         } else {
@@ -816,10 +853,15 @@ fn read_fields<'a>(
                 continue;
             }
             let v: f64 = field.parse().map_err(|_| {
+                let hint = if field.contains(',') {
+                    " (decimal commas are not read: export with decimal points)"
+                } else {
+                    ""
+                };
                 bad(
                     k,
                     field,
-                    "is not a number; fix the line, or write a null as nan or a --nodata value",
+                    &format!("is not a number{hint}; fix the line, or write a null as nan or a --nodata value"),
                 )
             })?;
             match column.role {
@@ -916,6 +958,9 @@ fn lattice_from_numbering(p: &Points) -> Result<(Vec<i64>, Vec<i64>, Numbering)>
 
 // ---------------------------------------------------------------------------------------
 // Lattice from coordinates alone
+
+/// What to do with points that are not on a lattice.
+const GRID_FIRST: &str = "grid them first (e.g. gdal_grid) and give the raster: flexure reads point lists only when every point sits on one regular bin lattice, and does not grid silently";
 
 /// Most points sampled to find the basis.
 const BASIS_SAMPLES: usize = 20_000;
@@ -1047,8 +1092,8 @@ impl Buckets {
 
 /// The most frequent vector among `vectors` (taken with both signs), clustered at a tenth of
 /// `scale`: the 3 x 3 block of cells holding most vectors, then the mean of the vectors within
-/// a fifth of `scale` of it (twice). Returns the vector and its share of `vectors`.
-fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<((f64, f64), f64)> {
+/// a fifth of `scale` of it (twice).
+fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<(f64, f64)> {
     let q = 0.1 * scale;
     let both = || vectors.iter().flat_map(|&(a, b)| [(a, b), (-a, -b)]);
     let mut keys: Vec<(i64, i64)> = both()
@@ -1081,7 +1126,6 @@ fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<((f64, f64), f64)> 
     }
     let mut centre = best?;
     let radius = 0.2 * scale;
-    let mut share = 0.0;
     for _ in 0..2 {
         let (mut su, mut sv, mut m) = (0.0, 0.0, 0usize);
         for (a, b) in both() {
@@ -1095,9 +1139,8 @@ fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<((f64, f64), f64)> 
             return None;
         }
         centre = (su / m as f64, sv / m as f64);
-        share = m as f64 / vectors.len() as f64;
     }
-    Some((centre, share))
+    Some(centre)
 }
 
 fn median(mut values: Vec<f64>) -> Option<f64> {
@@ -1158,7 +1201,6 @@ fn orient(b1: (f64, f64), b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
 
 fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> {
     let n = p.len();
-    let grid_first = "grid them first (e.g. gdal_grid) and give the raster: flexure reads point lists only when every point sits on a regular bin lattice, and does not grid silently";
     if n < 9 {
         return Err(format!(
             "holds only {n} points; a horizon needs at least 3 x 3 nodes"
@@ -1172,14 +1214,14 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
     let stride = n.div_ceil(BASIS_SAMPLES);
     let sample = || (0..n).step_by(stride);
     let scattered =
-        |what: &str| format!("the points lie on no regular lattice ({what}); {grid_first}");
+        |what: &str| format!("the points lie on no regular lattice ({what}); {GRID_FIRST}");
 
     let nearest: Vec<(f64, f64)> = sample()
         .filter_map(|k| buckets.nearest(&u, &v, k, |_, _| true))
         .collect();
     let scale = median(nearest.iter().map(|a| a.0.hypot(a.1)).collect())
         .ok_or_else(|| scattered("no point has a neighbour"))?;
-    let (b1, _) = mode_vector(&nearest, scale)
+    let b1 = mode_vector(&nearest, scale)
         .ok_or_else(|| scattered("no common step between neighbours"))?;
     let b1_len = b1.0.hypot(b1.1);
     let independent =
@@ -1187,9 +1229,11 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
     let second: Vec<(f64, f64)> = sample()
         .filter_map(|k| buckets.nearest(&u, &v, k, independent))
         .collect();
-    let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect())
-        .ok_or_else(|| scattered("all points lie along one line"))?;
-    let (b2, _) = mode_vector(&second, scale2)
+    let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect()).ok_or_else(|| {
+        "all points lie along one line; a horizon needs a two-dimensional grid of points"
+            .to_string()
+    })?;
+    let b2 = mode_vector(&second, scale2)
         .ok_or_else(|| scattered("no common second step between neighbours"))?;
     let (b1, b2) = reduce(b1, b2);
     let cross = (b1.0 * b2.1 - b1.1 * b2.0).abs();
@@ -1364,8 +1408,6 @@ fn place(
     tolerance: f64,
 ) -> std::result::Result<PointGrid, String> {
     let n = p.len();
-    let grid_first =
-        "grid them first (e.g. gdal_grid) and give the raster: flexure does not grid silently";
     let span = |a: &[i64]| {
         let lo = a.iter().copied().min().unwrap_or(0);
         let hi = a.iter().copied().max().unwrap_or(0);
@@ -1384,7 +1426,7 @@ fn place(
             None => "the lattice they seem to lie on spans",
         };
         return Err(format!(
-            "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in 20 holds a point, so they look scattered; {grid_first}"
+            "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in 20 holds a point, so they look scattered; {GRID_FIRST}"
         ));
     }
     let (cols, rows) = (cols as usize, rows as usize);
@@ -1439,12 +1481,12 @@ fn place(
                     "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({off} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst_misfit:.3} CRS units); check the columns (--columns) and the export"
                 ),
                 None => format!(
-                    "the points lie on no regular lattice ({off} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst_misfit:.3} CRS units); {grid_first}"
+                    "the points lie on no regular lattice ({off} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst_misfit:.3} CRS units); {GRID_FIRST}"
                 ),
             });
         }
         return Err(format!(
-            "line {line} lies {worst_misfit:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}; {off} of {n} points are that far off: fix those lines, or raise --lattice-tolerance if the export rounds coordinates coarsely",
+            "line {line} lies {worst_misfit:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance} (points that far off: {off} of {n}); fix those lines, or raise --lattice-tolerance if the export rounds coordinates coarsely",
             node_name(&numbering, c, r)
         ));
     }
@@ -1867,6 +1909,14 @@ mod tests {
         assert_picture(&grid, &g.geo_transform, (9, 8), |c, r, b| {
             Some(value(c, r, b))
         });
+        // Sector names that are bare azimuths: the recognised names make the line a header.
+        let numeric = text.replace("az", "");
+        let grid = parse(&numeric, &PointOptions::default()).unwrap();
+        let names: Vec<&str> = grid.value_columns.iter().map(|v| v.name.as_str()).collect();
+        assert_eq!(names, ["15", "60", "105", "150"]);
+        assert_picture(&grid, &g.geo_transform, (9, 8), |c, r, b| {
+            Some(value(c, r, b))
+        });
     }
 
     #[test]
@@ -2019,6 +2069,20 @@ mod tests {
             &d,
             &["line 6, column 3 (z)", "not a finite number"],
         );
+        // A first line of numbers with a typo is data, not a header: its field is named.
+        let headless = e.full(" ", None);
+        let first = headless.lines().next().unwrap().to_string();
+        let fields: Vec<&str> = first.split(' ').collect();
+        let typo = headless.replacen(&first, &format!("{} 9o {}", fields[0], fields[2]), 1);
+        refused(&typo, &d, &["line 1, column 2 (y)", "'9o' is not a number"]);
+        // Semicolon-separated with a decimal comma on line 3 (x and y here are whole numbers).
+        let mut european: Vec<String> = e.full(";", None).lines().map(str::to_string).collect();
+        european[2] = european[2].replacen('.', ",", 1);
+        refused(
+            &european.join("\n"),
+            &d,
+            &["line 3, column 3 (z)", "decimal commas"],
+        );
         let mut lines: Vec<String> = good.lines().map(str::to_string).collect();
         lines[8].push_str(" 7");
         refused(
@@ -2034,7 +2098,11 @@ mod tests {
         refused(
             &good.replace("x y z", "inline x y z"),
             &d,
-            &["line 2", "inline column but no crossline", "skip"],
+            &[
+                "line 2",
+                "inline column but no crossline",
+                "--columns skip,x,y,z",
+            ],
         );
         refused(
             &good.replace("x y z", "inline xline depth"),
@@ -2270,12 +2338,10 @@ mod tests {
         let line: String = (0..30)
             .map(|k| format!("{} {} 1\n", 10 * k, 5 * k))
             .collect();
-        let err = parse(&line, &PointOptions::default())
-            .unwrap_err()
-            .to_string();
-        assert!(
-            err.contains("one line") || err.contains("grid them first"),
-            "{err}"
+        refused(
+            &line,
+            &PointOptions::default(),
+            &["along one line", "two-dimensional"],
         );
     }
 
@@ -2338,7 +2404,7 @@ mod tests {
         // files and GDAL's text raster formats (ESRI ASCII grid, Surfer, GRASS, VRT XML) are
         // not (their first lines from the formats' documentation, from memory).
         let dir = tempfile::tempdir().unwrap();
-        let cases: [(&str, &[u8], bool); 11] = [
+        let cases: [(&str, &[u8], bool); 12] = [
             (
                 "a.xyz",
                 b"500000.0 4100000.0 1500.25\n500025.0 4100000.0 1501\n",
@@ -2347,6 +2413,7 @@ mod tests {
             ("b.csv", b"# horizon\ninline,xline,x,y,z\n1,1,5,6,7\n", true),
             ("c.txt", b"X Y Depth (ft)\n1 2 3\n", true),
             ("d.txt", b"x;y;twt\n", true),
+            ("l.csv", b"inline,xline,x,y,15,45\n1,1,5,6,7,8\n", true),
             (
                 "e.asc",
                 b"ncols 4\nnrows 3\nxllcorner 0\nyllcorner 0\ncellsize 1\n1 2 3 4\n",
