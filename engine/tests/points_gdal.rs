@@ -10,7 +10,7 @@
 //! back to the GeoTIFF's own geotransform and `read_bands` values, bit for bit.
 
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::points::{read_points, PointGrid, PointOptions};
+use flexure_engine::io::points::{is_point_list, read_points, PointGrid, PointOptions};
 use flexure_engine::io::{read_bands, write_float_geotiff, BandOut, NODATA};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
@@ -113,6 +113,8 @@ fn gdal2xyz_exports_read_back_to_the_geotiff() {
         nodata: vec![NODATA as f64],
         ..PointOptions::default()
     };
+    // The exports are point lists; the GeoTIFF is not (binary).
+    assert!(is_point_list(&all) && !is_point_list(&tif));
     let grid = read_points(&all, &with_nodata).unwrap();
     assert_eq!(grid.lattice.points, cols * rows);
     assert_same_grid(&grid, &geometry, &bands);

@@ -412,7 +412,7 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
         })
         .collect();
     let (indices, numbering) = if points.has_numbering {
-        let (cols, rows, numbering) = lattice_from_numbering(&points)?;
+        let (cols, rows, numbering) = lattice_from_numbering(&points);
         ((cols, rows), Some(numbering))
     } else {
         (lattice_from_coordinates(&points).map_err(&fail)?, None)
@@ -926,7 +926,8 @@ fn gcd(mut a: u64, mut b: u64) -> u64 {
 
 type Indices = (Vec<i64>, Vec<i64>);
 
-fn lattice_from_numbering(p: &Points) -> Result<(Vec<i64>, Vec<i64>, Numbering)> {
+/// Column and row indices from crossline and inline numbers (steps: gcd of the differences).
+fn lattice_from_numbering(p: &Points) -> (Vec<i64>, Vec<i64>, Numbering) {
     let axis = |numbers: &[i64]| {
         let min = numbers.iter().copied().min().unwrap_or(0);
         let max = numbers.iter().copied().max().unwrap_or(0);
@@ -942,7 +943,7 @@ fn lattice_from_numbering(p: &Points) -> Result<(Vec<i64>, Vec<i64>, Numbering)>
     };
     let (cols, xl_first, xl_last, xl_step) = axis(&p.crossline);
     let (rows, il_first, il_last, il_step) = axis(&p.inline);
-    Ok((
+    (
         cols,
         rows,
         Numbering {
@@ -953,7 +954,7 @@ fn lattice_from_numbering(p: &Points) -> Result<(Vec<i64>, Vec<i64>, Numbering)>
             crossline_last: xl_last,
             crossline_step: xl_step,
         },
-    ))
+    )
 }
 
 // ---------------------------------------------------------------------------------------
@@ -1210,7 +1211,10 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
     let (x0, y0) = (p.x[0], p.y[0]);
     let u: Vec<f64> = p.x.iter().map(|x| x - x0).collect();
     let v: Vec<f64> = p.y.iter().map(|y| y - y0).collect();
-    let buckets = Buckets::new(&u, &v).ok_or_else(|| "has every point at one place".to_string())?;
+    let buckets = Buckets::new(&u, &v).ok_or_else(|| {
+        "has all its points at one place; a horizon needs a two-dimensional grid of points"
+            .to_string()
+    })?;
     let stride = n.div_ceil(BASIS_SAMPLES);
     let sample = || (0..n).step_by(stride);
     let scattered =
