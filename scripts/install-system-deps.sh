@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
 # Installs the Debian/Ubuntu packages flexure builds and tests against, when missing.
-# Needed: libgdal-dev (GDAL C library and headers), gdal-bin (gdalinfo, ogrinfo used by tests),
+# Needed: libgdal-dev (GDAL C library and headers), gdal-bin (gdalinfo, ogrinfo and gdal2xyz.py used by tests),
 # libopenblas-dev (LAPACK for the least-squares reference), pkg-config.
 set -euo pipefail
 packages=(libgdal-dev gdal-bin libopenblas-dev pkg-config)

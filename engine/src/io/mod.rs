@@ -9,6 +9,8 @@
 //! file under a final name. GDAL's own messages are captured and reported as one line instead
 //! of printed.
 
+pub mod points;
+
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
 use gdal::raster::{Buffer, GdalType, RasterCreationOptions};

@@ -1,0 +1,2449 @@
+//! Horizon and azimuth-sector point lists: ASCII exports of interpretation packages, one node a
+//! line (`inline xline x y z`, `x,y,twt`, `inline,xline,x,y,az15,az45,...`), read *exactly* onto
+//! their bin lattice. Nothing is regridded: every point must sit on one node of a regular
+//! lattice (to `lattice_tolerance` of the smaller bin), nodes without a point are nulls, and
+//! anything else is refused with a one-line message saying what to do.
+//!
+//! GDAL's XYZ driver reads only north-up grids sorted by row; survey grids are rotated from
+//! north and exported in inline/crossline order, hence this reader.
+//!
+//! Method:
+//! - With inline/crossline numbers, the lattice indices come from the numbering: the step of
+//!   each is the greatest common divisor of the differences of its distinct numbers; columns
+//!   follow crossline and rows follow inline, both increasing.
+//! - With x, y alone, the lattice is found from the points: the most frequent nearest-neighbour
+//!   vector and the most frequent shortest vector not parallel to it (searched in a bucket
+//!   grid, on a fixed sample of at most 20 000 points), reduced to a shortest basis by
+//!   Lagrange's (Gauss's) two-dimensional reduction (Nguyen 2010, "Hermite's constant and
+//!   lattice algorithms", in *The LLL Algorithm*, Springer, section 2 [from memory]). The column
+//!   axis is whichever of the four basis directions points closest to east (ties go to the
+//!   smaller azimuth); the row axis is the other, signed so rows run clockwise from columns as
+//!   on a north-up grid. Points get integer indices by rounding, refined by least-squares refits
+//!   on growing neighbourhoods of the first point.
+//! - In both cases the map position of a node is an affine function of its (column, row),
+//!   fitted by ordinary least squares to all points (coordinates taken relative to the first
+//!   point, compensated sums), and becomes a GDAL geotransform: node (0, 0) is the centre of
+//!   the top-left cell, so the corner is half a column step and half a row step before it (GDAL
+//!   data model: a cell's centre is at `i + 0.5, j + 0.5`). Rotation terms below 1e-12 of
+//!   their bin are snapped to zero, so north-up grids come back exactly north-up.
+//!
+//! The CRS is the caller's concern: a point list declares none.
+
+use crate::error::{FlexureError, Result};
+use crate::grid::GridGeometry;
+use ndarray::Array2;
+use std::io::Read;
+use std::path::Path;
+
+/// What one column of a point list holds.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum ColumnRole {
+    /// Inline number (a whole number); each grid row is one inline.
+    Inline,
+    /// Crossline (trace) number (a whole number); each grid column is one crossline.
+    Crossline,
+    /// Grid easting, CRS units.
+    X,
+    /// Grid northing, CRS units.
+    Y,
+    /// A value band, named as given (e.g. `z`, `TWT`, `az15`); the text may end with a unit
+    /// in parentheses or brackets (`Depth (ft)`), which becomes [`ValueColumn::unit`].
+    Value(String),
+    /// A column to ignore.
+    Skip,
+}
+
+impl ColumnRole {
+    /// Parses a comma-separated column list such as `inline,xline,x,y,z` (the `--columns`
+    /// option). Recognised names, case-insensitive, ignoring `-`, `_`, spaces and a unit suffix:
+    /// inline `inline`/`iline`/`il`/`in-line`; crossline `xline`/`crossline`/`xl`/`trace`/
+    /// `cross-line`; x `x`/`easting`/`cdp_x`/`cdpx`; y `y`/`northing`/`cdp_y`/`cdpy`; `skip`.
+    /// Any other name is a value column named as given. The list must hold exactly one x and
+    /// one y, inline and crossline both or neither, and at least one value column.
+    pub fn parse_list(spec: &str) -> Result<Vec<ColumnRole>> {
+        let mut roles = Vec::new();
+        for (k, entry) in spec.split(',').map(str::trim).enumerate() {
+            if entry.is_empty() {
+                return Err(FlexureError::Parameter(format!(
+                    "--columns '{spec}': entry {} is empty; give names separated by commas, e.g. --columns inline,xline,x,y,z",
+                    k + 1
+                )));
+            }
+            let (name, _) = split_unit(entry);
+            roles.push(match recognise(name) {
+                Some(Known::Skip) => ColumnRole::Skip,
+                Some(Known::Inline) => ColumnRole::Inline,
+                Some(Known::Crossline) => ColumnRole::Crossline,
+                Some(Known::X) => ColumnRole::X,
+                Some(Known::Y) => ColumnRole::Y,
+                Some(Known::Value) | None => ColumnRole::Value(entry.to_string()),
+            });
+        }
+        check_roles(&roles)
+            .map_err(|m| FlexureError::Parameter(format!("--columns '{spec}' {m}")))?;
+        Ok(roles)
+    }
+
+    fn kind(&self) -> Known {
+        match self {
+            ColumnRole::Inline => Known::Inline,
+            ColumnRole::Crossline => Known::Crossline,
+            ColumnRole::X => Known::X,
+            ColumnRole::Y => Known::Y,
+            ColumnRole::Value(_) => Known::Value,
+            ColumnRole::Skip => Known::Skip,
+        }
+    }
+}
+
+/// How to read a point list.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PointOptions {
+    /// Column roles in file order (`--columns`); `None` takes them from the header, or for a
+    /// file without one, `x y z` (3 columns) or `inline xline x y z` (5 columns).
+    pub columns: Option<Vec<ColumnRole>>,
+    /// Values that mean "no value" (e.g. -999.25, -99999); such a node exists but is null.
+    /// `nan` text is always null.
+    pub nodata: Vec<f64>,
+    /// Largest allowed distance of a point from its lattice node, as a share of the smaller
+    /// bin (0 < t < 0.5); default 0.05.
+    pub lattice_tolerance: f64,
+}
+
+impl Default for PointOptions {
+    fn default() -> Self {
+        Self {
+            columns: None,
+            nodata: Vec::new(),
+            lattice_tolerance: 0.05,
+        }
+    }
+}
+
+/// One value column of a point list, in file order.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ValueColumn {
+    /// The column name as given in the header or `--columns`, without its unit suffix (e.g.
+    /// `Depth`, `twt`, `az15`); tells the caller the domain.
+    pub name: String,
+    /// The unit from a suffix like `z (ft)` or `TWT [ms]`, lower-cased; `None` when not given.
+    pub unit: Option<String>,
+}
+
+/// The inline/crossline numbering a lattice was read from.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Numbering {
+    /// Inline number of grid row 0.
+    pub inline_first: i64,
+    /// Inline number of the last grid row.
+    pub inline_last: i64,
+    /// Inline numbers per grid row.
+    pub inline_step: i64,
+    /// Crossline number of grid column 0.
+    pub crossline_first: i64,
+    /// Crossline number of the last grid column.
+    pub crossline_last: i64,
+    /// Crossline numbers per grid column.
+    pub crossline_step: i64,
+}
+
+/// How a point list's lattice was found and how well the points fit it.
+#[derive(Clone, Debug, PartialEq)]
+pub struct LatticeReport {
+    /// Data lines read (one point each, repeated nodes included).
+    pub points: usize,
+    /// The inline/crossline numbering the lattice came from; `None` when it was found from the
+    /// coordinates alone.
+    pub numbering: Option<Numbering>,
+    /// Azimuth of the column axis (increasing column), degrees clockwise from grid north,
+    /// 0..360.
+    pub column_azimuth: f64,
+    /// Azimuth of the row axis (increasing row), degrees clockwise from grid north, 0..360;
+    /// 90 degrees clockwise from the column axis unless inline/crossline numbering says
+    /// otherwise.
+    pub row_azimuth: f64,
+    /// Distance between neighbouring nodes along a row (from one column to the next), CRS
+    /// units.
+    pub column_bin: f64,
+    /// Distance between neighbouring nodes along a column (from one row to the next), CRS
+    /// units.
+    pub row_bin: f64,
+    /// Largest distance of a point from its fitted lattice node, CRS units.
+    pub worst_misfit: f64,
+    /// `worst_misfit` as a share of the smaller bin.
+    pub worst_misfit_share: f64,
+    /// File line (1-based) of that point.
+    pub worst_misfit_line: usize,
+    /// Nodes without a point in the file.
+    pub empty_nodes: usize,
+    /// Nodes null in every band: no point, or every value null.
+    pub null_nodes: usize,
+    /// Lines that repeated a node with identical values (read once).
+    pub repeated: usize,
+}
+
+impl LatticeReport {
+    /// One line for reports: points, where the lattice came from, axis azimuth, bins, worst
+    /// misfit and its line, null nodes.
+    pub fn describe(&self) -> String {
+        let source = match &self.numbering {
+            Some(n) => format!(
+                "inlines {}..{} step {} (rows) x crosslines {}..{} step {} (columns)",
+                n.inline_first,
+                n.inline_last,
+                n.inline_step,
+                n.crossline_first,
+                n.crossline_last,
+                n.crossline_step
+            ),
+            None => "a lattice found from x, y alone".to_string(),
+        };
+        format!(
+            "{} points on {source}; column axis at {:.3} deg, row axis at {:.3} deg from grid north; bins {:.4} x {:.4} CRS units; worst misfit {:.4} ({:.3} of the smaller bin) at line {}; {} null nodes ({} without a point{})",
+            self.points,
+            self.column_azimuth,
+            self.row_azimuth,
+            self.column_bin,
+            self.row_bin,
+            self.worst_misfit,
+            self.worst_misfit_share,
+            self.worst_misfit_line,
+            self.null_nodes,
+            self.empty_nodes,
+            if self.repeated > 0 {
+                format!(", {} repeated lines read once", self.repeated)
+            } else {
+                String::new()
+            }
+        )
+    }
+}
+
+/// A point list read onto its lattice.
+#[derive(Clone, Debug)]
+pub struct PointGrid {
+    /// Number of columns.
+    pub cols: usize,
+    /// Number of rows.
+    pub rows: usize,
+    /// GDAL geotransform `[x0, dx/dcol, dx/drow, y0, dy/dcol, dy/drow]`, CRS units; cell
+    /// (col, row) has its centre at `x0 + (col + 0.5) dx/dcol + (row + 0.5) dx/drow`, and
+    /// likewise for y.
+    pub geo_transform: [f64; 6],
+    /// One array per value column, `[row, col]`, NaN where null or without a point; values
+    /// exactly as written in the file.
+    pub bands: Vec<Array2<f64>>,
+    /// Name and unit of each band.
+    pub value_columns: Vec<ValueColumn>,
+    /// How the lattice was found and how well the points fit it.
+    pub lattice: LatticeReport,
+}
+
+impl PointGrid {
+    /// The grid's placement with the CRS the caller attaches (`crs_wkt`, `metres_per_unit`
+    /// as in [`GridGeometry`]).
+    pub fn geometry(&self, crs_wkt: String, metres_per_unit: f64) -> GridGeometry {
+        GridGeometry {
+            cols: self.cols,
+            rows: self.rows,
+            geo_transform: self.geo_transform,
+            crs_wkt,
+            metres_per_unit,
+        }
+    }
+}
+
+/// Whether `path` looks like a point list, from its first 8 KB: text (no NUL or other control
+/// bytes) whose first line that is neither blank nor a `#` comment holds at least 3 numbers,
+/// or at least 3 names followed by such a line. False for binary files and for the text
+/// raster formats GDAL reads itself (ESRI ASCII grid `ncols ...`, Surfer `DSAA`, GRASS ASCII
+/// `north: ...`, XML such as VRT, JSON).
+pub fn is_point_list(path: &Path) -> bool {
+    let Ok(file) = std::fs::File::open(path) else {
+        return false;
+    };
+    let mut bytes = Vec::with_capacity(SNIFF_BYTES);
+    if file
+        .take(SNIFF_BYTES as u64)
+        .read_to_end(&mut bytes)
+        .is_err()
+    {
+        return false;
+    }
+    sniff(&bytes, bytes.len() == SNIFF_BYTES)
+}
+
+const SNIFF_BYTES: usize = 8192;
+
+fn sniff(bytes: &[u8], truncated: bool) -> bool {
+    let binary = |b: &u8| *b < 0x20 && !matches!(*b, b'\t' | b'\n' | b'\r' | 0x0c);
+    if bytes.iter().any(binary) {
+        return false;
+    }
+    let text = String::from_utf8_lossy(bytes);
+    let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
+    let mut lines: Vec<&str> = text.lines().collect();
+    if truncated {
+        lines.pop();
+    }
+    let mut significant = lines.into_iter().map(str::trim).filter(|l| is_data_line(l));
+    let Some(first) = significant.next() else {
+        return false;
+    };
+    let lower = first.to_ascii_lowercase();
+    const RASTER_STARTS: [&str; 12] = [
+        "ncols", "nrows", "xllc", "yllc", "dsaa", "dsrb", "north:", "south:", "rows:", "cols:",
+        "<", "{",
+    ];
+    if RASTER_STARTS.iter().any(|s| lower.starts_with(s)) {
+        return false;
+    }
+    let numeric = |line: &str| {
+        let mut fields = Vec::new();
+        Delimiter::detect(line).split(line, &mut fields);
+        fields.len() >= 3 && fields.iter().all(|f| f.parse::<f64>().is_ok())
+    };
+    if numeric(first) {
+        return true;
+    }
+    let mut names = Vec::new();
+    Delimiter::detect(first).split(first, &mut names);
+    let names = merge_unit_tokens(names);
+    let name_like = |f: &String| {
+        f.chars()
+            .next()
+            .is_some_and(|c| c.is_alphabetic() || c == '_')
+    };
+    let name_or_number = |f: &String| name_like(f) || f.parse::<f64>().is_ok();
+    if names.len() < 3 || !names.iter().all(name_or_number) || !names.iter().any(name_like) {
+        return false;
+    }
+    significant.next().is_none_or(numeric)
+}
+
+/// Reads the point list at `path` onto its lattice (see [`parse_points`]).
+pub fn read_points(path: &Path, options: &PointOptions) -> Result<PointGrid> {
+    let bytes = std::fs::read(path).map_err(|e| FlexureError::read(path, e))?;
+    if bytes.iter().take(SNIFF_BYTES).any(|&b| b == 0) {
+        return Err(FlexureError::input(
+            path,
+            "is a binary file, not a point list: give a text export (x y z per line) or a raster",
+        ));
+    }
+    let text = String::from_utf8_lossy(&bytes);
+    parse_points(&text, path, options)
+}
+
+/// Reads point-list `text` onto its lattice; `path` is used only in messages. Pure.
+///
+/// Format: one point a line, fields separated by commas, semicolons, tabs or spaces (detected
+/// from the first data line); blank lines and lines starting with `#` are skipped; an optional
+/// first line of names (a header). Column roles come from `options.columns`, else from the
+/// header (see [`ColumnRole::parse_list`] for the names; `z`, `depth`, `time`, `twt`,
+/// `value`, `elevation` are known value names, and once x and y are found every other column
+/// is a value column), else from the field count. Values equal to an `options.nodata`
+/// sentinel, and `nan`, are nulls.
+///
+/// Errors (one line each, naming the file line where there is one): unreadable columns,
+/// non-numeric fields, points off the lattice by more than the tolerance, scattered points
+/// that need gridding, nodes given twice with different values, fewer than 3 x 3 nodes.
+pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<PointGrid> {
+    let fail = |reason: String| FlexureError::input(path, reason);
+    let tolerance = options.lattice_tolerance;
+    if !(tolerance > 0.0 && tolerance < 0.5) {
+        return Err(FlexureError::Parameter(format!(
+            "--lattice-tolerance {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin (default 0.05)"
+        )));
+    }
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let mut lines = text
+        .lines()
+        .enumerate()
+        .map(|(i, l)| (i + 1, l))
+        .filter(|(_, l)| is_data_line(l.trim()));
+    let Some((first_no, first)) = lines.next() else {
+        return Err(fail(
+            "holds no data lines: give a point list with x, y and value columns".to_string(),
+        ));
+    };
+    let mut fields = Vec::new();
+    Delimiter::detect(first).split(first, &mut fields);
+    let header_line = is_header(&fields).then_some((first_no, first));
+    let mut data = lines.peekable();
+    let data_first = match header_line {
+        Some(_) => data.peek().copied(),
+        None => Some((first_no, first)),
+    };
+    let Some((_, data_first)) = data_first else {
+        return Err(fail(format!(
+            "line {first_no} is a header but no data lines follow: give the points below it"
+        )));
+    };
+    let delimiter = Delimiter::detect(data_first);
+    let header = header_line.map(|(no, line)| {
+        let mut names = Vec::new();
+        delimiter.split(line, &mut names);
+        let names = match delimiter {
+            Delimiter::Whitespace => merge_unit_tokens(names),
+            _ => names.into_iter().map(str::to_string).collect(),
+        };
+        (no, names)
+    });
+    let columns =
+        resolve_columns(header.as_ref(), data_first, delimiter, options).map_err(&fail)?;
+    let first_lines = header_line
+        .is_none()
+        .then_some((first_no, first))
+        .into_iter();
+    let points =
+        read_fields(first_lines.chain(data), delimiter, &columns, options).map_err(&fail)?;
+    if points.len() >= u32::MAX as usize {
+        return Err(fail(format!(
+            "holds {} points, more than flexure reads from one list; give a raster",
+            points.len()
+        )));
+    }
+    let value_columns: Vec<ValueColumn> = columns
+        .iter()
+        .filter(|c| c.role == Role::Value)
+        .map(|c| ValueColumn {
+            name: c.name.clone(),
+            unit: c.unit.clone(),
+        })
+        .collect();
+    let (indices, numbering) = if points.has_numbering {
+        let (cols, rows, numbering) = lattice_from_numbering(&points);
+        ((cols, rows), Some(numbering))
+    } else {
+        (lattice_from_coordinates(&points).map_err(&fail)?, None)
+    };
+    place(points, indices, numbering, value_columns, tolerance).map_err(fail)
+}
+
+// ---------------------------------------------------------------------------------------
+// Columns
+
+/// Names the reader recognises.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Known {
+    Inline,
+    Crossline,
+    X,
+    Y,
+    Value,
+    Skip,
+}
+
+impl Known {
+    fn label(self) -> &'static str {
+        match self {
+            Known::Inline => "inline",
+            Known::Crossline => "crossline",
+            Known::X => "x",
+            Known::Y => "y",
+            Known::Value => "value",
+            Known::Skip => "skip",
+        }
+    }
+}
+
+/// The role a column name stands for (`name` without its unit suffix).
+fn recognise(name: &str) -> Option<Known> {
+    let key: String = name
+        .chars()
+        .filter(|c| !matches!(c, '-' | '_' | ' ' | '.'))
+        .flat_map(char::to_lowercase)
+        .collect();
+    Some(match key.as_str() {
+        "inline" | "iline" | "il" => Known::Inline,
+        "xline" | "crossline" | "xl" | "trace" => Known::Crossline,
+        "x" | "easting" | "cdpx" => Known::X,
+        "y" | "northing" | "cdpy" => Known::Y,
+        "z" | "depth" | "time" | "twt" | "value" | "elevation" => Known::Value,
+        "skip" => Known::Skip,
+        _ => return None,
+    })
+}
+
+/// Splits `Depth (ft)` / `TWT[ms]` into the name and the lower-cased unit.
+fn split_unit(text: &str) -> (&str, Option<String>) {
+    let text = text.trim();
+    for (open, close) in [('(', ')'), ('[', ']')] {
+        if let Some(body) = text.strip_suffix(close) {
+            if let Some(at) = body.rfind(open) {
+                let name = body[..at].trim();
+                let unit = body[at + 1..].trim().to_lowercase();
+                if !name.is_empty() {
+                    return (name, (!unit.is_empty()).then_some(unit));
+                }
+            }
+        }
+    }
+    (text, None)
+}
+
+/// Role of a column while reading.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Role {
+    Inline,
+    Crossline,
+    X,
+    Y,
+    Value,
+    Skip,
+}
+
+/// A column while reading: role, name for messages and bands, unit.
+#[derive(Clone, Debug)]
+struct Column {
+    role: Role,
+    name: String,
+    unit: Option<String>,
+}
+
+/// Checks a role list: one x, one y, inline and crossline both or neither, a value column,
+/// no role or value name twice. Returns the problem (without subject) when not.
+fn check_roles(roles: &[ColumnRole]) -> std::result::Result<(), String> {
+    let count = |k: Known| roles.iter().filter(|r| r.kind() == k).count();
+    for k in [Known::Inline, Known::Crossline, Known::X, Known::Y] {
+        if count(k) > 1 {
+            return Err(format!(
+                "names {} columns {} times: keep one and mark the others skip",
+                k.label(),
+                count(k)
+            ));
+        }
+    }
+    if count(Known::X) == 0 || count(Known::Y) == 0 {
+        return Err("names no x and y columns: every point needs its map coordinates".to_string());
+    }
+    if count(Known::Inline) != count(Known::Crossline) {
+        let (has, lacks) = if count(Known::Inline) == 1 {
+            ("an inline", "crossline")
+        } else {
+            ("a crossline", "inline")
+        };
+        return Err(format!(
+            "names {has} column but no {lacks} column: name both, or mark it skip to find the lattice from x, y alone"
+        ));
+    }
+    let values: Vec<String> = roles
+        .iter()
+        .filter_map(|r| match r {
+            ColumnRole::Value(v) => Some(split_unit(v).0.to_lowercase()),
+            _ => None,
+        })
+        .collect();
+    if values.is_empty() {
+        return Err(
+            "names no value column: add one (e.g. z, twt or a sector name such as az15)"
+                .to_string(),
+        );
+    }
+    if let Some(twice) = values
+        .iter()
+        .enumerate()
+        .find(|(k, v)| values[..*k].contains(v))
+    {
+        return Err(format!(
+            "names value column '{}' twice: give each value column its own name",
+            twice.1
+        ));
+    }
+    Ok(())
+}
+
+fn resolve_columns(
+    header: Option<&(usize, Vec<String>)>,
+    data_first: &str,
+    delimiter: Delimiter,
+    options: &PointOptions,
+) -> std::result::Result<Vec<Column>, String> {
+    let column = |role: &ColumnRole, header_unit: Option<String>| -> Column {
+        let (r, text) = match role {
+            ColumnRole::Inline => (Role::Inline, "inline"),
+            ColumnRole::Crossline => (Role::Crossline, "crossline"),
+            ColumnRole::X => (Role::X, "x"),
+            ColumnRole::Y => (Role::Y, "y"),
+            ColumnRole::Value(v) => (Role::Value, v.as_str()),
+            ColumnRole::Skip => (Role::Skip, "skip"),
+        };
+        let (name, unit) = split_unit(text);
+        Column {
+            role: r,
+            name: name.to_string(),
+            unit: unit.or(header_unit),
+        }
+    };
+    if let Some(roles) = &options.columns {
+        check_roles(roles).map_err(|m| format!("--columns {m}"))?;
+        let Some((line, names)) = header else {
+            return Ok(roles.iter().map(|r| column(r, None)).collect());
+        };
+        if names.len() != roles.len() {
+            return Err(format!(
+                "--columns names {} columns but the header on line {line} has {} ({}); give one name per column",
+                roles.len(),
+                names.len(),
+                names.join(", ")
+            ));
+        }
+        let mut out = Vec::new();
+        for (k, (role, name)) in roles.iter().zip(names).enumerate() {
+            let (bare, unit) = split_unit(name);
+            let said = role.kind();
+            match recognise(bare) {
+                Some(heard) if heard != Known::Skip && said != Known::Skip && heard != said => {
+                    let what = if bare.eq_ignore_ascii_case(heard.label()) {
+                        String::new()
+                    } else {
+                        format!(" ({} column)", heard.label())
+                    };
+                    return Err(format!(
+                        "--columns says column {} is {} but the header on line {line} names it '{name}'{what}; fix --columns or leave it out to use the header",
+                        k + 1,
+                        role_text(role),
+                    ));
+                }
+                _ => out.push(column(role, unit)),
+            }
+        }
+        return Ok(out);
+    }
+    if let Some((line, names)) = header {
+        let known: Vec<Option<Known>> = names
+            .iter()
+            .map(|n| recognise(split_unit(n).0).filter(|k| *k != Known::Skip))
+            .collect();
+        if known.iter().all(Option::is_none) {
+            return Err(format!(
+                "the header on line {line} ({}) names no column flexure knows; say what each holds, e.g. --columns {} (inline, xline, x, y and skip are roles; any other name is a value column)",
+                names.join(", "),
+                example_columns(names.len())
+            ));
+        }
+        let roles: Vec<ColumnRole> = names
+            .iter()
+            .zip(&known)
+            .map(|(name, k)| match k {
+                Some(Known::Inline) => ColumnRole::Inline,
+                Some(Known::Crossline) => ColumnRole::Crossline,
+                Some(Known::X) => ColumnRole::X,
+                Some(Known::Y) => ColumnRole::Y,
+                _ => ColumnRole::Value(name.clone()),
+            })
+            .collect();
+        check_roles(&roles).map_err(|m| {
+            format!(
+                "the header on line {line} ({}) {m}; say what each column holds, e.g. --columns {}",
+                names.join(", "),
+                example_from_header(&known)
+            )
+        })?;
+        return Ok(roles.iter().map(|r| column(r, None)).collect());
+    }
+    let mut fields = Vec::new();
+    delimiter.split(data_first, &mut fields);
+    let names: &[&str] = match fields.len() {
+        3 => &["x", "y", "z"],
+        5 => &["inline", "xline", "x", "y", "z"],
+        n => {
+            return Err(format!(
+                "the first data line has {n} fields and there is no header: say what they are, e.g. --columns {}",
+                example_columns(n)
+            ))
+        }
+    };
+    Ok(ColumnRole::parse_list(&names.join(","))
+        .map_err(|e| e.to_string())?
+        .iter()
+        .map(|r| column(r, None))
+        .collect())
+}
+
+fn role_text(role: &ColumnRole) -> String {
+    match role {
+        ColumnRole::Value(v) => format!("value '{v}'"),
+        other => other.kind().label().to_string(),
+    }
+}
+
+/// A `--columns` example keeping a header's recognised roles: a lone inline or crossline
+/// becomes skip, other names become value columns; [`example_columns`] when x or y is missing.
+fn example_from_header(known: &[Option<Known>]) -> String {
+    let has = |k: Known| known.contains(&Some(k));
+    if !(has(Known::X) && has(Known::Y)) {
+        return example_columns(known.len());
+    }
+    let numbered = has(Known::Inline) && has(Known::Crossline);
+    let mut value_named = false;
+    known
+        .iter()
+        .map(|k| match k {
+            Some(Known::Inline) if numbered => "inline",
+            Some(Known::Crossline) if numbered => "xline",
+            Some(Known::Inline | Known::Crossline | Known::Skip) => "skip",
+            Some(Known::X) => "x",
+            Some(Known::Y) => "y",
+            Some(Known::Value) | None if !value_named => {
+                value_named = true;
+                "z"
+            }
+            Some(Known::Value) | None => "skip",
+        })
+        .collect::<Vec<_>>()
+        .join(",")
+}
+
+/// A `--columns` example for `n` fields.
+fn example_columns(n: usize) -> String {
+    match n {
+        0..=3 => "x,y,z".to_string(),
+        4 => "x,y,z,skip".to_string(),
+        5 => "inline,xline,x,y,z".to_string(),
+        n => format!("inline,xline,x,y,z{}", ",skip".repeat(n - 5)),
+    }
+}
+
+// ---------------------------------------------------------------------------------------
+// Lines and fields
+
+/// Whether the first line's fields are a header: no field is a number, or some are names
+/// flexure recognises (`inline,xline,x,y,15,45,75`). A line of numbers with a typo is data,
+/// so its error names the bad field.
+fn is_header(fields: &[&str]) -> bool {
+    let number = |f: &&str| f.parse::<f64>().is_ok();
+    let known = |f: &&str| recognise(split_unit(f).0).is_some_and(|k| k != Known::Skip);
+    !fields.iter().any(number) || (!fields.iter().all(number) && fields.iter().any(known))
+}
+
+fn is_data_line(trimmed: &str) -> bool {
+    !trimmed.is_empty() && !trimmed.starts_with('#')
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Delimiter {
+    Comma,
+    Semicolon,
+    Tab,
+    Whitespace,
+}
+
+impl Delimiter {
+    /// Semicolon if the line has one (so decimal commas are not taken for delimiters), else
+    /// comma, else tab, else runs of spaces.
+    fn detect(line: &str) -> Self {
+        if line.contains(';') {
+            Delimiter::Semicolon
+        } else if line.contains(',') {
+            Delimiter::Comma
+        } else if line.contains('\t') {
+            Delimiter::Tab
+        } else {
+            Delimiter::Whitespace
+        }
+    }
+
+    /// Splits a line into trimmed, unquoted fields. Comma and semicolon lines keep empty
+    /// fields (except one trailing delimiter); runs of tabs or spaces count as one.
+    fn split<'a>(self, line: &'a str, out: &mut Vec<&'a str>) {
+        out.clear();
+        let clean = |f: &'a str| unquote(f.trim());
+        match self {
+            Delimiter::Comma | Delimiter::Semicolon => {
+                let c = if self == Delimiter::Comma { ',' } else { ';' };
+                out.extend(line.split(c).map(clean));
+                if out.len() > 1 && out.last() == Some(&"") {
+                    out.pop();
+                }
+            }
+            Delimiter::Tab => out.extend(line.split('\t').map(clean).filter(|f| !f.is_empty())),
+            Delimiter::Whitespace => out.extend(line.split_ascii_whitespace().map(unquote)),
+        }
+    }
+}
+
+fn unquote(f: &str) -> &str {
+    f.strip_prefix('"')
+        .and_then(|g| g.strip_suffix('"'))
+        .unwrap_or(f)
+}
+
+/// Joins header tokens split at spaces back onto their unit suffix (`Depth`, `(ft)`).
+fn merge_unit_tokens(tokens: Vec<&str>) -> Vec<String> {
+    let mut out: Vec<String> = Vec::new();
+    for t in tokens {
+        match out.last_mut() {
+            Some(last) if t.starts_with('(') || t.starts_with('[') => {
+                last.push(' ');
+                last.push_str(t);
+            }
+            _ => out.push(t.to_string()),
+        }
+    }
+    out
+}
+
+/// The points of a file, one entry per data line.
+struct Points {
+    /// File line of each point (1-based).
+    lines: Vec<usize>,
+    x: Vec<f64>,
+    y: Vec<f64>,
+    inline: Vec<i64>,
+    crossline: Vec<i64>,
+    has_numbering: bool,
+    /// `values[k * bands + b]`, NaN = null.
+    values: Vec<f64>,
+    bands: usize,
+}
+
+impl Points {
+    fn len(&self) -> usize {
+        self.lines.len()
+    }
+
+    fn value(&self, k: usize, b: usize) -> f64 {
+        self.values[k * self.bands + b]
+    }
+}
+
+fn read_fields<'a>(
+    lines: impl Iterator<Item = (usize, &'a str)>,
+    delimiter: Delimiter,
+    columns: &[Column],
+    options: &PointOptions,
+) -> std::result::Result<Points, String> {
+    let bands = columns.iter().filter(|c| c.role == Role::Value).count();
+    let has_numbering = columns.iter().any(|c| c.role == Role::Inline);
+    let mut p = Points {
+        lines: Vec::new(),
+        x: Vec::new(),
+        y: Vec::new(),
+        inline: Vec::new(),
+        crossline: Vec::new(),
+        has_numbering,
+        values: Vec::new(),
+        bands,
+    };
+    let names = columns
+        .iter()
+        .map(|c| c.name.as_str())
+        .collect::<Vec<_>>()
+        .join(", ");
+    let mut fields = Vec::with_capacity(columns.len());
+    for (line, text) in lines {
+        delimiter.split(text, &mut fields);
+        if fields.len() != columns.len() {
+            return Err(format!(
+                "line {line} has {} fields but {} columns are expected ({names}); fix the line, mark it a comment with #, or give --columns",
+                fields.len(),
+                columns.len()
+            ));
+        }
+        let bad = |k: usize, field: &str, what: &str| {
+            format!(
+                "line {line}, column {} ({}): '{field}' {what}",
+                k + 1,
+                columns[k].name
+            )
+        };
+        for (k, (field, column)) in fields.iter().zip(columns).enumerate() {
+            if column.role == Role::Skip {
+                continue;
+            }
+            let v: f64 = field.parse().map_err(|_| {
+                let hint = if field.contains(',') {
+                    " (decimal commas are not read: export with decimal points)"
+                } else {
+                    ""
+                };
+                bad(
+                    k,
+                    field,
+                    &format!("is not a number{hint}; fix the line, or write a null as nan or a --nodata value"),
+                )
+            })?;
+            match column.role {
+                Role::Value => {
+                    if v.is_nan() || options.nodata.contains(&v) {
+                        p.values.push(f64::NAN);
+                    } else if v.is_infinite() {
+                        return Err(bad(
+                            k,
+                            field,
+                            "is not a finite number; write a null as nan or a --nodata value",
+                        ));
+                    } else {
+                        p.values.push(v);
+                    }
+                }
+                Role::X | Role::Y => {
+                    if !v.is_finite() {
+                        return Err(bad(
+                            k,
+                            field,
+                            "is not a map coordinate; leave out the line (a node without a point is null)",
+                        ));
+                    }
+                    if column.role == Role::X {
+                        p.x.push(v);
+                    } else {
+                        p.y.push(v);
+                    }
+                }
+                Role::Inline | Role::Crossline => {
+                    if !(v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15) {
+                        return Err(bad(
+                            k,
+                            field,
+                            "is not a whole line number; fix the numbering, or mark the inline and crossline columns skip (--columns) to find the lattice from x, y alone",
+                        ));
+                    }
+                    if column.role == Role::Inline {
+                        p.inline.push(v as i64);
+                    } else {
+                        p.crossline.push(v as i64);
+                    }
+                }
+                Role::Skip => {}
+            }
+        }
+        p.lines.push(line);
+    }
+    Ok(p)
+}
+
+// ---------------------------------------------------------------------------------------
+// Lattice from inline/crossline numbers
+
+fn gcd(mut a: u64, mut b: u64) -> u64 {
+    while b != 0 {
+        (a, b) = (b, a % b);
+    }
+    a
+}
+
+type Indices = (Vec<i64>, Vec<i64>);
+
+/// Column and row indices from crossline and inline numbers (steps: gcd of the differences).
+fn lattice_from_numbering(p: &Points) -> (Vec<i64>, Vec<i64>, Numbering) {
+    let axis = |numbers: &[i64]| {
+        let min = numbers.iter().copied().min().unwrap_or(0);
+        let max = numbers.iter().copied().max().unwrap_or(0);
+        let step = numbers
+            .iter()
+            .fold(0, |g, &v| gcd(g, v.abs_diff(min)))
+            .max(1) as i64;
+        let index = numbers
+            .iter()
+            .map(|&v| (v - min) / step)
+            .collect::<Vec<_>>();
+        (index, min, max, step)
+    };
+    let (cols, xl_first, xl_last, xl_step) = axis(&p.crossline);
+    let (rows, il_first, il_last, il_step) = axis(&p.inline);
+    (
+        cols,
+        rows,
+        Numbering {
+            inline_first: il_first,
+            inline_last: il_last,
+            inline_step: il_step,
+            crossline_first: xl_first,
+            crossline_last: xl_last,
+            crossline_step: xl_step,
+        },
+    )
+}
+
+// ---------------------------------------------------------------------------------------
+// Lattice from coordinates alone
+
+/// What to do with points that are not on a lattice.
+const GRID_FIRST: &str = "grid them first (e.g. gdal_grid) and give the raster: flexure reads point lists only when every point sits on one regular bin lattice, and does not grid silently";
+
+/// Most points sampled to find the basis.
+const BASIS_SAMPLES: usize = 20_000;
+/// Farthest bucket ring searched for a neighbour.
+const MAX_RING: i64 = 24;
+
+/// Points in square buckets (compressed rows: `items[start[b]..start[b + 1]]` are the points of
+/// bucket `b`, in file order).
+struct Buckets {
+    u0: f64,
+    v0: f64,
+    size: f64,
+    nx: i64,
+    ny: i64,
+    start: Vec<u32>,
+    items: Vec<u32>,
+}
+
+impl Buckets {
+    /// About one point per bucket for points spread over their bounding box.
+    fn new(u: &[f64], v: &[f64]) -> Option<Self> {
+        let n = u.len();
+        let range = |a: &[f64]| {
+            a.iter()
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &x| {
+                    (lo.min(x), hi.max(x))
+                })
+        };
+        let ((u0, u1), (v0, v1)) = (range(u), range(v));
+        let (w, h) = (u1 - u0, v1 - v0);
+        let mut size = (w * h / n as f64).sqrt();
+        if size.is_nan() || size <= 0.0 {
+            size = w.max(h) / n as f64;
+        }
+        if !size.is_finite() || size <= 0.0 {
+            return None;
+        }
+        let (mut nx, mut ny);
+        loop {
+            nx = (w / size).floor() as i64 + 1;
+            ny = (h / size).floor() as i64 + 1;
+            if (nx as f64) * (ny as f64) <= 4.0 * n as f64 + 64.0 {
+                break;
+            }
+            size *= 1.5;
+        }
+        let mut b = Buckets {
+            u0,
+            v0,
+            size,
+            nx,
+            ny,
+            start: vec![0; (nx * ny) as usize + 1],
+            items: vec![0; n],
+        };
+        let ids: Vec<usize> = (0..n).map(|k| b.id(b.cell(u[k], v[k]))).collect();
+        for &id in &ids {
+            b.start[id + 1] += 1;
+        }
+        for i in 1..b.start.len() {
+            b.start[i] += b.start[i - 1];
+        }
+        let mut fill = b.start.clone();
+        for (k, &id) in ids.iter().enumerate() {
+            b.items[fill[id] as usize] = k as u32;
+            fill[id] += 1;
+        }
+        Some(b)
+    }
+
+    fn cell(&self, u: f64, v: f64) -> (i64, i64) {
+        let bx = ((u - self.u0) / self.size).floor() as i64;
+        let by = ((v - self.v0) / self.size).floor() as i64;
+        (bx.clamp(0, self.nx - 1), by.clamp(0, self.ny - 1))
+    }
+
+    fn id(&self, (bx, by): (i64, i64)) -> usize {
+        (by * self.nx + bx) as usize
+    }
+
+    /// The shortest non-zero vector from point `k` to another point that `accept`s, searching
+    /// rings of buckets outward until no nearer point can remain (or `MAX_RING`).
+    fn nearest(
+        &self,
+        u: &[f64],
+        v: &[f64],
+        k: usize,
+        accept: impl Fn(f64, f64) -> bool,
+    ) -> Option<(f64, f64)> {
+        let (cx, cy) = self.cell(u[k], v[k]);
+        let mut best: Option<(f64, f64, f64)> = None;
+        for ring in 0..=MAX_RING {
+            let mut visit = |bx: i64, by: i64| {
+                if bx < 0 || by < 0 || bx >= self.nx || by >= self.ny {
+                    return;
+                }
+                let id = self.id((bx, by));
+                for &j in &self.items[self.start[id] as usize..self.start[id + 1] as usize] {
+                    let j = j as usize;
+                    let (du, dv) = (u[j] - u[k], v[j] - v[k]);
+                    let d2 = du * du + dv * dv;
+                    if d2 > 0.0 && best.is_none_or(|b| d2 < b.0) && accept(du, dv) {
+                        best = Some((d2, du, dv));
+                    }
+                }
+            };
+            if ring == 0 {
+                visit(cx, cy);
+            } else {
+                for dx in -ring..=ring {
+                    visit(cx + dx, cy - ring);
+                    visit(cx + dx, cy + ring);
+                }
+                for dy in -ring + 1..ring {
+                    visit(cx - ring, cy + dy);
+                    visit(cx + ring, cy + dy);
+                }
+            }
+            let searched = ring as f64 * self.size;
+            if best.is_some_and(|b| b.0 <= searched * searched)
+                || (ring >= self.nx && ring >= self.ny)
+            {
+                break;
+            }
+        }
+        best.map(|b| (b.1, b.2))
+    }
+}
+
+/// The most frequent vector among `vectors` (taken with both signs), clustered at a tenth of
+/// `scale`: the 3 x 3 block of cells holding most vectors, then the mean of the vectors within
+/// a fifth of `scale` of it (twice).
+fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<(f64, f64)> {
+    let q = 0.1 * scale;
+    let both = || vectors.iter().flat_map(|&(a, b)| [(a, b), (-a, -b)]);
+    let mut keys: Vec<(i64, i64)> = both()
+        .map(|(a, b)| ((a / q).round() as i64, (b / q).round() as i64))
+        .collect();
+    keys.sort_unstable();
+    let mut cells: Vec<((i64, i64), usize)> = Vec::new();
+    for key in keys {
+        match cells.last_mut() {
+            Some((k, c)) if *k == key => *c += 1,
+            _ => cells.push((key, 1)),
+        }
+    }
+    let count_at = |key: (i64, i64)| {
+        cells
+            .binary_search_by(|(k, _)| k.cmp(&key))
+            .map_or(0, |i| cells[i].1)
+    };
+    let mut best = None;
+    let mut best_score = 0;
+    for &((kx, ky), _) in &cells {
+        let score: usize = (-1..=1)
+            .flat_map(|dx| (-1..=1).map(move |dy| (kx + dx, ky + dy)))
+            .map(count_at)
+            .sum();
+        if score > best_score {
+            best_score = score;
+            best = Some((kx as f64 * q, ky as f64 * q));
+        }
+    }
+    let mut centre = best?;
+    let radius = 0.2 * scale;
+    for _ in 0..2 {
+        let (mut su, mut sv, mut m) = (0.0, 0.0, 0usize);
+        for (a, b) in both() {
+            if (a - centre.0).hypot(b - centre.1) <= radius {
+                su += a;
+                sv += b;
+                m += 1;
+            }
+        }
+        if m == 0 {
+            return None;
+        }
+        centre = (su / m as f64, sv / m as f64);
+    }
+    Some(centre)
+}
+
+fn median(mut values: Vec<f64>) -> Option<f64> {
+    if values.is_empty() {
+        return None;
+    }
+    let mid = values.len() / 2;
+    let (_, m, _) = values.select_nth_unstable_by(mid, f64::total_cmp);
+    Some(*m)
+}
+
+/// Lagrange's reduction of a two-dimensional basis: the shortest vector and the shortest one
+/// independent of it.
+fn reduce(mut b1: (f64, f64), mut b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
+    let norm2 = |a: (f64, f64)| a.0 * a.0 + a.1 * a.1;
+    for _ in 0..64 {
+        if norm2(b2) < norm2(b1) {
+            std::mem::swap(&mut b1, &mut b2);
+        }
+        let mu = ((b1.0 * b2.0 + b1.1 * b2.1) / norm2(b1)).round();
+        if mu == 0.0 {
+            break;
+        }
+        b2 = (b2.0 - mu * b1.0, b2.1 - mu * b1.1);
+    }
+    (b1, b2)
+}
+
+fn azimuth(a: (f64, f64)) -> f64 {
+    a.0.atan2(a.1).to_degrees().rem_euclid(360.0)
+}
+
+/// The column axis is the basis direction closest to east (ties: smaller azimuth); the row
+/// axis the other, signed so rows run clockwise from columns (negative determinant, as a
+/// north-up grid with y decreasing down the rows).
+fn orient(b1: (f64, f64), b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
+    let neg = |a: (f64, f64)| (-a.0, -a.1);
+    let off_east = |a: (f64, f64)| {
+        let d = (azimuth(a) - 90.0).abs();
+        d.min(360.0 - d)
+    };
+    let candidates = [(b1, b2), (neg(b1), b2), (b2, b1), (neg(b2), b1)];
+    let mut best = candidates[0];
+    for &c in &candidates[1..] {
+        let (dc, db) = (off_east(c.0), off_east(best.0));
+        if dc < db - 1e-9 || ((dc - db).abs() <= 1e-9 && azimuth(c.0) < azimuth(best.0)) {
+            best = c;
+        }
+    }
+    let (col, row) = best;
+    let row = if col.0 * row.1 - col.1 * row.0 > 0.0 {
+        neg(row)
+    } else {
+        row
+    };
+    (col, row)
+}
+
+fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> {
+    let n = p.len();
+    if n < 9 {
+        return Err(format!(
+            "holds only {n} points; a horizon needs at least 3 x 3 nodes"
+        ));
+    }
+    // Coordinates relative to the first point (UTM eastings are ~1e6).
+    let (x0, y0) = (p.x[0], p.y[0]);
+    let u: Vec<f64> = p.x.iter().map(|x| x - x0).collect();
+    let v: Vec<f64> = p.y.iter().map(|y| y - y0).collect();
+    let buckets = Buckets::new(&u, &v).ok_or_else(|| {
+        "has all its points at one place; a horizon needs a two-dimensional grid of points"
+            .to_string()
+    })?;
+    let stride = n.div_ceil(BASIS_SAMPLES);
+    let sample = || (0..n).step_by(stride);
+    let scattered =
+        |what: &str| format!("the points lie on no regular lattice ({what}); {GRID_FIRST}");
+
+    let nearest: Vec<(f64, f64)> = sample()
+        .filter_map(|k| buckets.nearest(&u, &v, k, |_, _| true))
+        .collect();
+    let scale = median(nearest.iter().map(|a| a.0.hypot(a.1)).collect())
+        .ok_or_else(|| scattered("no point has a neighbour"))?;
+    let b1 = mode_vector(&nearest, scale)
+        .ok_or_else(|| scattered("no common step between neighbours"))?;
+    let b1_len = b1.0.hypot(b1.1);
+    let independent =
+        |du: f64, dv: f64| (du * b1.1 - dv * b1.0).abs() > 0.34 * b1_len * du.hypot(dv);
+    let second: Vec<(f64, f64)> = sample()
+        .filter_map(|k| buckets.nearest(&u, &v, k, independent))
+        .collect();
+    let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect()).ok_or_else(|| {
+        "all points lie along one line; a horizon needs a two-dimensional grid of points"
+            .to_string()
+    })?;
+    let b2 = mode_vector(&second, scale2)
+        .ok_or_else(|| scattered("no common second step between neighbours"))?;
+    let (b1, b2) = reduce(b1, b2);
+    let cross = (b1.0 * b2.1 - b1.1 * b2.0).abs();
+    if cross.is_nan() || cross <= 0.1 * b1.0.hypot(b1.1) * b2.0.hypot(b2.1) {
+        return Err(scattered(
+            "the steps between neighbours are nearly parallel",
+        ));
+    }
+    let (col, row) = orient(b1, b2);
+
+    // Indices by rounding, with the lattice refitted on growing neighbourhoods of the first
+    // point so that a slightly-off basis cannot drift across a large grid.
+    let mut lattice = Affine {
+        origin: (0.0, 0.0),
+        col,
+        row,
+    };
+    let round = |a: &Affine, k: usize| a.index(u[k], v[k]).map(|(c, r)| (c.round(), r.round()));
+    for radius in [4.0, 32.0, 256.0, 2048.0, f64::INFINITY] {
+        let current = lattice;
+        let near = |k: usize| {
+            let (c, r) = current.index(u[k], v[k])?;
+            (c.abs() <= radius + 0.5 && r.abs() <= radius + 0.5)
+                .then(|| (c.round(), r.round(), u[k], v[k]))
+        };
+        if let Some(fit) = fit_affine(n, near) {
+            lattice = fit;
+        }
+    }
+    let mut indices: Vec<(f64, f64)> = Vec::with_capacity(n);
+    for _ in 0..8 {
+        let next: Option<Vec<(f64, f64)>> = (0..n).map(|k| round(&lattice, k)).collect();
+        let next = next.ok_or_else(|| scattered("the lattice is degenerate"))?;
+        if next == indices {
+            break;
+        }
+        indices = next;
+        if let Some(fit) = fit_affine(n, |k| Some((indices[k].0, indices[k].1, u[k], v[k]))) {
+            lattice = fit;
+        }
+    }
+    let too_far = indices
+        .iter()
+        .any(|&(c, r)| !(c.abs() < 1e15 && r.abs() < 1e15));
+    if too_far {
+        return Err(scattered("the steps between neighbours do not repeat"));
+    }
+    Ok(indices.iter().map(|&(c, r)| (c as i64, r as i64)).unzip())
+}
+
+// ---------------------------------------------------------------------------------------
+// Least squares and placement
+
+/// Map position relative to the first point: `origin + c col + r row` for node (c, r).
+#[derive(Clone, Copy, Debug)]
+struct Affine {
+    origin: (f64, f64),
+    col: (f64, f64),
+    row: (f64, f64),
+}
+
+impl Affine {
+    fn at(&self, c: f64, r: f64) -> (f64, f64) {
+        (
+            self.origin.0 + c * self.col.0 + r * self.row.0,
+            self.origin.1 + c * self.col.1 + r * self.row.1,
+        )
+    }
+
+    /// Fractional (column, row) of map point (u, v); `None` when degenerate.
+    fn index(&self, u: f64, v: f64) -> Option<(f64, f64)> {
+        let det = self.col.0 * self.row.1 - self.row.0 * self.col.1;
+        if !det.is_finite() || det == 0.0 {
+            return None;
+        }
+        let (du, dv) = (u - self.origin.0, v - self.origin.1);
+        Some((
+            (self.row.1 * du - self.row.0 * dv) / det,
+            (-self.col.1 * du + self.col.0 * dv) / det,
+        ))
+    }
+}
+
+/// Neumaier's compensated sum.
+#[derive(Clone, Copy, Default)]
+struct Sum {
+    s: f64,
+    c: f64,
+}
+
+impl Sum {
+    fn add(&mut self, x: f64) {
+        let t = self.s + x;
+        if self.s.abs() >= x.abs() {
+            self.c += (self.s - t) + x;
+        } else {
+            self.c += (x - t) + self.s;
+        }
+        self.s = t;
+    }
+
+    fn value(self) -> f64 {
+        self.s + self.c
+    }
+}
+
+/// Ordinary least-squares affine map from (c, r) to (u, v) over the points `sample` yields
+/// (`None` skips a point), centred for accuracy; `None` when fewer than 3 points or all on one
+/// line of the index plane.
+fn fit_affine(n: usize, sample: impl Fn(usize) -> Option<(f64, f64, f64, f64)>) -> Option<Affine> {
+    let mut s = [Sum::default(); 4];
+    let mut m = 0usize;
+    for k in 0..n {
+        if let Some((c, r, u, v)) = sample(k) {
+            for (acc, x) in s.iter_mut().zip([c, r, u, v]) {
+                acc.add(x);
+            }
+            m += 1;
+        }
+    }
+    if m < 3 {
+        return None;
+    }
+    let mean = s.map(|a| a.value() / m as f64);
+    let mut p = [Sum::default(); 7];
+    for k in 0..n {
+        if let Some((c, r, u, v)) = sample(k) {
+            let (c, r, u, v) = (c - mean[0], r - mean[1], u - mean[2], v - mean[3]);
+            for (acc, x) in p
+                .iter_mut()
+                .zip([c * c, c * r, r * r, c * u, r * u, c * v, r * v])
+            {
+                acc.add(x);
+            }
+        }
+    }
+    let [scc, scr, srr, scu, sru, scv, srv] = p.map(Sum::value);
+    let det = scc * srr - scr * scr;
+    if !det.is_finite() || det <= 1e-9 * scc * srr {
+        return None;
+    }
+    let solve = |sc: f64, sr: f64| ((srr * sc - scr * sr) / det, (scc * sr - scr * sc) / det);
+    let (uc, ur) = solve(scu, sru);
+    let (vc, vr) = solve(scv, srv);
+    Some(Affine {
+        origin: (
+            mean[2] - uc * mean[0] - ur * mean[1],
+            mean[3] - vc * mean[0] - vr * mean[1],
+        ),
+        col: (uc, vc),
+        row: (ur, vr),
+    })
+}
+
+/// Names a node in messages.
+fn node_name(numbering: &Option<Numbering>, c: usize, r: usize) -> String {
+    match numbering {
+        Some(n) => format!(
+            "inline {}, crossline {}",
+            n.inline_first + r as i64 * n.inline_step,
+            n.crossline_first + c as i64 * n.crossline_step
+        ),
+        None => format!("column {c}, row {r}"),
+    }
+}
+
+fn place(
+    p: Points,
+    (cols_in, rows_in): Indices,
+    numbering: Option<Numbering>,
+    value_columns: Vec<ValueColumn>,
+    tolerance: f64,
+) -> std::result::Result<PointGrid, String> {
+    let n = p.len();
+    let span = |a: &[i64]| {
+        let lo = a.iter().copied().min().unwrap_or(0);
+        let hi = a.iter().copied().max().unwrap_or(0);
+        (lo, hi.abs_diff(lo) + 1)
+    };
+    let ((c0, cols), (r0, rows)) = (span(&cols_in), span(&rows_in));
+    if cols < 3 || rows < 3 {
+        return Err(format!(
+            "the points span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3"
+        ));
+    }
+    let nodes = cols as u128 * rows as u128;
+    if nodes > 20 * n as u128 {
+        let what = match &numbering {
+            Some(_) => "their inline/crossline numbers span",
+            None => "the lattice they seem to lie on spans",
+        };
+        return Err(format!(
+            "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in 20 holds a point, so they look scattered; {GRID_FIRST}"
+        ));
+    }
+    let (cols, rows) = (cols as usize, rows as usize);
+    let index: Vec<(usize, usize)> = cols_in
+        .iter()
+        .zip(&rows_in)
+        .map(|(&c, &r)| ((c - c0) as usize, (r - r0) as usize))
+        .collect();
+    drop((cols_in, rows_in));
+    let (x0, y0) = (p.x[0], p.y[0]);
+    let fit = fit_affine(n, |k| {
+        Some((
+            index[k].0 as f64,
+            index[k].1 as f64,
+            p.x[k] - x0,
+            p.y[k] - y0,
+        ))
+    })
+    .ok_or_else(|| {
+        "the points lie along one line of their lattice; a horizon needs a two-dimensional grid"
+            .to_string()
+    })?;
+    let (column_bin, row_bin) = (fit.col.0.hypot(fit.col.1), fit.row.0.hypot(fit.row.1));
+    let cross = fit.col.0 * fit.row.1 - fit.col.1 * fit.row.0;
+    if !cross.is_finite() || cross.abs() <= 1e-6 * column_bin * row_bin {
+        return Err(
+            "the coordinates do not change across the lattice (bins of no area); check that the x and y columns hold map coordinates (--columns)"
+                .to_string(),
+        );
+    }
+    let bin = column_bin.min(row_bin);
+    let mut worst = (0.0f64, 0usize);
+    let mut off = 0usize;
+    for (k, &(c, r)) in index.iter().enumerate() {
+        let (u, v) = fit.at(c as f64, r as f64);
+        let d = (p.x[k] - x0 - u).hypot(p.y[k] - y0 - v);
+        if d > worst.0 {
+            worst = (d, k);
+        }
+        if d > tolerance * bin {
+            off += 1;
+        }
+    }
+    let (worst_misfit, worst_k) = worst;
+    if off > 0 {
+        let line = p.lines[worst_k];
+        let (c, r) = index[worst_k];
+        let share = worst_misfit / bin;
+        if off * 10 > n {
+            return Err(match &numbering {
+                Some(_) => format!(
+                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({off} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst_misfit:.3} CRS units); check the columns (--columns) and the export"
+                ),
+                None => format!(
+                    "the points lie on no regular lattice ({off} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst_misfit:.3} CRS units); {GRID_FIRST}"
+                ),
+            });
+        }
+        return Err(format!(
+            "line {line} lies {worst_misfit:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance} (points that far off: {off} of {n}); fix those lines, or raise --lattice-tolerance if the export rounds coordinates coarsely",
+            node_name(&numbering, c, r)
+        ));
+    }
+
+    // Nodes: the first point of each; repeats must carry the same values.
+    let bands = p.bands;
+    let same = |a: usize, b: usize| {
+        (0..bands).all(|j| {
+            let (x, y) = (p.value(a, j), p.value(b, j));
+            x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan())
+        })
+    };
+    let mut owner = vec![u32::MAX; cols * rows];
+    let mut repeated = 0;
+    for (k, &(c, r)) in index.iter().enumerate() {
+        let slot = &mut owner[r * cols + c];
+        if *slot == u32::MAX {
+            *slot = k as u32;
+        } else if same(*slot as usize, k) {
+            repeated += 1;
+        } else {
+            let first = *slot as usize;
+            let show = |k: usize| {
+                (0..bands)
+                    .map(|j| p.value(k, j).to_string())
+                    .collect::<Vec<_>>()
+                    .join(" ")
+            };
+            return Err(format!(
+                "lines {} and {} both give node ({}) but with different values ({} vs {}); remove one of them",
+                p.lines[first],
+                p.lines[k],
+                node_name(&numbering, c, r),
+                show(first),
+                show(k)
+            ));
+        }
+    }
+    let mut arrays = vec![Array2::from_elem((rows, cols), f64::NAN); bands];
+    let (mut empty_nodes, mut null_nodes) = (0, 0);
+    for (node, &k) in owner.iter().enumerate() {
+        let (r, c) = (node / cols, node % cols);
+        if k == u32::MAX {
+            empty_nodes += 1;
+            null_nodes += 1;
+            continue;
+        }
+        let mut all_null = true;
+        for (j, band) in arrays.iter_mut().enumerate() {
+            let value = p.value(k as usize, j);
+            all_null &= value.is_nan();
+            band[[r, c]] = value;
+        }
+        null_nodes += all_null as usize;
+    }
+
+    // Geotransform: node (0, 0) is the centre of cell (0, 0).
+    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
+    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
+    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
+    let geo_transform = [
+        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
+        g1,
+        g2,
+        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
+        g4,
+        g5,
+    ];
+    Ok(PointGrid {
+        cols,
+        rows,
+        geo_transform,
+        bands: arrays,
+        value_columns,
+        lattice: LatticeReport {
+            points: n,
+            numbering,
+            column_azimuth: azimuth((g1, g4)),
+            row_azimuth: azimuth((g2, g5)),
+            column_bin,
+            row_bin,
+            worst_misfit,
+            worst_misfit_share: worst_misfit / bin,
+            worst_misfit_line: p.lines[worst_k],
+            empty_nodes,
+            null_nodes,
+            repeated,
+        },
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::demo::survey_geometry;
+
+    /// Deterministic pseudo-random numbers in [0, 1) (SplitMix64, common practice).
+    fn unit(seed: u64) -> f64 {
+        let mut z = seed.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
+    }
+
+    /// Centre of node (c, r) of `gt` (GDAL data model: cell centre at i + 0.5, j + 0.5).
+    fn centre(gt: &[f64; 6], c: usize, r: usize) -> (f64, f64) {
+        let (i, j) = (c as f64 + 0.5, r as f64 + 0.5);
+        (gt[0] + i * gt[1] + j * gt[2], gt[3] + i * gt[4] + j * gt[5])
+    }
+
+    /// A value with many significant digits, printed with Rust's shortest round-trip format.
+    fn value(c: usize, r: usize, band: usize) -> f64 {
+        1000.0 + 0.731 * c as f64 + (r as f64 + 1.0).sqrt() * 3.3 + band as f64 * 0.0123
+    }
+
+    /// One generated export: the nodes of a `cols` x `rows` grid on `gt`, one line each, in a
+    /// scrambled order (node k * 7919 mod n), fields joined by `sep`.
+    struct Export {
+        gt: [f64; 6],
+        cols: usize,
+        rows: usize,
+        /// (first inline, inline step, first crossline, crossline step); rows follow inline.
+        numbering: Option<(i64, i64, i64, i64)>,
+        bands: usize,
+    }
+
+    impl Export {
+        fn new(gt: [f64; 6], cols: usize, rows: usize) -> Self {
+            Self {
+                gt,
+                cols,
+                rows,
+                numbering: None,
+                bands: 1,
+            }
+        }
+
+        /// Lines for every node that `field` gives values for (`None` leaves the node out).
+        fn text(
+            &self,
+            sep: &str,
+            header: Option<&str>,
+            field: impl Fn(usize, usize, usize) -> Option<String>,
+        ) -> String {
+            let n = self.cols * self.rows;
+            assert_ne!(n % 7919, 0);
+            let mut out = String::new();
+            if let Some(h) = header {
+                out.push_str("# exported for a test\n");
+                out.push_str(h);
+                out.push('\n');
+            }
+            for k in 0..n {
+                let node = (k * 7919) % n;
+                let (c, r) = (node % self.cols, node / self.cols);
+                let values: Option<Vec<String>> = (0..self.bands).map(|b| field(c, r, b)).collect();
+                let Some(values) = values else { continue };
+                let (x, y) = centre(&self.gt, c, r);
+                let mut fields = Vec::new();
+                if let Some((il0, ils, xl0, xls)) = self.numbering {
+                    fields.push((il0 + r as i64 * ils).to_string());
+                    fields.push((xl0 + c as i64 * xls).to_string());
+                }
+                fields.push(x.to_string());
+                fields.push(y.to_string());
+                fields.extend(values);
+                out.push_str(&fields.join(sep));
+                out.push('\n');
+            }
+            out
+        }
+
+        /// Every node, values from [`value`].
+        fn full(&self, sep: &str, header: Option<&str>) -> String {
+            self.text(sep, header, |c, r, b| Some(value(c, r, b).to_string()))
+        }
+    }
+
+    fn parse(text: &str, options: &PointOptions) -> Result<PointGrid> {
+        parse_points(text, Path::new("horizon.txt"), options)
+    }
+
+    fn assert_gt(got: &[f64; 6], want: &[f64; 6]) {
+        for (g, w) in got.iter().zip(want) {
+            assert!(
+                (g - w).abs() <= 1e-6,
+                "geotransform {got:?}, expected {want:?}"
+            );
+        }
+    }
+
+    /// Every cell of `grid` is a node of the generating grid `gt` (its centre within 1e-6 of a
+    /// cell of `gt`, GDAL data model), the grids have the same size, and every value equals
+    /// `expected` bit for bit (NaN where `expected` is `None`).
+    fn assert_picture(
+        grid: &PointGrid,
+        gt: &[f64; 6],
+        size: (usize, usize),
+        expected: impl Fn(usize, usize, usize) -> Option<f64>,
+    ) {
+        assert_picture_within(grid, gt, size, expected, 1e-6);
+    }
+
+    /// [`assert_picture`] with cell centres within `cells` of a generating cell centre.
+    fn assert_picture_within(
+        grid: &PointGrid,
+        gt: &[f64; 6],
+        (cols, rows): (usize, usize),
+        expected: impl Fn(usize, usize, usize) -> Option<f64>,
+        cells: f64,
+    ) {
+        assert_eq!(grid.cols * grid.rows, cols * rows, "grid size");
+        let generating = GridGeometry {
+            cols,
+            rows,
+            geo_transform: *gt,
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        for r in 0..grid.rows {
+            for c in 0..grid.cols {
+                let (x, y) = centre(&grid.geo_transform, c, r);
+                let (fc, fr) = generating.map_to_grid(x, y);
+                let (gc, gr) = ((fc - 0.5).round(), (fr - 0.5).round());
+                assert!(
+                    (fc - 0.5 - gc).abs() < cells && (fr - 0.5 - gr).abs() < cells,
+                    "cell ({c}, {r}) is at ({fc}, {fr}) of the generating grid"
+                );
+                assert!(gc >= 0.0 && gr >= 0.0 && gc < cols as f64 && gr < rows as f64);
+                for (b, band) in grid.bands.iter().enumerate() {
+                    let got = band[[r, c]];
+                    match expected(gc as usize, gr as usize, b) {
+                        Some(want) => assert_eq!(
+                            got.to_bits(),
+                            want.to_bits(),
+                            "band {b} cell ({c}, {r}): {got} vs {want}"
+                        ),
+                        None => assert!(got.is_nan(), "band {b} cell ({c}, {r}) should be null"),
+                    }
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn north_up_grid_reads_back_exactly() {
+        // GDAL data model (cell centre at i + 0.5, j + 0.5): a north-up grid's nodes read
+        // back to its own geotransform with g2 = g4 = 0, columns east, rows south.
+        let gt = [500_000.0, 25.0, 0.0, 4_100_000.0, 0.0, -25.0];
+        let e = Export::new(gt, 12, 9);
+        let grid = parse(&e.full(" ", None), &PointOptions::default()).unwrap();
+        assert_eq!((grid.cols, grid.rows), (12, 9));
+        assert_gt(&grid.geo_transform, &gt);
+        assert_eq!((grid.geo_transform[2], grid.geo_transform[4]), (0.0, 0.0));
+        assert_picture(&grid, &gt, (12, 9), |c, r, b| Some(value(c, r, b)));
+        let report = &grid.lattice;
+        assert_eq!(report.points, 108);
+        assert!((report.column_azimuth - 90.0).abs() < 1e-9);
+        assert!((report.row_azimuth - 180.0).abs() < 1e-9);
+        assert!((report.column_bin - 25.0).abs() < 1e-9 && (report.row_bin - 25.0).abs() < 1e-9);
+        assert!(report.worst_misfit < 1e-6);
+        assert_eq!((report.empty_nodes, report.null_nodes), (0, 0));
+        assert_eq!(
+            grid.value_columns,
+            vec![ValueColumn {
+                name: "z".into(),
+                unit: None
+            }]
+        );
+    }
+
+    #[test]
+    fn survey_grids_come_back_identical() {
+        // Canonical orientation of this module: the column axis is the lattice direction
+        // closest to east and rows run 90 deg clockwise from it, as demo::survey_geometry
+        // builds survey grids; so any column azimuth strictly between 45 and 135 comes back
+        // with the generating geotransform (elementary geometry). 115 and 65 are grids rotated
+        // 25 deg from north-up, with 25 m x 12.5 m bins.
+        for azimuth in [46.0, 65.0, 90.0, 115.0, 134.0] {
+            let g = survey_geometry((483_000.5, 3_902_000.25), azimuth, (25.0, 12.5), (17, 11));
+            let e = Export::new(g.geo_transform, 17, 11);
+            let grid = parse(&e.full(",", Some("x,y,z")), &PointOptions::default()).unwrap();
+            assert_eq!((grid.cols, grid.rows), (17, 11), "azimuth {azimuth}");
+            assert_gt(&grid.geo_transform, &g.geo_transform);
+            assert_picture(&grid, &g.geo_transform, (17, 11), |c, r, b| {
+                Some(value(c, r, b))
+            });
+            assert!((grid.lattice.column_azimuth - azimuth).abs() < 1e-9);
+            assert!((grid.lattice.column_bin - 25.0).abs() < 1e-9);
+            assert!((grid.lattice.row_bin - 12.5).abs() < 1e-9);
+            assert!(grid.lattice.numbering.is_none());
+        }
+    }
+
+    #[test]
+    fn inline_crossline_numbering_sets_rows_and_columns() {
+        // Brief: columns follow crossline, rows follow inline, both increasing, steps from the
+        // numbering. Here crosslines increase along azimuth 10 (25 m per step of 4) and inlines
+        // along azimuth 280 (12.5 m per step of 2): a mirrored lattice, which the numbering
+        // keeps (elementary geometry for the vectors).
+        let (sc, cc) = 10f64.to_radians().sin_cos();
+        let (sr, cr) = 280f64.to_radians().sin_cos();
+        let (col, row) = ((25.0 * sc, 25.0 * cc), (12.5 * sr, 12.5 * cr));
+        let origin = (612_345.25, 5_432_100.75);
+        let gt = [
+            origin.0 - 0.5 * col.0 - 0.5 * row.0,
+            col.0,
+            row.0,
+            origin.1 - 0.5 * col.1 - 0.5 * row.1,
+            col.1,
+            row.1,
+        ];
+        let mut e = Export::new(gt, 14, 10);
+        e.numbering = Some((1001, 2, 2001, 4));
+        let text = e.full(" ", Some("Inline Crossline CDP_X CDP_Y TWT [ms]"));
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        assert_eq!((grid.cols, grid.rows), (14, 10));
+        assert_gt(&grid.geo_transform, &gt);
+        assert_picture(&grid, &gt, (14, 10), |c, r, b| Some(value(c, r, b)));
+        assert_eq!(
+            grid.lattice.numbering,
+            Some(Numbering {
+                inline_first: 1001,
+                inline_last: 1019,
+                inline_step: 2,
+                crossline_first: 2001,
+                crossline_last: 2053,
+                crossline_step: 4,
+            })
+        );
+        assert!((grid.lattice.column_azimuth - 10.0).abs() < 1e-9);
+        assert!((grid.lattice.row_azimuth - 280.0).abs() < 1e-9);
+        assert_eq!(
+            grid.value_columns,
+            vec![ValueColumn {
+                name: "TWT".into(),
+                unit: Some("ms".into())
+            }]
+        );
+
+        // From x, y alone the same points take the canonical orientation: the column axis is
+        // the direction closest to east (the reversed inline axis, azimuth 100, 12.5 m), rows
+        // clockwise from it (the reversed crossline axis, azimuth 190).
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("skip,skip,x,y,twt").unwrap()),
+            ..PointOptions::default()
+        };
+        let canonical = parse(&text, &options).unwrap();
+        assert_eq!((canonical.cols, canonical.rows), (10, 14));
+        assert!((canonical.lattice.column_azimuth - 100.0).abs() < 1e-9);
+        assert!((canonical.lattice.row_azimuth - 190.0).abs() < 1e-9);
+        assert!((canonical.lattice.column_bin - 12.5).abs() < 1e-9);
+        assert_picture(&canonical, &gt, (14, 10), |c, r, b| Some(value(c, r, b)));
+        assert_eq!(canonical.value_columns[0].name, "twt");
+        assert_eq!(canonical.value_columns[0].unit.as_deref(), Some("ms"));
+    }
+
+    #[test]
+    fn gaps_sentinels_and_nan_text_are_nulls() {
+        // Brief: nodes without a point, values equal to a nodata sentinel and `nan` text are
+        // nulls; the lattice keeps its full extent (corner nodes present).
+        let g = survey_geometry((350_000.0, 6_200_000.0), 72.0, (12.5, 25.0), (15, 12));
+        let field = |c: usize, r: usize, b: usize| match (c * 7 + r * 3) % 11 {
+            _ if (c, r) == (0, 0) || (c, r) == (14, 11) => Some(value(c, r, b).to_string()),
+            0 => None,
+            1 => Some("-999.25".to_string()),
+            2 => Some(if r.is_multiple_of(2) { "nan" } else { "NaN" }.to_string()),
+            _ => Some(value(c, r, b).to_string()),
+        };
+        let expected = |c: usize, r: usize, b: usize| match (c * 7 + r * 3) % 11 {
+            _ if (c, r) == (0, 0) || (c, r) == (14, 11) => Some(value(c, r, b)),
+            0..=2 => None,
+            _ => Some(value(c, r, b)),
+        };
+        let options = PointOptions {
+            nodata: vec![-999.25],
+            ..PointOptions::default()
+        };
+        let mut e = Export::new(g.geo_transform, 15, 12);
+        let xy = parse(&e.text("\t", None, field), &options).unwrap();
+        assert_gt(&xy.geo_transform, &g.geo_transform);
+        assert_picture(&xy, &g.geo_transform, (15, 12), expected);
+        let missing = (0..15 * 12)
+            .filter(|k| (k % 15 * 7 + k / 15 * 3) % 11 == 0 && ![0, 179].contains(k))
+            .count();
+        let nulls = (0..15 * 12)
+            .filter(|k| (k % 15 * 7 + k / 15 * 3) % 11 <= 2 && ![0, 179].contains(k))
+            .count();
+        assert_eq!(xy.lattice.empty_nodes, missing);
+        assert_eq!(xy.lattice.null_nodes, nulls);
+        assert_eq!(xy.lattice.points, 15 * 12 - missing);
+
+        e.numbering = Some((10, 1, 500, 1));
+        let numbered = parse(&e.text(" ", None, field), &options).unwrap();
+        assert_gt(&numbered.geo_transform, &g.geo_transform);
+        assert_picture(&numbered, &g.geo_transform, (15, 12), expected);
+        // Without the sentinel, -999.25 is a value like any other.
+        let plain = parse(&e.text(" ", None, field), &PointOptions::default()).unwrap();
+        assert_eq!(
+            plain.bands[0][[0, 8]],
+            -999.25,
+            "node (8, 0) holds the sentinel"
+        );
+    }
+
+    #[test]
+    fn sector_files_give_one_band_per_value_column() {
+        // Brief: with x, y (and inline, crossline) recognised, every other header column is a
+        // value column, named as given.
+        let g = survey_geometry((720_000.0, 3_100_000.0), 100.0, (20.0, 20.0), (9, 8));
+        let mut e = Export::new(g.geo_transform, 9, 8);
+        e.numbering = Some((300, 1, 1200, 1));
+        e.bands = 4;
+        let text = e.full("\t", Some("iline\txline\tx\ty\taz15\taz60\taz105\taz150"));
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        let names: Vec<&str> = grid.value_columns.iter().map(|v| v.name.as_str()).collect();
+        assert_eq!(names, ["az15", "az60", "az105", "az150"]);
+        assert_eq!(grid.bands.len(), 4);
+        assert_gt(&grid.geo_transform, &g.geo_transform);
+        assert_picture(&grid, &g.geo_transform, (9, 8), |c, r, b| {
+            Some(value(c, r, b))
+        });
+        // Sector names that are bare azimuths: the recognised names make the line a header.
+        let numeric = text.replace("az", "");
+        let grid = parse(&numeric, &PointOptions::default()).unwrap();
+        let names: Vec<&str> = grid.value_columns.iter().map(|v| v.name.as_str()).collect();
+        assert_eq!(names, ["15", "60", "105", "150"]);
+        assert_picture(&grid, &g.geo_transform, (9, 8), |c, r, b| {
+            Some(value(c, r, b))
+        });
+    }
+
+    #[test]
+    fn every_delimiter_and_unit_suffix_reads_the_same_grid() {
+        // Brief: whitespace, comma, semicolon and tab separation; a unit suffix in () or []
+        // is the value column's unit, lower-cased.
+        let g = survey_geometry((500_100.0, 4_000_050.0), 80.0, (25.0, 25.0), (8, 7));
+        let e = Export::new(g.geo_transform, 8, 7);
+        let cases = [
+            (" ", Some("X Y Depth (ft)"), "Depth", Some("ft")),
+            ("   ", None, "z", None),
+            (",", Some("easting,northing,Depth(FT)"), "Depth", Some("ft")),
+            (", ", Some("\"x\", \"y\", \"z [m]\""), "z", Some("m")),
+            (";", Some("x;y;TWT [ms]"), "TWT", Some("ms")),
+            ("\t", Some("x\ty\televation"), "elevation", None),
+            ("\t\t", None, "z", None),
+        ];
+        for (sep, header, name, unit) in cases {
+            let grid = parse(&e.full(sep, header), &PointOptions::default())
+                .unwrap_or_else(|err| panic!("separator {sep:?}: {err}"));
+            assert_gt(&grid.geo_transform, &g.geo_transform);
+            assert_picture(&grid, &g.geo_transform, (8, 7), |c, r, b| {
+                Some(value(c, r, b))
+            });
+            assert_eq!(grid.value_columns[0].name, name);
+            assert_eq!(grid.value_columns[0].unit.as_deref(), unit);
+        }
+    }
+
+    #[test]
+    fn columns_option_overrides_and_skips() {
+        // Brief: --columns overrides the header and the field-count defaults; skip ignores a
+        // column.
+        let gt = [200_000.0, 50.0, 0.0, 1_500_000.0, 0.0, -50.0];
+        let e = Export::new(gt, 6, 5);
+        let with_extra = e.text(" ", None, |c, r, b| {
+            Some(format!("{} {}", value(c, r, b), c * 100 + r))
+        });
+        // Four fields and no header: --columns says what they are.
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("x, y, Depth (m), skip").unwrap()),
+            ..PointOptions::default()
+        };
+        let err = parse(&with_extra, &PointOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            err.contains("4 fields") && err.contains("--columns x,y,z,skip"),
+            "{err}"
+        );
+        let four = with_extra.replace(' ', ",");
+        let grid = parse(&four, &options).unwrap();
+        assert_gt(&grid.geo_transform, &gt);
+        assert_picture(&grid, &gt, (6, 5), |c, r, b| Some(value(c, r, b)));
+        assert_eq!(
+            grid.value_columns,
+            vec![ValueColumn {
+                name: "Depth".into(),
+                unit: Some("m".into())
+            }]
+        );
+        // A header whose names agree with --columns (value names may differ) is fine.
+        let headed = format!("east,north,z (ft),quality\n{four}");
+        let grid = parse(&headed, &options).unwrap();
+        assert_eq!(grid.value_columns[0].unit.as_deref(), Some("m"));
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("x,y,z,skip").unwrap()),
+            ..PointOptions::default()
+        };
+        let grid = parse(&format!("easting,northing,depth (ft),q\n{four}"), &options).unwrap();
+        assert_eq!(grid.value_columns[0].unit.as_deref(), Some("ft"));
+    }
+
+    #[test]
+    fn column_lists_parse_roles_and_refuse_incomplete_sets() {
+        // Brief: recognised names and their variants, any other name a value column.
+        use ColumnRole::*;
+        assert_eq!(
+            ColumnRole::parse_list("IL, Cross-Line, CDP_X, cdpy, TWT [ms], az15, skip").unwrap(),
+            vec![
+                Inline,
+                Crossline,
+                X,
+                Y,
+                Value("TWT [ms]".into()),
+                Value("az15".into()),
+                Skip
+            ]
+        );
+        assert_eq!(
+            ColumnRole::parse_list("easting,northing,trace,in-line,depth").unwrap(),
+            vec![X, Y, Crossline, Inline, Value("depth".into())]
+        );
+        for (spec, says) in [
+            ("x,z", "no x and y"),
+            ("x,x,y,z", "x columns 2 times"),
+            ("inline,x,y,z", "no crossline"),
+            ("xline,x,y,z", "no inline"),
+            ("x,y,skip", "no value column"),
+            ("x,y,z,Z (ft)", "'z' twice"),
+            ("x,,y,z", "entry 2 is empty"),
+        ] {
+            let err = ColumnRole::parse_list(spec).unwrap_err().to_string();
+            assert!(err.contains(says) && err.contains(spec), "{spec}: {err}");
+        }
+    }
+
+    /// Asserts `text` is refused with one line containing every piece of `says`.
+    fn refused(text: &str, options: &PointOptions, says: &[&str]) -> String {
+        let err = parse(text, options).unwrap_err().to_string();
+        assert!(!err.contains('\n'), "not one line: {err}");
+        for s in says {
+            assert!(err.contains(s), "expected '{s}' in: {err}");
+        }
+        err
+    }
+
+    #[test]
+    fn malformed_files_are_refused_naming_line_column_and_remedy() {
+        // Brief: every refusal is one line naming the file line (and column) and saying what
+        // to do.
+        let d = PointOptions::default();
+        let e = Export::new([0.0, 10.0, 0.0, 100.0, 0.0, -10.0], 4, 4);
+        let good = e.full(" ", Some("x y z"));
+        // Line numbers count the comment and header lines: line 3 is the first point.
+        let edit = |line: usize, field: usize, text: &str| {
+            let mut lines: Vec<String> = good.lines().map(str::to_string).collect();
+            let mut fields: Vec<&str> = lines[line - 1].split(' ').collect();
+            fields[field - 1] = text;
+            lines[line - 1] = fields.join(" ");
+            lines.join("\n")
+        };
+        refused(
+            &edit(7, 3, "12..5"),
+            &d,
+            &["horizon.txt", "line 7, column 3 (z)", "'12..5'", "nan"],
+        );
+        refused(
+            &edit(5, 2, "y?"),
+            &d,
+            &["line 5, column 2 (y)", "'y?' is not a number"],
+        );
+        refused(
+            &edit(4, 1, "inf"),
+            &d,
+            &["line 4, column 1 (x)", "leave out the line"],
+        );
+        refused(
+            &edit(6, 3, "-inf"),
+            &d,
+            &["line 6, column 3 (z)", "not a finite number"],
+        );
+        // A first line of numbers with a typo is data, not a header: its field is named.
+        let headless = e.full(" ", None);
+        let first = headless.lines().next().unwrap().to_string();
+        let fields: Vec<&str> = first.split(' ').collect();
+        let typo = headless.replacen(&first, &format!("{} 9o {}", fields[0], fields[2]), 1);
+        refused(&typo, &d, &["line 1, column 2 (y)", "'9o' is not a number"]);
+        // Semicolon-separated with a decimal comma on line 3 (x and y here are whole numbers).
+        let mut european: Vec<String> = e.full(";", None).lines().map(str::to_string).collect();
+        european[2] = european[2].replacen('.', ",", 1);
+        refused(
+            &european.join("\n"),
+            &d,
+            &["line 3, column 3 (z)", "decimal commas"],
+        );
+        let mut lines: Vec<String> = good.lines().map(str::to_string).collect();
+        lines[8].push_str(" 7");
+        refused(
+            &lines.join("\n"),
+            &d,
+            &["line 9 has 4 fields", "3 columns", "--columns"],
+        );
+        refused(
+            &good.replace("x y z", "a b c"),
+            &d,
+            &["line 2 (a, b, c)", "names no column", "--columns x,y,z"],
+        );
+        refused(
+            &good.replace("x y z", "inline x y z"),
+            &d,
+            &[
+                "line 2",
+                "inline column but no crossline",
+                "--columns skip,x,y,z",
+            ],
+        );
+        refused(
+            &good.replace("x y z", "inline xline depth"),
+            &d,
+            &["line 2", "no x and y", "--columns"],
+        );
+        let four = good
+            .lines()
+            .skip(2)
+            .map(|l| format!("{l} 1\n"))
+            .collect::<String>();
+        refused(
+            &four,
+            &d,
+            &["4 fields", "no header", "--columns x,y,z,skip"],
+        );
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("y,x,z").unwrap()),
+            ..PointOptions::default()
+        };
+        refused(
+            &good,
+            &options,
+            &["column 1 is y", "line 2 names it 'x'", "--columns"],
+        );
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("x,y,z,skip").unwrap()),
+            ..PointOptions::default()
+        };
+        refused(&good, &options, &["4 columns", "line 2 has 3"]);
+        refused("# nothing\n\n", &d, &["no data lines"]);
+        refused(
+            "x y z\n",
+            &d,
+            &["line 1 is a header", "no data lines follow"],
+        );
+        let options = PointOptions {
+            lattice_tolerance: 0.7,
+            ..PointOptions::default()
+        };
+        refused(&good, &options, &["--lattice-tolerance 0.7", "0..0.5"]);
+    }
+
+    #[test]
+    fn inline_numbers_must_be_whole() {
+        // Brief: inline/crossline must be integer-valued; the message names line and column.
+        let mut e = Export::new([0.0, 10.0, 0.0, 100.0, 0.0, -10.0], 4, 4);
+        e.numbering = Some((1, 1, 1, 1));
+        let text = e.full(",", None).replacen("\n3,", "\n3.5,", 1);
+        let line = text.lines().position(|l| l.starts_with("3.5,")).unwrap() + 1;
+        refused(
+            &text,
+            &PointOptions::default(),
+            &[
+                &format!("line {line}, column 1 (inline)"),
+                "'3.5'",
+                "whole line number",
+                "skip",
+            ],
+        );
+    }
+
+    #[test]
+    fn points_off_the_lattice_are_refused_by_line() {
+        // Brief: a point more than lattice_tolerance of the smaller bin off its node is
+        // refused naming its line; within the tolerance it is read onto its node. Jitter here
+        // is at most 0.02 of the 12.5 m bin, one point 0.045 (read) or 0.08 (refused).
+        let g = survey_geometry((431_000.0, 7_001_000.0), 58.0, (25.0, 12.5), (20, 16));
+        let e = Export::new(g.geo_transform, 20, 16);
+        let text = |outlier: f64| {
+            let mut lines = Vec::new();
+            for (k, line) in e.full(" ", None).lines().enumerate() {
+                let f: Vec<f64> = line.split(' ').map(|t| t.parse().unwrap()).collect();
+                let a = std::f64::consts::TAU * unit(2 * k as u64);
+                let d = if k == 77 {
+                    outlier
+                } else {
+                    0.02 * unit(2 * k as u64 + 1)
+                } * 12.5;
+                lines.push(format!(
+                    "{} {} {}",
+                    f[0] + d * a.cos(),
+                    f[1] + d * a.sin(),
+                    f[2]
+                ));
+            }
+            lines.join("\n")
+        };
+        let grid = parse(&text(0.045), &PointOptions::default()).unwrap();
+        assert_eq!(grid.lattice.worst_misfit_line, 78);
+        assert!(grid.lattice.worst_misfit_share < 0.05);
+        let exact = |c, r, b| Some(value(c, r, b));
+        assert_picture_within(&grid, &g.geo_transform, (20, 16), exact, 0.01);
+        let err = refused(
+            &text(0.08),
+            &PointOptions::default(),
+            &[
+                "line 78 lies",
+                "off its lattice node",
+                "--lattice-tolerance",
+            ],
+        );
+        assert!(err.contains("0.08") || err.contains("0.07"), "{err}");
+        // The same point read with a looser tolerance.
+        let loose = PointOptions {
+            lattice_tolerance: 0.1,
+            ..PointOptions::default()
+        };
+        assert_eq!(
+            parse(&text(0.08), &loose)
+                .unwrap()
+                .lattice
+                .worst_misfit_line,
+            78
+        );
+    }
+
+    #[test]
+    fn numbered_points_off_their_lattice_are_refused_by_line() {
+        // Brief: the same misfit check applies to the affine map fitted to the numbering.
+        let mut e = Export::new([800_000.0, 30.0, 0.0, 900_000.0, 0.0, -30.0], 6, 6);
+        e.numbering = Some((1, 1, 1, 1));
+        let text = e.full(" ", Some("il xl x y z"));
+        let bad = text.replacen("800105 ", "800108 ", 1);
+        assert_ne!(bad, text, "the test edits one x");
+        let line = bad.lines().position(|l| l.contains("800108 ")).unwrap() + 1;
+        refused(
+            &bad,
+            &PointOptions::default(),
+            &[
+                &format!("line {line} lies"),
+                "inline",
+                "crossline",
+                "--lattice-tolerance",
+            ],
+        );
+    }
+
+    #[test]
+    fn repeated_nodes_must_agree() {
+        // Brief: duplicate nodes with different values are refused naming both lines;
+        // identical duplicates are read once.
+        let gt = [10_000.0, 5.0, 0.0, 20_000.0, 0.0, -5.0];
+        let e = Export::new(gt, 5, 5);
+        let text = e.full(",", None);
+        let first = text.lines().next().unwrap().to_string();
+        let same = format!("{text}{first}\n");
+        let grid = parse(&same, &PointOptions::default()).unwrap();
+        assert_eq!(grid.lattice.repeated, 1);
+        assert_picture(&grid, &gt, (5, 5), |c, r, b| Some(value(c, r, b)));
+        let (head, _) = first.rsplit_once(',').unwrap();
+        let differ = format!("{text}{head},1234.5\n");
+        refused(
+            &differ,
+            &PointOptions::default(),
+            &["lines 1 and 26", "different values", "remove one"],
+        );
+    }
+
+    #[test]
+    fn lists_smaller_than_three_by_three_are_refused() {
+        // Brief: fewer than 3 distinct columns or rows is refused.
+        let gt = [0.0, 10.0, 0.0, 0.0, 0.0, -10.0];
+        let text = Export::new(gt, 2, 6).full(" ", None);
+        refused(
+            &text,
+            &PointOptions::default(),
+            &["2 x 6 nodes", "at least 3 x 3"],
+        );
+        let text = Export::new(gt, 8, 2).full(" ", None);
+        refused(
+            &text,
+            &PointOptions::default(),
+            &["8 x 2 nodes", "at least 3 x 3"],
+        );
+        let mut e = Export::new(gt, 2, 6);
+        e.numbering = Some((1, 1, 1, 1));
+        refused(
+            &e.full(" ", None),
+            &PointOptions::default(),
+            &["2 x 6 nodes", "at least 3 x 3"],
+        );
+    }
+
+    #[test]
+    fn scattered_points_need_gridding_first() {
+        // Brief: points on no lattice are refused with one line saying they need gridding.
+        let text: String = (0..400u64)
+            .map(|k| {
+                let (x, y) = (
+                    500_000.0 + 2000.0 * unit(3 * k),
+                    4_000_000.0 + 2000.0 * unit(3 * k + 1),
+                );
+                format!("{x} {y} {}\n", 100.0 + unit(3 * k + 2))
+            })
+            .collect();
+        refused(
+            &text,
+            &PointOptions::default(),
+            &["grid them first", "does not grid silently"],
+        );
+        // A lattice holding points at fewer than 1 node in 20: three corners and a few
+        // points of a 100 x 100 lattice.
+        let gt = [0.0, 10.0, 0.0, 0.0, 0.0, -10.0];
+        let e = Export::new(gt, 100, 100);
+        let sparse = e.text(" ", None, |c, r, _| {
+            ((c < 3 && r < 3) || (c, r) == (99, 99) || (c, r) == (99, 0))
+                .then(|| value(c, r, 0).to_string())
+        });
+        refused(
+            &sparse,
+            &PointOptions::default(),
+            &["100 x 100 nodes", "1 node in 20", "grid them first"],
+        );
+        // Numbered points whose coordinates are scattered.
+        let numbered: String = (0..100u64)
+            .map(|k| {
+                format!(
+                    "{} {} {} {} 5\n",
+                    k / 10,
+                    k % 10,
+                    1000.0 * unit(2 * k),
+                    1000.0 * unit(2 * k + 1)
+                )
+            })
+            .collect();
+        refused(
+            &numbered,
+            &PointOptions::default(),
+            &["do not follow the inline/crossline numbering", "--columns"],
+        );
+        // Collinear points.
+        let line: String = (0..30)
+            .map(|k| format!("{} {} 1\n", 10 * k, 5 * k))
+            .collect();
+        refused(
+            &line,
+            &PointOptions::default(),
+            &["along one line", "two-dimensional"],
+        );
+    }
+
+    #[test]
+    fn unusual_lattices_are_found_from_coordinates() {
+        // Elementary geometry: very unequal bins (100 m x 6.25 m), a thin strip (3 columns),
+        // and a large rotated grid with a third of its nodes missing come back on their
+        // generating lattice (survey_geometry orientation, column azimuth in 45..135).
+        let cases = [
+            (78.0, (100.0, 6.25), (9, 60), 0.0),
+            (120.0, (6.25, 100.0), (60, 9), 0.0),
+            (52.0, (25.0, 25.0), (400, 3), 0.0),
+            (97.0, (30.0, 15.0), (3, 300), 0.0),
+            (105.0, (25.0, 12.5), (150, 120), 0.33),
+        ];
+        for (k, (azimuth, bins, (cols, rows), holes)) in cases.into_iter().enumerate() {
+            let g = survey_geometry((620_000.0, 5_100_000.0), azimuth, bins, (cols, rows));
+            let e = Export::new(g.geo_transform, cols, rows);
+            let keep = |c: usize, r: usize| {
+                let corner = (c == 0 || c == cols - 1) && (r == 0 || r == rows - 1);
+                corner || unit((k * 1_000_000 + r * cols + c) as u64) >= holes
+            };
+            let text = e.text(" ", None, |c, r, b| {
+                keep(c, r).then(|| value(c, r, b).to_string())
+            });
+            let grid = parse(&text, &PointOptions::default()).unwrap();
+            assert_gt(&grid.geo_transform, &g.geo_transform);
+            assert_picture(&grid, &g.geo_transform, (cols, rows), |c, r, b| {
+                keep(c, r).then(|| value(c, r, b))
+            });
+        }
+    }
+
+    #[test]
+    fn report_describes_the_lattice_in_one_line() {
+        // The report's own contract: points, source of the lattice, azimuths, bins, misfit.
+        let mut e = Export::new([0.0, 10.0, 0.0, 0.0, 0.0, -20.0], 5, 4);
+        e.numbering = Some((7, 3, 100, 2));
+        let grid = parse(&e.full(" ", None), &PointOptions::default()).unwrap();
+        let line = grid.lattice.describe();
+        assert!(!line.contains('\n'));
+        for s in [
+            "20 points",
+            "inlines 7..16 step 3",
+            "crosslines 100..108 step 2",
+            "90.000 deg",
+            "180.000 deg",
+            "10.0000 x 20.0000",
+            "0 null nodes",
+        ] {
+            assert!(line.contains(s), "'{s}' in {line}");
+        }
+        let geometry = grid.geometry(String::new(), 1.0);
+        assert_eq!(geometry.cell_centre(0, 0), (5.0, -10.0));
+    }
+
+    #[test]
+    fn sniffing_tells_point_lists_from_rasters_and_binaries() {
+        // Brief: text with a header of names or >= 3 numeric fields is a point list; binary
+        // files and GDAL's text raster formats (ESRI ASCII grid, Surfer, GRASS, VRT XML) are
+        // not (their first lines from the formats' documentation, from memory).
+        let dir = tempfile::tempdir().unwrap();
+        let cases: [(&str, &[u8], bool); 12] = [
+            (
+                "a.xyz",
+                b"500000.0 4100000.0 1500.25\n500025.0 4100000.0 1501\n",
+                true,
+            ),
+            ("b.csv", b"# horizon\ninline,xline,x,y,z\n1,1,5,6,7\n", true),
+            ("c.txt", b"X Y Depth (ft)\n1 2 3\n", true),
+            ("d.txt", b"x;y;twt\n", true),
+            ("l.csv", b"inline,xline,x,y,15,45\n1,1,5,6,7,8\n", true),
+            (
+                "e.asc",
+                b"ncols 4\nnrows 3\nxllcorner 0\nyllcorner 0\ncellsize 1\n1 2 3 4\n",
+                false,
+            ),
+            ("f.grd", b"DSAA\n4 3\n0 3\n0 2\n1 5\n", false),
+            ("g.txt", b"north: 4299000.00\nsouth: 4247000.00\n", false),
+            (
+                "h.vrt",
+                b"<VRTDataset rasterXSize=\"512\" rasterYSize=\"512\">\n",
+                false,
+            ),
+            ("i.tif", b"II*\x00\x08\x00\x00\x00\x10\x00", false),
+            ("j.txt", b"1 2\n3 4\n", false),
+            ("k.csv", b"well,md\nA,100\n", false),
+        ];
+        for (name, bytes, expected) in cases {
+            let path = dir.path().join(name);
+            std::fs::write(&path, bytes).unwrap();
+            assert_eq!(is_point_list(&path), expected, "{name}");
+        }
+        assert!(!is_point_list(&dir.path().join("missing.xyz")));
+        let path = dir.path().join("i.tif");
+        let err = read_points(&path, &PointOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("binary") && err.contains("i.tif"), "{err}");
+    }
+}
