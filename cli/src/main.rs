@@ -7,6 +7,7 @@ use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit};
+use flexure_engine::io::points::ColumnRole;
 use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
     AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
@@ -160,6 +161,25 @@ struct ReadArgs {
     /// null, as is a nodata value the file declares.
     #[arg(long, allow_negative_numbers = true)]
     nodata: Vec<f64>,
+    /// Columns of point-list inputs in file order, e.g. inline,xline,x,y,z (roles inline,
+    /// xline, x, y, skip; any other name is a value column, one per sector for sector files);
+    /// default: from the header, else x,y,z (3 columns) or inline,xline,x,y,z (5).
+    #[arg(long, value_parser = columns)]
+    columns: Option<Columns>,
+    /// Largest distance of a point-list point from its lattice node, as a share of the
+    /// smaller bin.
+    #[arg(long, default_value_t = 0.05)]
+    lattice_tolerance: f64,
+}
+
+/// A `--columns` list (a newtype, so clap takes the whole list as one value).
+#[derive(Clone)]
+struct Columns(Vec<ColumnRole>);
+
+fn columns(spec: &str) -> Result<Columns, String> {
+    ColumnRole::parse_list(spec)
+        .map(Columns)
+        .map_err(|e| e.to_string())
 }
 
 impl ReadArgs {
@@ -167,6 +187,8 @@ impl ReadArgs {
         ReadOptions {
             crs: self.crs.clone(),
             nodata: self.nodata.clone(),
+            columns: self.columns.clone().map(|c| c.0),
+            lattice_tolerance: self.lattice_tolerance,
         }
     }
 }

@@ -112,14 +112,6 @@ impl DeclaredUnit {
             _ => return None,
         })
     }
-
-    fn describe(self) -> String {
-        match self {
-            DeclaredUnit::Length(u) => u.name().to_string(),
-            DeclaredUnit::Milliseconds => "ms".into(),
-            DeclaredUnit::Seconds => "s".into(),
-        }
-    }
 }
 
 /// The domain a value name declares (`twt`, `time` -> time; `depth`, `tvdss` -> depth;
@@ -461,8 +453,8 @@ struct Declaration {
 impl Declaration {
     fn what(&self) -> String {
         let mut parts = Vec::new();
-        if let Some(u) = self.unit {
-            parts.push(format!("unit {} ('{}')", u.describe(), self.unit_text));
+        if self.unit.is_some() {
+            parts.push(format!("unit '{}'", self.unit_text));
         }
         if let Some(d) = domain_from_name(&self.name) {
             parts.push(format!("values named '{}' ({})", self.name, d.name()));

@@ -7,11 +7,11 @@
 //! unless `-skipnodata` (osgeo_utils/gdal2xyz.py, GDAL 3.6). The GeoTIFF values are quarter
 //! metres below 10000, which `%g` prints exactly, and the bins and origin are multiples of
 //! 0.5 m, which `%.3f` prints exactly; so the export holds the grid without loss and must read
-//! back to the GeoTIFF's own geotransform and `read_bands` values, bit for bit.
+//! back to the GeoTIFF's own geotransform and `read_raster` values, bit for bit.
 
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::points::{is_point_list, read_points, PointGrid, PointOptions};
-use flexure_engine::io::{read_bands, write_float_geotiff, BandOut, NODATA};
+use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions, NODATA};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -101,7 +101,8 @@ fn gdal2xyz_exports_read_back_to_the_geotiff() {
         values,
     };
     write_float_geotiff(&tif, &geometry, &[band], &[]).unwrap();
-    let (geometry, bands) = read_bands(&tif, None).unwrap();
+    let raster = read_raster(&tif, &ReadOptions::default()).unwrap();
+    let (geometry, bands) = (raster.geometry, raster.bands);
     assert!(
         bands[0].iter().any(|v| v.is_nan()),
         "the test grid has nulls"

@@ -53,13 +53,41 @@ pub(crate) fn take_gdal_messages() -> Vec<String> {
 }
 
 /// How to read an input grid.
-#[derive(Clone, Debug, Default, PartialEq)]
+#[derive(Clone, Debug, PartialEq)]
 pub struct ReadOptions {
     /// CRS to assume when the file declares none (any definition GDAL accepts, e.g.
-    /// "EPSG:32625"); never overrides a declared CRS.
+    /// "EPSG:32625"); never overrides a declared CRS. Point lists declare none, so they need
+    /// it.
     pub crs: Option<String>,
     /// Values that mean null in addition to a declared nodata (sentinels such as -999.25).
     pub nodata: Vec<f64>,
+    /// Column roles of point lists (`--columns`); from the header when `None`.
+    pub columns: Option<Vec<points::ColumnRole>>,
+    /// Largest distance of a point-list point from its lattice node, as a share of the smaller
+    /// bin (`--lattice-tolerance`).
+    pub lattice_tolerance: f64,
+}
+
+impl Default for ReadOptions {
+    fn default() -> Self {
+        let points = points::PointOptions::default();
+        Self {
+            crs: None,
+            nodata: Vec::new(),
+            columns: points.columns,
+            lattice_tolerance: points.lattice_tolerance,
+        }
+    }
+}
+
+impl ReadOptions {
+    fn point_options(&self) -> points::PointOptions {
+        points::PointOptions {
+            columns: self.columns.clone(),
+            nodata: self.nodata.clone(),
+            lattice_tolerance: self.lattice_tolerance,
+        }
+    }
 }
 
 /// A raster as read: placement, every band (NaN nulls), band names, units and metadata, and
@@ -104,14 +132,18 @@ pub fn read_grid(path: &Path, options: &ReadOptions) -> Result<Grid> {
     Ok(read_raster(path, options)?.into_single(path)?.0)
 }
 
-/// Reads every band of a raster with its placement, names, units and metadata. The declared
-/// nodata value, `options.nodata` and every non-finite value are nulls (NaN). A band with no
-/// declared nodata holding a sentinel-like value far outside the rest is refused, naming the
-/// value and `--nodata` (see [`nulls`]); other far outliers are kept and noted.
+/// Reads every band of a raster, or of a point list ([`points`]), with its placement, names,
+/// units and metadata. The declared nodata value, `options.nodata` and every non-finite value
+/// are nulls (NaN). A band with no declared nodata holding a sentinel-like value far outside
+/// the rest is refused, naming the value and `--nodata` (see [`nulls`]); other far outliers
+/// are kept and noted.
 pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     capture_gdal_messages();
     if !path.is_file() {
         return Err(FlexureError::read(path, "no such file"));
+    }
+    if points::is_point_list(path) {
+        return read_point_list(path, options);
     }
     let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
     let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
@@ -128,7 +160,7 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
             .map_err(|e| FlexureError::read(path, e))?
             .mapv(|v| nulls::null_to_nan(v, nodata, &options.nodata));
         if nodata.is_none() {
-            notes.extend(check_undeclared_nulls(&values, path, i)?);
+            notes.extend(check_undeclared_nulls(&values, path, &format!("band {i}"))?);
         }
         bands.push(values);
     }
@@ -142,11 +174,54 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     })
 }
 
+/// A point list on its exact lattice as a raster: bands named after the value columns, units
+/// from their header suffixes, the lattice described in the notes.
+fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
+    let grid = points::read_points(path, &options.point_options())?;
+    let Some(definition) = options.crs.as_deref() else {
+        return Err(FlexureError::input(
+            path,
+            "is a point list, which declares no CRS: give its projected CRS with --crs (e.g. --crs EPSG:32625)",
+        ));
+    };
+    let srs = SpatialRef::from_definition(definition).map_err(|_| {
+        FlexureError::Parameter(format!(
+            "--crs '{definition}' is not a CRS GDAL knows: give e.g. EPSG:32625"
+        ))
+    })?;
+    let (crs_wkt, metres_per_unit) = linear_crs(&srs, path)?;
+    let geometry = grid.geometry(crs_wkt, metres_per_unit);
+    let mut notes = vec![format!(
+        "{}: point list read onto its lattice: {}",
+        path.display(),
+        grid.lattice.describe()
+    )];
+    for (band, column) in grid.bands.iter().zip(&grid.value_columns) {
+        let label = format!("column '{}'", column.name);
+        notes.extend(check_undeclared_nulls(band, path, &label)?);
+    }
+    let info = RasterInfo {
+        names: grid.value_columns.iter().map(|c| c.name.clone()).collect(),
+        units: grid
+            .value_columns
+            .iter()
+            .map(|c| c.unit.clone().unwrap_or_default())
+            .collect(),
+        metadata: Vec::new(),
+    };
+    Ok(Raster {
+        geometry,
+        bands: grid.bands,
+        info,
+        notes,
+    })
+}
+
 /// Refuses a band holding an undeclared sentinel; a note about other far outliers.
 fn check_undeclared_nulls(
     values: &Array2<f64>,
     path: &Path,
-    band: usize,
+    label: &str,
 ) -> Result<Option<String>> {
     let Some(found) = nulls::outliers(values) else {
         return Ok(None);
@@ -155,14 +230,14 @@ fn check_undeclared_nulls(
         return Err(FlexureError::input(
             path,
             format!(
-                "band {band}: {n} cell(s) hold {v}, far outside the other values (median {:.6}) and shaped like a null sentinel, but the file declares no nodata: declare it with --nodata {v} (or fix the values)",
+                "{label}: {n} cell(s) hold {v}, far outside the other values (median {:.6}) and shaped like a null sentinel, but the file declares no nodata: declare it with --nodata {v} (or fix the values)",
                 found.median
             ),
         ));
     }
     let (v, n) = found.values[0];
     Ok(Some(format!(
-        "{} band {band}: {} distinct value(s) lie over {} median absolute deviations from the median {:.6} (e.g. {v} in {n} cell(s)); kept as data: check for picking busts",
+        "{} {label}: {} distinct value(s) lie over {} median absolute deviations from the median {:.6} (e.g. {v} in {n} cell(s)); kept as data: check for picking busts",
         path.display(),
         found.values.len(),
         nulls::OUTLIER_MADS,
@@ -243,6 +318,26 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
             ))
         }
     };
+    let (crs_wkt, metres_per_unit) = linear_crs(&srs, path)?;
+    let geometry = GridGeometry {
+        cols,
+        rows,
+        geo_transform,
+        crs_wkt,
+        metres_per_unit,
+    };
+    if !geometry.is_invertible() {
+        return Err(FlexureError::input(
+            path,
+            "has a degenerate geotransform (cells of zero area)",
+        ));
+    }
+    Ok(geometry)
+}
+
+/// The WKT and metres per linear unit of a projected (or local) CRS; refuses a geographic CRS
+/// or one without a linear unit.
+fn linear_crs(srs: &SpatialRef, path: &Path) -> Result<(String, f64)> {
     if srs.is_geographic() {
         return Err(FlexureError::input(
             path,
@@ -256,38 +351,53 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
             "its CRS has no linear unit: give a projected CRS in metres or feet",
         ));
     }
-    let geometry = GridGeometry {
-        cols,
-        rows,
-        geo_transform,
-        crs_wkt: srs.to_wkt().map_err(|e| FlexureError::read(path, e))?,
-        metres_per_unit,
-    };
-    if !geometry.is_invertible() {
-        return Err(FlexureError::input(
-            path,
-            "has a degenerate geotransform (cells of zero area)",
-        ));
-    }
-    Ok(geometry)
+    let wkt = srs.to_wkt().map_err(|e| FlexureError::read(path, e))?;
+    Ok((wkt, metres_per_unit))
 }
 
 /// One band to write: its values (NaN = null), description and unit.
-pub struct BandOut<'a> {
+pub struct BandOut<'a, T = f32> {
     /// Band description (attribute id).
     pub description: &'a str,
     /// Unit type of the values.
     pub unit: &'a str,
-    /// Values `[row, col]`.
-    pub values: Array2<f32>,
+    /// Values `[row, col]`; non-finite values are written as [`NODATA`].
+    pub values: Array2<T>,
 }
 
-/// Writes a float32 multi-band GeoTIFF on `geometry` atomically (temporary name, read-back
+/// A floating-point sample type GeoTIFF bands are written in: float32 for attributes, float64
+/// where input values must survive exactly (`flexure grid`).
+pub trait FloatSample: GdalType + Copy {
+    /// [`NODATA`] in this type.
+    fn nodata() -> Self;
+    /// Whether the value is finite.
+    fn finite(self) -> bool;
+}
+
+impl FloatSample for f32 {
+    fn nodata() -> Self {
+        NODATA
+    }
+    fn finite(self) -> bool {
+        self.is_finite()
+    }
+}
+
+impl FloatSample for f64 {
+    fn nodata() -> Self {
+        NODATA as f64
+    }
+    fn finite(self) -> bool {
+        self.is_finite()
+    }
+}
+
+/// Writes a float32 (or float64) multi-band GeoTIFF on `geometry` atomically (temporary name, read-back
 /// check, rename). `metadata` is written as dataset-level items of the default domain.
-pub fn write_float_geotiff(
+pub fn write_float_geotiff<T: FloatSample>(
     path: &Path,
     geometry: &GridGeometry,
-    bands: &[BandOut],
+    bands: &[BandOut<T>],
     metadata: &[(String, String)],
 ) -> Result<()> {
     stage_float_geotiff(path, geometry, bands, metadata)?.commit()
@@ -295,10 +405,10 @@ pub fn write_float_geotiff(
 
 /// Writes and checks the GeoTIFF of [`write_float_geotiff`] under a temporary name; the caller
 /// renames it into place with [`StagedFile::commit`] (with the other outputs of the same job).
-pub fn stage_float_geotiff(
+pub fn stage_float_geotiff<T: FloatSample>(
     path: &Path,
     geometry: &GridGeometry,
-    bands: &[BandOut],
+    bands: &[BandOut<T>],
     metadata: &[(String, String)],
 ) -> Result<StagedFile> {
     check_band_sizes(
@@ -315,7 +425,7 @@ pub fn stage_float_geotiff(
             data: b
                 .values
                 .iter()
-                .map(|&v| if v.is_finite() { v } else { NODATA })
+                .map(|&v| if v.finite() { v } else { T::nodata() })
                 .collect(),
         })
         .collect();
@@ -632,7 +742,7 @@ mod tests {
     fn unwritable_target_leaves_nothing() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("missing_sub").join("a.tif");
-        let values = Array2::zeros((4, 5));
+        let values = Array2::<f32>::zeros((4, 5));
         let err = write_float_geotiff(
             &path,
             &geometry(),
@@ -661,7 +771,7 @@ mod tests {
             &[BandOut {
                 description: "z",
                 unit: "m",
-                values: Array2::zeros((4, 5)),
+                values: Array2::<f32>::zeros((4, 5)),
             }],
             &[],
         )
