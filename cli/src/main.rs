@@ -10,8 +10,8 @@ use flexure_engine::horizon::{Domain, HorizonSource, VelocitySource, VelocityUni
 use flexure_engine::io::points::ColumnRole;
 use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
-    AnisotropyJob, AzimuthReference, CurvatureJob, PlanJob, Progress, RenderJob, Silent, StagesJob,
-    VectorAxis, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
+    AnisotropyJob, AzimuthReference, CurvatureJob, GridJob, PlanJob, Progress, RenderJob, Silent,
+    StagesJob, VectorAxis, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -52,6 +52,9 @@ enum Command {
     /// Score candidate lateral azimuths from a pad against the local fast azimuth.
     #[command(after_help = WELL_CAUTION)]
     Plan(PlanArgs),
+    /// Write a point list (or any raster) as the float64 GeoTIFF flexure reads it: the exact
+    /// bin lattice, nulls, value names and units, to check in a GIS and reuse.
+    Grid(GridArgs),
     /// Run the curvature, anisotropy, render, stages and plan jobs on the shipped demo data.
     Demo {
         /// Folder for the results.
@@ -564,6 +567,20 @@ impl DomainArgs {
 }
 
 #[derive(clap::Args)]
+struct GridArgs {
+    /// Point list (x y z, inline xline x y z, sector columns, ...) or raster.
+    input: PathBuf,
+    /// GeoTIFF to write.
+    #[arg(long)]
+    out: PathBuf,
+    #[command(flatten)]
+    read: ReadArgs,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+#[derive(clap::Args)]
 struct CurvatureArgs {
     #[command(flatten)]
     horizon: HorizonArgs,
@@ -669,6 +686,14 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
             let report = args.job()?.run(&Bar::new(args.horizon.quiet))?;
             if !args.horizon.quiet {
                 say(&format!("{report}{CAUTION}"));
+            }
+        }
+        Command::Grid(args) => {
+            let mut job = GridJob::new(&args.input, &args.out);
+            job.read = args.read.options();
+            let report = job.run()?;
+            if !args.quiet {
+                say(&report.to_string());
             }
         }
         Command::Anisotropy(args) => {

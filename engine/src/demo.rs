@@ -377,6 +377,17 @@ pub fn demo_curvature_job(h: &DemoHorizon, data_dir: &Path, out_dir: &Path) -> C
     job
 }
 
+/// The curvature job the demo runs on the Kelvane Marl point export ([`DEMO_POINT_EXPORT`]):
+/// read onto its inline/crossline lattice with the demo CRS and the export's null sentinel.
+pub fn demo_point_curvature_job(data_dir: &Path, out_dir: &Path) -> CurvatureJob {
+    let h = demo_horizons().remove(1);
+    let mut job = demo_curvature_job(&h, data_dir, out_dir);
+    job.horizon.path = data_dir.join(DEMO_POINT_EXPORT);
+    job.read.crs = Some(format!("EPSG:{DEMO_EPSG}"));
+    job.read.nodata = vec![DEMO_POINT_NODATA];
+    job
+}
+
 /// The anisotropy job the demo runs on the sector picks in `data_dir`: vectors on every third
 /// superbin.
 pub fn demo_anisotropy_job(
@@ -667,7 +678,7 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
     let files = horizons
         .iter()
         .map(|h| h.file)
-        .chain([sectors.file])
+        .chain([sectors.file, DEMO_POINT_EXPORT])
         .chain(well_files.iter().map(String::as_str));
     for file in files {
         if !data_dir.join(file).is_file() {
@@ -679,7 +690,9 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
     }
     let curvature = horizons
         .iter()
-        .map(|h| demo_curvature_job(h, data_dir, out_dir).run(progress))
+        .map(|h| demo_curvature_job(h, data_dir, out_dir))
+        .chain([demo_point_curvature_job(data_dir, out_dir)])
+        .map(|job| job.run(progress))
         .collect::<Result<Vec<_>>>()?;
     let anisotropy = demo_anisotropy_job(&sectors, data_dir, out_dir).run()?;
     let maps = demo_render_jobs(data_dir, out_dir)

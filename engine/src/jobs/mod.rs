@@ -3,6 +3,7 @@
 
 mod anisotropy;
 mod curvature;
+mod grid;
 mod render;
 mod stages;
 mod window_study;
@@ -12,6 +13,7 @@ pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
 };
 pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
+pub use grid::{GridJob, GridReport};
 pub use render::{RenderJob, RenderReport};
 pub use stages::{
     PlanJob, PlanReport, StagesJob, StagesReport, WellInput, WellReport, WELL_CAUTION,
