@@ -31,6 +31,20 @@ fn at_centre(bands: &[Array2<f64>]) -> f64 {
     bands[0][(18, 20)]
 }
 
+/// Runs `curvature INPUT --out <a fresh folder> EXTRA...`, which must fail cleanly with
+/// nothing written (`common::fails`); returns the message.
+fn refused(input: &Path, extra: &[&str]) -> String {
+    let out = input.with_file_name("refused_out");
+    let mut args = vec![
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ];
+    args.extend_from_slice(extra);
+    fails(&args, &out)
+}
+
 /// Relative round-off of the float32 outputs.
 const F32: f64 = 1e-6;
 
@@ -137,33 +151,9 @@ fn declared_feet_are_converted_and_a_contradicting_flag_is_refused() {
         F32,
         "--z-unit us-ft",
     );
-    let msg = fails(
-        &[
-            "curvature",
-            ft.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--z-unit",
-            "m",
-            "--windows",
-            "3",
-        ],
-        &d.join("none"),
-    );
+    let msg = refused(&ft, &["--z-unit", "m", "--windows", "3"]);
     assert!(msg.contains("--z-unit m") && msg.contains("ft"), "{msg}");
-    let msg = fails(
-        &[
-            "curvature",
-            m.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--domain",
-            "time",
-            "--velocity",
-            "3000",
-        ],
-        &d.join("none"),
-    );
+    let msg = refused(&m, &["--domain", "time", "--velocity", "3000"]);
     assert!(
         msg.contains("--domain time") && msg.contains("metre"),
         "{msg}"
@@ -240,17 +230,7 @@ fn declared_times_set_the_domain_seconds_become_ms_and_twt_is_an_alias() {
         &["--domain", "twt", "--velocity", "3000"],
     ));
     assert_rel(got, expect, 2e-3, "twt alias");
-    let msg = fails(
-        &[
-            "curvature",
-            ms_path.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--domain",
-            "depth",
-        ],
-        &d.join("none"),
-    );
+    let msg = refused(&ms_path, &["--domain", "depth"]);
     assert!(
         msg.contains("--domain depth") && msg.contains("ms"),
         "{msg}"
@@ -266,29 +246,9 @@ fn velocities_are_checked_for_their_unit() {
     let t = bowl();
     let input = write_unit(d, "t.tif", t.clone(), "ms");
     let out = d.join("out");
-    let msg = fails(
-        &[
-            "curvature",
-            input.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--velocity",
-            "10000",
-        ],
-        &out,
-    );
+    let msg = refused(&input, &["--velocity", "10000"]);
     assert!(msg.contains("ft/s") && msg.contains("1400"), "{msg}");
-    let msg = fails(
-        &[
-            "curvature",
-            input.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-            "--velocity",
-            "3.1",
-        ],
-        &out,
-    );
+    let msg = refused(&input, &["--velocity", "3.1"]);
     assert!(msg.contains("km/s"), "{msg}");
     // t ms at V m/s is V t / 2000 m: the bowl scaled by V / 2000.
     let expect = centre_k_mean(3048.0 / 2000.0);
@@ -300,18 +260,14 @@ fn velocities_are_checked_for_their_unit() {
     assert_rel(got, expect, F32, "ft/s");
     // A velocity grid declaring ft/s contradicts --velocity-unit m/s, and is honoured alone.
     let vgrid = write_unit(d, "v.tif", Array2::from_elem(t.dim(), 10000.0), "ft/s");
-    let msg = fails(
+    let msg = refused(
+        &input,
         &[
-            "curvature",
-            input.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
             "--velocity-grid",
             vgrid.to_str().unwrap(),
             "--velocity-unit",
             "m/s",
         ],
-        &d.join("none"),
     );
     assert!(
         msg.contains("--velocity-unit m/s") && msg.contains("ft/s"),
@@ -337,15 +293,7 @@ fn undeclared_sentinels_are_refused_until_declared() {
     let input = d.join("sentinel.tif");
     write_undeclared(&input, &values);
     let out = d.join("out");
-    let msg = fails(
-        &[
-            "curvature",
-            input.to_str().unwrap(),
-            "--out",
-            out.to_str().unwrap(),
-        ],
-        &out,
-    );
+    let msg = refused(&input, &[]);
     assert!(
         msg.contains("-999.25") && msg.contains("--nodata -999.25"),
         "{msg}"
