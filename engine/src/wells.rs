@@ -468,11 +468,13 @@ pub struct WellSetting {
 /// The measured-depth unit of `table` from the units declared on its length columns `cols`
 /// and the job's `flag`: a declared unit is used (columns that disagree, an unknown unit or a
 /// flag that contradicts it are refused naming both); with none declared the flag, else
-/// metres. Returns the unit and, when it was assumed, a note saying so.
+/// `default` (`(unit, why)`, e.g. metres, or the unit of a stage table's well). Returns the
+/// unit and, when it was assumed, a note saying so.
 pub fn md_unit_of(
     table: &Table,
     cols: &[usize],
     flag: Option<MdUnit>,
+    default: (MdUnit, &str),
 ) -> Result<(MdUnit, Option<String>)> {
     let mut declared: Option<(MdUnit, &str)> = None;
     for &col in cols {
@@ -510,10 +512,12 @@ pub fn md_unit_of(
         (Some((u, _)), _) => Ok((u, None)),
         (None, Some(f)) => Ok((f, None)),
         (None, None) => Ok((
-            MdUnit::Metre,
+            default.0,
             Some(format!(
-                "{}: no unit in the header and no --md-unit: measured depths read as metres",
-                table.path.display()
+                "{}: no unit in the header and no --md-unit: measured depths read in {} ({})",
+                table.path.display(),
+                default.0.name(),
+                default.1
             )),
         )),
     }
@@ -548,7 +552,12 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
         .into_iter()
         .flatten()
         .collect();
-    let (md_unit, note) = md_unit_of(table, &length_cols, setting.md_unit)?;
+    let (md_unit, note) = md_unit_of(
+        table,
+        &length_cols,
+        setting.md_unit,
+        (MdUnit::Metre, "the default"),
+    )?;
     let crs_per_md = md_unit.metres() / setting.metres_per_unit;
     let md = table.numbers(md_col)?;
     for k in 1..md.len() {
@@ -647,7 +656,7 @@ fn survey_stations(
             }
             (t.x, t.y, t.tvd)
         }
-        (None, m) if m == 0.0 => {
+        (None, 0.0) => {
             let (x, y) = setting.wellhead.ok_or_else(|| {
                 table.error(
                     line,
@@ -739,19 +748,21 @@ pub struct Stage {
     pub line: usize,
 }
 
-/// Reads a stage table (`stage,md_top,md_base` or the variants of [`STAGE`], [`MD_TOP`] and
-/// [`MD_BASE`]) with measured depths in its declared unit, the job's `md_unit`, or metres
-/// (see [`md_unit_of`]), converted to CRS units of `metres_per_unit` metres. Refuses empty
-/// names and md_top >= md_base naming the line. Returns the stages and a note when the unit
-/// was assumed.
+/// Reads the stage table of `well` (`stage,md_top,md_base` or the variants of [`STAGE`],
+/// [`MD_TOP`] and [`MD_BASE`]) with measured depths in its declared unit, the job's
+/// `md_unit`, or else the well's unit (see [`md_unit_of`]), converted to CRS units of
+/// `metres_per_unit` metres. Refuses empty names and md_top >= md_base naming the line.
+/// Returns the stages and a note when the unit was assumed.
 pub fn read_stages(
     table: &Table,
     md_unit: Option<MdUnit>,
+    well: &Well,
     metres_per_unit: f64,
 ) -> Result<(Vec<Stage>, Option<String>)> {
     let name_col = table.require(&STAGE)?;
     let (top_col, base_col) = (table.require(&MD_TOP)?, table.require(&MD_BASE)?);
-    let (unit, note) = md_unit_of(table, &[top_col, base_col], md_unit)?;
+    let why = format!("the unit of well {}", well.name);
+    let (unit, note) = md_unit_of(table, &[top_col, base_col], md_unit, (well.md_unit, &why))?;
     let scale = unit.metres() / metres_per_unit;
     let stages = (0..table.rows.len())
         .map(|r| {
@@ -974,7 +985,7 @@ mod tests {
         assert!(well("md,inc,azi\n0,90,90\n1,90,90\n", &setting())
             .unwrap()
             .notes[0]
-            .contains("read as metres"));
+            .contains("measured depths read in m (the default)"));
         let e = well("MD (ft),inc,azi\n0,90,90\n1,90,90\n", &{
             let mut s = setting();
             s.md_unit = Some(MdUnit::Metre);
@@ -1103,7 +1114,8 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("line 1: give columns md,x,y"), "{e}");
-        let st = |t: &str| read_stages(&table(t), None, 1.0).map(|r| r.0);
+        let w = well("md,inc,azi\n0,90,90\n1000,90,90\n", &setting()).unwrap();
+        let st = |t: &str| read_stages(&table(t), None, &w, 1.0).map(|r| r.0);
         let e = st("stage,md_top,md_base\n1,100,200\n2,300,250\n")
             .unwrap_err()
             .to_string();
@@ -1122,7 +1134,7 @@ mod tests {
         let w = well("md,inc,azi\n0,90,90\n1000,90,90\n", &setting()).unwrap();
         let check = |text: &str| {
             let t = table(text);
-            let (stages, _) = read_stages(&t, None, 1.0).unwrap();
+            let (stages, _) = read_stages(&t, None, &w, 1.0).unwrap();
             check_stages(&stages, &w, &t).map_err(|e| e.to_string())
         };
         assert!(check("stage,md_top,md_base\n1,100,200\n2,200,300\n").is_ok());

@@ -447,7 +447,7 @@ impl StagesJob {
         };
         let well = read_well(&input.name, &Table::read(&input.well)?, &setting)?;
         let stage_table = Table::read(&input.stages)?;
-        let (stages, note) = read_stages(&stage_table, self.md_unit, metres_per_unit)?;
+        let (stages, note) = read_stages(&stage_table, self.md_unit, &well, metres_per_unit)?;
         check_stages(&stages, &well, &stage_table)?;
         notes.extend(well.notes.iter().cloned().chain(note));
         Ok(LoadedWell { well, stages })
