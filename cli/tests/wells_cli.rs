@@ -545,6 +545,24 @@ fn wellheads_bind_by_name_not_by_position() {
         msg.contains("--wellhead without a well name is ambiguous with 2 wells (p5, s3)"),
         "{msg}"
     );
+    // The written path reads back as a path well (md, x, y, tvdss) with the same corridors.
+    let again = d.join("again");
+    let back = format!("s3={}", s(&out.join("wells/s3_path.csv")));
+    stages_ok(&a, &again, &["--well", &back, "--stages", s(&ss)]);
+    let pick = |o: &Path| {
+        csv_rows(&o.join("stages.csv"))
+            .into_iter()
+            .filter(|r| r["well"] == "s3")
+            .map(|r| {
+                (
+                    r["n_bins"].clone(),
+                    r["fast_azimuth"].clone(),
+                    r["well_azimuth"].clone(),
+                )
+            })
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(pick(&out), pick(&again));
 }
 
 #[test]

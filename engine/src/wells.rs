@@ -538,9 +538,10 @@ fn check_degrees(table: &Table, col: usize) -> Result<()> {
     }
 }
 
-/// Reads the well `name` from `table`: a deviation survey when it has inclination and azimuth
-/// columns (minimum curvature from the wellhead at md 0, or from a tie-in), else a path of
-/// points with x and y (and `tvd` below KB or `tvdss` below the datum). Refuses, naming the
+/// Reads the well `name` from `table`: a path of points when it has x and y columns (and
+/// `tvd` below KB or `tvdss` below the datum; positions given are used as they are, so a
+/// path written by flexure reads back), else a deviation survey with inclination and azimuth
+/// columns (minimum curvature from the wellhead at md 0, or from a tie-in). Refuses, naming the
 /// file and line: md not strictly increasing, angles out of range, a survey without the
 /// wellhead or tie-in it needs, both `tvd` and `tvdss`, missing columns.
 pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Well> {
@@ -576,11 +577,8 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
         crs_per_md,
         notes: note.into_iter().collect(),
     };
-    match (inc_col, azi_col, x_col, y_col) {
-        (Some(inc), Some(azi), _, _) => {
-            well.stations = survey_stations(table, &md, inc, azi, setting, crs_per_md)?;
-        }
-        (_, _, Some(x), Some(y)) => {
+    match (x_col, y_col, inc_col, azi_col) {
+        (Some(x), Some(y), _, _) => {
             well.trajectory = Trajectory::Polyline;
             well.stations = path_stations(
                 table,
@@ -596,6 +594,9 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
                     table.path.display()
                 ));
             }
+        }
+        (_, _, Some(inc), Some(azi)) => {
+            well.stations = survey_stations(table, &md, inc, azi, setting, crs_per_md)?;
         }
         _ => {
             return Err(table.error(
