@@ -330,7 +330,7 @@ impl StagesJob {
             .transpose()?;
         let offset = self.azimuth_offset(&anisotropy.geometry)?;
         let g = &anisotropy.geometry;
-        let mut notes = Vec::new();
+        let mut notes: Vec<String> = horizon.iter().flat_map(|h| h.notes.clone()).collect();
         let loaded = self
             .wells
             .iter()
