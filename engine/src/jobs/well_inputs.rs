@@ -107,7 +107,8 @@ pub fn read_well_list(path: &Path) -> Result<Vec<WellInput>> {
             let line = e.span().map_or(1, |s| {
                 text[..s.start.min(text.len())].matches('\n').count() + 1
             });
-            FlexureError::input(path, format!("line {line}: {}", e.message().trim()))
+            let message: Vec<&str> = e.message().split_whitespace().collect();
+            FlexureError::input(path, format!("line {line}: {}", message.join(" ")))
         })?;
         list.well
             .into_iter()
