@@ -10,8 +10,9 @@ use flexure_engine::horizon::{Domain, HorizonSource, VelocitySource, VelocityUni
 use flexure_engine::io::points::ColumnRole;
 use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
-    AnisotropyJob, AzimuthReference, CurvatureJob, GridJob, PlanJob, Progress, RenderJob, Silent,
-    StagesJob, VectorAxis, WeightSource, WellInput, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
+    parse_numbers, read_well_list, AnisotropyJob, AzimuthReference, CurvatureJob, GridJob, Named,
+    PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource, WellBindings,
+    WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -223,14 +224,6 @@ fn weight_source(items: &[String]) -> WeightSource {
     }
 }
 
-#[derive(Clone, Copy, ValueEnum)]
-enum MdUnitArg {
-    /// Metres.
-    M,
-    /// International feet.
-    Ft,
-}
-
 /// Parses "X,Y".
 fn point(s: &str) -> Result<(f64, f64), String> {
     let v: Vec<f64> = s
@@ -263,29 +256,50 @@ struct StagesArgs {
     /// anisotropy.tif, or the folder holding it.
     #[arg(long)]
     anisotropy: PathBuf,
-    /// Well path (md,x,y[,tvd]) or deviation survey (md,inc,azi) CSV; repeat for several wells.
-    #[arg(long, required = true)]
-    well: Vec<PathBuf>,
-    /// Stage table CSV (stage,md_top,md_base), one per --well, in the same order.
-    #[arg(long, required = true)]
-    stages: Vec<PathBuf>,
-    /// Wellhead X,Y of a survey well; repeat in --well order.
-    #[arg(long, value_parser = point, allow_negative_numbers = true)]
-    wellhead: Vec<(f64, f64)>,
-    /// TVD of the first survey station.
-    #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
-    kb: f64,
+    /// Well table, NAME=FILE or FILE (named after the file's stem): a deviation survey
+    /// (md,inc,azi) or a path (md,x,y[,tvd|tvdss]); repeat for several wells.
+    #[arg(long, value_parser = named_path, required_unless_present = "wells")]
+    well: Vec<Named<PathBuf>>,
+    /// Well list (TOML, or CSV with the same columns): name, well_file, stage_file,
+    /// wellhead_x, wellhead_y, kb, tie_in_md, tie_in_x, tie_in_y, tie_in_tvd.
+    #[arg(long)]
+    wells: Option<PathBuf>,
+    /// Stage table (stage,md_top,md_base) as NAME=FILE, or bare, one per --well in order.
+    #[arg(long, value_parser = named_path)]
+    stages: Vec<Named<PathBuf>>,
+    /// Wellhead NAME=X,Y of a survey starting at md 0 (CRS units); a bare X,Y only with one
+    /// well.
+    #[arg(long, value_parser = named_point, allow_negative_numbers = true)]
+    wellhead: Vec<Named<(f64, f64)>>,
+    /// Elevation of the measured-depth reference (KB) above the horizons' depth datum, in the
+    /// well's md unit, as NAME=VALUE; a bare VALUE is for every well not named. TVD below
+    /// datum = TVD below KB - KB.
+    #[arg(long, value_parser = named_number, allow_negative_numbers = true)]
+    kb: Vec<Named<f64>>,
+    /// Tie-in NAME=X,Y,TVD of a survey starting below md 0: position (CRS units) and TVD below
+    /// KB (md unit) of its first station; bare X,Y,TVD only with one well.
+    #[arg(long, value_parser = named_triple, allow_negative_numbers = true)]
+    tie_in: Vec<Named<(f64, f64, f64)>>,
     #[command(flatten)]
     corridor: CorridorArgs,
-    /// Unit of measured depths in the well and stage files.
-    #[arg(long, value_enum, default_value = "m")]
-    md_unit: MdUnitArg,
+    /// Unit of measured depths (and TVD and KB) in tables whose headers declare none; a
+    /// header unit it contradicts is refused. Without either: metres, said in the report.
+    #[arg(long, value_enum)]
+    md_unit: Option<ZUnitArg>,
     /// North of survey azimuths.
     #[arg(long, value_enum, default_value = "grid")]
     azimuth_reference: ReferenceArg,
     /// Grid convergence in degrees for true-north surveys (computed from the CRS if omitted).
     #[arg(long, allow_negative_numbers = true)]
     convergence: Option<f64>,
+    /// Horizon to report each stage's stand-off from (TVD minus horizon depth, positive
+    /// below it); any grid in the anisotropy's CRS.
+    #[arg(long)]
+    horizon: Option<PathBuf>,
+    #[command(flatten)]
+    domain: DomainArgs,
+    #[command(flatten)]
+    read: ReadArgs,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
@@ -294,36 +308,53 @@ struct StagesArgs {
     quiet: bool,
 }
 
+/// Parses NAME=FILE or FILE.
+fn named_path(s: &str) -> Result<Named<PathBuf>, String> {
+    Named::parse(s, |v| Ok(PathBuf::from(v)))
+}
+
+/// Parses NAME=X,Y or X,Y.
+fn named_point(s: &str) -> Result<Named<(f64, f64)>, String> {
+    Named::parse(s, |v| parse_numbers(v, 2).map(|p| (p[0], p[1])))
+}
+
+/// Parses NAME=VALUE or VALUE.
+fn named_number(s: &str) -> Result<Named<f64>, String> {
+    Named::parse(s, |v| parse_numbers(v, 1).map(|p| p[0]))
+}
+
+/// Parses NAME=X,Y,TVD or X,Y,TVD.
+fn named_triple(s: &str) -> Result<Named<(f64, f64, f64)>, String> {
+    Named::parse(s, |v| parse_numbers(v, 3).map(|p| (p[0], p[1], p[2])))
+}
+
 impl StagesArgs {
     fn job(&self) -> Result<StagesJob, FlexureError> {
-        if self.well.len() != self.stages.len() {
-            return Err(FlexureError::Parameter(format!(
-                "{} --well and {} --stages given: give one stage table per well",
-                self.well.len(),
-                self.stages.len()
-            )));
-        }
-        let wells = self
-            .well
-            .iter()
-            .zip(&self.stages)
-            .enumerate()
-            .map(|(k, (well, stages))| WellInput {
-                well: well.clone(),
-                stages: stages.clone(),
-                wellhead: self.wellhead.get(k).copied(),
-                kb: self.kb,
-            })
-            .collect();
-        let mut job = StagesJob::new(&self.anisotropy, wells, &self.out);
+        let listed = self
+            .wells
+            .as_deref()
+            .map(read_well_list)
+            .transpose()?
+            .unwrap_or_default();
+        let bindings = WellBindings {
+            wells: self.well.clone(),
+            stages: self.stages.clone(),
+            wellheads: self.wellhead.clone(),
+            kbs: self.kb.clone(),
+            tie_ins: self.tie_in.clone(),
+        };
+        let mut job = StagesJob::new(&self.anisotropy, bindings.bind(listed)?, &self.out);
         job.curvature = self.corridor.curvature.clone();
         job.window = self.corridor.window;
         job.half_width = self.corridor.half_width;
-        job.md_unit_m = match self.md_unit {
-            MdUnitArg::M => 1.0,
-            MdUnitArg::Ft => 0.3048,
-        };
+        job.md_unit = self.md_unit.map(|u| match u {
+            ZUnitArg::M => ZUnit::Metre,
+            ZUnitArg::Ft => ZUnit::Foot,
+            ZUnitArg::UsFt => ZUnit::UsFoot,
+        });
         job.reference = reference(self.azimuth_reference, self.convergence)?;
+        job.horizon = self.horizon.as_deref().map(|h| self.domain.source(h));
+        job.read = self.read.options();
         Ok(job)
     }
 }

@@ -1,6 +1,7 @@
-//! `flexure stages` and `flexure plan` end to end on a synthetic uniform anisotropy field
-//! (fast azimuth 10 degrees, 3 ms) on a 30 m grid, and the bad well and stage inputs named in
-//! the wells issue: one clear line naming file and line, non-zero exit, no output.
+//! `flexure stages` and `flexure plan` end to end on synthetic anisotropy fields (mostly a
+//! uniform fast azimuth of 10 degrees, 3 ms) on a 30 m grid: statistics, units, KB and tie-in,
+//! name binding, well lists, flags, stand-off, and the bad inputs named in the wells issues:
+//! one clear line naming file and line, exit 1, nothing written.
 
 mod common;
 
@@ -13,31 +14,42 @@ use std::path::{Path, PathBuf};
 
 const FAST: f32 = 10.0;
 
-/// A 100 x 100 grid of 30 m bins (origin 500000, 3900000 top-left) with a uniform anisotropy
-/// field, written as DIR/anisotropy.tif.
-fn anisotropy(dir: &Path) -> PathBuf {
-    let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (30.0, 30.0), (100, 100));
+/// The 100 x 100 grid of 30 m bins of these tests (origin 500000, 3900000 top-left).
+fn grid() -> flexure_engine::grid::GridGeometry {
+    survey_geometry((500_000.0, 3_900_000.0), 90.0, (30.0, 30.0), (100, 100))
+}
+
+/// DIR/anisotropy.tif on [`grid`] with band values `value(band, row, col)`.
+fn anisotropy_field(dir: &Path, value: impl Fn(&str, usize, usize) -> f32) -> PathBuf {
     let bands: Vec<BandOut> = FIT_BANDS
         .iter()
-        .map(|b| {
-            let v = match b.id {
-                "magnitude" | "magnitude_unbiased" => 3.0,
-                "azimuth_fast" => FAST,
-                "azimuth_slow" => FAST + 90.0,
-                "magnitude_stderr" => 0.2,
-                "azimuth_stderr" => 2.0,
-                _ => 1.0,
-            };
-            BandOut {
-                description: b.id,
-                unit: b.unit,
-                values: Array2::from_elem((100, 100), v),
-            }
+        .map(|b| BandOut {
+            description: b.id,
+            unit: b.unit,
+            values: Array2::from_shape_fn((100, 100), |(r, c)| value(b.id, r, c)),
         })
         .collect();
     let path = dir.join("anisotropy.tif");
-    write_float_geotiff(&path, &g, &bands, &[]).unwrap();
+    write_float_geotiff(&path, &grid(), &bands, &[]).unwrap();
     path
+}
+
+/// Uniform values of every band: fast azimuth 10 degrees, 3 ms, 8 sectors.
+fn uniform(band: &str) -> f32 {
+    match band {
+        "magnitude" | "magnitude_unbiased" => 3.0,
+        "azimuth_fast" => FAST,
+        "azimuth_slow" => FAST + 90.0,
+        "magnitude_stderr" => 0.2,
+        "azimuth_stderr" => 2.0,
+        "n_sectors" => 8.0,
+        _ => 1.0,
+    }
+}
+
+/// A uniform anisotropy field (fast azimuth 10 degrees, 3 ms) as DIR/anisotropy.tif.
+fn anisotropy(dir: &Path) -> PathBuf {
+    anisotropy_field(dir, |b, _, _| uniform(b))
 }
 
 fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
@@ -328,4 +340,517 @@ fn demo_runs_end_to_end_with_wells_and_a_scan() {
     ] {
         assert!(out.join(f).is_file(), "{f}");
     }
+}
+
+/// Runs `flexure stages` on `a` with `args` and the output `out`; panics with stderr on failure.
+fn stages_ok(a: &Path, out: &Path, args: &[&str]) -> String {
+    let mut all = vec!["stages", "--anisotropy", s(a), "--out", s(out)];
+    all.extend(args);
+    let o = flexure(&all);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
+/// The failure message of `flexure stages` on `a` with `args` (checked clean: exit 1, one
+/// line, nothing written) and that the output folder was not even created.
+fn stages_fail(a: &Path, out: &Path, args: &[&str]) -> String {
+    let mut all = vec!["stages", "--anisotropy", s(a), "--out", s(out)];
+    all.extend(args);
+    let msg = fails(&all, out);
+    assert!(!out.exists(), "nothing may be created on failure: {msg}");
+    msg
+}
+
+/// Column `name` of `rows` as numbers (NaN for empty fields).
+fn column(rows: &[std::collections::HashMap<String, String>], name: &str) -> Vec<f64> {
+    rows.iter()
+        .map(|r| r[name].parse().unwrap_or(f64::NAN))
+        .collect()
+}
+
+/// A survey due east: vertical to 1000, a constant build to horizontal over 500 (so a
+/// quarter circle of radius 500 / (pi/2)), then 1500 horizontal; `md_header` names the md
+/// column (with its unit).
+fn survey_east(md_header: &str) -> String {
+    format!("{md_header},Inc,Azi\n0,0,90\n1000,0,90\n1500,90,90\n3000,90,90\n")
+}
+
+#[test]
+fn kb_shifts_tvd_exactly_and_header_units_are_used() {
+    // Hand-checkable circle geometry: the survey ends (R + 1500) east of the wellhead and
+    // (1000 + R) below KB, R = 500 / (pi/2), in the header's unit: international feet
+    // 0.3048 m, US survey feet 1200/3937 m (exact definitions). TVD below datum = TVD below
+    // KB - KB (common practice), so --kb 100 lowers every tvdss by exactly 100. The stage
+    // table declares no unit and takes its well's.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let stages = write(d, "st.csv", "stage,md_top,md_base\n1,1600,1900\n");
+    let r = 500.0 / std::f64::consts::FRAC_PI_2;
+    for (header, metres, unit) in [
+        ("MD (ft)", 0.3048, "ft"),
+        ("Measured Depth [usft]", 1200.0 / 3937.0, "us-ft"),
+    ] {
+        let well = write(d, "e1.csv", &survey_east(header));
+        let run = |kb: &str, out: &str| {
+            let out = d.join(out);
+            let w = format!("e1={}", s(&well));
+            let st = format!("e1={}", s(&stages));
+            stages_ok(
+                &a,
+                &out,
+                &[
+                    "--well",
+                    &w,
+                    "--stages",
+                    &st,
+                    "--wellhead",
+                    "e1=500300,3898500",
+                    "--kb",
+                    kb,
+                ],
+            );
+            csv_rows(&out.join("wells/e1_path.csv"))
+        };
+        let (base, shifted) = (run("e1=0", "k0"), run("e1=100", "k100"));
+        let key = format!("tvdss ({unit})");
+        let last = base.last().unwrap();
+        let x: f64 = last["x (m)"].parse().unwrap();
+        assert!(
+            (x - 500_300.0 - (r + 1500.0) * metres).abs() < 1e-5,
+            "{header}: x {x}"
+        );
+        let tvd: f64 = last[&key].parse().unwrap();
+        assert!((tvd - (1000.0 + r)).abs() < 1e-5, "{header}: tvd {tvd}");
+        for (a0, a1) in column(&base, &key).iter().zip(column(&shifted, &key)) {
+            assert!((a0 - 100.0 - a1).abs() < 1e-9, "{a0} {a1}");
+        }
+        std::fs::remove_dir_all(d.join("k0")).unwrap();
+        std::fs::remove_dir_all(d.join("k100")).unwrap();
+    }
+}
+
+#[test]
+fn a_survey_below_md_zero_needs_its_tie_in() {
+    // A survey starting at md 900 (as ISCWSA rev 4 well 10): refused without a tie-in, and
+    // with --tie-in it starts there (hand-checkable: the tie-in's TVD below KB minus KB).
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "side.csv", "md,inc,azi\n900,90,90\n2000,90,90\n");
+    let stages = write(d, "side_st.csv", "stage,md_top,md_base\n1,1000,1300\n");
+    let out = d.join("out");
+    let base = [
+        "--well",
+        s(&well),
+        "--stages",
+        s(&stages),
+        "--wellhead",
+        "500300,3898500",
+    ];
+    let msg = stages_fail(&a, &out, &base);
+    assert!(
+        msg.contains("side.csv: line 2: the survey starts at md 900, not 0: give a tie-in"),
+        "{msg}"
+    );
+    let mut args = base.to_vec();
+    args.extend(["--tie-in", "side=500400,3898500,2500", "--kb", "30"]);
+    stages_ok(&a, &out, &args);
+    let path = csv_rows(&out.join("wells/side_path.csv"));
+    assert_eq!(
+        (path[0]["x (m)"].as_str(), path[0]["tvdss (m)"].as_str()),
+        ("500400", "2470")
+    );
+    assert_eq!(path[0]["station"], "1");
+}
+
+#[test]
+fn a_header_unit_contradicted_by_the_option_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "e1.csv", &survey_east("MD (ft)"));
+    let stages = write(d, "st.csv", "stage,md_top,md_base\n1,1600,1900\n");
+    let msg = stages_fail(
+        &a,
+        &d.join("out"),
+        &[
+            "--well",
+            s(&well),
+            "--stages",
+            s(&stages),
+            "--wellhead",
+            "500300,3898500",
+            "--md-unit",
+            "m",
+        ],
+    );
+    assert!(
+        msg.contains("e1.csv: line 1: column 'MD (ft)' declares ft but --md-unit is m"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn wellheads_bind_by_name_not_by_position() {
+    // A path well listed first must not take the survey well's wellhead.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let path = write(d, "p5.csv", EAST_WEST);
+    let survey = write(d, "s3.csv", "md,inc,azi\n0,90,90\n2000,90,90\n");
+    let (ps, ss) = (
+        write(d, "p5_st.csv", STAGES),
+        write(d, "s3_st.csv", "stage,md_top,md_base\n1,100,400\n"),
+    );
+    let out = d.join("out");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            s(&path),
+            "--well",
+            s(&survey),
+            "--stages",
+            s(&ps),
+            "--stages",
+            s(&ss),
+            "--wellhead",
+            "s3=500700,3898200",
+        ],
+    );
+    let rows = csv_rows(&out.join("wells/s3_path.csv"));
+    assert_eq!(
+        (rows[0]["x (m)"].as_str(), rows[0]["y (m)"].as_str()),
+        ("500700", "3898200")
+    );
+    let msg = stages_fail(
+        &a,
+        &d.join("out2"),
+        &[
+            "--well",
+            s(&path),
+            "--well",
+            s(&survey),
+            "--stages",
+            s(&ps),
+            "--stages",
+            s(&ss),
+            "--wellhead",
+            "500700,3898200",
+        ],
+    );
+    assert!(
+        msg.contains("--wellhead without a well name is ambiguous with 2 wells (p5, s3)"),
+        "{msg}"
+    );
+    // The written path reads back as a path well (md, x, y, tvdss) with the same corridors.
+    let again = d.join("again");
+    let back = format!("s3={}", s(&out.join("wells/s3_path.csv")));
+    stages_ok(&a, &again, &["--well", &back, "--stages", s(&ss)]);
+    let pick = |o: &Path| {
+        csv_rows(&o.join("stages.csv"))
+            .into_iter()
+            .filter(|r| r["well"] == "s3")
+            .map(|r| {
+                (
+                    r["n_bins"].clone(),
+                    r["fast_azimuth"].clone(),
+                    r["well_azimuth"].clone(),
+                )
+            })
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(pick(&out), pick(&again));
+}
+
+#[test]
+fn a_well_list_in_toml_or_csv_gives_the_same_result() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let sub = d.join("list");
+    std::fs::create_dir(&sub).unwrap();
+    write(&sub, "p5.csv", EAST_WEST);
+    write(&sub, "p5_st.csv", STAGES);
+    write(&sub, "s3.csv", "md,inc,azi\n0,90,90\n2000,90,90\n");
+    write(&sub, "s3_st.csv", "stage,md_top,md_base\n1,100,400\n");
+    let toml = write(
+        &sub,
+        "wells.toml",
+        "[[well]]\nname = \"pad5\"\nwell_file = \"p5.csv\"\nstage_file = \"p5_st.csv\"\n\n[[well]]\nwell_file = \"s3.csv\"\nstage_file = \"s3_st.csv\"\nwellhead_x = 500700\nwellhead_y = 3898200\nkb = 12\n",
+    );
+    let csv = write(
+        &sub,
+        "wells.csv",
+        "name,well_file,stage_file,wellhead_x,wellhead_y,kb\npad5,p5.csv,p5_st.csv,,,\n,s3.csv,s3_st.csv,500700,3898200,12\n",
+    );
+    let (o1, o2) = (d.join("o1"), d.join("o2"));
+    stages_ok(&a, &o1, &["--wells", s(&toml)]);
+    stages_ok(&a, &o2, &["--wells", s(&csv)]);
+    let read = |o: &Path| std::fs::read_to_string(o.join("stages.csv")).unwrap();
+    assert_eq!(read(&o1), read(&o2));
+    let rows = csv_rows(&o1.join("stages.csv"));
+    assert_eq!(rows.iter().filter(|r| r["well"] == "pad5").count(), 7);
+    assert!(o1.join("wells/s3_path.csv").is_file());
+    let tvd = column(&csv_rows(&o1.join("wells/s3_path.csv")), "tvdss (m)");
+    assert_eq!(tvd[0], -12.0);
+    let bad = write(
+        &sub,
+        "bad.toml",
+        "[[well]]\nwell_file = \"p5.csv\"\nstage_file = \"p5_st.csv\"\nwellhead = [1, 2]\n",
+    );
+    let msg = stages_fail(&a, &d.join("o3"), &["--wells", s(&bad)]);
+    assert!(
+        msg.contains("bad.toml: line 4: unknown field `wellhead`"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn overlaps_and_name_collisions_are_refused_before_anything_is_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "w.csv", EAST_WEST);
+    let good = write(d, "good.csv", STAGES);
+    let out = d.join("out");
+    let cases = [
+        (
+            "stage,md_top,md_base\n1,3000,3300\n2,3200,3500\n",
+            "overlap.csv: line 3: stage 2 (3200 .. 3500 m) overlaps stage 1 on line 2 (3000 .. 3300 m)",
+        ),
+        (
+            "stage,md_top,md_base\nA 1,3000,3300\nA/1,3300,3600\n",
+            "line 3: stage 'A/1' and stage 'A 1' on line 2 give the same file name 'a_1'",
+        ),
+        (
+            "stage,md_top,md_base\nLATERAL,3000,3300\n",
+            "line 2: stage 'LATERAL' would take the file name of the whole-lateral summary",
+        ),
+    ];
+    for (k, (text, expect)) in cases.iter().enumerate() {
+        let name = if k == 0 {
+            "overlap.csv".to_string()
+        } else {
+            format!("c{k}.csv")
+        };
+        let st = write(d, &name, text);
+        let msg = stages_fail(&a, &out, &["--well", s(&well), "--stages", s(&st)]);
+        assert!(msg.contains(expect), "expected '{expect}' in {msg}");
+    }
+    let (w1, w2) = (format!("Pad 1={}", s(&well)), format!("pad_1={}", s(&well)));
+    let msg = stages_fail(
+        &a,
+        &out,
+        &[
+            "--well",
+            &w1,
+            "--well",
+            &w2,
+            "--stages",
+            s(&good),
+            "--stages",
+            s(&good),
+        ],
+    );
+    assert!(
+        msg.contains("wells 'Pad 1'")
+            && msg.contains("'pad_1'")
+            && msg.contains("same output file names 'pad_1'"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn dip_azimuth_is_averaged_as_an_angle() {
+    // Hand-checkable: a plane dipping north with dip azimuths 355 and 5 in a checkerboard:
+    // the circular mean is 0 (the arithmetic mean would be 180), p10 355 and p90 5 (the
+    // deviations -5 and +5 added back mod 360).
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let curv = d.join("curv_w09.tif");
+    let bands = vec![
+        BandOut {
+            description: "dip_azimuth",
+            unit: "degree",
+            values: Array2::from_shape_fn(
+                (100, 100),
+                |(r, c)| if (r + c) % 2 == 0 { 355.0 } else { 5.0 },
+            ),
+        },
+        BandOut {
+            description: "dip",
+            unit: "degree",
+            values: Array2::from_elem((100, 100), 2.0),
+        },
+    ];
+    write_float_geotiff(&curv, &grid(), &bands, &[]).unwrap();
+    let (well, st) = (write(d, "w.csv", EAST_WEST), write(d, "st.csv", STAGES));
+    let out = d.join("out");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            s(&well),
+            "--stages",
+            s(&st),
+            "--curvature",
+            s(&curv),
+        ],
+    );
+    let rows = csv_rows(&out.join("stages.csv"));
+    for r in &rows {
+        let mean: f64 = r["dip_azimuth_mean"].parse().unwrap();
+        assert!(mean.min(360.0 - mean) < 1e-6, "{r:?}");
+        assert_eq!(
+            (r["dip_azimuth_p10"].as_str(), r["dip_azimuth_p90"].as_str()),
+            ("355", "5")
+        );
+        assert_eq!(r["dip_mean"], "2");
+    }
+}
+
+#[test]
+fn thin_mixed_and_cancelling_corridors_are_flagged() {
+    // Stages of 300 m along an east-west well on 30 m bins whose edges fall on the stage ends
+    // and the corridor sides, so each corridor holds exactly 10 x 10 bins (hand-checkable):
+    // stage 1 alternates fast axes 0 and 90 by column (50 each: the doubled angles cancel, so
+    // no mean axis, axial std or angle to well), stage 2 has bins fitted from 6 of the grid's
+    // 8 sectors, stage 3 has 5 fitted bins of 100, stage 4 is clean.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, r, c| match (b, c) {
+        ("azimuth_fast", 20..=29) => 90.0 * (c % 2) as f32,
+        ("n_sectors", 30..=39) => 6.0,
+        ("magnitude", 40..=49) if !(r == 50 && c < 45) => f32::NAN,
+        _ => uniform(b),
+    });
+    let (well, st) = (write(d, "w.csv", EAST_WEST), write(d, "st.csv", STAGES));
+    let out = d.join("out");
+    stages_ok(&a, &out, &["--well", s(&well), "--stages", s(&st)]);
+    let rows = csv_rows(&out.join("stages.csv"));
+    assert_eq!(column(&rows, "n_bins")[..4], [100.0, 100.0, 5.0, 100.0]);
+    let r = &rows[0];
+    assert_eq!(
+        (
+            r["fast_azimuth"].as_str(),
+            r["axial_std"].as_str(),
+            r["angle_to_well"].as_str()
+        ),
+        ("", "", "")
+    );
+    assert!(r["resultant_length"].parse::<f64>().unwrap() < 1e-6);
+    assert!(r["flag"].contains("fast azimuths cancel"), "{r:?}");
+    assert!(
+        rows[1]["flag"].contains("100 bins fitted from fewer than the grid's 8 sectors"),
+        "{:?}",
+        rows[1]
+    );
+    let f3 = &rows[2]["flag"];
+    assert!(
+        f3.contains("only 5 fitted bins (fewer than 10)")
+            && f3.contains("only 5 of 100 corridor cells fitted"),
+        "{f3}"
+    );
+    assert_eq!(rows[3]["flag"], "");
+}
+
+#[test]
+fn a_scan_over_zero_magnitudes_fails_cleanly() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, _, _| {
+        if b.starts_with("magnitude") && !b.ends_with("stderr") {
+            0.0
+        } else {
+            uniform(b)
+        }
+    });
+    let out = d.join("plan");
+    let msg = fails(
+        &[
+            "plan",
+            "--anisotropy",
+            s(&a),
+            "--pad",
+            "501500,3898500",
+            "--lateral",
+            "1200",
+            "--out",
+            s(&out),
+        ],
+        &out,
+    );
+    assert!(
+        msg.contains("anisotropy.tif: every bin the candidate laterals cross has zero magnitude"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn standoff_from_a_dipping_plane_is_known_by_hand() {
+    // A planar horizon z = 3000 + 0.02 (x - 500000) m (depth, dipping east) on its own 25 m
+    // grid, and a horizontal lateral at 3045 m below KB with KB 25 m, so 3020 m below the
+    // datum: stand-off = 3020 - z = 8 - 0.02 (x - 500600). Stage 1 runs x 500600 .. 500900:
+    // 8 to 2 m, mean 5 (bilinear interpolation is exact on a plane; hand-checkable). Positive
+    // means below the horizon.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let g = survey_geometry((499_500.0, 3_900_500.0), 90.0, (25.0, 25.0), (160, 160));
+    let depth = Array2::from_shape_fn((160, 160), |(r, c)| {
+        let (x, _) = g.cell_centre(c, r);
+        (3000.0 + 0.02 * (x - 500_000.0)) as f32
+    });
+    let horizon = d.join("plane.tif");
+    write_float_geotiff(
+        &horizon,
+        &g,
+        &[BandOut {
+            description: "depth",
+            unit: "m",
+            values: depth,
+        }],
+        &[],
+    )
+    .unwrap();
+    let well = write(
+        d,
+        "flat.csv",
+        "md,x,y,tvd\n3000,500600,3898500,3045\n4800,502400,3898500,3045\n",
+    );
+    let st = write(d, "st.csv", STAGES);
+    let out = d.join("out");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            s(&well),
+            "--stages",
+            s(&st),
+            "--kb",
+            "25",
+            "--horizon",
+            s(&horizon),
+        ],
+    );
+    let rows = csv_rows(&out.join("stages.csv"));
+    let near = |v: &str, want: f64| (v.parse::<f64>().unwrap() - want).abs() < 1e-4;
+    let r = &rows[0];
+    assert!(
+        near(&r["standoff_mean"], 5.0)
+            && near(&r["standoff_min"], 2.0)
+            && near(&r["standoff_max"], 8.0),
+        "{r:?}"
+    );
+    let lateral = &rows[6];
+    assert!(
+        near(&lateral["standoff_mean"], -10.0) && near(&lateral["standoff_min"], -28.0),
+        "{lateral:?}"
+    );
 }

@@ -9,6 +9,15 @@
 //!   Stat. Softw. 31(10)): `p = exp(sqrt(1 + 4n + 4(n^2 - Rn^2)) - (1 + 2n))`, `Rn = n R`.
 //!   For weighted or spatially correlated samples `n` is the effective size
 //!   `(sum w)^2 / sum w^2`; neighbouring map bins are correlated, so p is optimistic.
+//! - A mean resultant length below [`RESULTANT_FLOOR`] means the angles cancel: the mean
+//!   direction and standard deviation are undefined (NaN), not numbers from round-off.
+
+/// Mean resultant lengths below this count as zero (angles that cancel). The angles and
+/// weights flexure summarises come from float32 rasters (relative precision 6e-8), so each
+/// unit vector of a (multiplied) angle is known to about 4e-7 and so is their weighted mean:
+/// a resultant below 1e-6 cannot be told from exact cancellation, and its direction would be
+/// round-off.
+pub const RESULTANT_FLOOR: f64 = 1e-6;
 
 /// Summary of weighted angles on a circle of `period` degrees (360 directions, 180 axes).
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -17,11 +26,13 @@ pub struct CircularSummary {
     pub n: usize,
     /// Effective sample size `(sum w)^2 / sum w^2`.
     pub n_eff: f64,
-    /// Weighted mean direction in `0..period` degrees (NaN when `resultant_length` is 0).
+    /// Weighted mean direction in `0..period` degrees (NaN when `resultant_length` is below
+    /// [`RESULTANT_FLOOR`]).
     pub mean: f64,
     /// Mean resultant length of the (multiplied) angles, 0..1.
     pub resultant_length: f64,
-    /// Circular standard deviation in degrees of the original angles.
+    /// Circular standard deviation in degrees of the original angles (NaN when
+    /// `resultant_length` is below [`RESULTANT_FLOOR`]).
     pub circular_std: f64,
     /// Rayleigh p-value of uniformity with `n_eff` samples.
     pub rayleigh_p: f64,
@@ -48,7 +59,8 @@ pub fn summarise(samples: &[(f64, f64)], period: f64) -> Option<CircularSummary>
     let (c, s) = (c / w_sum, s / w_sum);
     let r = c.hypot(s).min(1.0);
     let n_eff = w_sum * w_sum / w2;
-    let mean = if r > 0.0 {
+    let defined = r >= RESULTANT_FLOOR;
+    let mean = if defined {
         (s.atan2(c).to_degrees() / k).rem_euclid(period)
     } else {
         f64::NAN
@@ -58,7 +70,11 @@ pub fn summarise(samples: &[(f64, f64)], period: f64) -> Option<CircularSummary>
         n_eff,
         mean,
         resultant_length: r,
-        circular_std: (-2.0 * r.ln()).sqrt().to_degrees() / k,
+        circular_std: if defined {
+            (-2.0 * r.ln()).sqrt().to_degrees() / k
+        } else {
+            f64::NAN
+        },
         rayleigh_p: rayleigh_p(n_eff, r),
     })
 }
@@ -115,5 +131,21 @@ mod tests {
         assert!((axial_angle(0.0, 179.0) - 1.0).abs() < 1e-12);
         assert!((axial_angle(10.0, 90.0) - 80.0).abs() < 1e-12);
         assert!(summarise(&[(1.0, 0.0)], 180.0).is_none());
+    }
+
+    #[test]
+    fn cancelling_axes_have_no_mean() {
+        // Hand-checkable: axes 0, 45, 90 and 135 double to 0, 90, 180 and 270, whose unit
+        // vectors sum to zero; only round-off (about 1e-16) is left of the resultant.
+        let s = summarise(&equal(&[0.0, 45.0, 90.0, 135.0]), 180.0).unwrap();
+        assert!(
+            s.resultant_length < RESULTANT_FLOOR,
+            "{}",
+            s.resultant_length
+        );
+        assert!(s.mean.is_nan() && s.circular_std.is_nan());
+        // Just above the floor the mean is defined (axes 0 and 90, weights 1 and 1 - 4e-6).
+        let s = summarise(&[(0.0, 1.0), (90.0, 1.0 - 4e-6)], 180.0).unwrap();
+        assert!(s.resultant_length > RESULTANT_FLOOR && s.mean.abs() < 1e-9);
     }
 }

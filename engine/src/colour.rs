@@ -49,12 +49,25 @@ pub struct ColourScale {
     pub clip_note: String,
 }
 
+/// Period in degrees of a band holding angles (360 for `dip_azimuth`, 180 for the axial
+/// anisotropy azimuths `azimuth_fast` and `azimuth_slow`); `None` for any other band. Such
+/// bands are drawn on cyclic scales and averaged as angles.
+pub fn cyclic_period(id: &str) -> Option<f64> {
+    match id {
+        "dip_azimuth" => Some(360.0),
+        "azimuth_slow" | "azimuth_fast" => Some(180.0),
+        _ => None,
+    }
+}
+
 /// The scale kind of a band from its identifier (`curvature::ATTRIBUTES`,
 /// `anisotropy::FIT_BANDS`); an unknown band is diverging if its values take both signs.
 pub fn scale_kind(id: &str, values: &Array2<f64>) -> ScaleKind {
+    if cyclic_period(id).is_some() {
+        return ScaleKind::Cyclic;
+    }
     match id {
         "shape_index" => ScaleKind::ShapeIndex,
-        "dip_azimuth" | "azimuth_slow" | "azimuth_fast" => ScaleKind::Cyclic,
         _ if id.starts_with("k_") => ScaleKind::Diverging,
         "curvedness" | "dip" | "isotropic" | "r2" | "residual_rms" | "n_sectors" => {
             ScaleKind::Sequential
@@ -91,7 +104,7 @@ impl ColourScale {
         }
         let (lo, hi, clip_note) = match kind {
             ScaleKind::Cyclic => {
-                let period = if id == "dip_azimuth" { 360.0 } else { 180.0 };
+                let period = cyclic_period(id).unwrap_or(360.0);
                 (0.0, period, format!("cyclic, 0 .. {period} degrees"))
             }
             ScaleKind::ShapeIndex => (-1.0, 1.0, "full range -1 (bowl) .. +1 (dome)".into()),

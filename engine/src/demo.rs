@@ -417,12 +417,15 @@ pub enum DemoWellShape {
         /// Measured length of the build.
         build_length: f64,
     },
-    /// A plan-view path of the lateral only, starting at `heel` with measured depth `heel_md`.
+    /// A path of the lateral only (`md,x,y,tvd`), starting at `heel` with measured depth
+    /// `heel_md`, TVD below KB going linearly from `tvd.0` at the heel to `tvd.1` at the toe.
     Path {
         /// Heel (x, y).
         heel: (f64, f64),
         /// Measured depth at the heel.
         heel_md: f64,
+        /// TVD below KB at the heel and at the toe.
+        tvd: (f64, f64),
     },
 }
 
@@ -439,43 +442,49 @@ pub struct DemoWell {
     pub lateral: f64,
     /// Stage length (m).
     pub stage_length: f64,
+    /// Elevation of the kelly bushing above the depth datum (m).
+    pub kb: f64,
 }
 
-/// The demo laterals on the Kelvane Marl: two surveys and one plan path in different
-/// directions.
+/// The demo laterals landed near the Kelvane Marl (about 3150 to 3200 m below the datum
+/// there): two surveys and one path in different directions.
 pub fn demo_wells() -> Vec<DemoWell> {
     vec![
         DemoWell {
             name: "tessary_3h",
             shape: DemoWellShape::Survey {
                 wellhead: (480_900.0, 3_902_600.0),
-                kick_off: 2000.0,
+                kick_off: 2800.0,
                 build_length: 600.0,
             },
             azimuth: 140.0,
             lateral: 1950.0,
             stage_length: 150.0,
+            kb: 28.0,
         },
         DemoWell {
             name: "tessary_5h",
             shape: DemoWellShape::Path {
                 heel: (481_000.0, 3_900_900.0),
-                heel_md: 2700.0,
+                heel_md: 3600.0,
+                tvd: (3195.0, 3212.0),
             },
             azimuth: 80.0,
             lateral: 1800.0,
             stage_length: 150.0,
+            kb: 25.0,
         },
         DemoWell {
             name: "tessary_7h",
             shape: DemoWellShape::Survey {
                 wellhead: (483_200.0, 3_901_700.0),
-                kick_off: 2050.0,
+                kick_off: 2900.0,
                 build_length: 500.0,
             },
             azimuth: 200.0,
             lateral: 1500.0,
             stage_length: 150.0,
+            kb: 31.0,
         },
     ]
 }
@@ -503,7 +512,8 @@ impl DemoWell {
         }
     }
 
-    /// The well CSV text: a survey every 30 m, or the lateral path every 50 m.
+    /// The well CSV text: a survey every 30 m (`md,inc,azi`), or the lateral path every 50 m
+    /// (`md,x,y,tvd`, TVD below KB).
     pub fn well_csv(&self) -> String {
         let heel = self.heel_md();
         let total = heel + self.lateral;
@@ -525,13 +535,20 @@ impl DemoWell {
             DemoWellShape::Path {
                 heel: (x0, y0),
                 heel_md,
+                tvd: (tvd0, tvd1),
             } => {
                 let (s, c) = self.azimuth.to_radians().sin_cos();
-                let mut text = String::from("md,x,y\n");
+                let mut text = String::from("md,x,y,tvd\n");
                 let n = (self.lateral / 50.0).ceil() as usize;
                 for k in 0..=n {
                     let d = (50.0 * k as f64).min(self.lateral);
-                    text += &format!("{:.2},{:.3},{:.3}\n", heel_md + d, x0 + d * s, y0 + d * c);
+                    let tvd = tvd0 + (tvd1 - tvd0) * d / self.lateral;
+                    text += &format!(
+                        "{:.2},{:.3},{:.3},{tvd:.2}\n",
+                        heel_md + d,
+                        x0 + d * s,
+                        y0 + d * c
+                    );
                 }
                 text
             }
@@ -556,23 +573,27 @@ pub const DEMO_PAD: (f64, f64) = (481_600.0, 3_901_700.0);
 /// Lateral length of the demo scan (m).
 pub const DEMO_PLAN_LATERAL: f64 = 1500.0;
 
-/// The stages job of the demo: every demo well, anisotropy of the sector picks and the
-/// Kelvane Marl curvature at the map window.
+/// The stages job of the demo: every demo well with its KB (metres, as declared), anisotropy
+/// of the sector picks, the Kelvane Marl curvature at the map window, and the stand-off from
+/// the Kelvane Marl (two-way time with its 3200 m/s velocity).
 pub fn demo_stages_job(data_dir: &Path, out_dir: &Path) -> StagesJob {
     let wells = demo_wells()
         .iter()
-        .map(|w| WellInput {
-            well: data_dir.join(w.well_file()),
-            stages: data_dir.join(w.stages_file()),
-            wellhead: match w.shape {
-                DemoWellShape::Survey { wellhead, .. } => Some(wellhead),
-                DemoWellShape::Path { .. } => None,
-            },
-            kb: 0.0,
+        .map(|w| {
+            let mut input =
+                WellInput::new(data_dir.join(w.well_file()), data_dir.join(w.stages_file()));
+            input.name = w.name.to_string();
+            input.kb = Some(w.kb);
+            if let DemoWellShape::Survey { wellhead, .. } = w.shape {
+                input.wellhead = Some(wellhead);
+            }
+            input
         })
         .collect();
     let mut job = StagesJob::new(out_dir.join("anisotropy"), wells, out_dir.join("stages"));
     job.curvature = Some(kelvane_curvature(data_dir, out_dir));
+    job.md_unit = Some(crate::wells::MdUnit::Metre);
+    job.horizon = Some(demo_curvature_job(&demo_sectors().horizon, data_dir, out_dir).horizon);
     job
 }
 

@@ -316,6 +316,14 @@ impl HorizonSource {
                 ));
                 Ok(file)
             }
+            (None, None) if length_declared => {
+                notes.push(format!(
+                    "{}: {}, a length: read as depth (give --domain elevation for heights)",
+                    self.path.display(),
+                    declared.what()
+                ));
+                Ok(Domain::Depth)
+            }
             (None, None) => {
                 notes.push(format!(
                     "{}: the file declares no domain: read as depth (give --domain to change)",

@@ -1,7 +1,9 @@
 //! Statistics of map bins inside a stage corridor: which bins fall inside, the axial
 //! statistics of their fast azimuths weighted by magnitude (see [`crate::circular`]), the angle
 //! between the well and the mean fast azimuth (REFERENCES.md section 7), percentiles of other
-//! attributes, and the drilling-azimuth score. Pure computation.
+//! attributes (angles as angles: circular mean and percentiles of the deviations from it),
+//! horizon depths under the well (bilinear on cell centres) and the drilling-azimuth score.
+//! Pure computation.
 //!
 //! Reading (REFERENCES.md section 8): hydraulic fractures open against the least principal
 //! stress (Hubbert & Willis 1957), so laterals are commonly drilled near-perpendicular to the
@@ -10,6 +12,7 @@
 use crate::circular::{axial_angle, summarise};
 use crate::grid::GridGeometry;
 use crate::wells::inside;
+use ndarray::Array2;
 
 /// One anisotropy bin inside a corridor.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -127,6 +130,51 @@ pub fn percentiles(values: &[f64]) -> (f64, f64, f64, f64) {
     )
 }
 
+/// (circular mean, p10, p50, p90) of the finite `angles` (degrees) on a circle of `period`
+/// degrees (360 for directions such as dip azimuth, 180 for axes): the mean direction of
+/// [`summarise`] (equal weights), and nearest-rank percentiles of the signed deviations from
+/// it (in `-period/2 .. period/2`) added back modulo `period`. All NaN when there is no angle
+/// or the angles cancel (no mean direction).
+pub fn circular_percentiles(angles: &[f64], period: f64) -> (f64, f64, f64, f64) {
+    let none = (f64::NAN, f64::NAN, f64::NAN, f64::NAN);
+    let samples: Vec<(f64, f64)> = angles.iter().map(|&a| (a, 1.0)).collect();
+    let Some(mean) = summarise(&samples, period)
+        .map(|s| s.mean)
+        .filter(|m| m.is_finite())
+    else {
+        return none;
+    };
+    let half = period / 2.0;
+    let deviations: Vec<f64> = angles
+        .iter()
+        .map(|a| (a - mean + half).rem_euclid(period) - half)
+        .collect();
+    let (_, p10, p50, p90) = percentiles(&deviations);
+    let back = |d: f64| (mean + d).rem_euclid(period);
+    (mean, back(p10), back(p50), back(p90))
+}
+
+/// Value of `values` (on `geometry`'s cells, NaN nulls) at map point (`x`, `y`) by bilinear
+/// interpolation between the four surrounding cell centres; NaN outside the centres' hull or
+/// when any of the four is null.
+pub fn bilinear(geometry: &GridGeometry, values: &Array2<f64>, x: f64, y: f64) -> f64 {
+    let (c, r) = geometry.map_to_grid(x, y);
+    let (u, v) = (c - 0.5, r - 0.5);
+    let (c0, r0) = (u.floor(), v.floor());
+    if !(c0 >= 0.0
+        && r0 >= 0.0
+        && c0 + 1.0 < geometry.cols as f64
+        && r0 + 1.0 < geometry.rows as f64)
+    {
+        return f64::NAN;
+    }
+    let (c0, r0) = (c0 as usize, r0 as usize);
+    let (fu, fv) = (u - c0 as f64, v - r0 as f64);
+    let at = |dr: usize, dc: usize| values[(r0 + dr, c0 + dc)];
+    (1.0 - fv) * ((1.0 - fu) * at(0, 0) + fu * at(0, 1))
+        + fv * ((1.0 - fu) * at(1, 0) + fu * at(1, 1))
+}
+
 /// Drilling score of a lateral at `azimuth` over `bins`, 0..1: the mean of
 /// `sin^2(azimuth - fast)` (1 when the lateral is perpendicular to the fast azimuth), each bin
 /// weighted by its magnitude over its azimuth variance (`B / (stderr^2 + 1)`, degrees^2, so
@@ -202,6 +250,53 @@ mod tests {
             &corridor(&[(499_990.0, 3_898_500.0), (500_200.0, 3_898_500.0)], 150.0),
         );
         assert!(leaves);
+    }
+
+    #[test]
+    fn directions_are_averaged_as_angles() {
+        // Hand-checkable: a plane dipping north has dip azimuths scattered about 0, e.g. 350,
+        // 355, 0, 5, 10: the circular mean is 0 (an arithmetic mean would give 144) and the
+        // deviations -10, -5, 0, 5, 10 give p10 350, p50 0, p90 10.
+        let (mean, p10, p50, p90) = circular_percentiles(&[350.0, 355.0, 0.0, 5.0, 10.0], 360.0);
+        assert!(mean.min(360.0 - mean) < 1e-9, "{mean}");
+        assert!(
+            (p10 - 350.0).abs() < 1e-9 && p50.min(360.0 - p50) < 1e-9 && (p90 - 10.0).abs() < 1e-9
+        );
+        // REFERENCES.md section 6 [S, astropy docs]: circmean of (51, 67, 40, 109, 31, 358) is
+        // 48.62718; the deviations from it sorted are -50.6, -17.6, -8.6, 2.4, 18.4, 60.4, and
+        // nearest ranks round(5 q) (as `percentiles`) pick 2nd, 4th and 6th: -17.6 -> 31,
+        // 2.4 -> 51, 60.4 -> 109 (hand-checkable from the published mean).
+        let (mean, p10, p50, p90) =
+            circular_percentiles(&[51.0, 67.0, 40.0, 109.0, 31.0, 358.0], 360.0);
+        assert!((mean - 48.62718).abs() < 1e-5, "{mean}");
+        assert!(
+            (p10 - 31.0).abs() < 1e-9 && (p50 - 51.0).abs() < 1e-9 && (p90 - 109.0).abs() < 1e-9
+        );
+        // Axes on a 180 circle: 170 and 10 average to 0, not 90.
+        let (mean, ..) = circular_percentiles(&[170.0, 10.0], 180.0);
+        assert!(mean.min(180.0 - mean) < 1e-9, "{mean}");
+        assert!(circular_percentiles(&[0.0, 180.0], 360.0).0.is_nan());
+    }
+
+    #[test]
+    fn bilinear_reproduces_a_plane() {
+        // A plane z = 1000 + 0.1 x - 0.05 y sampled at cell centres is reproduced exactly
+        // between them (bilinear interpolation is exact on planes; elementary).
+        let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (10, 8));
+        let plane = |x: f64, y: f64| 1000.0 + 0.1 * (x - 500_000.0) - 0.05 * (y - 3_900_000.0);
+        let v = Array2::from_shape_fn((8, 10), |(r, c)| {
+            let (x, y) = g.cell_centre(c, r);
+            plane(x, y)
+        });
+        let (x, y) = (500_061.3, 3_899_890.7);
+        assert!((bilinear(&g, &v, x, y) - plane(x, y)).abs() < 1e-9);
+        assert!(
+            bilinear(&g, &v, 500_005.0, 3_899_900.0).is_nan(),
+            "outside the centres"
+        );
+        let mut holed = v.clone();
+        holed[(4, 2)] = f64::NAN;
+        assert!(bilinear(&g, &holed, x, y).is_nan());
     }
 
     #[test]

@@ -49,10 +49,20 @@ pub fn outputs_in(dir: &Path) -> Vec<String> {
         .map(|d| {
             d.map(|e| e.unwrap().file_name().to_string_lossy().to_string())
                 .filter(|n| {
-                    n.contains("_w")
-                        || n.contains("anisotropy")
-                        || n.contains("partial")
-                        || n.contains("window_study")
+                    [
+                        "_w",
+                        "anisotropy",
+                        "partial",
+                        "window_study",
+                        "stage",
+                        "roses",
+                        "wells",
+                        "well_paths",
+                        "sheet",
+                        "plan",
+                    ]
+                    .iter()
+                    .any(|k| n.contains(k))
                 })
                 .collect()
         })

@@ -21,6 +21,7 @@ use std::path::{Path, PathBuf};
 use std::sync::{Mutex, Once};
 
 pub mod nulls;
+pub mod table;
 
 /// Nodata value declared in float outputs.
 pub const NODATA: f32 = -99999.0;

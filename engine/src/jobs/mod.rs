@@ -6,6 +6,7 @@ mod curvature;
 mod grid;
 mod render;
 mod stages;
+mod well_inputs;
 mod window_study;
 
 pub use crate::anisotropy::VectorAxis;
@@ -16,8 +17,10 @@ pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
 pub use render::{RenderJob, RenderReport};
 pub use stages::{
-    PlanJob, PlanReport, StagesJob, StagesReport, WellInput, WellReport, WELL_CAUTION,
+    PlanJob, PlanReport, StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS,
+    MIN_FITTED_SHARE, SAMPLE_STEP_M, WELL_CAUTION,
 };
+pub use well_inputs::{parse_numbers, read_well_list, Named, WellBindings, WellInput};
 pub use window_study::{WindowStudyJob, WindowStudyReport};
 
 /// Progress of a long job, in units of grid rows fitted.
@@ -67,6 +70,8 @@ pub(crate) struct AnisotropyRaster {
     pub(crate) azimuth_slow: ndarray::Array2<f64>,
     pub(crate) magnitude_stderr: ndarray::Array2<f64>,
     pub(crate) azimuth_stderr: ndarray::Array2<f64>,
+    /// Sectors used per bin, when the raster has the `n_sectors` band.
+    pub(crate) n_sectors: Option<ndarray::Array2<f64>>,
 }
 
 impl AnisotropyRaster {
@@ -90,7 +95,9 @@ impl AnisotropyRaster {
                     )
                 })
         };
+        let n_sectors = take("n_sectors").ok();
         Ok(Self {
+            n_sectors,
             magnitude: take("magnitude")?,
             azimuth_fast: take("azimuth_fast")?,
             azimuth_slow: take("azimuth_slow")?,
@@ -99,6 +106,19 @@ impl AnisotropyRaster {
             geometry: raster.geometry,
             path,
         })
+    }
+
+    /// The grid's largest `n_sectors` and how many of the bins `cells` (row, col) were fitted
+    /// from fewer sectors, when there are such bins.
+    pub(crate) fn fewer_sectors(&self, cells: &[(usize, usize)]) -> Option<(usize, usize)> {
+        let n = self.n_sectors.as_ref()?;
+        let max = n
+            .iter()
+            .copied()
+            .filter(|v| v.is_finite())
+            .fold(0.0, f64::max);
+        let few = cells.iter().filter(|&&at| n[at] < max).count();
+        (few > 0).then_some((max as usize, few))
     }
 
     /// The vector sample of bin (`row`, `col`), if fitted.

@@ -1,20 +1,28 @@
 //! The well jobs: `StagesJob` (per-stage corridor statistics, stage table, corridor polygons,
-//! rose diagrams and a sheet per well) and `PlanJob` (a drilling-azimuth scan from a pad).
-//! Both evaluate corridors the same way ([`Corridor`]); all outputs are staged and committed
-//! together.
+//! computed well paths, rose diagrams and a sheet per well, and the stand-off from a horizon)
+//! and `PlanJob` (a drilling-azimuth scan from a pad). Both evaluate corridors the same way
+//! ([`Corridor`]); every input is read and checked before any folder is created, and all
+//! outputs are staged and committed together.
 
 use super::anisotropy::AzimuthReference;
-use super::{stage_bytes, stage_figure, AnisotropyRaster};
+use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
 use crate::circular::axial_angle;
+use crate::colour::cyclic_period;
 use crate::error::{FlexureError, Result};
 use crate::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::grid::GridGeometry;
+use crate::horizon::{Horizon, HorizonSource};
+use crate::io::table::Table;
 use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
 use crate::stages::{
-    cells_inside, corridor_stats, percentiles, perpendicularity_score, BinSample, CorridorStats,
+    bilinear, cells_inside, circular_percentiles, corridor_stats, percentiles,
+    perpendicularity_score, BinSample, CorridorStats,
 };
 use crate::vectors::{stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature};
-use crate::wells::{corridor, parse_stages, parse_well, path_azimuth, Well};
+use crate::wells::{
+    check_stages, corridor, file_name_part, path_azimuth, read_stages, read_well, MdUnit, Stage,
+    Station, Well, WellSetting, LATERAL,
+};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -28,6 +36,18 @@ belong to licensed engineers and geoscientists under local regulations.";
 
 /// Default corridor half width each side of the well, CRS units (150 m, common practice).
 pub const DEFAULT_HALF_WIDTH: f64 = 150.0;
+
+/// Longest step, metres, between the points that trace a well's arc for corridors, stand-off
+/// and the written paths (also at most one bin of the anisotropy grid for corridors).
+pub const SAMPLE_STEP_M: f64 = 10.0;
+
+/// Fewest fitted bins for corridor statistics without a flag (our choice: below about ten
+/// bins an axial mean and a Rayleigh test say little).
+pub const MIN_BINS: usize = 10;
+
+/// Least share of a corridor's cells (inside the grid) that must hold a fit for its
+/// statistics to go unflagged.
+pub const MIN_FITTED_SHARE: f64 = 0.5;
 
 /// Petals of the rose diagrams over 0..180 degrees (10 degrees each).
 const ROSE_PETALS: usize = 18;
@@ -86,27 +106,37 @@ impl Attributes {
         })
     }
 
-    /// (attribute, (mean, p10, p50, p90)) inside `ring`.
+    /// (attribute, (mean, p10, p50, p90)) inside `ring`; bands holding angles (see
+    /// [`cyclic_period`]) get the circular mean and percentiles of the deviations from it.
     fn summarise(&self, ring: &[(f64, f64)]) -> Vec<(String, (f64, f64, f64, f64))> {
         let (cells, _) = cells_inside(&self.geometry, ring);
         self.names
             .iter()
             .zip(&self.bands)
             .map(|(name, band)| {
-                let values: Vec<f64> = cells.iter().map(|&at| band[at]).collect();
-                (name.clone(), percentiles(&values))
+                let values: Vec<f64> = cells
+                    .iter()
+                    .map(|&at| band[at])
+                    .filter(|v| v.is_finite())
+                    .collect();
+                let summary = match cyclic_period(name) {
+                    Some(period) => circular_percentiles(&values, period),
+                    None => percentiles(&values),
+                };
+                (name.clone(), summary)
             })
             .collect()
     }
 }
 
 /// One evaluated corridor.
+#[derive(Clone)]
 struct Corridor {
     ring: Vec<(f64, f64)>,
     stats: CorridorStats,
     bins: Vec<BinSample>,
     curvature: Vec<(String, (f64, f64, f64, f64))>,
-    flag: String,
+    flags: Vec<String>,
 }
 
 impl Corridor {
@@ -119,30 +149,60 @@ impl Corridor {
     ) -> Self {
         let ring = corridor(points, half_width);
         let (cells, leaves) = cells_inside(&anisotropy.geometry, &ring);
-        let bins: Vec<BinSample> = cells
+        let fitted: Vec<(usize, usize)> = cells
             .iter()
-            .filter_map(|&(r, c)| {
-                anisotropy.sample(r, c).map(|s| BinSample {
-                    magnitude: s.magnitude,
-                    azimuth_fast: s.azimuth_fast,
-                    azimuth_stderr: anisotropy.azimuth_stderr[(r, c)],
-                })
+            .copied()
+            .filter(|&(r, c)| anisotropy.sample(r, c).is_some())
+            .collect();
+        let bins: Vec<BinSample> = fitted
+            .iter()
+            .map(|&(r, c)| BinSample {
+                magnitude: anisotropy.magnitude[(r, c)],
+                azimuth_fast: anisotropy.azimuth_fast[(r, c)],
+                azimuth_stderr: anisotropy.azimuth_stderr[(r, c)],
             })
             .collect();
         let stats = corridor_stats(&bins, path_azimuth(points));
-        let flag = match (leaves, bins.is_empty()) {
-            (_, true) => "no fitted anisotropy bins in the corridor".to_string(),
-            (true, false) => "corridor partly outside the anisotropy grid".to_string(),
-            _ => String::new(),
-        };
+        let mut flags = Vec::new();
+        if bins.is_empty() {
+            flags.push("no fitted anisotropy bins in the corridor".to_string());
+        } else if bins.len() < MIN_BINS {
+            flags.push(format!(
+                "only {} fitted bins (fewer than {MIN_BINS})",
+                bins.len()
+            ));
+        }
+        if leaves {
+            flags.push("corridor partly outside the anisotropy grid".to_string());
+        }
+        if !bins.is_empty() && (bins.len() as f64) < MIN_FITTED_SHARE * cells.len() as f64 {
+            flags.push(format!(
+                "only {} of {} corridor cells fitted",
+                bins.len(),
+                cells.len()
+            ));
+        }
+        if let Some((max, few)) = anisotropy.fewer_sectors(&fitted) {
+            flags.push(format!(
+                "{few} bins fitted from fewer than the grid's {max} sectors"
+            ));
+        }
+        if !bins.is_empty() && stats.fast_azimuth.is_nan() {
+            flags.push("fast azimuths cancel: no mean axis".to_string());
+        }
         let curvature = attributes.map_or_else(Vec::new, |a| a.summarise(&ring));
         Self {
             ring,
             stats,
             bins,
             curvature,
-            flag,
+            flags,
         }
+    }
+
+    /// The flags joined for a table cell.
+    fn flag(&self) -> String {
+        self.flags.join("; ")
     }
 
     /// The numeric columns, in [`STAT_COLUMNS`] order, then the curvature columns.
@@ -188,19 +248,6 @@ const STAT_COLUMNS: [&str; 10] = [
     "angle_to_well",
 ];
 
-/// One well's inputs.
-#[derive(Clone, Debug)]
-pub struct WellInput {
-    /// Path (`md,x,y[,tvd]`) or deviation survey (`md,inc,azi`) CSV.
-    pub well: PathBuf,
-    /// Stage table CSV (`stage,md_top,md_base`).
-    pub stages: PathBuf,
-    /// Wellhead (x, y) for a survey.
-    pub wellhead: Option<(f64, f64)>,
-    /// TVD of the first survey station (kelly bushing or datum offset).
-    pub kb: f64,
-}
-
 /// Options of the stages job.
 #[derive(Clone, Debug)]
 pub struct StagesJob {
@@ -214,16 +261,33 @@ pub struct StagesJob {
     pub wells: Vec<WellInput>,
     /// Corridor half width in CRS units.
     pub half_width: f64,
-    /// Metres per measured-depth unit of the well files (1 for metres, 0.3048 for feet).
-    pub md_unit_m: f64,
+    /// Unit of measured depths in well and stage tables whose headers declare none
+    /// (`--md-unit`); a header unit that contradicts it is refused. `None`: the header's
+    /// unit, else metres (said in the report).
+    pub md_unit: Option<MdUnit>,
     /// North of survey azimuths.
     pub reference: AzimuthReference,
+    /// Horizon to measure each stage's stand-off from (any grid in the anisotropy's CRS).
+    pub horizon: Option<HorizonSource>,
+    /// How the horizon is read.
+    pub read: ReadOptions,
     /// Output folder.
     pub out_dir: PathBuf,
 }
 
+/// A well read and checked, with its stage table.
+struct LoadedWell {
+    well: Well,
+    stages: Vec<Stage>,
+}
+
+/// A stage's stand-off from the horizon, in the well's md unit: (mean, min, max) and whether
+/// the horizon is missing under part of it.
+type Standoff = ((f64, f64, f64), bool);
+
 impl StagesJob {
-    /// A job with the defaults: 150 m half width, metres, grid-north surveys.
+    /// A job with the defaults: 150 m half width, md units from the headers (else metres),
+    /// grid-north surveys, no horizon.
     pub fn new(
         anisotropy: impl Into<PathBuf>,
         wells: Vec<WellInput>,
@@ -235,46 +299,55 @@ impl StagesJob {
             window: None,
             wells,
             half_width: DEFAULT_HALF_WIDTH,
-            md_unit_m: 1.0,
+            md_unit: None,
             reference: AzimuthReference::Grid,
+            horizon: None,
+            read: ReadOptions::default(),
             out_dir: out_dir.into(),
         }
     }
 
-    /// Runs the job and reports per well.
+    /// Runs the job and reports per well. Every input is read and checked before any folder
+    /// or file is created.
     pub fn run(&self) -> Result<StagesReport> {
         check_half_width(self.half_width)?;
         if self.wells.is_empty() {
             return Err(FlexureError::Parameter(
-                "no well given: use --well FILE --stages FILE".into(),
+                "no well given: use --well FILE --stages FILE or --wells LIST".into(),
             ));
         }
+        check_well_names(&self.wells)?;
         let anisotropy = AnisotropyRaster::read(&self.anisotropy)?;
         let attributes = self
             .curvature
             .as_deref()
             .map(|p| Attributes::read(p, self.window))
             .transpose()?;
+        let horizon = self
+            .horizon
+            .as_ref()
+            .map(|h| load_horizon(h, &self.read, &anisotropy.geometry))
+            .transpose()?;
         let offset = self.azimuth_offset(&anisotropy.geometry)?;
-        let md_scale = self.md_unit_m / anisotropy.geometry.metres_per_unit;
+        let g = &anisotropy.geometry;
+        let mut notes: Vec<String> = horizon.iter().flat_map(|h| h.notes.clone()).collect();
+        let loaded = self
+            .wells
+            .iter()
+            .map(|input| self.load(input, offset, g.metres_per_unit, &mut notes))
+            .collect::<Result<Vec<_>>>()?;
+        let step = (SAMPLE_STEP_M / g.metres_per_unit).min(g.spacing().0.min(g.spacing().1));
         let mut rows = Vec::new();
-        let mut staged = Vec::new();
         let mut reports = Vec::new();
-        prepare_output_dir(&self.out_dir.join("roses"))?;
-        for input in &self.wells {
-            let (well, stages) = read_well(input, md_scale, offset)?;
-            let mut evaluated = Vec::new();
-            for st in &stages {
-                let points = well
-                    .interval(st.md_top, st.md_base)
-                    .expect("checked inside the path");
-                evaluated.push((
-                    st.name.clone(),
-                    st.md_top,
-                    st.md_base,
-                    Corridor::evaluate(&points, self.half_width, &anisotropy, attributes.as_ref()),
+        let mut sheets = Vec::new();
+        for LoadedWell { well, stages } in &loaded {
+            if horizon.is_some() && well.stations.iter().any(|s| s.tvd.is_nan()) {
+                notes.push(format!(
+                    "{}: the path gives no TVD: no stand-off",
+                    well.name
                 ));
             }
+            let first = rows.len();
             let (top, base) = (
                 stages
                     .iter()
@@ -285,56 +358,99 @@ impl StagesJob {
                     .map(|s| s.md_base)
                     .fold(f64::NEG_INFINITY, f64::max),
             );
-            let lateral_points = well.interval(top, base).expect("checked inside the path");
-            let lateral = Corridor::evaluate(
-                &lateral_points,
-                self.half_width,
-                &anisotropy,
-                attributes.as_ref(),
-            );
-            for (name, t, b, c) in evaluated.iter().chain(std::iter::once(&(
-                "lateral".to_string(),
-                top,
-                base,
-                lateral,
-            ))) {
-                staged.extend(self.stage_rose(&well.name, name, c)?);
+            let intervals = stages
+                .iter()
+                .map(|s| (s.name.as_str(), s.md_top, s.md_base))
+                .chain([(LATERAL, top, base)]);
+            for (name, md_top, md_base) in intervals {
+                let points = well
+                    .sample(md_top, md_base, step)
+                    .expect("checked inside the path");
+                let plan: Vec<(f64, f64)> = points.iter().map(|p| (p.x, p.y)).collect();
+                let mut c =
+                    Corridor::evaluate(&plan, self.half_width, &anisotropy, attributes.as_ref());
+                let standoff = horizon
+                    .as_ref()
+                    .map(|h| standoff(&points, h, well.crs_per_md));
+                if let Some((_, true)) = standoff {
+                    c.flags
+                        .push("horizon missing under part of the stage".into());
+                }
                 rows.push(StageRow {
                     well: well.name.clone(),
-                    stage: name.clone(),
-                    md_top: *t / md_scale,
-                    md_base: *b / md_scale,
-                    corridor: clone_corridor(c),
+                    stage: name.to_string(),
+                    md_top: md_top / well.crs_per_md,
+                    md_base: md_base / well.crs_per_md,
+                    md_unit: well.md_unit,
+                    standoff: standoff.map_or((f64::NAN, f64::NAN, f64::NAN), |s| s.0),
+                    corridor: c,
                 });
             }
-            staged.extend(self.stage_sheet(&well.name, &evaluated)?);
-            let lateral = &rows.last().expect("lateral row").corridor;
+            let well_rows = &rows[first..];
+            let (stage_rows, lateral) = well_rows.split_at(well_rows.len() - 1);
+            sheets.push((well.name.clone(), sheet(&well.name, stage_rows)));
             reports.push(WellReport {
                 well: well.name.clone(),
-                stages: evaluated.len(),
-                flagged: evaluated
+                stages: stage_rows.len(),
+                flagged: stage_rows
                     .iter()
-                    .filter(|e| !e.3.flag.is_empty())
-                    .map(|e| format!("{}: {}", e.0, e.3.flag))
+                    .filter(|r| !r.corridor.flags.is_empty())
+                    .map(|r| format!("{}: {}", r.stage, r.corridor.flag()))
                     .collect(),
-                lateral: lateral.stats,
+                lateral: lateral[0].corridor.stats,
             });
         }
+        // Everything is read and computed: only now are folders created and files staged.
+        for dir in ["roses", "wells"] {
+            prepare_output_dir(&self.out_dir.join(dir))?;
+        }
+        let mut staged = Vec::new();
+        for r in &rows {
+            let fig = stage_rose_figure(&format!("{} {}", r.well, r.stage), &r.corridor);
+            let base = format!("{}_{}", file_name_part(&r.well), file_name_part(&r.stage));
+            staged.extend(stage_figure(&self.out_dir.join("roses").join(base), &fig)?);
+        }
+        for (name, fig) in &sheets {
+            let base = self.out_dir.join(format!("{}_sheet", file_name_part(name)));
+            staged.extend(stage_figure(&base, fig)?);
+        }
+        let wells: Vec<&Well> = loaded.iter().map(|l| &l.well).collect();
+        staged.extend(stage_paths(&self.out_dir, g, &wells)?);
         staged.push(stage_bytes(
             &self.out_dir.join("stages.csv"),
             stage_table(&rows).as_bytes(),
         )?);
-        staged.extend(stage_corridors(
-            &self.out_dir,
-            "stage_corridors",
-            &anisotropy.geometry,
-            &rows,
-        )?);
+        staged.extend(stage_corridors(&self.out_dir, "stage_corridors", g, &rows)?);
         commit_all(staged)?;
         Ok(StagesReport {
             out_dir: self.out_dir.clone(),
             wells: reports,
+            notes,
         })
+    }
+
+    /// Reads and checks one well and its stage table; notes on assumed units go to `notes`.
+    fn load(
+        &self,
+        input: &WellInput,
+        azimuth_offset: f64,
+        metres_per_unit: f64,
+        notes: &mut Vec<String>,
+    ) -> Result<LoadedWell> {
+        let setting = WellSetting {
+            wellhead: input.wellhead,
+            kb: input.kb.unwrap_or(0.0),
+            tie_in: input.tie_in,
+            md_unit: self.md_unit,
+            azimuth_offset,
+            metres_per_unit,
+        };
+        let well = read_well(&input.name, &Table::read(&input.well)?, &setting)?;
+        let stage_table = Table::read(&input.stages)?;
+        let (stages, note) = read_stages(&stage_table, self.md_unit, &well, metres_per_unit)?;
+        check_stages(&stages, &well, &stage_table)?;
+        notes.extend(well.notes.iter().cloned().chain(note));
+        Ok(LoadedWell { well, stages })
     }
 
     fn azimuth_offset(&self, g: &GridGeometry) -> Result<f64> {
@@ -350,36 +466,62 @@ impl StagesJob {
             }),
         }
     }
-
-    fn stage_rose(&self, well: &str, stage: &str, c: &Corridor) -> Result<Vec<StagedFile>> {
-        let fig = stage_rose_figure(&format!("{well} {stage}"), c);
-        stage_figure(
-            &self
-                .out_dir
-                .join("roses")
-                .join(format!("{}_{}", safe(well), safe(stage))),
-            &fig,
-        )
-    }
-
-    fn stage_sheet(
-        &self,
-        well: &str,
-        stages: &[(String, f64, f64, Corridor)],
-    ) -> Result<Vec<StagedFile>> {
-        let fig = sheet(well, stages);
-        stage_figure(&self.out_dir.join(format!("{}_sheet", safe(well))), &fig)
-    }
 }
 
-fn clone_corridor(c: &Corridor) -> Corridor {
-    Corridor {
-        ring: c.ring.clone(),
-        stats: c.stats,
-        bins: Vec::new(),
-        curvature: c.curvature.clone(),
-        flag: c.flag.clone(),
+/// Refuses two wells whose names give the same output file names (case ignored).
+fn check_well_names(wells: &[WellInput]) -> Result<()> {
+    for (k, w) in wells.iter().enumerate() {
+        let key = file_name_part(&w.name).to_lowercase();
+        if let Some(other) = wells[..k]
+            .iter()
+            .find(|o| file_name_part(&o.name).to_lowercase() == key)
+        {
+            return Err(FlexureError::Parameter(format!(
+                "wells '{}' ({}) and '{}' ({}) give the same output file names '{key}': name them apart (--well NAME=FILE or name in the well list)",
+                other.name,
+                other.well.display(),
+                w.name,
+                w.well.display()
+            )));
+        }
     }
+    Ok(())
+}
+
+/// Loads the stand-off horizon, refusing one in another CRS than the anisotropy grid.
+fn load_horizon(source: &HorizonSource, read: &ReadOptions, g: &GridGeometry) -> Result<Horizon> {
+    let horizon = source.load(read)?;
+    let srs = |wkt: &str| gdal::spatial_ref::SpatialRef::from_wkt(wkt).ok();
+    let same = match (srs(&horizon.grid.geometry.crs_wkt), srs(&g.crs_wkt)) {
+        (Some(a), Some(b)) => a == b,
+        _ => false,
+    };
+    if !same {
+        return Err(FlexureError::input(
+            &source.path,
+            "is not in the anisotropy grid's CRS: reproject the horizon (its grid may differ, its CRS may not)",
+        ));
+    }
+    Ok(horizon)
+}
+
+/// Stand-off of `points` from `horizon`: TVD below datum minus the horizon depth under each
+/// point (bilinear), positive below the horizon, converted to the well's md unit
+/// (`crs_per_md`); (mean, min, max) over the points with both, and whether some point has a
+/// TVD but no horizon depth.
+fn standoff(points: &[Station], horizon: &Horizon, crs_per_md: f64) -> Standoff {
+    let g = &horizon.grid.geometry;
+    let with_tvd: Vec<&Station> = points.iter().filter(|p| p.tvd.is_finite()).collect();
+    let values: Vec<f64> = with_tvd
+        .iter()
+        .map(|p| (p.tvd - bilinear(g, &horizon.depth, p.x, p.y)) / crs_per_md)
+        .filter(|v| v.is_finite())
+        .collect();
+    let (mean, _, _, _) = percentiles(&values);
+    let (min, max) = values
+        .iter()
+        .fold((f64::NAN, f64::NAN), |(lo, hi), &v| (v.min(lo), v.max(hi)));
+    ((mean, min, max), values.len() < with_tvd.len())
 }
 
 fn check_half_width(h: f64) -> Result<()> {
@@ -392,67 +534,126 @@ fn check_half_width(h: f64) -> Result<()> {
     }
 }
 
-/// Reads a well and its stages, refusing stages outside the path's md range.
-fn read_well(
-    input: &WellInput,
-    md_scale: f64,
-    azimuth_offset: f64,
-) -> Result<(Well, Vec<crate::wells::Stage>)> {
-    let text = |p: &Path| std::fs::read_to_string(p).map_err(|e| FlexureError::read(p, e));
-    let stations = parse_well(
-        &text(&input.well)?,
-        &input.well,
-        input.wellhead,
-        input.kb,
-        md_scale,
-        azimuth_offset,
-    )?;
-    let name = input
-        .well
-        .file_stem()
-        .unwrap_or_default()
-        .to_string_lossy()
-        .to_string();
-    let well = Well { name, stations };
-    let stages = parse_stages(&text(&input.stages)?, &input.stages, md_scale)?;
-    let (lo, hi) = well.md_range();
-    if let Some(s) = stages.iter().find(|s| s.md_top < lo || s.md_base > hi) {
-        return Err(FlexureError::input(
-            &input.stages,
-            format!(
-                "line {}: stage {} ({} .. {}) is outside the md range of {} ({} .. {})",
-                s.line,
-                s.name,
-                s.md_top / md_scale,
-                s.md_base / md_scale,
-                input.well.display(),
-                lo / md_scale,
-                hi / md_scale
-            ),
-        ));
-    }
-    Ok((well, stages))
+/// Short name of a CRS linear unit for column headers.
+fn crs_unit_name(metres_per_unit: f64) -> &'static str {
+    MdUnit::from_metres(metres_per_unit).map_or("crs units", MdUnit::name)
 }
 
-/// One row of the stage table.
+/// `wells/<name>_path.csv` of every well (the path every `SAMPLE_STEP_M` and at every
+/// station, md and TVD below datum in the well's md unit, x and y in CRS units, angles in
+/// degrees from grid north, the table line of each station) and `well_paths.gpkg/.geojson`
+/// lines.
+fn stage_paths(dir: &Path, g: &GridGeometry, wells: &[&Well]) -> Result<Vec<StagedFile>> {
+    let mut staged = Vec::new();
+    let mut features = Vec::new();
+    let xy = crs_unit_name(g.metres_per_unit);
+    for well in wells {
+        let (lo, hi) = well.md_range();
+        let points = well
+            .sample(lo, hi, SAMPLE_STEP_M / g.metres_per_unit)
+            .expect("the whole path");
+        let md = well.md_unit.name();
+        let mut text =
+            format!("md ({md}),x ({xy}),y ({xy}),tvdss ({md}),inc (deg),azi (deg),station\n");
+        for p in &points {
+            let station = well
+                .stations
+                .iter()
+                .position(|s| s.md == p.md)
+                .map_or(String::new(), |k| (k + 1).to_string());
+            let cells = [
+                number(p.md / well.crs_per_md),
+                number(p.x),
+                number(p.y),
+                number(p.tvd / well.crs_per_md),
+                number(p.inc),
+                number(p.azi),
+                station,
+            ];
+            text += &(cells.join(",") + "\n");
+        }
+        let path = dir
+            .join("wells")
+            .join(format!("{}_path.csv", file_name_part(&well.name)));
+        staged.push(stage_bytes(&path, text.as_bytes())?);
+        features.push(VectorFeature {
+            points: points.iter().map(|p| (p.x, p.y)).collect(),
+            values: vec![
+                Property::Text(well.name.clone()),
+                Property::Text(md.to_string()),
+                Property::Number(lo / well.crs_per_md),
+                Property::Number(hi / well.crs_per_md),
+            ],
+        });
+    }
+    let fields = [
+        ("well", FieldKind::Text),
+        ("md_unit", FieldKind::Text),
+        ("md_start", FieldKind::Real),
+        ("md_end", FieldKind::Real),
+    ];
+    let layer = Layer {
+        name: "well_paths",
+        kind: GeometryKind::Line,
+        fields: &fields,
+        features: &features,
+    };
+    staged.extend(stage_both_formats(dir, &g.crs_wkt, &layer)?);
+    Ok(staged)
+}
+
+/// One row of the stage table (md and stand-off in the well's md unit).
 struct StageRow {
     well: String,
     stage: String,
     md_top: f64,
     md_base: f64,
+    md_unit: MdUnit,
+    standoff: (f64, f64, f64),
     corridor: Corridor,
+}
+
+/// Lead columns of the stage table and corridor layers.
+const STAGE_LEAD: [&str; 8] = [
+    "well",
+    "stage",
+    "md_top",
+    "md_base",
+    "md_unit",
+    "standoff_mean",
+    "standoff_min",
+    "standoff_max",
+];
+
+impl StageRow {
+    /// The lead values, in [`STAGE_LEAD`] order.
+    fn lead(&self) -> Vec<Property> {
+        let (mean, min, max) = self.standoff;
+        vec![
+            Property::Text(self.well.clone()),
+            Property::Text(self.stage.clone()),
+            Property::Number(self.md_top),
+            Property::Number(self.md_base),
+            Property::Text(self.md_unit.name().to_string()),
+            Property::Number(mean),
+            Property::Number(min),
+            Property::Number(max),
+        ]
+    }
 }
 
 fn stage_table(rows: &[StageRow]) -> String {
     corridor_table(
-        &["well", "stage", "md_top", "md_base"],
+        &STAGE_LEAD,
         rows.iter().map(|r| {
-            let lead = vec![
-                csv_text(&r.well),
-                csv_text(&r.stage),
-                number(r.md_top),
-                number(r.md_base),
-            ];
+            let lead = r
+                .lead()
+                .iter()
+                .map(|p| match p {
+                    Property::Text(t) => csv_text(t),
+                    Property::Number(v) => number(*v),
+                })
+                .collect();
             (lead, &r.corridor)
         }),
     )
@@ -471,7 +672,7 @@ fn corridor_table<'a>(
         let numbers = c.numbers();
         let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
         fields.extend(stats.iter().map(|v| number(*v)));
-        fields.push(csv_text(&c.flag));
+        fields.push(csv_text(&c.flag()));
         fields.extend(curvature.iter().map(|v| number(*v)));
         body += &(fields.join(",") + "\n");
     }
@@ -504,19 +705,6 @@ fn csv_text(s: &str) -> String {
     }
 }
 
-/// File-name-safe form of a label.
-fn safe(s: &str) -> String {
-    s.chars()
-        .map(|c| {
-            if c.is_ascii_alphanumeric() || c == '-' || c == '_' {
-                c
-            } else {
-                '_'
-            }
-        })
-        .collect()
-}
-
 /// Corridor polygons of every row, GeoPackage and GeoJSON.
 fn stage_corridors(
     dir: &Path,
@@ -527,12 +715,17 @@ fn stage_corridors(
     let curvature_cols = rows
         .first()
         .map_or_else(Vec::new, |r| r.corridor.curvature_columns());
-    let mut fields: Vec<(&str, FieldKind)> = vec![
-        ("well", FieldKind::Text),
-        ("stage", FieldKind::Text),
-        ("md_top", FieldKind::Real),
-        ("md_base", FieldKind::Real),
-    ];
+    let mut fields: Vec<(&str, FieldKind)> = STAGE_LEAD
+        .iter()
+        .map(|c| {
+            let kind = if matches!(*c, "well" | "stage" | "md_unit") {
+                FieldKind::Text
+            } else {
+                FieldKind::Real
+            };
+            (*c, kind)
+        })
+        .collect();
     fields.extend(STAT_COLUMNS.iter().map(|c| {
         (
             *c,
@@ -551,14 +744,9 @@ fn stage_corridors(
         .map(|r| {
             let numbers = r.corridor.numbers();
             let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
-            let mut values = vec![
-                Property::Text(r.well.clone()),
-                Property::Text(r.stage.clone()),
-                Property::Number(r.md_top),
-                Property::Number(r.md_base),
-            ];
+            let mut values = r.lead();
             values.extend(stats.iter().map(|v| Property::Number(*v)));
-            values.push(Property::Text(r.corridor.flag.clone()));
+            values.push(Property::Text(r.corridor.flag()));
             values.extend(curvature.iter().map(|v| Property::Number(*v)));
             VectorFeature {
                 points: r.corridor.ring.clone(),
@@ -598,8 +786,8 @@ fn stage_rose_figure(title: &str, c: &Corridor) -> Figure {
         ),
         "petals: magnitude-weighted fast azimuths, area ~ count".to_string(),
     ];
-    if !c.flag.is_empty() {
-        notes.push(format!("flag: {}", c.flag));
+    if !c.flags.is_empty() {
+        notes.push(format!("flag: {}", c.flag()));
     }
     rose(
         title,
@@ -613,7 +801,7 @@ fn stage_rose_figure(title: &str, c: &Corridor) -> Figure {
 
 /// One sheet per well: the stage roses in order along the lateral above a strip of
 /// angle_to_well and mean magnitude per stage.
-fn sheet(well: &str, stages: &[(String, f64, f64, Corridor)]) -> Figure {
+fn sheet(well: &str, stages: &[StageRow]) -> Figure {
     let per_row = 6usize;
     let cell = 200.0f32;
     let rows = stages.len().div_ceil(per_row).max(1);
@@ -627,8 +815,8 @@ fn sheet(well: &str, stages: &[(String, f64, f64, Corridor)]) -> Figure {
         format!("{well}: stage roses (fast azimuth; orange mean, black well)"),
         Anchor::Start,
     );
-    for (k, (name, _, _, c)) in stages.iter().enumerate() {
-        let rose = stage_rose_figure(name, c);
+    for (k, r) in stages.iter().enumerate() {
+        let rose = stage_rose_figure(&r.stage, &r.corridor);
         let (col, row) = (k % per_row, k / per_row);
         fig.place(
             &rose,
@@ -642,14 +830,14 @@ fn sheet(well: &str, stages: &[(String, f64, f64, Corridor)]) -> Figure {
         strip_top,
         "angle_to_well (deg, 90 = perpendicular)",
         90.0,
-        stages.iter().map(|s| s.3.stats.angle_to_well),
+        stages.iter().map(|s| s.corridor.stats.angle_to_well),
     );
     bar_strip(
         &mut fig,
         strip_top + 170.0,
         "magnitude_mean (ms)",
         f64::NAN,
-        stages.iter().map(|s| s.3.stats.magnitude_mean),
+        stages.iter().map(|s| s.corridor.stats.magnitude_mean),
     );
     fig.text(20.0, strip_top + 350.0, 11.0, "Informs interpretation only; decisions belong to licensed professionals under local regulations.", Anchor::Start);
     fig
@@ -726,6 +914,8 @@ pub struct StagesReport {
     pub out_dir: PathBuf,
     /// One entry per well.
     pub wells: Vec<WellReport>,
+    /// Units assumed and inputs not used (e.g. measured depths read as metres).
+    pub notes: Vec<String>,
 }
 
 impl fmt::Display for StagesReport {
@@ -737,7 +927,10 @@ impl fmt::Display for StagesReport {
                 writeln!(f, "  flagged {flag}")?;
             }
         }
-        writeln!(f, "wrote stages.csv, stage_corridors.gpkg, stage_corridors.geojson, roses/ and one sheet per well in {}", self.out_dir.display())?;
+        for note in &self.notes {
+            writeln!(f, "note: {note}")?;
+        }
+        writeln!(f, "wrote stages.csv, stage_corridors.gpkg/.geojson, wells/<well>_path.csv, well_paths.gpkg/.geojson, roses/ and one sheet per well in {}", self.out_dir.display())?;
         writeln!(f, "{WELL_CAUTION}")
     }
 }
@@ -829,16 +1022,16 @@ impl PlanJob {
             ));
         }
         let scored = |c: &&Candidate| c.score.is_finite();
-        let best = candidates
-            .iter()
-            .filter(scored)
-            .max_by(|a, b| a.score.total_cmp(&b.score))
-            .expect("some candidate scored");
-        let worst = candidates
-            .iter()
-            .filter(scored)
-            .min_by(|a, b| a.score.total_cmp(&b.score))
-            .expect("some candidate scored");
+        let by_score = |a: &&Candidate, b: &&Candidate| a.score.total_cmp(&b.score);
+        let (Some(best), Some(worst)) = (
+            candidates.iter().filter(scored).max_by(by_score),
+            candidates.iter().filter(scored).min_by(by_score),
+        ) else {
+            return Err(FlexureError::input(
+                &anisotropy.path,
+                "every bin the candidate laterals cross has zero magnitude (no anisotropy to score against): check the anisotropy grid or move --pad",
+            ));
+        };
         let good: Vec<f64> = candidates
             .iter()
             .filter(|c| c.score >= GOOD_SHARE * best.score)
