@@ -347,11 +347,7 @@ impl StagesArgs {
         job.curvature = self.corridor.curvature.clone();
         job.window = self.corridor.window;
         job.half_width = self.corridor.half_width;
-        job.md_unit = self.md_unit.map(|u| match u {
-            ZUnitArg::M => ZUnit::Metre,
-            ZUnitArg::Ft => ZUnit::Foot,
-            ZUnitArg::UsFt => ZUnit::UsFoot,
-        });
+        job.md_unit = self.md_unit.map(ZUnit::from);
         job.reference = reference(self.azimuth_reference, self.convergence)?;
         job.horizon = self.horizon.as_deref().map(|h| self.domain.source(h));
         job.read = self.read.options();
@@ -503,6 +499,16 @@ enum ZUnitArg {
     UsFt,
 }
 
+impl From<ZUnitArg> for ZUnit {
+    fn from(u: ZUnitArg) -> Self {
+        match u {
+            ZUnitArg::M => ZUnit::Metre,
+            ZUnitArg::Ft => ZUnit::Foot,
+            ZUnitArg::UsFt => ZUnit::UsFoot,
+        }
+    }
+}
+
 #[derive(Clone, Copy, ValueEnum)]
 enum VelocityUnitArg {
     /// Metres per second.
@@ -579,11 +585,7 @@ impl DomainArgs {
                 DomainArg::Time => Domain::Time,
                 DomainArg::Elevation => Domain::Elevation,
             }),
-            z_unit: self.z_unit.map(|u| match u {
-                ZUnitArg::M => ZUnit::Metre,
-                ZUnitArg::Ft => ZUnit::Foot,
-                ZUnitArg::UsFt => ZUnit::UsFoot,
-            }),
+            z_unit: self.z_unit.map(ZUnit::from),
             velocity: match (&self.velocity, &self.velocity_grid) {
                 (Some(v), _) => VelocitySource::Constant(*v),
                 (None, Some(p)) => VelocitySource::Grid(p.clone()),

@@ -73,12 +73,36 @@ impl ZUnit {
         }
     }
 
+    /// The length unit a text names (`m`, `metre(s)`, `meter(s)`, `ft`, `foot`, `feet`,
+    /// `intl ft`, `international foot`, `usft`, `us-ft`, `ftus`, `US survey foot`),
+    /// case-insensitive, ignoring spaces, `-`, `_` and `.`; `None` for anything else.
+    pub fn parse(text: &str) -> Option<ZUnit> {
+        match unit_key(text).as_str() {
+            "m" | "metre" | "metres" | "meter" | "meters" => Some(ZUnit::Metre),
+            "ft" | "foot" | "feet" | "intlft" | "internationalfoot" | "internationalfeet" => {
+                Some(ZUnit::Foot)
+            }
+            "usft" | "ftus" | "ussurveyfoot" | "ussurveyfeet" | "surveyfoot" | "surveyfeet" => {
+                Some(ZUnit::UsFoot)
+            }
+            _ => None,
+        }
+    }
+
     /// The unit whose length in metres is `metres_per_unit` (a CRS's linear unit), if any.
     pub fn from_metres(metres_per_unit: f64) -> Option<ZUnit> {
         [ZUnit::Metre, ZUnit::Foot, ZUnit::UsFoot]
             .into_iter()
             .find(|u| (u.metres() - metres_per_unit).abs() < 1e-9)
     }
+}
+
+/// A unit text lower-cased without spaces, `-`, `_` and `.`, for matching.
+fn unit_key(text: &str) -> String {
+    text.chars()
+        .filter(|c| !matches!(c, ' ' | '-' | '_' | '.'))
+        .flat_map(char::to_lowercase)
+        .collect()
 }
 
 /// What a unit text declares about values.
@@ -93,24 +117,18 @@ pub enum DeclaredUnit {
 }
 
 impl DeclaredUnit {
-    /// Parses a unit text (case-insensitive; `m`, `metre(s)`, `meter(s)`, `ft`, `foot`, `feet`,
-    /// `us-ft`, `ftus`, `us survey foot`, `ms`, `msec`, `millisecond(s)`, `s`, `sec`,
-    /// `second(s)`); `None` for an empty or unknown text.
+    /// Parses a unit text: a length unit (see [`ZUnit::parse`]) or `ms`, `msec`,
+    /// `millisecond(s)`, `s`, `sec`, `second(s)` (case-insensitive, ignoring spaces, `-`, `_`
+    /// and `.`); `None` for an empty or unknown text.
     pub fn parse(text: &str) -> Option<DeclaredUnit> {
-        let t = text.trim().to_lowercase().replace(['_', '.'], " ");
-        let t = t.trim();
-        Some(match t {
-            "m" | "metre" | "metres" | "meter" | "meters" => DeclaredUnit::Length(ZUnit::Metre),
-            "ft" | "foot" | "feet" | "international foot" | "intl ft" => {
-                DeclaredUnit::Length(ZUnit::Foot)
-            }
-            "us-ft" | "us ft" | "ftus" | "us survey foot" | "us survey feet" | "survey foot" => {
-                DeclaredUnit::Length(ZUnit::UsFoot)
-            }
-            "ms" | "msec" | "millisecond" | "milliseconds" => DeclaredUnit::Milliseconds,
-            "s" | "sec" | "second" | "seconds" => DeclaredUnit::Seconds,
-            _ => return None,
-        })
+        if let Some(u) = ZUnit::parse(text) {
+            return Some(DeclaredUnit::Length(u));
+        }
+        match unit_key(text).as_str() {
+            "ms" | "msec" | "millisecond" | "milliseconds" => Some(DeclaredUnit::Milliseconds),
+            "s" | "sec" | "second" | "seconds" => Some(DeclaredUnit::Seconds),
+            _ => None,
+        }
     }
 }
 

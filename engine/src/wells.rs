@@ -20,27 +20,6 @@ use crate::io::table::{ColumnSpec, Table};
 /// foot (1200/3937 m). The same three lengths as horizon z units.
 pub type MdUnit = crate::horizon::ZUnit;
 
-/// The length unit a header suffix or option text names (`m`, `metre(s)`, `meter(s)`, `ft`,
-/// `foot`, `feet`, `intl ft`, `usft`, `us-ft`, `ftus`, `US survey foot`), case-insensitive;
-/// `None` for anything else.
-pub fn parse_md_unit(text: &str) -> Option<MdUnit> {
-    let t: String = text
-        .chars()
-        .filter(|c| !matches!(c, ' ' | '-' | '_' | '.'))
-        .flat_map(char::to_lowercase)
-        .collect();
-    match t.as_str() {
-        "m" | "metre" | "metres" | "meter" | "meters" => Some(MdUnit::Metre),
-        "ft" | "foot" | "feet" | "intlft" | "internationalfoot" | "internationalfeet" => {
-            Some(MdUnit::Foot)
-        }
-        "usft" | "ftus" | "ussurveyfoot" | "ussurveyfeet" | "surveyfoot" | "surveyfeet" => {
-            Some(MdUnit::UsFoot)
-        }
-        _ => None,
-    }
-}
-
 /// Measured depth: `MD`, `Measured Depth`, `meas depth`, `depth md`.
 pub const MD: ColumnSpec = ColumnSpec {
     name: "md",
@@ -482,7 +461,7 @@ pub fn md_unit_of(
             continue;
         };
         let header = table.columns[col].header.as_str();
-        let unit = parse_md_unit(text).ok_or_else(|| {
+        let unit = MdUnit::parse(text).ok_or_else(|| {
             table.error(
                 table.header_line,
                 format!("column '{header}' declares unit '{text}': give m, ft or usft"),
