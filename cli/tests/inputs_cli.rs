@@ -4,9 +4,8 @@
 
 mod common;
 
-use common::{fails, flexure, north_up};
-use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions};
+use common::{fails, flexure, north_up, write_bands_in};
+use flexure_engine::io::{read_raster, ReadOptions};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -58,28 +57,8 @@ fn assert_rel(got: f64, expected: f64, tol: f64, what: &str) {
 /// Writes one band declaring `unit` (and no nodata when `nodata` is false: the values are
 /// written as they are).
 fn write_unit(dir: &Path, name: &str, values: Array2<f32>, unit: &str) -> PathBuf {
-    let path = dir.join(name);
-    write_with(
-        &path,
-        &north_up(values.ncols(), values.nrows()),
-        values,
-        unit,
-    );
-    path
-}
-
-fn write_with(path: &Path, g: &GridGeometry, values: Array2<f32>, unit: &str) {
-    write_float_geotiff(
-        path,
-        g,
-        &[BandOut {
-            description: "horizon",
-            unit,
-            values,
-        }],
-        &[],
-    )
-    .unwrap();
+    let g = north_up(values.ncols(), values.nrows());
+    write_bands_in(dir, name, &g, vec![values], unit)
 }
 
 /// Writes a GeoTIFF with no declared nodata (GDAL directly), so sentinels stay plain values.
@@ -175,7 +154,7 @@ fn an_undeclared_z_unit_follows_a_crs_in_feet() {
     .unwrap()
     .to_wkt()
     .unwrap();
-    write_with(&path, &g, bowl(), "");
+    write_bands_in(d, "feet_crs.tif", &g, vec![bowl()], "");
     let out = d.join("out");
     let o = flexure(&[
         "curvature",

@@ -4,14 +4,13 @@
 
 mod common;
 
-use common::{fails, flexure};
+use common::{fails, flexure, write_bands_in};
 use flexure_engine::demo::survey_geometry;
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::{write_float_geotiff, BandOut};
 use flexure_engine::synthetic::{Shape, Surface};
 use ndarray::Array2;
 use std::fmt::Write as _;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 /// A survey grid rotated 25 degrees from north-up (columns at azimuth 115), 25 m x 12.5 m bins.
 fn survey() -> GridGeometry {
@@ -41,26 +40,6 @@ fn horizon(g: &GridGeometry) -> Array2<f32> {
     }
     v[(0, 0)] = f32::NAN;
     v
-}
-
-fn write_tif(
-    dir: &Path,
-    name: &str,
-    g: &GridGeometry,
-    bands: Vec<Array2<f32>>,
-    unit: &str,
-) -> PathBuf {
-    let path = dir.join(name);
-    let bands: Vec<BandOut> = bands
-        .into_iter()
-        .map(|values| BandOut {
-            description: "z",
-            unit,
-            values,
-        })
-        .collect();
-    write_float_geotiff(&path, g, &bands, &[]).unwrap();
-    path
 }
 
 /// How nulls are written in an export.
@@ -296,8 +275,8 @@ fn curvature_and_velocity_grids_from_points_match_the_geotiff() {
     let g = survey();
     let t = horizon(&g).mapv(|z| z * 2000.0 / 3200.0);
     let v = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| 3100.0 + (r + c) as f32);
-    let tif = write_tif(d, "twt.tif", &g, vec![t.clone()], "ms");
-    let vtif = write_tif(d, "vel.tif", &g, vec![v.clone()], "m/s");
+    let tif = write_bands_in(d, "twt.tif", &g, vec![t.clone()], "ms");
+    let vtif = write_bands_in(d, "vel.tif", &g, vec![v.clone()], "m/s");
     let pts = d.join("twt.txt");
     export(
         &pts,
@@ -359,7 +338,7 @@ fn sector_point_lists_and_shade_points_work_like_rasters() {
             })
         })
         .collect();
-    let tif = write_tif(d, "sectors.tif", &g, sectors.clone(), "ms");
+    let tif = write_bands_in(d, "sectors.tif", &g, sectors.clone(), "ms");
     let pts = d.join("sectors.txt");
     export(
         &pts,
@@ -396,7 +375,7 @@ fn sector_point_lists_and_shade_points_work_like_rasters() {
     // The anisotropy map shaded by the horizon given as a point list, and as a GeoTIFF: the
     // same picture.
     let z = horizon(&g);
-    let ztif = write_tif(d, "z.tif", &g, vec![z.clone()], "m");
+    let ztif = write_bands_in(d, "z.tif", &g, vec![z.clone()], "m");
     let zpts = d.join("z.txt");
     export(&zpts, &g, &[z], "x y z", false, Nulls::Omitted, " ");
     let attribute = d.join("a/anisotropy.tif");

@@ -30,12 +30,23 @@ pub fn write_bands(
     geometry: &flexure_engine::grid::GridGeometry,
     bands: Vec<Array2<f32>>,
 ) -> PathBuf {
+    write_bands_in(dir, name, geometry, bands, "")
+}
+
+/// Writes `bands` (all the same size) as a GeoTIFF on `geometry`, each declaring `unit`.
+pub fn write_bands_in(
+    dir: &Path,
+    name: &str,
+    geometry: &flexure_engine::grid::GridGeometry,
+    bands: Vec<Array2<f32>>,
+    unit: &str,
+) -> PathBuf {
     let path = dir.join(name);
     let bands: Vec<BandOut> = bands
         .into_iter()
         .map(|values| BandOut {
             description: "z",
-            unit: "",
+            unit,
             values,
         })
         .collect();
