@@ -310,11 +310,18 @@ impl Well {
     }
 
     /// Points from `md_top` to `md_base` (CRS units) at most `step` apart along the hole, with
-    /// every station between; `None` when the interval is not inside the path.
+    /// every station between; both ends exactly; `None` when the interval is not inside the
+    /// path.
     pub fn sample(&self, md_top: f64, md_base: f64, step: f64) -> Option<Vec<Station>> {
         let n = ((md_base - md_top) / step).ceil().max(1.0) as usize;
         let mut mds: Vec<f64> = (0..=n)
-            .map(|k| md_top + (md_base - md_top) * k as f64 / n as f64)
+            .map(|k| {
+                if k == n {
+                    md_base
+                } else {
+                    (md_top + (md_base - md_top) * k as f64 / n as f64).min(md_base)
+                }
+            })
             .chain(
                 self.stations
                     .iter()
@@ -933,6 +940,17 @@ mod tests {
         assert!(pts.iter().any(|p| p.md == 95.0));
         assert_eq!((pts[0].md, pts.last().unwrap().md), (10.0, 180.0));
         assert!(w.sample(10.0, 300.0, 10.0).is_none());
+        // The whole path, for ends where top + (base - top) k / n rounds past the base (a
+        // survey ending at md 3236.36 with 10 m steps did): the ends are exact.
+        for end in [3236.36, 1981.2, 3840.48, 4450.08, 1000.0 / 3.0] {
+            let w = well(&format!("md,inc,azi\n0,0,0\n{end},30,0\n"), &setting()).unwrap();
+            for step in [10.0, 3.048, 7.7] {
+                for top in [0.0, 0.37 * end] {
+                    let pts = w.sample(top, end, step).expect("the interval samples");
+                    assert_eq!((pts[0].md, pts.last().unwrap().md), (top, end));
+                }
+            }
+        }
     }
 
     #[test]

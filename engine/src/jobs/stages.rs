@@ -363,9 +363,13 @@ impl StagesJob {
                 .map(|s| (s.name.as_str(), s.md_top, s.md_base))
                 .chain([(LATERAL, top, base)]);
             for (name, md_top, md_base) in intervals {
-                let points = well
-                    .sample(md_top, md_base, step)
-                    .expect("checked inside the path");
+                let points = well.sample(md_top, md_base, step).ok_or_else(|| {
+                    outside_path(
+                        &well.name,
+                        md_top / well.crs_per_md,
+                        md_base / well.crs_per_md,
+                    )
+                })?;
                 let plan: Vec<(f64, f64)> = points.iter().map(|p| (p.x, p.y)).collect();
                 let mut c =
                     Corridor::evaluate(&plan, self.half_width, &anisotropy, attributes.as_ref());
@@ -539,6 +543,14 @@ fn crs_unit_name(metres_per_unit: f64) -> &'static str {
     MdUnit::from_metres(metres_per_unit).map_or("crs units", MdUnit::name)
 }
 
+/// The error for an interval the path does not cover (stage depths are checked against the
+/// path before, so this names a defect rather than an input).
+fn outside_path(well: &str, top: f64, base: f64) -> FlexureError {
+    FlexureError::Parameter(format!(
+        "well {well}: the interval {top} .. {base} is not on the computed path; please report this with the well's files"
+    ))
+}
+
 /// `wells/<name>_path.csv` of every well (the path every `SAMPLE_STEP_M` and at every
 /// station, md and TVD below datum in the well's md unit, x and y in CRS units, angles in
 /// degrees from grid north, the table line of each station) and `well_paths.gpkg/.geojson`
@@ -551,7 +563,7 @@ fn stage_paths(dir: &Path, g: &GridGeometry, wells: &[&Well]) -> Result<Vec<Stag
         let (lo, hi) = well.md_range();
         let points = well
             .sample(lo, hi, SAMPLE_STEP_M / g.metres_per_unit)
-            .expect("the whole path");
+            .ok_or_else(|| outside_path(&well.name, lo / well.crs_per_md, hi / well.crs_per_md))?;
         let md = well.md_unit.name();
         let mut text =
             format!("md ({md}),x ({xy}),y ({xy}),tvdss ({md}),inc (deg),azi (deg),station\n");
