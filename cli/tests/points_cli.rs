@@ -65,6 +65,22 @@ fn export(
     nulls: Nulls,
     delimiter: &str,
 ) {
+    export_rounded(path, g, bands, header, numbered, nulls, delimiter, None);
+}
+
+/// [`export`] with the coordinates printed to `decimals` places when given (exports of the
+/// trade round them, typically to the centimetre).
+#[allow(clippy::too_many_arguments)]
+fn export_rounded(
+    path: &Path,
+    g: &GridGeometry,
+    bands: &[Array2<f32>],
+    header: &str,
+    numbered: bool,
+    nulls: Nulls,
+    delimiter: &str,
+    decimals: Option<usize>,
+) {
     let mut text = format!("# an export on a rotated survey\n{header}\n");
     let n = g.rows * g.cols;
     for k in 0..n {
@@ -92,7 +108,10 @@ fn export(
         if numbered {
             fields.extend([(3000 + 2 * r).to_string(), (700 + c).to_string()]);
         }
-        fields.extend([x.to_string(), y.to_string()]);
+        fields.extend([x, y].map(|v| match decimals {
+            Some(d) => format!("{v:.d$}"),
+            None => v.to_string(),
+        }));
         fields.extend(value_text);
         writeln!(text, "{}", fields.join(delimiter)).unwrap();
     }
@@ -473,4 +492,78 @@ fn point_lists_are_refused_without_a_crs_a_lattice_or_their_nulls() {
     );
     assert!(msg.contains("grid them first"), "{msg}");
     assert!(!d.join("c.tif").exists());
+}
+
+#[test]
+fn centimetre_exports_share_the_grid_of_their_geotiff() {
+    // Coordinates rounded to 0.01 m shift the fitted geotransform by micrometres (a
+    // least-squares fit over thousands of points); the lattice is the GeoTIFF's all the same
+    // (GridGeometry::same_grid: cell centres within 1e-3 of a bin), so a velocity grid and a
+    // shade horizon exported that way are used with the GeoTIFF horizon, not refused.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let g = survey();
+    let t = horizon(&g).mapv(|z| z * 2000.0 / 3200.0);
+    let v = Array2::from_elem((g.rows, g.cols), 3200.0f32);
+    let tif = write_bands_in(d, "twt.tif", &g, vec![t.clone()], "ms");
+    let vpts = d.join("vel.txt");
+    export_rounded(
+        &vpts,
+        &g,
+        std::slice::from_ref(&v),
+        "x y v",
+        false,
+        Nulls::Omitted,
+        " ",
+        Some(2),
+    );
+    let vtif = write_bands_in(d, "vel.tif", &g, vec![v], "m/s");
+    let run = |velocity: &Path, out: &str| {
+        let out = d.join(out);
+        ok(&[
+            "curvature",
+            tif.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--windows",
+            "5",
+            "--velocity-grid",
+            velocity.to_str().unwrap(),
+            "--crs",
+            "EPSG:32625",
+            "--quiet",
+        ]);
+        bands_of(&out.join("twt_w05.tif"))
+    };
+    assert_same_values(
+        &run(&vpts, "a"),
+        &run(&vtif, "b"),
+        "velocity from a rounded export",
+    );
+    let zpts = d.join("z.txt");
+    export_rounded(
+        &zpts,
+        &g,
+        &[t],
+        "il xl x y twt",
+        true,
+        Nulls::Omitted,
+        " ",
+        Some(2),
+    );
+    let attribute = d.join("a/twt_w05.tif");
+    ok(&[
+        "render",
+        "--attribute",
+        attribute.to_str().unwrap(),
+        "--band",
+        "k_pos",
+        "--shade",
+        zpts.to_str().unwrap(),
+        "--crs",
+        "EPSG:32625",
+        "--out",
+        d.join("shade.tif").to_str().unwrap(),
+        "--quiet",
+    ]);
 }

@@ -7,6 +7,10 @@
 
 use ndarray::Array2;
 
+/// Largest distance between corresponding cell centres, as a share of the smaller bin, for
+/// two grids to count as the same lattice.
+pub const SAME_NODE_SHARE: f64 = 1e-3;
+
 /// Placement of a grid in its coordinate reference system.
 #[derive(Clone, Debug, PartialEq)]
 pub struct GridGeometry {
@@ -57,18 +61,48 @@ impl GridGeometry {
         det.is_finite() && det.abs() > 0.0
     }
 
-    /// True when `other` has the same size, geotransform (to 1e-9 of a cell) and CRS.
+    /// True when `other` has the same size and CRS and every cell centre of the two grids
+    /// agrees to [`SAME_NODE_SHARE`] of the smaller bin (see [`GridGeometry::mismatch`]).
     pub fn same_grid(&self, other: &GridGeometry) -> bool {
+        self.mismatch(other).is_none()
+    }
+
+    /// Why `other` is not the same grid, in words (`None` when it is): another size, another
+    /// CRS, or cell centres further apart than [`SAME_NODE_SHARE`] of the smaller bin (the
+    /// largest distance is at a corner, the mapping being affine). The tolerance lets grids
+    /// whose geotransforms were fitted from rounded coordinates (point lists) match the
+    /// raster of the same survey, while a shift of a thousandth of a bin is refused.
+    pub fn mismatch(&self, other: &GridGeometry) -> Option<String> {
+        if (self.cols, self.rows) != (other.cols, other.rows) {
+            return Some(format!(
+                "{} x {} cells against {} x {}",
+                self.cols, self.rows, other.cols, other.rows
+            ));
+        }
+        if self.crs_wkt != other.crs_wkt {
+            return Some("another CRS".into());
+        }
+        let offset = self.largest_node_offset(other);
         let (sx, sy) = self.spacing();
-        let tol = 1e-9 * sx.max(sy);
-        self.cols == other.cols
-            && self.rows == other.rows
-            && self
-                .geo_transform
-                .iter()
-                .zip(other.geo_transform.iter())
-                .all(|(a, b)| (a - b).abs() <= tol.max(1e-12 * a.abs()))
-            && self.crs_wkt == other.crs_wkt
+        let tolerance = SAME_NODE_SHARE * sx.min(sy);
+        (!(offset <= tolerance)).then(|| {
+            format!(
+                "cell centres up to {offset:.6} CRS units apart (more than {SAME_NODE_SHARE} of a bin)"
+            )
+        })
+    }
+
+    /// Largest distance between corresponding cell centres of two grids of the same size,
+    /// CRS units (at one of the four corner cells: the mapping is affine).
+    fn largest_node_offset(&self, other: &GridGeometry) -> f64 {
+        let (c, r) = (self.cols.max(1) - 1, self.rows.max(1) - 1);
+        [(0, 0), (c, 0), (0, r), (c, r)]
+            .iter()
+            .map(|&(i, j)| {
+                let (a, b) = (self.cell_centre(i, j), other.cell_centre(i, j));
+                (a.0 - b.0).hypot(a.1 - b.1)
+            })
+            .fold(0.0, f64::max)
     }
 
     /// Fractional (column, row) of map point (x, y), measured from the grid's top-left corner
@@ -114,25 +148,33 @@ impl GridGeometry {
     }
 
     /// When every cell of `self` is a block of whole cells of `fine` (same CRS and axis
-    /// directions, bins integer multiples, corners on the fine lattice), the block size
-    /// (columns, rows); `Some((1, 1))` for the same lattice. No resampling is implied: a
-    /// superbin's centre is an exact map point of the fine grid's picture.
+    /// directions, bins integer multiples, corners on the fine lattice, all to
+    /// [`SAME_NODE_SHARE`] of a fine bin at every cell), the block size (columns, rows);
+    /// `Some((1, 1))` for the same lattice. No resampling is implied: a superbin's centre is
+    /// an exact map point of the fine grid's picture.
     pub fn superbin_of(&self, fine: &GridGeometry) -> Option<(usize, usize)> {
         if self.crs_wkt != fine.crs_wkt {
             return None;
         }
         let (g, f) = (&self.geo_transform, &fine.geo_transform);
-        let ratio = |a: f64, b: f64, c: f64, d: f64| {
-            // (a, b) = k (c, d) for a positive integer k?
-            let k = (a.hypot(b) / c.hypot(d)).round();
-            let close = (a - k * c).abs() + (b - k * d).abs() <= 1e-9 * c.hypot(d) * k.max(1.0);
-            (k >= 1.0 && close).then_some(k as usize)
-        };
-        let kc = ratio(g[1], g[4], f[1], f[4])?;
-        let kr = ratio(g[2], g[5], f[2], f[5])?;
+        let multiple = |a: f64, b: f64, c: f64, d: f64| (a.hypot(b) / c.hypot(d)).round();
+        let kc = multiple(g[1], g[4], f[1], f[4]);
+        let kr = multiple(g[2], g[5], f[2], f[5]);
+        if !(kc >= 1.0 && kr >= 1.0) {
+            return None;
+        }
         let (c0, r0) = fine.map_to_grid(g[0], g[3]);
-        let on_lattice = (c0 - c0.round()).abs() < 1e-6 && (r0 - r0.round()).abs() < 1e-6;
-        on_lattice.then_some((kc, kr))
+        let (x0, y0) = {
+            let (c, r) = (c0.round(), r0.round());
+            (f[0] + c * f[1] + r * f[2], f[3] + c * f[4] + r * f[5])
+        };
+        let implied = GridGeometry {
+            geo_transform: [x0, kc * f[1], kr * f[2], y0, kc * f[4], kr * f[5]],
+            ..self.clone()
+        };
+        let (sx, sy) = fine.spacing();
+        (self.largest_node_offset(&implied) <= SAME_NODE_SHARE * sx.min(sy))
+            .then_some((kc as usize, kr as usize))
     }
 
     /// One-line description: size, spacing and rotation.
@@ -267,11 +309,35 @@ mod tests {
     }
 
     #[test]
-    fn same_grid_detects_shift() {
+    fn same_grid_detects_shift_and_tolerates_round_off() {
+        // Bins of 25 x 12.5: a shift of 1 CRS unit (0.08 bin) is another grid; a geotransform
+        // fitted from centimetre-rounded coordinates (a few micrometres off at the corners)
+        // is the same lattice.
         let a = rotated(10.0);
         let mut b = a.clone();
         assert!(a.same_grid(&b));
         b.geo_transform[0] += 1.0;
         assert!(!a.same_grid(&b));
+        assert!(a.mismatch(&b).unwrap().contains("apart"));
+        let mut c = a.clone();
+        c.geo_transform[0] += 4e-6;
+        c.geo_transform[1] *= 1.0 + 1e-9;
+        assert!(a.same_grid(&c), "{:?}", a.mismatch(&c));
+        let mut d = a.clone();
+        d.geo_transform[0] += 0.02;
+        assert!(!a.same_grid(&d), "0.02 is 1.6e-3 of the 12.5 bin");
+        let mut coarse = a.clone();
+        coarse.geo_transform = {
+            let g = a.geo_transform;
+            [
+                g[0] + 3e-6,
+                3.0 * g[1] * (1.0 + 2e-9),
+                3.0 * g[2],
+                g[3],
+                3.0 * g[4],
+                3.0 * g[5],
+            ]
+        };
+        assert_eq!(coarse.superbin_of(&a), Some((3, 3)));
     }
 }

@@ -590,11 +590,11 @@ fn time_to_depth(
             Ok(grid.values.mapv(|t| depth(t, *v)))
         }
         Velocity::Grid(vgrid, vpath) => {
-            if !vgrid.geometry.same_grid(&grid.geometry) {
+            if let Some(why) = vgrid.geometry.mismatch(&grid.geometry) {
                 return Err(FlexureError::input(
                     vpath,
                     format!(
-                        "velocity grid is not on the horizon's grid ({} vs {}): resample it onto the horizon's cells first",
+                        "velocity grid is not on the horizon's grid ({why}; {} vs {}): give velocities on the horizon's cells",
                         vgrid.geometry.describe(),
                         grid.geometry.describe()
                     ),

@@ -228,10 +228,10 @@ impl AnisotropyJob {
                         stack.grids.len()
                     )));
                 }
-                if !stack.geometry.same_grid(&sectors.geometry) {
+                if let Some(why) = stack.geometry.mismatch(&sectors.geometry) {
                     return Err(FlexureError::input(
                         &paths[0],
-                        "weight grids are not on the sector grids' grid (size, geotransform or CRS differ)",
+                        format!("weight grids are not on the sector grids' grid ({why}): give weights on the sector bins"),
                     ));
                 }
                 Ok(stack.grids.into_iter().map(SectorWeight::Grid).collect())
@@ -567,11 +567,11 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
                 })
             }
             Some(s) => {
-                if !s.geometry.same_grid(&geometry) {
+                if let Some(why) = s.geometry.mismatch(&geometry) {
                     return Err(FlexureError::input(
                         path,
                         format!(
-                            "is not on the grid of {} (size, geotransform or CRS differ): resample the {what} grids onto one grid",
+                            "is not on the grid of {} ({why}): give every {what} grid on the same bins",
                             s.labels[0]
                         ),
                     ));

@@ -464,10 +464,11 @@ fn other_grid(
     FlexureError::input(
         path,
         format!(
-            "the {what} grid ({}) is not the grid of {} ({}); flexure does not resample: regrid one onto the other first",
+            "the {what} grid ({}) is not the grid of {} ({}{}); flexure does not resample: give both on one survey lattice",
             g.describe(),
             file_name(attribute),
-            a.describe()
+            a.describe(),
+            g.mismatch(a).map_or(String::new(), |why| format!("; {why}"))
         ),
     )
 }
