@@ -85,7 +85,7 @@ impl GridGeometry {
         let offset = self.largest_node_offset(other);
         let (sx, sy) = self.spacing();
         let tolerance = SAME_NODE_SHARE * sx.min(sy);
-        (!(offset <= tolerance)).then(|| {
+        (offset.is_nan() || offset > tolerance).then(|| {
             format!(
                 "cell centres up to {offset:.6} CRS units apart (more than {SAME_NODE_SHARE} of a bin)"
             )
