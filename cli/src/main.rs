@@ -6,7 +6,9 @@ use flexure_engine::colour::Clip;
 use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
-use flexure_engine::horizon::{Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit};
+use flexure_engine::horizon::{
+    DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
+};
 use flexure_engine::io::points::ColumnRole;
 use flexure_engine::io::ReadOptions;
 use flexure_engine::jobs::{
@@ -285,7 +287,7 @@ struct StagesArgs {
     /// Unit of measured depths (and TVD and KB) in tables whose headers declare none; a
     /// header unit it contradicts is refused. Without either: metres, said in the report.
     #[arg(long, value_enum)]
-    md_unit: Option<ZUnitArg>,
+    md_unit: Option<LengthUnitArg>,
     /// North of survey azimuths.
     #[arg(long, value_enum, default_value = "grid")]
     azimuth_reference: ReferenceArg,
@@ -490,7 +492,7 @@ enum DomainArg {
 }
 
 #[derive(Clone, Copy, ValueEnum)]
-enum ZUnitArg {
+enum LengthUnitArg {
     /// Metres.
     M,
     /// International feet (0.3048 m).
@@ -499,12 +501,46 @@ enum ZUnitArg {
     UsFt,
 }
 
-impl From<ZUnitArg> for ZUnit {
-    fn from(u: ZUnitArg) -> Self {
+#[derive(Clone, Copy, ValueEnum)]
+enum ValueUnitArg {
+    /// Metres.
+    M,
+    /// International feet (0.3048 m).
+    Ft,
+    /// US survey feet (1200/3937 m).
+    UsFt,
+    /// Milliseconds of two-way time.
+    Ms,
+    /// Seconds of two-way time (converted to ms).
+    S,
+}
+
+impl From<ValueUnitArg> for DeclaredUnit {
+    fn from(u: ValueUnitArg) -> Self {
         match u {
-            ZUnitArg::M => ZUnit::Metre,
-            ZUnitArg::Ft => ZUnit::Foot,
-            ZUnitArg::UsFt => ZUnit::UsFoot,
+            ValueUnitArg::M => DeclaredUnit::Length(ZUnit::Metre),
+            ValueUnitArg::Ft => DeclaredUnit::Length(ZUnit::Foot),
+            ValueUnitArg::UsFt => DeclaredUnit::Length(ZUnit::UsFoot),
+            ValueUnitArg::Ms => DeclaredUnit::Milliseconds,
+            ValueUnitArg::S => DeclaredUnit::Seconds,
+        }
+    }
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum DirectionArg {
+    /// Values increase downward.
+    Down,
+    /// Values increase upward (negative depths or times).
+    Up,
+}
+
+impl From<LengthUnitArg> for ZUnit {
+    fn from(u: LengthUnitArg) -> Self {
+        match u {
+            LengthUnitArg::M => ZUnit::Metre,
+            LengthUnitArg::Ft => ZUnit::Foot,
+            LengthUnitArg::UsFt => ZUnit::UsFoot,
         }
     }
 }
@@ -559,10 +595,16 @@ struct DomainArgs {
     /// means time), else depth.
     #[arg(long, value_enum)]
     domain: Option<DomainArg>,
-    /// Unit of depth or elevation values; default: the band's declared unit, else the CRS's
-    /// linear unit.
+    /// Unit of the values: a length for depth or elevation, ms or s for two-way time (which
+    /// it implies); default: the band's declared unit, else the CRS's linear unit. A unit the
+    /// file declares otherwise is refused.
     #[arg(long, value_enum)]
-    z_unit: Option<ZUnitArg>,
+    z_unit: Option<ValueUnitArg>,
+    /// Direction in which the values increase; default down for depth and time, up for
+    /// elevation. Depth and time grids that are mostly negative (as some packages export
+    /// them) are refused until this is given.
+    #[arg(long, value_enum)]
+    z_positive: Option<DirectionArg>,
     /// Average velocity for a time grid (depth = V t / 2000), in --velocity-unit.
     #[arg(long, conflicts_with = "velocity_grid")]
     velocity: Option<f64>,
@@ -585,7 +627,8 @@ impl DomainArgs {
                 DomainArg::Time => Domain::Time,
                 DomainArg::Elevation => Domain::Elevation,
             }),
-            z_unit: self.z_unit.map(ZUnit::from),
+            z_unit: self.z_unit.map(DeclaredUnit::from),
+            positive_up: self.z_positive.map(|d| matches!(d, DirectionArg::Up)),
             velocity: match (&self.velocity, &self.velocity_grid) {
                 (Some(v), _) => VelocitySource::Constant(*v),
                 (None, Some(p)) => VelocitySource::Grid(p.clone()),

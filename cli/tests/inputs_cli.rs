@@ -326,3 +326,75 @@ fn outputs_record_their_provenance_for_gdalinfo() {
         assert!(info.contains(&expect), "missing {expect} in\n{info}");
     }
 }
+
+#[test]
+fn negative_depths_and_times_need_their_direction() {
+    // Some packages export depth and two-way time as negative numbers (increasing upward).
+    // Read as positive down, every curvature would flip sign (z -> -z flips k_mean;
+    // REFERENCES.md section 4), so the direction must be said.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let negative = write_unit(d, "neg.tif", bowl().mapv(|z| -z), "m");
+    let msg = refused(&negative, &[]);
+    assert!(
+        msg.contains("mostly negative") && msg.contains("--z-positive up"),
+        "{msg}"
+    );
+    let out = d.join("out");
+    // The bowl (shallowest at its centre: a dome in depth, k_mean +) negated and read as
+    // increasing upward is the bowl again; as elevation it is the same surface.
+    for flags in [&["--z-positive", "up"][..], &["--domain", "elevation"][..]] {
+        let got = at_centre(&curvature(&negative, &out, flags));
+        assert_rel(got, centre_k_mean(1.0), F32, &format!("{flags:?}"));
+    }
+    let msg = refused(
+        &negative,
+        &["--domain", "elevation", "--z-positive", "down"],
+    );
+    assert!(msg.contains("--z-positive down"), "{msg}");
+    // Negative two-way times: t ms at 3000 m/s is 1.5 t m.
+    let times = write_unit(d, "negt.tif", bowl().mapv(|z| -z), "ms");
+    assert!(refused(&times, &["--velocity", "3000"]).contains("--z-positive up"));
+    let got = at_centre(&curvature(
+        &times,
+        &out,
+        &["--velocity", "3000", "--z-positive", "up"],
+    ));
+    assert_rel(got, centre_k_mean(1.5), F32, "negative ms");
+}
+
+#[test]
+fn seconds_without_a_declaration_are_caught_and_declared_with_z_unit() {
+    // Two-way times of 1.3-1.4 s read as ms would be 1.5 m deep: refused as time, noted as
+    // depth; --z-unit s declares them (t s = 1000 t ms; depth = V t / 2000).
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let seconds = bowl().mapv(|z| z / 1500.0);
+    let plain = write_unit(d, "sec.tif", seconds.clone(), "");
+    let msg = refused(&plain, &["--domain", "time", "--velocity", "3000"]);
+    assert!(msg.contains("--z-unit s"), "{msg}");
+    let out = d.join("out");
+    let o = flexure(&[
+        "curvature",
+        plain.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--windows",
+        "5",
+    ]);
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        o.status.success() && stdout.contains("--z-unit s"),
+        "{stdout}"
+    );
+    // 1000 z / 1500 ms at 3000 m/s is z m: the bowl in metres (float32 seconds: ~1e-4).
+    let got = at_centre(&curvature(
+        &plain,
+        &out,
+        &["--z-unit", "s", "--velocity", "3000"],
+    ));
+    assert_rel(got, centre_k_mean(1.0), 2e-3, "--z-unit s");
+    let ms = write_unit(d, "ms.tif", seconds.mapv(|t| t * 1000.0), "ms");
+    let msg = refused(&ms, &["--z-unit", "s", "--velocity", "3000"]);
+    assert!(msg.contains("--z-unit s") && msg.contains("ms"), "{msg}");
+}

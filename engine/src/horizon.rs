@@ -117,6 +117,15 @@ pub enum DeclaredUnit {
 }
 
 impl DeclaredUnit {
+    /// Short name (`m`, `ft`, `us-ft`, `ms`, `s`).
+    pub fn name(self) -> &'static str {
+        match self {
+            DeclaredUnit::Length(u) => u.name(),
+            DeclaredUnit::Milliseconds => "ms",
+            DeclaredUnit::Seconds => "s",
+        }
+    }
+
     /// Parses a unit text: a length unit (see [`ZUnit::parse`]) or `ms`, `msec`,
     /// `millisecond(s)`, `s`, `sec`, `second(s)` (case-insensitive, ignoring spaces, `-`, `_`
     /// and `.`); `None` for an empty or unknown text.
@@ -207,8 +216,14 @@ pub struct HorizonSource {
     pub path: PathBuf,
     /// What the values measure; from the file's declaration, else depth, when `None`.
     pub domain: Option<Domain>,
-    /// Unit of depth or elevation values; from the file, else the CRS unit, when `None`.
-    pub z_unit: Option<ZUnit>,
+    /// Unit of the values (a length, or ms or s, which means time); from the file, else
+    /// the CRS unit, when `None`. A unit the file declares otherwise is refused.
+    pub z_unit: Option<DeclaredUnit>,
+    /// Whether values increase upward (`Some(true)`: negative depths or times, as some
+    /// packages export them) or downward; `None`: downward for depth and time, upward for
+    /// elevation. Depth and time grids whose values are mostly negative are refused unless
+    /// this is given.
+    pub positive_up: Option<bool>,
     /// Velocity of a time horizon.
     pub velocity: VelocitySource,
     /// Unit of the velocity; from the velocity grid's declaration, else m/s, when `None`.
@@ -239,6 +254,7 @@ impl HorizonSource {
             path: path.into(),
             domain: None,
             z_unit: None,
+            positive_up: None,
             velocity: VelocitySource::None,
             velocity_unit: None,
         }
@@ -259,21 +275,25 @@ impl HorizonSource {
         let mut notes = raster.notes.clone();
         let name = raster.info.names.first().cloned().unwrap_or_default();
         let (mut grid, unit_text) = raster.into_single(&self.path)?;
-        let declared = self.declaration(&unit_text, &name)?;
+        let declared = self.with_unit_flag(self.declaration(
+            DeclaredUnit::parse(&unit_text),
+            &unit_text,
+            &name,
+        )?)?;
         let domain = self.decide_domain(&declared, &mut notes)?;
         if declared.unit == Some(DeclaredUnit::Seconds) {
             grid.values.mapv_inplace(|t| t * 1000.0);
             notes.push(format!(
-                "{}: times declared in seconds, converted to ms",
-                self.path.display()
+                "{}: times in seconds ({}), converted to ms",
+                self.path.display(),
+                declared.what()
             ));
         }
+        self.orient(&mut grid, domain, &mut notes)?;
         let z_unit = (domain != Domain::Time)
             .then(|| self.decide_z_unit(&declared, &grid, &mut notes))
             .transpose()?;
-        if domain == Domain::Time {
-            note_time_plausibility(&grid, &self.path, &mut notes);
-        }
+        check_magnitude(&grid, &self.path, domain, &mut notes)?;
         let (velocity, velocity_text) = self.read_velocity(domain, read, &mut notes)?;
         let depth = positive_down_depth(
             &grid,
@@ -292,8 +312,14 @@ impl HorizonSource {
         })
     }
 
-    fn declaration(&self, unit_text: &str, name: &str) -> Result<Declaration> {
-        let unit = DeclaredUnit::parse(unit_text);
+    /// What the file declares: the unit of its values (`unit_text` parsed) and the domain
+    /// their name gives; refuses a name and a unit that disagree.
+    fn declaration(
+        &self,
+        unit: Option<DeclaredUnit>,
+        unit_text: &str,
+        name: &str,
+    ) -> Result<Declaration> {
         let unit_is_time = unit.map(|u| !matches!(u, DeclaredUnit::Length(_)));
         let from_name = domain_from_name(name);
         if let (Some(is_time), Some(d)) = (unit_is_time, from_name) {
@@ -301,7 +327,7 @@ impl HorizonSource {
                 return Err(FlexureError::input(
                     &self.path,
                     format!(
-                        "its values are named '{name}' ({}) but their unit is '{unit_text}': fix the name or the unit in the file",
+                        "its values are named '{name}' ({}) but their unit is '{unit_text}': fix the name, the unit in the file or --z-unit",
                         d.name()
                     ),
                 ));
@@ -313,6 +339,65 @@ impl HorizonSource {
             domain: from_name.or(unit_is_time.and_then(|t| t.then_some(Domain::Time))),
             name: name.to_string(),
         })
+    }
+
+    /// The file's declaration with `--z-unit` applied: it fills in a missing unit and must
+    /// agree with a declared one.
+    fn with_unit_flag(&self, file: Declaration) -> Result<Declaration> {
+        let in_file = |d: Declaration| Declaration {
+            unit_text: format!("{} in the file", d.unit_text),
+            ..d
+        };
+        match (self.z_unit, file.unit) {
+            (None, _) => Ok(file),
+            (Some(flag), Some(declared)) if flag != declared => {
+                Err(self.contradiction(&format!("--z-unit {}", flag.name()), &in_file(file).what()))
+            }
+            (Some(_), Some(_)) => Ok(file),
+            (Some(flag), None) => self.declaration(
+                Some(flag),
+                &format!("{} from --z-unit", flag.name()),
+                &file.name,
+            ),
+        }
+    }
+
+    /// Makes the grid's values increase downward: negates depth or time values that increase
+    /// upward (`positive_up`), and refuses depth or time grids whose values are mostly
+    /// negative when the direction was not given (a silent sign flip of every curvature).
+    fn orient(&self, grid: &mut Grid, domain: Domain, notes: &mut Vec<String>) -> Result<()> {
+        let values: Vec<f64> = grid
+            .values
+            .iter()
+            .copied()
+            .filter(|v| v.is_finite())
+            .collect();
+        let median = crate::stages::percentiles(&values).2;
+        match (domain, self.positive_up) {
+            (Domain::Elevation, Some(false)) => Err(self.contradiction(
+                "--z-positive down",
+                "elevation (heights increase upward)",
+            )),
+            (Domain::Elevation, _) | (_, Some(false)) => Ok(()),
+            (_, Some(true)) => {
+                grid.values.mapv_inplace(|v| -v);
+                notes.push(format!(
+                    "{}: values increase upward (--z-positive up): negated to positive-down {}",
+                    self.path.display(),
+                    domain.name()
+                ));
+                Ok(())
+            }
+            (_, None) if median < 0.0 => Err(FlexureError::input(
+                &self.path,
+                format!(
+                    "its {} values are mostly negative (median {median}), but {} is read positive down: if they increase upward (negative depths or times, as some packages export them) give --z-positive up; for heights above a datum give --domain elevation",
+                    domain.name(),
+                    domain.name()
+                ),
+            )),
+            (_, None) => Ok(()),
+        }
     }
 
     fn decide_domain(&self, declared: &Declaration, notes: &mut Vec<String>) -> Result<Domain> {
@@ -358,17 +443,10 @@ impl HorizonSource {
         grid: &Grid,
         notes: &mut Vec<String>,
     ) -> Result<ZUnit> {
-        let file = match declared.unit {
-            Some(DeclaredUnit::Length(u)) => Some(u),
-            _ => None,
-        };
-        match (self.z_unit, file) {
-            (Some(flag), Some(file)) if flag != file => {
-                Err(self.contradiction(&format!("--z-unit {}", flag.name()), &declared.what()))
-            }
-            (Some(flag), _) => Ok(flag),
-            (None, Some(file)) => Ok(file),
-            (None, None) => {
+        match declared.unit {
+            Some(DeclaredUnit::Length(u)) => Ok(u),
+            Some(_) => Err(self.contradiction("a depth or elevation domain", &declared.what())),
+            None => {
                 let crs_unit = ZUnit::from_metres(grid.geometry.metres_per_unit);
                 let unit = crs_unit.unwrap_or(ZUnit::Metre);
                 notes.push(format!(
@@ -389,7 +467,7 @@ impl HorizonSource {
     fn contradiction(&self, flag: &str, file: &str) -> FlexureError {
         FlexureError::input(
             &self.path,
-            format!("{flag} contradicts the file, which declares {file}: drop the option or correct the file's declaration"),
+            format!("{flag} contradicts what is declared ({file}): drop the option or correct the declaration"),
         )
     }
 
@@ -521,19 +599,35 @@ fn check_velocity(m_s: f64, given: f64, unit: VelocityUnit, file: Option<&Path>)
     )))
 }
 
-/// Notes a time grid whose values look like seconds although read as ms.
-fn note_time_plausibility(grid: &Grid, path: &Path, notes: &mut Vec<String>) {
+/// Refuses two-way times in ms that are all below 20 (seconds read as ms: a seabed at 20 ms
+/// is 15 m of water, shallower than any target; common practice) and notes depths all below
+/// 20 length units, which may be seconds too.
+fn check_magnitude(
+    grid: &Grid,
+    path: &Path,
+    domain: Domain,
+    notes: &mut Vec<String>,
+) -> Result<()> {
     let largest = grid
         .values
         .iter()
         .filter(|v| v.is_finite())
         .fold(0.0f64, |m, v| m.max(v.abs()));
-    if largest > 0.0 && largest < 20.0 {
-        notes.push(format!(
-            "{}: two-way times are all below 20 ms (largest {largest}): if they are seconds, declare the unit 's' in the file",
-            path.display()
+    if !(largest > 0.0 && largest < 20.0) {
+        return Ok(());
+    }
+    if domain == Domain::Time {
+        return Err(FlexureError::input(
+            path,
+            format!("two-way times are all below 20 ms (largest {largest}): they look like seconds: give --z-unit s (or declare the unit 's' in the file)"),
         ));
     }
+    notes.push(format!(
+        "{}: {} values are all below 20 (largest {largest}): if they are two-way times in seconds, give --z-unit s",
+        path.display(),
+        domain.name()
+    ));
+    Ok(())
 }
 
 /// Average velocity for time-to-depth conversion.
