@@ -224,26 +224,26 @@ fn check_undeclared_nulls(
     path: &Path,
     label: &str,
 ) -> Result<Option<String>> {
-    let Some(found) = nulls::outliers(values) else {
-        return Ok(None);
-    };
-    if let Some((v, n)) = found.sentinel() {
+    if let Some((v, n)) = nulls::undeclared_sentinel(values) {
+        let v = nulls::typed(v);
         return Err(FlexureError::input(
             path,
             format!(
-                "{label}: {n} cell(s) hold {v}, far outside the other values (median {:.6}) and shaped like a null sentinel, but the file declares no nodata: declare it with --nodata {v} (or fix the values)",
-                found.median
+                "{label}: {n} cell(s) hold {v}, shaped like a null sentinel and apart from the other values, but the file declares no nodata: declare it with --nodata {v} (or fix the values)"
             ),
         ));
     }
-    let (v, n) = found.values[0];
-    Ok(Some(format!(
-        "{} {label}: {} distinct value(s) lie over {} median absolute deviations from the median {:.6} (e.g. {v} in {n} cell(s)); kept as data: check for picking busts",
-        path.display(),
-        found.values.len(),
-        nulls::OUTLIER_MADS,
-        found.median
-    )))
+    Ok(nulls::outliers(values).map(|found| {
+        let (v, n) = found.values[0];
+        format!(
+            "{} {label}: {} distinct value(s) lie over {} median absolute deviations from the median {:.6} (e.g. {} in {n} cell(s)); kept as data: check for picking busts",
+            path.display(),
+            found.values.len(),
+            nulls::OUTLIER_MADS,
+            found.median,
+            nulls::typed(v)
+        )
+    }))
 }
 
 /// Band descriptions and unit types, and the dataset's default-domain metadata, of a raster.

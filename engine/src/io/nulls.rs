@@ -3,11 +3,14 @@
 //!
 //! Exports in the trade often mark missing picks with a sentinel number instead of a declared
 //! nodata value (-999.25, -9999, 1e30 and the like; common practice). Read as data, one such
-//! value puts a spike of hundreds of metres into the fit and false curvature all around it. The
-//! search is robust: a value is an outlier when it lies more than [`OUTLIER_MADS`] median
-//! absolute deviations from the median (Hampel's identifier, Hampel 1974, JASA 69:383, with a
-//! deliberately wide threshold); an outlier that also looks like a sentinel (see
-//! [`looks_like_sentinel`]) is refused, any other outlier is reported.
+//! value puts a spike of hundreds of metres into the fit and false curvature all around it.
+//! - A value shaped like a sentinel (see [`looks_like_sentinel`]) is taken for one
+//!   ([`undeclared_sentinel`]) when it lies outside the range of the other values by more than
+//!   half their range and a tenth of their median's size (so 0 beside fold counts of 1 to 40,
+//!   or 999 beside picks at 1000 ms, stay data), or has a magnitude of 1e10 or more.
+//! - Other values far from the rest are reported, not refused ([`outliers`]): more than
+//!   [`OUTLIER_MADS`] median absolute deviations from the median (Hampel's identifier, Hampel
+//!   1974, JASA 69:383, with a deliberately wide threshold), e.g. picking busts.
 
 use ndarray::Array2;
 
@@ -51,19 +54,57 @@ pub struct Outliers {
     pub values: Vec<(f64, usize)>,
 }
 
-impl Outliers {
-    /// The most frequent outlying value that looks like a sentinel, with its count.
-    pub fn sentinel(&self) -> Option<(f64, usize)> {
-        self.values
-            .iter()
-            .copied()
-            .find(|&(v, _)| looks_like_sentinel(v))
+/// The most frequent sentinel-shaped value that stands apart from the other values (see the
+/// module notes), with the number of cells holding it; `None` when there is none.
+pub fn undeclared_sentinel(values: &Array2<f64>) -> Option<(f64, usize)> {
+    let mut shaped: Vec<f64> = Vec::new();
+    let mut others: Vec<f64> = Vec::new();
+    for &v in values.iter().filter(|v| v.is_finite()) {
+        if looks_like_sentinel(v) {
+            shaped.push(v);
+        } else {
+            others.push(v);
+        }
+    }
+    if shaped.is_empty() || others.is_empty() {
+        return None;
+    }
+    let lo = others.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = others.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let median = median_in_place(&mut others);
+    let margin = (0.5 * (hi - lo)).max(0.1 * median.abs());
+    let apart = |v: f64| v.abs() >= 1e10 || v < lo - margin || v > hi + margin;
+    count_distinct(shaped.into_iter().filter(|&v| apart(v)).collect())
+        .into_iter()
+        .next()
+}
+
+/// Distinct values with their counts, most frequent first (ties: smaller value first).
+fn count_distinct(mut values: Vec<f64>) -> Vec<(f64, usize)> {
+    values.sort_by(f64::total_cmp);
+    let mut counted: Vec<(f64, usize)> = Vec::new();
+    for v in values {
+        match counted.last_mut() {
+            Some((last, n)) if *last == v => *n += 1,
+            _ => counted.push((v, 1)),
+        }
+    }
+    counted.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.total_cmp(&b.0)));
+    counted
+}
+
+/// A value as it would be typed: plain decimals, or exponent form for magnitudes of 1e7 and
+/// more (`1e30`, not thirty zeros).
+pub fn typed(v: f64) -> String {
+    if v.abs() >= 1e7 {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
     }
 }
 
 /// Finite values further than [`OUTLIER_MADS`] median absolute deviations from the median;
-/// `None` when there are none. When more than half the values are equal (MAD 0), any other
-/// value is an outlier only if it looks like a sentinel.
+/// `None` when there are none or when more than half the values are equal (MAD 0).
 pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
     let mut finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
     if finite.len() < 3 {
@@ -72,31 +113,17 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
     let median = median_in_place(&mut finite);
     let mut deviations: Vec<f64> = finite.iter().map(|v| (v - median).abs()).collect();
     let mad = median_in_place(&mut deviations);
-    let far = |v: f64| {
-        let d = (v - median).abs();
-        if mad > 0.0 {
-            d > OUTLIER_MADS * mad
-        } else {
-            d > 0.0 && looks_like_sentinel(v)
-        }
-    };
-    let mut found: Vec<f64> = finite.into_iter().filter(|&v| far(v)).collect();
-    if found.is_empty() {
+    if mad <= 0.0 {
         return None;
     }
-    found.sort_by(f64::total_cmp);
-    let mut counted: Vec<(f64, usize)> = Vec::new();
-    for v in found {
-        match counted.last_mut() {
-            Some((last, n)) if *last == v => *n += 1,
-            _ => counted.push((v, 1)),
-        }
-    }
-    counted.sort_by(|a, b| b.1.cmp(&a.1).then(a.0.total_cmp(&b.0)));
-    Some(Outliers {
+    let found: Vec<f64> = finite
+        .into_iter()
+        .filter(|&v| (v - median).abs() > OUTLIER_MADS * mad)
+        .collect();
+    (!found.is_empty()).then(|| Outliers {
         median,
         mad,
-        values: counted,
+        values: count_distinct(found),
     })
 }
 
@@ -134,27 +161,69 @@ mod tests {
     fn an_undeclared_sentinel_is_found_and_a_bust_is_only_an_outlier() {
         // A 10 x 10 ramp from 2400 to 2499 m with two cells of -999.25 and one picking bust at
         // 4000 m (by hand: lower median 2448, MAD 25): 4000 is 62 MADs out (an outlier), but
-        // only -999.25 has a sentinel's form.
+        // only -999.25 has a sentinel's form and stands apart from the rest.
         let mut v = Array2::from_shape_fn((10, 10), |(r, c)| 2400.0 + (10 * r + c) as f64);
         v[(0, 0)] = -999.25;
         v[(5, 5)] = -999.25;
         v[(9, 9)] = 4000.0;
-        let o = outliers(&v).unwrap();
-        assert_eq!(o.values, vec![(-999.25, 2), (4000.0, 1)]);
-        assert_eq!(o.sentinel(), Some((-999.25, 2)));
+        assert_eq!(undeclared_sentinel(&v), Some((-999.25, 2)));
+        assert_eq!(
+            outliers(&v).unwrap().values,
+            vec![(-999.25, 2), (4000.0, 1)]
+        );
         let mut clean = v.clone();
         clean.mapv_inplace(|x| null_to_nan(x, None, &[-999.25]));
         assert_eq!(clean.iter().filter(|x| x.is_nan()).count(), 2);
-        assert_eq!(outliers(&clean).unwrap().sentinel(), None);
+        assert_eq!(undeclared_sentinel(&clean), None);
     }
 
     #[test]
-    fn a_flat_grid_with_a_sentinel_is_caught() {
-        // MAD 0 (all picks equal): only sentinel-like values count as outliers.
-        let mut v = Array2::from_elem((4, 4), 1500.0);
-        v[(1, 1)] = -9999.0;
-        assert_eq!(outliers(&v).unwrap().sentinel(), Some((-9999.0, 1)));
-        v[(1, 1)] = 1501.0;
-        assert!(outliers(&v).is_none());
+    fn sentinels_are_found_in_grids_of_large_relief() {
+        // Depths 2000 to 3950 m (a 50 MAD rule would miss -999.25 here) and times 1500 to
+        // 2475 ms, each with 80 cells of -999.25; 1e30 anywhere; 0 beside depths of 2000+.
+        let depth = |k: usize| 2000.0 + 1950.0 * (k % 40) as f64 / 39.0;
+        for (values, sentinel) in [
+            (
+                Array2::from_shape_fn((30, 40), |(r, c)| depth(r * 40 + c)),
+                -999.25,
+            ),
+            (
+                Array2::from_shape_fn((30, 40), |(r, c)| depth(r * 40 + c) / 2.0 + 500.0),
+                -999.25,
+            ),
+            (
+                Array2::from_shape_fn((30, 40), |(r, c)| depth(r * 40 + c)),
+                1e30,
+            ),
+            (
+                Array2::from_shape_fn((30, 40), |(r, c)| depth(r * 40 + c)),
+                0.0,
+            ),
+        ] {
+            let mut v = values;
+            for k in 0..80 {
+                v[(k / 40, k % 40)] = sentinel;
+            }
+            assert_eq!(undeclared_sentinel(&v), Some((sentinel, 80)), "{sentinel}");
+        }
+        // A flat grid (MAD 0) with one -9999.
+        let mut flat = Array2::from_elem((4, 4), 1500.0);
+        flat[(1, 1)] = -9999.0;
+        assert_eq!(undeclared_sentinel(&flat), Some((-9999.0, 1)));
+        assert_eq!(typed(1e30), "1e30");
+        assert_eq!(typed(-999.25), "-999.25");
+    }
+
+    #[test]
+    fn sentinel_shaped_values_among_the_data_stay_data() {
+        // Fold counts 0 to 40 with many zeros at the edges; picks at 1000 ms with some at
+        // 999 ms; elevations from -500 to 500 m through 0: every value is data.
+        let fold =
+            Array2::from_shape_fn((20, 20), |(r, c)| if c < 9 { 0.0 } else { (r + c) as f64 });
+        assert_eq!(undeclared_sentinel(&fold), None);
+        let picks = Array2::from_shape_fn((20, 20), |(r, _)| if r < 3 { 999.0 } else { 1000.0 });
+        assert_eq!(undeclared_sentinel(&picks), None);
+        let heights = Array2::from_shape_fn((21, 21), |(r, _)| -500.0 + 50.0 * r as f64);
+        assert_eq!(undeclared_sentinel(&heights), None);
     }
 }
