@@ -366,7 +366,7 @@ impl AnisotropyJob {
     ) -> AnisotropyReport {
         let fitted: Vec<SectorFit> = fits.iter().flatten().copied().collect();
         let magnitude = quantiles(fitted.iter().map(|f| f.magnitude));
-        let mut notes = Vec::new();
+        let mut notes = sectors.notes.clone();
         if sectors.grids.len() < USUAL_MIN_SECTORS {
             notes.push(format!(
                 "only {} sectors: {USUAL_MIN_SECTORS} to 8 are usual; azimuths and errors are weakly constrained",
@@ -467,10 +467,10 @@ struct Stack {
     labels: Vec<String>,
     /// The file of each grid.
     paths: Vec<PathBuf>,
+    /// What the readers noticed (point-list lattices, outliers kept, seconds converted).
+    notes: Vec<String>,
 }
 
-/// Reads `paths` as a stack of `what` grids: the bands of one file, or one band per file, all
-/// on the same grid.
 /// What the values of a stack are: sector times (ms; declared seconds are converted, declared
 /// lengths refused) or weights (any unit).
 #[derive(Clone, Copy, PartialEq)]
@@ -497,7 +497,13 @@ fn read_stack_file(path: &Path, read: &ReadOptions, units: Units) -> Result<Rast
     }
     for (band, unit) in raster.bands.iter_mut().zip(&raster.info.units) {
         match DeclaredUnit::parse(unit) {
-            Some(DeclaredUnit::Seconds) => band.mapv_inplace(|t| t * 1000.0),
+            Some(DeclaredUnit::Seconds) => {
+                band.mapv_inplace(|t| t * 1000.0);
+                raster.notes.push(format!(
+                    "{}: a band declared in seconds converted to ms",
+                    path.display()
+                ));
+            }
             Some(DeclaredUnit::Length(_)) => {
                 return Err(FlexureError::input(
                     path,
@@ -510,6 +516,8 @@ fn read_stack_file(path: &Path, read: &ReadOptions, units: Units) -> Result<Rast
     Ok(raster)
 }
 
+/// Reads `paths` as a stack of `what` grids: the bands of one file, or one band per file, all
+/// on the same grid.
 fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Stack> {
     let what = units.what();
     let name = |p: &Path| {
@@ -522,10 +530,17 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
         let Raster {
             geometry,
             bands: grids,
-            ..
+            info,
+            notes,
         } = read_stack_file(path, read, units)?;
-        let labels = (1..=grids.len())
-            .map(|b| format!("{} band {b}", name(path)))
+        let labels = info
+            .names
+            .iter()
+            .enumerate()
+            .map(|(b, n)| match n.is_empty() {
+                true => format!("{} band {}", name(path), b + 1),
+                false => format!("{} band {} ({n})", name(path), b + 1),
+            })
             .collect();
         let paths = vec![path.clone(); grids.len()];
         return Ok(Stack {
@@ -533,6 +548,7 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
             grids,
             labels,
             paths,
+            notes,
         });
     }
     let mut stack: Option<Stack> = None;
@@ -546,6 +562,7 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
         let Raster {
             geometry,
             bands: mut grids,
+            notes,
             ..
         } = read_stack_file(path, read, units)?;
         if grids.len() != 1 {
@@ -564,6 +581,7 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
                     grids,
                     labels: vec![name(path)],
                     paths: vec![path.clone()],
+                    notes,
                 })
             }
             Some(s) => {
@@ -579,6 +597,7 @@ fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Sta
                 s.grids.append(&mut grids);
                 s.labels.push(name(path));
                 s.paths.push(path.clone());
+                s.notes.extend(notes);
             }
         }
     }

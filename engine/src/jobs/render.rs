@@ -9,8 +9,8 @@ use crate::colour::{short, Clip, ColourScale};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::{
-    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_rgba_geotiff, RasterInfo,
-    ReadOptions, StagedFile,
+    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_rgba_geotiff, Raster,
+    RasterInfo, ReadOptions, StagedFile,
 };
 use crate::provenance::Provenance;
 use crate::render::{
@@ -91,7 +91,7 @@ impl RenderJob {
                 format!("band {id} is null everywhere: nothing to draw"),
             )
         })?;
-        let shade = self.read_shade(&geometry)?;
+        let (shade, notes) = self.read_shade(&geometry)?;
         let vectors = self.read_vectors(&geometry)?;
         let mut inputs: Vec<&Path> = vec![&self.attribute];
         inputs.extend(self.shade.as_deref());
@@ -141,6 +141,7 @@ impl RenderJob {
             palette: scale.palette_name().to_string(),
             clip: scale.clip_note.clone(),
             vectors: vectors.map(|v| (v.segments.len(), v.every, v.scale)),
+            notes,
         })
     }
 
@@ -181,14 +182,17 @@ impl RenderJob {
         })
     }
 
-    fn read_shade(&self, geometry: &GridGeometry) -> Result<Option<Array2<f64>>> {
+    /// The hillshade of the shade horizon, if any, and what its reader noticed.
+    fn read_shade(&self, geometry: &GridGeometry) -> Result<(Option<Array2<f64>>, Vec<String>)> {
         let Some(path) = &self.shade else {
-            return Ok(None);
+            return Ok((None, Vec::new()));
         };
-        let (g, mut bands) = {
-            let r = read_raster(path, &self.read)?;
-            (r.geometry, r.bands)
-        };
+        let Raster {
+            geometry: g,
+            mut bands,
+            notes,
+            ..
+        } = read_raster(path, &self.read)?;
         if bands.len() != 1 {
             return Err(FlexureError::input(
                 path,
@@ -207,12 +211,8 @@ impl RenderJob {
                 "shade horizon",
             ));
         }
-        Ok(Some(hillshade(
-            &bands.swap_remove(0),
-            &g,
-            !self.shade_positive_up,
-            None,
-        )))
+        let shade = hillshade(&bands.swap_remove(0), &g, !self.shade_positive_up, None);
+        Ok((Some(shade), notes))
     }
 
     fn read_vectors(&self, geometry: &GridGeometry) -> Result<Option<Vectors>> {
@@ -488,6 +488,8 @@ pub struct RenderReport {
     pub clip: String,
     /// (count, decimation (columns, rows), metres per ms) of the vectors drawn.
     pub vectors: Option<(usize, (usize, usize), f64)>,
+    /// What the readers noticed (e.g. the shade horizon's point-list lattice).
+    pub notes: Vec<String>,
 }
 
 impl fmt::Display for RenderReport {
@@ -501,6 +503,9 @@ impl fmt::Display for RenderReport {
                 every.1,
                 short(scale)
             )?;
+        }
+        for n in &self.notes {
+            writeln!(f, "  note: {n}")?;
         }
         writeln!(f, "wrote {}", self.map.display())?;
         if let Some(p) = &self.png {
