@@ -373,8 +373,9 @@ fn sector_point_lists_and_shade_points_work_like_rasters() {
         .map(|a| a.to_string())
         .collect::<Vec<_>>()
         .join(",");
+    let mut reports = Vec::new();
     for (input, out) in [(&tif, "a"), (&pts, "b")] {
-        ok(&[
+        reports.push(ok(&[
             "anisotropy",
             input.to_str().unwrap(),
             "--azimuths",
@@ -383,9 +384,14 @@ fn sector_point_lists_and_shade_points_work_like_rasters() {
             d.join(out).to_str().unwrap(),
             "--crs",
             "EPSG:32625",
-            "--quiet",
-        ]);
+        ]));
     }
+    // The report names each sector's column and describes the lattice it was read onto.
+    assert!(
+        reports[1].contains("band 1 (az15)") && reports[1].contains("read onto its lattice"),
+        "{}",
+        reports[1]
+    );
     assert_same_values(
         &bands_of(&d.join("b/anisotropy.tif")),
         &bands_of(&d.join("a/anisotropy.tif")),
