@@ -315,9 +315,13 @@ fn outputs_record_their_provenance_for_gdalinfo() {
     let absolute = input.canonicalize().unwrap();
     for expect in [
         format!("FLEXURE_INPUT_1={} sha256:{sum}", absolute.display()),
-        "FLEXURE_VERSION=flexure ".to_string(),
-        "FLEXURE_COMMAND=".to_string(),
-        "curvature".to_string(),
+        format!(
+            "FLEXURE_COMMAND={} curvature {} --out {} --windows 5 --attributes k_mean,dip --overwrite",
+            env!("CARGO_BIN_EXE_flexure"),
+            input.display(),
+            out.display()
+        ),
+        format!("FLEXURE_VERSION=flexure {}", env!("CARGO_PKG_VERSION")),
         "FLEXURE_DOMAIN=depth".to_string(),
         "FLEXURE_Z_UNIT=m".to_string(),
         "FLEXURE_WINDOW_CELLS=5".to_string(),
@@ -397,4 +401,18 @@ fn seconds_without_a_declaration_are_caught_and_declared_with_z_unit() {
     let ms = write_unit(d, "ms.tif", seconds.mapv(|t| t * 1000.0), "ms");
     let msg = refused(&ms, &["--z-unit", "s", "--velocity", "3000"]);
     assert!(msg.contains("--z-unit s") && msg.contains("ms"), "{msg}");
+}
+
+#[test]
+fn a_crs_option_contradicting_the_file_is_refused() {
+    // --crs only fills in a missing CRS; EPSG:32626 (UTM 26N) is not the file's EPSG:32625.
+    let dir = tempfile::tempdir().unwrap();
+    let input = write_unit(dir.path(), "h.tif", bowl(), "m");
+    let msg = refused(&input, &["--crs", "EPSG:32626"]);
+    assert!(
+        msg.contains("--crs 'EPSG:32626'") && msg.contains("UTM zone 25N"),
+        "{msg}"
+    );
+    let out = dir.path().join("out");
+    assert!(at_centre(&curvature(&input, &out, &["--crs", "EPSG:32625"])).is_finite());
 }

@@ -185,11 +185,7 @@ fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
             "is a point list, which declares no CRS: give its projected CRS with --crs (e.g. --crs EPSG:32625)",
         ));
     };
-    let srs = SpatialRef::from_definition(definition).map_err(|_| {
-        FlexureError::Parameter(format!(
-            "--crs '{definition}' is not a CRS GDAL knows: give e.g. EPSG:32625"
-        ))
-    })?;
+    let (_, srs) = assigned_crs(definition)?;
     let (crs_wkt, metres_per_unit) = linear_crs(&srs, path)?;
     let geometry = grid.geometry(crs_wkt, metres_per_unit);
     let mut notes = vec![format!(
@@ -305,13 +301,22 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
     let geo_transform = ds
         .geo_transform()
         .map_err(|_| FlexureError::input(path, "has no geotransform: give a georeferenced grid"))?;
-    let srs = match (ds.spatial_ref(), assign_crs) {
-        (Ok(srs), _) if !srs.to_wkt().unwrap_or_default().is_empty() => srs,
-        (_, Some(def)) => SpatialRef::from_definition(def).map_err(|_| {
-            FlexureError::Parameter(format!(
-                "--crs '{def}' is not a CRS GDAL knows: give e.g. EPSG:32625"
-            ))
-        })?,
+    let assigned = assign_crs.map(assigned_crs).transpose()?;
+    let srs = match (ds.spatial_ref(), assigned) {
+        (Ok(srs), Some((def, given))) if !srs.to_wkt().unwrap_or_default().is_empty() => {
+            if srs != given {
+                return Err(FlexureError::input(
+                    path,
+                    format!(
+                        "declares the CRS '{}' but --crs '{def}' was given: --crs only fills in a missing CRS; drop it, or reproject the file",
+                        srs.name().unwrap_or_default()
+                    ),
+                ));
+            }
+            srs
+        }
+        (Ok(srs), None) if !srs.to_wkt().unwrap_or_default().is_empty() => srs,
+        (_, Some((_, given))) => given,
         _ => {
             return Err(FlexureError::input(
                 path,
@@ -334,6 +339,17 @@ fn read_geometry(ds: &Dataset, path: &Path, assign_crs: Option<&str>) -> Result<
         ));
     }
     Ok(geometry)
+}
+
+/// The CRS `--crs` names, with its definition.
+fn assigned_crs(definition: &str) -> Result<(&str, SpatialRef)> {
+    SpatialRef::from_definition(definition)
+        .map(|srs| (definition, srs))
+        .map_err(|_| {
+            FlexureError::Parameter(format!(
+                "--crs '{definition}' is not a CRS GDAL knows: give e.g. EPSG:32625"
+            ))
+        })
 }
 
 /// The WKT and metres per linear unit of a projected (or local) CRS; refuses a geographic CRS
