@@ -146,7 +146,13 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     if points::is_point_list(path) {
         return read_point_list(path, options);
     }
-    let ds = Dataset::open(path).map_err(|e| FlexureError::read(path, e))?;
+    let ds = match Dataset::open(path) {
+        Ok(ds) => ds,
+        // A text file GDAL cannot read is most likely a point list with something unusual in
+        // it: the point reader names the line.
+        Err(_) if is_text(path) => return read_point_list(path, options),
+        Err(e) => return Err(FlexureError::read(path, e)),
+    };
     let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
     let size = (geometry.cols, geometry.rows);
     let mut notes = Vec::new();
@@ -173,6 +179,15 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
         info,
         notes,
     })
+}
+
+/// Whether the file's first 8 KiB hold no NUL byte (text rather than a binary raster).
+fn is_text(path: &Path) -> bool {
+    use std::io::Read;
+    let mut head = Vec::with_capacity(8192);
+    std::fs::File::open(path)
+        .and_then(|f| f.take(8192).read_to_end(&mut head))
+        .is_ok_and(|n| n > 0 && !head.contains(&0))
 }
 
 /// A point list on its exact lattice as a raster: bands named after the value columns, units
