@@ -248,9 +248,12 @@ struct CorridorArgs {
     /// Window choosing the curvature file in a folder.
     #[arg(long)]
     window: Option<usize>,
-    /// Corridor half width each side of the well, CRS units.
+    /// Corridor half width each side of the well, metres.
     #[arg(long, default_value_t = 150.0)]
     half_width: f64,
+    /// Fewest fitted anisotropy bins in a corridor before its row is flagged.
+    #[arg(long, default_value_t = 10)]
+    min_bins: usize,
 }
 
 #[derive(clap::Args)]
@@ -349,6 +352,7 @@ impl StagesArgs {
         job.curvature = self.corridor.curvature.clone();
         job.window = self.corridor.window;
         job.half_width = self.corridor.half_width;
+        job.min_bins = self.corridor.min_bins;
         job.md_unit = self.md_unit.map(ZUnit::from);
         job.reference = reference(self.azimuth_reference, self.convergence)?;
         job.horizon = self.horizon.as_deref().map(|h| self.domain.source(h));
@@ -388,6 +392,7 @@ impl PlanArgs {
         job.window = self.corridor.window;
         job.step = self.step;
         job.half_width = self.corridor.half_width;
+        job.min_bins = self.corridor.min_bins;
         job
     }
 }

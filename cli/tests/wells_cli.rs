@@ -21,6 +21,15 @@ fn grid() -> flexure_engine::grid::GridGeometry {
 
 /// DIR/anisotropy.tif on [`grid`] with band values `value(band, row, col)`.
 fn anisotropy_field(dir: &Path, value: impl Fn(&str, usize, usize) -> f32) -> PathBuf {
+    anisotropy_on(dir, &grid(), value)
+}
+
+/// DIR/anisotropy.tif on `g` (100 x 100 cells) with band values `value(band, row, col)`.
+fn anisotropy_on(
+    dir: &Path,
+    g: &flexure_engine::grid::GridGeometry,
+    value: impl Fn(&str, usize, usize) -> f32,
+) -> PathBuf {
     let bands: Vec<BandOut> = FIT_BANDS
         .iter()
         .map(|b| BandOut {
@@ -30,7 +39,7 @@ fn anisotropy_field(dir: &Path, value: impl Fn(&str, usize, usize) -> f32) -> Pa
         })
         .collect();
     let path = dir.join("anisotropy.tif");
-    write_float_geotiff(&path, &grid(), &bands, &[]).unwrap();
+    write_float_geotiff(&path, g, &bands, &[]).unwrap();
     path
 }
 
@@ -852,5 +861,61 @@ fn standoff_from_a_dipping_plane_is_known_by_hand() {
     assert!(
         near(&lateral["standoff_mean"], -10.0) && near(&lateral["standoff_min"], -28.0),
         "{lateral:?}"
+    );
+}
+
+#[test]
+fn corridor_half_widths_are_metres_on_a_grid_in_feet() {
+    // A CRS in international feet with 100 ft bins (30.48 m): 300 ft stages (91.44 m) with
+    // the default 150 m half width cover 91.44 x 300 m, about 29.5 bins of 929 m^2
+    // (elementary area; 1 ft = 0.3048 m). Read as 150 ft, they would cover about 9.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let mut g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (100.0, 100.0), (100, 100));
+    g.crs_wkt = gdal::spatial_ref::SpatialRef::from_proj4(
+        "+proj=tmerc +lat_0=0 +lon_0=-33 +k=0.9996 +x_0=500000 +y_0=0 +ellps=WGS84 +units=ft +no_defs",
+    )
+    .unwrap()
+    .to_wkt()
+    .unwrap();
+    let a = anisotropy_on(d, &g, |b, _, _| uniform(b));
+    let well = write(d, "ft_1h.csv", &EAST_WEST.replace("md,x,y", "md (ft),x,y"));
+    let stages = write(d, "ft_1h_stages.csv", STAGES);
+    let run = |out: &str, extra: &[&str]| {
+        let out = d.join(out);
+        let mut args = vec![
+            "stages",
+            "--anisotropy",
+            s(&a),
+            "--well",
+            s(&well),
+            "--stages",
+            s(&stages),
+            "--out",
+            s(&out),
+        ];
+        args.extend_from_slice(extra);
+        let o = flexure(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        (
+            String::from_utf8_lossy(&o.stdout).to_string(),
+            csv_rows(&out.join("stages.csv")),
+        )
+    };
+    let (stdout, rows) = run("a", &[]);
+    for r in &rows[1..5] {
+        let n: f64 = r["n_bins"].parse().unwrap();
+        assert!((n - 29.5).abs() <= 6.0, "{r:?}");
+        assert!(r["flag"].is_empty(), "{r:?}");
+    }
+    // No KB was given: the report says how TVD was taken.
+    assert!(stdout.contains("no KB given"), "{stdout}");
+    // --min-bins sets the flag's threshold.
+    let (_, rows) = run("b", &["--min-bins", "40"]);
+    assert!(
+        rows[1..5]
+            .iter()
+            .all(|r| r["flag"].contains("fewer than 40")),
+        "{rows:?}"
     );
 }

@@ -583,6 +583,12 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
         }
         (_, _, Some(inc), Some(azi)) => {
             well.stations = survey_stations(table, &md, inc, azi, setting, crs_per_md)?;
+            well.notes.extend(listed_tvd_note(
+                table,
+                &well,
+                (tvd_col, tvdss_col),
+                setting.kb,
+            )?);
         }
         _ => {
             return Err(table.error(
@@ -595,6 +601,38 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
         }
     }
     Ok(well)
+}
+
+/// A survey's own TVD column is not used (positions come from md, inc and azi by minimum
+/// curvature); the note says so and how far it is from the computed TVD, so a survey whose
+/// listed TVD disagrees (another KB, another datum, an error) shows.
+fn listed_tvd_note(
+    table: &Table,
+    well: &Well,
+    (tvd_col, tvdss_col): (Option<usize>, Option<usize>),
+    kb: f64,
+) -> Result<Option<String>> {
+    let (col, shift, what) = match (tvd_col, tvdss_col) {
+        (Some(c), _) => (c, kb, "tvd"),
+        (None, Some(c)) => (c, 0.0, "tvdss"),
+        (None, None) => return Ok(None),
+    };
+    let listed = table.numbers(col)?;
+    let (worst, k) = listed
+        .iter()
+        .zip(&well.stations)
+        .map(|(t, s)| ((t - shift) - s.tvd / well.crs_per_md).abs())
+        .enumerate()
+        .fold(
+            (0.0f64, 0),
+            |(w, wk), (k, d)| if d > w { (d, k) } else { (w, wk) },
+        );
+    Ok(Some(format!(
+        "{}: the survey's {what} column is not used (TVD is computed by minimum curvature); it differs from the computed TVD by up to {worst:.3} {} (line {})",
+        table.path.display(),
+        well.md_unit.name(),
+        table.line(k)
+    )))
 }
 
 /// Stations of a survey table (see [`read_well`]).

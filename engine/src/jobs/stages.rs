@@ -34,16 +34,48 @@ fractures form. Anisotropy is a proxy for stress and fractures, not a measuremen
 check against image logs, dipole sonic and microseismic. Drilling and completion decisions \
 belong to licensed engineers and geoscientists under local regulations.";
 
-/// Default corridor half width each side of the well, CRS units (150 m, common practice).
+/// Default corridor half width each side of the well, metres (common practice).
 pub const DEFAULT_HALF_WIDTH: f64 = 150.0;
 
 /// Longest step, metres, between the points that trace a well's arc for corridors, stand-off
 /// and the written paths (also at most one bin of the anisotropy grid for corridors).
 pub const SAMPLE_STEP_M: f64 = 10.0;
 
-/// Fewest fitted bins for corridor statistics without a flag (our choice: below about ten
-/// bins an axial mean and a Rayleigh test say little).
+/// Default fewest fitted bins for corridor statistics without a flag (our choice: below about
+/// ten bins an axial mean and a Rayleigh test say little; `--min-bins` changes it, e.g. for
+/// coarse superbins).
 pub const MIN_BINS: usize = 10;
+
+/// How corridors are drawn and judged: half width in CRS units and the fewest fitted bins
+/// without a flag.
+#[derive(Clone, Copy, Debug)]
+struct CorridorRule {
+    half_width: f64,
+    min_bins: usize,
+}
+
+impl CorridorRule {
+    /// The rule for a half width in metres (checked), in metres.
+    fn new(half_width_m: f64, min_bins: usize) -> Result<Self> {
+        if !(half_width_m.is_finite() && half_width_m > 0.0) {
+            return Err(FlexureError::Parameter(format!(
+                "--half-width {half_width_m} must be a positive distance in metres"
+            )));
+        }
+        Ok(Self {
+            half_width: half_width_m,
+            min_bins,
+        })
+    }
+
+    /// The same rule in the units of a grid of `metres_per_unit`.
+    fn on_grid(self, metres_per_unit: f64) -> Self {
+        Self {
+            half_width: self.half_width / metres_per_unit,
+            ..self
+        }
+    }
+}
 
 /// Least share of a corridor's cells (inside the grid) that must hold a fit for its
 /// statistics to go unflagged.
@@ -140,14 +172,14 @@ struct Corridor {
 }
 
 impl Corridor {
-    /// Evaluates the corridor of half width `half_width` around the plan path `points`.
+    /// Evaluates the corridor of `rule` around the plan path `points`.
     fn evaluate(
         points: &[(f64, f64)],
-        half_width: f64,
+        rule: CorridorRule,
         anisotropy: &AnisotropyRaster,
         attributes: Option<&Attributes>,
     ) -> Self {
-        let ring = corridor(points, half_width);
+        let ring = corridor(points, rule.half_width);
         let (cells, leaves) = cells_inside(&anisotropy.geometry, &ring);
         let fitted: Vec<(usize, usize)> = cells
             .iter()
@@ -166,10 +198,11 @@ impl Corridor {
         let mut flags = Vec::new();
         if bins.is_empty() {
             flags.push("no fitted anisotropy bins in the corridor".to_string());
-        } else if bins.len() < MIN_BINS {
+        } else if bins.len() < rule.min_bins {
             flags.push(format!(
-                "only {} fitted bins (fewer than {MIN_BINS})",
-                bins.len()
+                "only {} fitted bins (fewer than {})",
+                bins.len(),
+                rule.min_bins
             ));
         }
         if leaves {
@@ -259,8 +292,10 @@ pub struct StagesJob {
     pub window: Option<usize>,
     /// The wells.
     pub wells: Vec<WellInput>,
-    /// Corridor half width in CRS units.
+    /// Corridor half width each side of the well, metres.
     pub half_width: f64,
+    /// Fewest fitted bins in a corridor without a flag.
+    pub min_bins: usize,
     /// Unit of measured depths in well and stage tables whose headers declare none
     /// (`--md-unit`); a header unit that contradicts it is refused. `None`: the header's
     /// unit, else metres (said in the report).
@@ -299,6 +334,7 @@ impl StagesJob {
             window: None,
             wells,
             half_width: DEFAULT_HALF_WIDTH,
+            min_bins: MIN_BINS,
             md_unit: None,
             reference: AzimuthReference::Grid,
             horizon: None,
@@ -310,7 +346,7 @@ impl StagesJob {
     /// Runs the job and reports per well. Every input is read and checked before any folder
     /// or file is created.
     pub fn run(&self) -> Result<StagesReport> {
-        check_half_width(self.half_width)?;
+        let rule = CorridorRule::new(self.half_width, self.min_bins)?;
         if self.wells.is_empty() {
             return Err(FlexureError::Parameter(
                 "no well given: use --well FILE --stages FILE or --wells LIST".into(),
@@ -318,6 +354,7 @@ impl StagesJob {
         }
         check_well_names(&self.wells)?;
         let anisotropy = AnisotropyRaster::read(&self.anisotropy)?;
+        let rule = rule.on_grid(anisotropy.geometry.metres_per_unit);
         let attributes = self
             .curvature
             .as_deref()
@@ -371,8 +408,7 @@ impl StagesJob {
                     )
                 })?;
                 let plan: Vec<(f64, f64)> = points.iter().map(|p| (p.x, p.y)).collect();
-                let mut c =
-                    Corridor::evaluate(&plan, self.half_width, &anisotropy, attributes.as_ref());
+                let mut c = Corridor::evaluate(&plan, rule, &anisotropy, attributes.as_ref());
                 let standoff = horizon
                     .as_ref()
                     .map(|h| standoff(&points, h, well.crs_per_md));
@@ -454,6 +490,12 @@ impl StagesJob {
         let (stages, note) = read_stages(&stage_table, self.md_unit, &well, metres_per_unit)?;
         check_stages(&stages, &well, &stage_table)?;
         notes.extend(well.notes.iter().cloned().chain(note));
+        if input.kb.is_none() {
+            notes.push(format!(
+                "well {}: no KB given: TVD below KB is taken as TVD below the horizons' datum (kb 0); give --kb {}=ELEVATION when they differ",
+                input.name, input.name
+            ));
+        }
         Ok(LoadedWell { well, stages })
     }
 
@@ -526,16 +568,6 @@ fn standoff(points: &[Station], horizon: &Horizon, crs_per_md: f64) -> Standoff 
         .iter()
         .fold((f64::NAN, f64::NAN), |(lo, hi), &v| (v.min(lo), v.max(hi)));
     ((mean, min, max), values.len() < with_tvd.len())
-}
-
-fn check_half_width(h: f64) -> Result<()> {
-    if h.is_finite() && h > 0.0 {
-        Ok(())
-    } else {
-        Err(FlexureError::Parameter(format!(
-            "--half-width {h} must be a positive distance"
-        )))
-    }
 }
 
 /// Short name of a CRS linear unit for column headers.
@@ -695,12 +727,13 @@ fn corridor_table<'a>(
     header.join(",") + "\n" + &body
 }
 
-/// A CSV number: integers as such, tiny magnitudes (p-values) in exponent form, others with
-/// six decimals; empty for NaN.
+/// A CSV number: integers (to 1e-9 relative) as such, tiny magnitudes (p-values) in
+/// exponent form, others with six decimals; empty for NaN.
 fn number(v: f64) -> String {
     if !v.is_finite() {
         String::new()
-    } else if v.fract() == 0.0 && v.abs() < 1e15 {
+    } else if (v - v.round()).abs() <= 1e-9 * v.abs().max(1.0) && v.abs() < 1e15 {
+        // Whole numbers, also those a unit round trip (ft -> CRS -> ft) left a few ulps off.
         format!("{v:.0}")
     } else if v.abs() < 1e-3 {
         format!("{v:.3e}")
@@ -962,8 +995,10 @@ pub struct PlanJob {
     pub lateral: f64,
     /// Azimuth step, degrees (candidates 0 to < 180).
     pub step: f64,
-    /// Corridor half width, CRS units.
+    /// Corridor half width each side of the lateral, metres.
     pub half_width: f64,
+    /// Fewest fitted bins in a corridor without a flag.
+    pub min_bins: usize,
     /// Output folder.
     pub out_dir: PathBuf,
 }
@@ -987,13 +1022,14 @@ impl PlanJob {
             lateral,
             step: 5.0,
             half_width: DEFAULT_HALF_WIDTH,
+            min_bins: MIN_BINS,
             out_dir: out_dir.into(),
         }
     }
 
     /// Runs the scan.
     pub fn run(&self) -> Result<PlanReport> {
-        check_half_width(self.half_width)?;
+        let rule = CorridorRule::new(self.half_width, self.min_bins)?;
         if !(self.lateral.is_finite() && self.lateral > 0.0) {
             return Err(FlexureError::Parameter(format!(
                 "--lateral {} must be a positive length",
@@ -1007,6 +1043,7 @@ impl PlanJob {
             )));
         }
         let anisotropy = AnisotropyRaster::read(&self.anisotropy)?;
+        let rule = rule.on_grid(anisotropy.geometry.metres_per_unit);
         let attributes = self
             .curvature
             .as_deref()
@@ -1017,8 +1054,7 @@ impl PlanJob {
             .map(|k| {
                 let azimuth = k as f64 * self.step;
                 let line = self.lateral_line(azimuth);
-                let c =
-                    Corridor::evaluate(&line, self.half_width, &anisotropy, attributes.as_ref());
+                let c = Corridor::evaluate(&line, rule, &anisotropy, attributes.as_ref());
                 Candidate {
                     azimuth,
                     score: perpendicularity_score(&c.bins, azimuth),
