@@ -563,7 +563,8 @@ enum VelocityUnitArg {
 /// The horizon and window options shared by `curvature` and `window-study`.
 #[derive(clap::Args)]
 struct HorizonArgs {
-    /// Horizon grid: any single-band raster GDAL reads (projected CRS).
+    /// Horizon: a single-band raster GDAL reads (projected CRS), or a point list (x y z,
+    /// inline xline x y z, ...; see --columns), read onto its exact lattice.
     input: PathBuf,
     /// Output folder.
     #[arg(long)]

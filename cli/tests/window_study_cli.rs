@@ -42,7 +42,7 @@ fn study_writes_its_figures_and_recommends_a_listed_window() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(
-        stdout.contains("notice: windows sorted and duplicates removed: 3,5,9,15"),
+        stdout.contains("note: windows sorted and duplicates removed: 3,5,9,15"),
         "{stdout}"
     );
     let json: serde_json::Value =

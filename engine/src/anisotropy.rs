@@ -241,13 +241,13 @@ pub const FIT_BANDS: [FitBand; 10] = [
     },
     FitBand {
         id: "azimuth_slow",
-        unit: "deg",
+        unit: "degree",
         description: "azimuth of maximum time, degrees from grid north, 0..180",
         value: |f| f.azimuth_slow,
     },
     FitBand {
         id: "azimuth_fast",
-        unit: "deg",
+        unit: "degree",
         description: "slow azimuth + 90, degrees from grid north, 0..180",
         value: |f| f.azimuth_fast,
     },
@@ -277,7 +277,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
     },
     FitBand {
         id: "azimuth_stderr",
-        unit: "deg",
+        unit: "degree",
         description: "standard error of the azimuths from the least-squares covariance",
         value: |f| f.azimuth_stderr,
     },

@@ -96,6 +96,7 @@ impl WindowStudyJob {
             &out.join("window_study_chart"),
             &s,
             self.attribute,
+            g.metres_per_unit,
         )?);
         staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s, g)?);
         let adaptive_path = self.adaptive.then(|| {
@@ -315,7 +316,12 @@ fn csv(s: &Study) -> String {
 
 /// Noise (blue), detail lost (orange), RMS (grey) and difference from the adaptive map (purple)
 /// against window, log scale, with the recommendation marked; as SVG and PNG.
-fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<StagedFile>> {
+fn stage_chart(
+    base: &Path,
+    s: &Study,
+    attribute: &AttributeDef,
+    metres_per_unit: f64,
+) -> Result<Vec<StagedFile>> {
     let (w, h) = (720u32, 510u32);
     let (left, right, top, bottom) = (80.0f32, 690.0f32, 60.0f32, 380.0f32);
     let mut fig = Figure::new(w, h);
@@ -424,7 +430,10 @@ fn stage_chart(base: &Path, s: &Study, attribute: &AttributeDef) -> Result<Vec<S
         right - 230.0,
         bottom + 56.0,
         11.0,
-        format!("horizon noise sd {}", short(s.noise.sigma)),
+        format!(
+            "horizon noise sd {} m",
+            short(s.noise.sigma * metres_per_unit)
+        ),
         Anchor::Start,
     );
     stage_figure(base, &fig)
@@ -454,7 +463,7 @@ pub struct WindowStudyReport {
 impl fmt::Display for WindowStudyReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         for n in &self.notices {
-            writeln!(f, "notice: {n}")?;
+            writeln!(f, "note: {n}")?;
         }
         writeln!(
             f,
