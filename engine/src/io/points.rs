@@ -7,6 +7,10 @@
 //! GDAL's XYZ driver reads only north-up grids sorted by row; survey grids are rotated from
 //! north and exported in inline/crossline order, hence this reader.
 //!
+//! Text: lines, delimiters, fields, null words and header names come from the one tokenizer
+//! of text inputs ([`crate::io::table`]). Free text before a header (a title, `Horizon: X`) is
+//! skipped and reported; the header is the line of names just before the first data line.
+//!
 //! Method:
 //! - With inline/crossline numbers, the lattice indices come from the numbering: the step of
 //!   each is the greatest common divisor of the differences of its distinct numbers; columns
@@ -29,6 +33,10 @@
 //!
 //! The CRS is the caller's concern: a point list declares none.
 
+use super::table::{
+    content_lines, count_hint, header_names, is_null_word, name_key, number_hint, split_unit,
+    Delimiter, Splitter,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use ndarray::Array2;
@@ -47,7 +55,7 @@ pub enum ColumnRole {
     /// Grid northing, CRS units.
     Y,
     /// A value band, named as given (e.g. `z`, `TWT`, `az15`); the text may end with a unit
-    /// in parentheses or brackets (`Depth (ft)`), which becomes [`ValueColumn::unit`].
+    /// (`Depth (ft)`, `TWT_ms`; see [`split_unit`]), which becomes [`ValueColumn::unit`].
     Value(String),
     /// A column to ignore.
     Skip,
@@ -55,9 +63,10 @@ pub enum ColumnRole {
 
 impl ColumnRole {
     /// Parses a comma-separated column list such as `inline,xline,x,y,z` (the `--columns`
-    /// option). Recognised names, case-insensitive, ignoring `-`, `_`, spaces and a unit suffix:
-    /// inline `inline`/`iline`/`il`/`in-line`; crossline `xline`/`crossline`/`xl`/`trace`/
-    /// `cross-line`; x `x`/`easting`/`cdp_x`/`cdpx`; y `y`/`northing`/`cdp_y`/`cdpy`; `skip`.
+    /// option). Recognised names, case-insensitive, ignoring `-`, `_`, `.`, spaces and a unit
+    /// suffix ([`split_unit`]): inline `inline`/`iline`/`il`/`in-line`/`inline_3d`/`inline no`;
+    /// crossline `xline`/`crossline`/`xl`/`trace`/`cross-line`/`crossline_3d`/`xline no`; x
+    /// `x`/`easting`/`cdp_x`/`cdpx`; y `y`/`northing`/`cdp_y`/`cdpy`; `skip`.
     /// Any other name is a value column named as given. The list must hold exactly one x and
     /// one y, inline and crossline both or neither, and at least one value column.
     pub fn parse_list(spec: &str) -> Result<Vec<ColumnRole>> {
@@ -180,11 +189,14 @@ pub struct LatticeReport {
     pub null_nodes: usize,
     /// Lines that repeated a node with identical values (read once).
     pub repeated: usize,
+    /// First and last line of free text before the header, skipped (e.g. a title and a line
+    /// `Horizon: X` above the column names); `None` when the header (or data) came first.
+    pub preamble: Option<(usize, usize)>,
 }
 
 impl LatticeReport {
     /// One line for reports: points, where the lattice came from, axis azimuth, bins, worst
-    /// misfit and its line, null nodes.
+    /// misfit and its line, null nodes, skipped free text.
     pub fn describe(&self) -> String {
         let source = match &self.numbering {
             Some(n) => format!(
@@ -198,8 +210,13 @@ impl LatticeReport {
             ),
             None => "a lattice found from x, y alone".to_string(),
         };
+        let preamble = match self.preamble {
+            Some((a, b)) if a == b => format!("; line {a} before the header skipped as free text"),
+            Some((a, b)) => format!("; lines {a}..{b} before the header skipped as free text"),
+            None => String::new(),
+        };
         format!(
-            "{} points on {source}; column axis at {:.3} deg, row axis at {:.3} deg from grid north; bins {:.4} x {:.4} CRS units; worst misfit {:.4} ({:.3} of the smaller bin) at line {}; {} null nodes ({} without a point{})",
+            "{} points on {source}; column axis at {:.3} deg, row axis at {:.3} deg from grid north; bins {:.4} x {:.4} CRS units; worst misfit {:.4} ({:.3} of the smaller bin) at line {}; {} null nodes ({} without a point{}){preamble}",
             self.points,
             self.column_azimuth,
             self.row_azimuth,
@@ -254,71 +271,79 @@ impl PointGrid {
 }
 
 /// Whether `path` looks like a point list, from its first 8 KB: text (no NUL or other control
-/// bytes) whose first line that is neither blank nor a `#` comment holds at least 3 numbers,
-/// or at least 3 names followed by such a line. False for binary files and for the text
-/// raster formats GDAL reads itself (ESRI ASCII grid `ncols ...`, Surfer `DSAA`, GRASS ASCII
-/// `north: ...`, XML such as VRT, JSON).
+/// bytes) that is not one of the text raster formats GDAL reads itself (ESRI ASCII grid
+/// `ncols ...`, Surfer `DSAA`, GRASS ASCII `north: ...`, XML such as VRT, JSON), laid out as
+/// [`parse_points`] reads it, with
+/// - a header of at least 3 names, some of them recognised column names (whatever follows:
+///   the reader then names any bad line), possibly below free text; or
+/// - a first data line of at least 3 numbers or null words, below a header of at least 3
+///   names or numbers when there is one.
 pub fn is_point_list(path: &Path) -> bool {
-    let Ok(file) = std::fs::File::open(path) else {
-        return false;
-    };
-    let mut bytes = Vec::with_capacity(SNIFF_BYTES);
-    if file
-        .take(SNIFF_BYTES as u64)
-        .read_to_end(&mut bytes)
-        .is_err()
-    {
-        return false;
-    }
-    sniff(&bytes, bytes.len() == SNIFF_BYTES)
+    sniff_text(path).is_some_and(|text| sniff(&text))
+}
+
+/// Whether `path` is a text file that is not one of the text raster formats GDAL reads (see
+/// [`is_point_list`]). When GDAL cannot open such a file, [`read_points`] says why in one line
+/// naming the file line (or reads it, when only its first 8 KB hid that it is a point list),
+/// where GDAL's own message would not: the raster reader can hand such files to it.
+pub fn is_plain_text(path: &Path) -> bool {
+    sniff_text(path).is_some()
 }
 
 const SNIFF_BYTES: usize = 8192;
 
-fn sniff(bytes: &[u8], truncated: bool) -> bool {
+/// First content lines of GDAL's text raster formats, lower-cased.
+const RASTER_STARTS: [&str; 12] = [
+    "ncols", "nrows", "xllc", "yllc", "dsaa", "dsrb", "north:", "south:", "rows:", "cols:", "<",
+    "{",
+];
+
+/// The first 8 KB of `path` as text without a last line cut short; `None` for an unreadable or
+/// binary file or one of GDAL's text raster formats.
+fn sniff_text(path: &Path) -> Option<String> {
+    let file = std::fs::File::open(path).ok()?;
+    let mut bytes = Vec::with_capacity(SNIFF_BYTES);
+    file.take(SNIFF_BYTES as u64).read_to_end(&mut bytes).ok()?;
     let binary = |b: &u8| *b < 0x20 && !matches!(*b, b'\t' | b'\n' | b'\r' | 0x0c);
     if bytes.iter().any(binary) {
-        return false;
+        return None;
     }
-    let text = String::from_utf8_lossy(bytes);
-    let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
-    let mut lines: Vec<&str> = text.lines().collect();
-    if truncated {
-        lines.pop();
+    let mut text = String::from_utf8_lossy(&bytes).into_owned();
+    if bytes.len() == SNIFF_BYTES {
+        text.truncate(text.rfind('\n').unwrap_or(0));
     }
-    let mut significant = lines.into_iter().map(str::trim).filter(|l| is_data_line(l));
-    let Some(first) = significant.next() else {
-        return false;
-    };
-    let lower = first.to_ascii_lowercase();
-    const RASTER_STARTS: [&str; 12] = [
-        "ncols", "nrows", "xllc", "yllc", "dsaa", "dsrb", "north:", "south:", "rows:", "cols:",
-        "<", "{",
-    ];
-    if RASTER_STARTS.iter().any(|s| lower.starts_with(s)) {
-        return false;
+    let first = content_lines(&text)
+        .next()
+        .map(|(_, l)| l.trim().to_ascii_lowercase());
+    if first.is_some_and(|l| RASTER_STARTS.iter().any(|s| l.starts_with(s))) {
+        return None;
     }
+    Some(text)
+}
+
+fn sniff(text: &str) -> bool {
+    let layout = layout(content_lines(text));
     let numeric = |line: &str| {
-        let mut fields = Vec::new();
-        Delimiter::detect(line).split(line, &mut fields);
-        fields.len() >= 3 && fields.iter().all(|f| f.parse::<f64>().is_ok())
+        let mut splitter = Splitter::new(layout.delimiter);
+        let fields = splitter.split(line);
+        fields.len() >= 3
+            && fields
+                .iter()
+                .all(|f| is_null_word(f) || f.parse::<f64>().is_ok())
     };
-    if numeric(first) {
-        return true;
-    }
-    let mut names = Vec::new();
-    Delimiter::detect(first).split(first, &mut names);
-    let names = merge_unit_tokens(names);
+    let data_numeric = layout.data.is_some_and(|(_, line)| numeric(line));
+    let Some((_, names)) = &layout.header else {
+        return data_numeric;
+    };
     let name_like = |f: &String| {
         f.chars()
             .next()
             .is_some_and(|c| c.is_alphabetic() || c == '_')
     };
     let name_or_number = |f: &String| name_like(f) || f.parse::<f64>().is_ok();
-    if names.len() < 3 || !names.iter().all(name_or_number) || !names.iter().any(name_like) {
-        return false;
-    }
-    significant.next().is_none_or(numeric)
+    names.len() >= 3
+        && (names.iter().any(|n| role_name(n))
+            || (layout.preamble.is_none() && names.iter().all(name_or_number) && data_numeric))
 }
 
 /// Reads the point list at `path` onto its lattice (see [`parse_points`]).
@@ -336,13 +361,17 @@ pub fn read_points(path: &Path, options: &PointOptions) -> Result<PointGrid> {
 
 /// Reads point-list `text` onto its lattice; `path` is used only in messages. Pure.
 ///
-/// Format: one point a line, fields separated by commas, semicolons, tabs or spaces (detected
-/// from the first data line); blank lines and lines starting with `#` are skipped; an optional
-/// first line of names (a header). Column roles come from `options.columns`, else from the
-/// header (see [`ColumnRole::parse_list`] for the names; `z`, `depth`, `time`, `twt`,
-/// `value`, `elevation` are known value names, and once x and y are found every other column
-/// is a value column), else from the field count. Values equal to an `options.nodata`
-/// sentinel, and `nan`, are nulls.
+/// Format: one point a line, fields separated by semicolons, tabs, commas or spaces (detected
+/// from the header, else the first data line; see [`Delimiter::detect`]); blank lines and
+/// lines starting with `#` are skipped; an optional header line of names, the line of names
+/// just before the first data line (a line of at least 3 fields, mostly numbers); free text
+/// lines above the header are skipped and reported ([`LatticeReport::preamble`]). Column roles
+/// come from `options.columns`, else from the header (see [`ColumnRole::parse_list`] for the
+/// names; `z`, `depth`, `time`, `twt`, `value`, `elevation` are known value names, and once x
+/// and y are found every other column is a value column), else from the field count. In value
+/// columns, values equal to an `options.nodata` sentinel, an empty field and the null words
+/// `nan`, `null`, `n/a`, `na`, `#n/a`, `-` (any case) are nulls; coordinates and line numbers
+/// must be numbers.
 ///
 /// Errors (one line each, naming the file line where there is one): unreadable columns,
 /// non-numeric fields, points off the lattice by more than the tolerance, scattered points
@@ -355,48 +384,37 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
             "--lattice-tolerance {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin (default 0.05)"
         )));
     }
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let mut lines = text
-        .lines()
-        .enumerate()
-        .map(|(i, l)| (i + 1, l))
-        .filter(|(_, l)| is_data_line(l.trim()));
-    let Some((first_no, first)) = lines.next() else {
-        return Err(fail(
-            "holds no data lines: give a point list with x, y and value columns".to_string(),
-        ));
+    let layout = layout(content_lines(text));
+    let Some((data_line, data_first)) = layout.data else {
+        return Err(fail(match &layout.header {
+            Some((line, names)) if names.iter().any(|n| role_name(n)) => format!(
+                "line {line} is a header but no data lines follow (a data line has at least 3 fields, mostly numbers): give the points below it"
+            ),
+            Some((line, _)) => format!(
+                "has no data line (one of at least 3 fields, mostly numbers; the first line with content is line {line}): give a point list with x, y and value columns, one point per line"
+            ),
+            None => "holds no data lines: give a point list with x, y and value columns"
+                .to_string(),
+        }));
     };
-    let mut fields = Vec::new();
-    Delimiter::detect(first).split(first, &mut fields);
-    let header_line = is_header(&fields).then_some((first_no, first));
-    let mut data = lines.peekable();
-    let data_first = match header_line {
-        Some(_) => data.peek().copied(),
-        None => Some((first_no, first)),
+    let mut splitter = Splitter::new(layout.delimiter);
+    let first = {
+        let mut fields = splitter.split(data_first);
+        let fits = layout
+            .header
+            .as_ref()
+            .is_none_or(|(_, names)| fields.fit(names.len()));
+        FirstData {
+            line: data_line,
+            text: data_first,
+            fields: fields.len(),
+            fits,
+        }
     };
-    let Some((_, data_first)) = data_first else {
-        return Err(fail(format!(
-            "line {first_no} is a header but no data lines follow: give the points below it"
-        )));
-    };
-    let delimiter = Delimiter::detect(data_first);
-    let header = header_line.map(|(no, line)| {
-        let mut names = Vec::new();
-        delimiter.split(line, &mut names);
-        let names = match delimiter {
-            Delimiter::Whitespace => merge_unit_tokens(names),
-            _ => names.into_iter().map(str::to_string).collect(),
-        };
-        (no, names)
-    });
-    let columns =
-        resolve_columns(header.as_ref(), data_first, delimiter, options).map_err(&fail)?;
-    let first_lines = header_line
-        .is_none()
-        .then_some((first_no, first))
-        .into_iter();
-    let points =
-        read_fields(first_lines.chain(data), delimiter, &columns, options).map_err(&fail)?;
+    let columns = resolve_columns(layout.header.as_ref(), &first, layout.delimiter, options)
+        .map_err(&fail)?;
+    let lines = content_lines(text).skip_while(|&(line, _)| line < data_line);
+    let points = read_fields(lines, &mut splitter, &columns, options).map_err(&fail)?;
     if points.len() >= u32::MAX as usize {
         return Err(fail(format!(
             "holds {} points, more than flexure reads from one list; give a raster",
@@ -417,7 +435,15 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
     } else {
         (lattice_from_coordinates(&points).map_err(&fail)?, None)
     };
-    place(points, indices, numbering, value_columns, tolerance).map_err(fail)
+    place(
+        points,
+        indices,
+        numbering,
+        value_columns,
+        layout.preamble,
+        tolerance,
+    )
+    .map_err(fail)
 }
 
 // ---------------------------------------------------------------------------------------
@@ -449,14 +475,10 @@ impl Known {
 
 /// The role a column name stands for (`name` without its unit suffix).
 fn recognise(name: &str) -> Option<Known> {
-    let key: String = name
-        .chars()
-        .filter(|c| !matches!(c, '-' | '_' | ' ' | '.'))
-        .flat_map(char::to_lowercase)
-        .collect();
-    Some(match key.as_str() {
-        "inline" | "iline" | "il" => Known::Inline,
-        "xline" | "crossline" | "xl" | "trace" => Known::Crossline,
+    Some(match name_key(name).as_str() {
+        "inline" | "iline" | "il" | "inline3d" | "inlineno" | "inlinenumber" => Known::Inline,
+        "xline" | "crossline" | "xl" | "trace" | "crossline3d" | "xline3d" | "xlineno"
+        | "crosslineno" | "xlinenumber" | "crosslinenumber" => Known::Crossline,
         "x" | "easting" | "cdpx" => Known::X,
         "y" | "northing" | "cdpy" => Known::Y,
         "z" | "depth" | "time" | "twt" | "value" | "elevation" => Known::Value,
@@ -465,21 +487,10 @@ fn recognise(name: &str) -> Option<Known> {
     })
 }
 
-/// Splits `Depth (ft)` / `TWT[ms]` into the name and the lower-cased unit.
-fn split_unit(text: &str) -> (&str, Option<String>) {
-    let text = text.trim();
-    for (open, close) in [('(', ')'), ('[', ']')] {
-        if let Some(body) = text.strip_suffix(close) {
-            if let Some(at) = body.rfind(open) {
-                let name = body[..at].trim();
-                let unit = body[at + 1..].trim().to_lowercase();
-                if !name.is_empty() {
-                    return (name, (!unit.is_empty()).then_some(unit));
-                }
-            }
-        }
-    }
-    (text, None)
+/// Whether a header name (with or without a unit suffix) is a column name the reader
+/// recognises, `skip` aside.
+fn role_name(name: &str) -> bool {
+    recognise(split_unit(name).0).is_some_and(|k| k != Known::Skip)
 }
 
 /// Role of a column while reading.
@@ -553,12 +564,33 @@ fn check_roles(roles: &[ColumnRole]) -> std::result::Result<(), String> {
     Ok(())
 }
 
+/// The first data line: its number, text, field count and whether that count fits the
+/// header's ([`crate::io::table::Fields::fit`]; true without a header).
+struct FirstData<'a> {
+    line: usize,
+    text: &'a str,
+    fields: usize,
+    fits: bool,
+}
+
+/// The columns of a point list from `--columns`, else its header, else the first data line's
+/// field count; refuses a header whose name count is not the data's.
 fn resolve_columns(
     header: Option<&(usize, Vec<String>)>,
-    data_first: &str,
+    first: &FirstData,
     delimiter: Delimiter,
     options: &PointOptions,
 ) -> std::result::Result<Vec<Column>, String> {
+    if let Some((line, names)) = header.filter(|_| !first.fits) {
+        return Err(format!(
+            "line {line} ({}) names {} columns but line {}, the first data line, has {} fields{}: if line {line} is not a header, mark it a comment with #; else give one name per column",
+            names.join(", "),
+            names.len(),
+            first.line,
+            first.fields,
+            count_hint(first.text, delimiter, first.fields, names.len())
+        ));
+    }
     let column = |role: &ColumnRole, header_unit: Option<String>| -> Column {
         let (r, text) = match role {
             ColumnRole::Inline => (Role::Inline, "inline"),
@@ -642,9 +674,7 @@ fn resolve_columns(
         })?;
         return Ok(roles.iter().map(|r| column(r, None)).collect());
     }
-    let mut fields = Vec::new();
-    delimiter.split(data_first, &mut fields);
-    let names: &[&str] = match fields.len() {
+    let names: &[&str] = match first.fields {
         3 => &["x", "y", "z"],
         5 => &["inline", "xline", "x", "y", "z"],
         n => {
@@ -708,80 +738,66 @@ fn example_columns(n: usize) -> String {
 // ---------------------------------------------------------------------------------------
 // Lines and fields
 
-/// Whether the first line's fields are a header: no field is a number, or some are names
-/// flexure recognises (`inline,xline,x,y,15,45,75`). A line of numbers with a typo is data,
-/// so its error names the bad field.
-fn is_header(fields: &[&str]) -> bool {
-    let number = |f: &&str| f.parse::<f64>().is_ok();
-    let known = |f: &&str| recognise(split_unit(f).0).is_some_and(|k| k != Known::Skip);
-    !fields.iter().any(number) || (!fields.iter().all(number) && fields.iter().any(known))
+/// Whether a line's fields are data: at least 3 fields, none a recognised column name, and
+/// most of them numbers (decimal commas and null words included), so that a line of numbers
+/// with a typo is data (its error then names the bad field) while free text with a number in
+/// it (`Exported 2024 by ...`) and a header of names and sector azimuths
+/// (`inline,xline,x,y,15,45,75`) are not.
+fn is_data(fields: &[String]) -> bool {
+    let numeric = |f: &&String| is_null_word(f) || f.replacen(',', ".", 1).parse::<f64>().is_ok();
+    fields.len() >= 3
+        && !fields.iter().any(|f| role_name(f))
+        && 2 * fields.iter().filter(numeric).count() > fields.len()
 }
 
-fn is_data_line(trimmed: &str) -> bool {
-    !trimmed.is_empty() && !trimmed.starts_with('#')
+/// Where a point list's parts begin.
+struct Layout<'a> {
+    /// First and last line of free text above the header.
+    preamble: Option<(usize, usize)>,
+    /// Line number and names of the header.
+    header: Option<(usize, Vec<String>)>,
+    /// Number and text of the first data line.
+    data: Option<(usize, &'a str)>,
+    /// The header's delimiter, else the first data line's.
+    delimiter: Delimiter,
 }
 
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Delimiter {
-    Comma,
-    Semicolon,
-    Tab,
-    Whitespace,
-}
-
-impl Delimiter {
-    /// Semicolon if the line has one (so decimal commas are not taken for delimiters), else
-    /// comma, else tab, else runs of spaces.
-    fn detect(line: &str) -> Self {
-        if line.contains(';') {
-            Delimiter::Semicolon
-        } else if line.contains(',') {
-            Delimiter::Comma
-        } else if line.contains('\t') {
-            Delimiter::Tab
-        } else {
-            Delimiter::Whitespace
+/// The layout of content `lines`: the first data line is the first that [`is_data`]; the
+/// header, the line just before it; free text, the lines before the header. With no data
+/// line, the first line is the header.
+fn layout<'a>(lines: impl Iterator<Item = (usize, &'a str)>) -> Layout<'a> {
+    let header_of = |(line, text): (usize, &str)| {
+        let delimiter = Delimiter::detect(text);
+        (Some((line, header_names(text, delimiter))), delimiter)
+    };
+    // The first text line, the line number of the text line before the last, the last.
+    let mut first_text: Option<(usize, &str)> = None;
+    let mut before_last: Option<usize> = None;
+    let mut last_text: Option<(usize, &str)> = None;
+    for (line, text) in lines {
+        let delimiter = Delimiter::detect(text);
+        let fields = header_names(text, delimiter);
+        if !is_data(&fields) {
+            first_text = first_text.or(Some((line, text)));
+            before_last = last_text.map(|(l, _)| l);
+            last_text = Some((line, text));
+            continue;
         }
+        let (header, header_delimiter) = last_text.map_or((None, delimiter), header_of);
+        return Layout {
+            preamble: first_text.map(|(l, _)| l).zip(before_last),
+            header,
+            data: Some((line, text)),
+            delimiter: header_delimiter,
+        };
     }
-
-    /// Splits a line into trimmed, unquoted fields. Comma and semicolon lines keep empty
-    /// fields (except one trailing delimiter); runs of tabs or spaces count as one.
-    fn split<'a>(self, line: &'a str, out: &mut Vec<&'a str>) {
-        out.clear();
-        let clean = |f: &'a str| unquote(f.trim());
-        match self {
-            Delimiter::Comma | Delimiter::Semicolon => {
-                let c = if self == Delimiter::Comma { ',' } else { ';' };
-                out.extend(line.split(c).map(clean));
-                if out.len() > 1 && out.last() == Some(&"") {
-                    out.pop();
-                }
-            }
-            Delimiter::Tab => out.extend(line.split('\t').map(clean).filter(|f| !f.is_empty())),
-            Delimiter::Whitespace => out.extend(line.split_ascii_whitespace().map(unquote)),
-        }
+    let (header, delimiter) = first_text.map_or((None, Delimiter::Whitespace), header_of);
+    Layout {
+        preamble: None,
+        header,
+        data: None,
+        delimiter,
     }
-}
-
-fn unquote(f: &str) -> &str {
-    f.strip_prefix('"')
-        .and_then(|g| g.strip_suffix('"'))
-        .unwrap_or(f)
-}
-
-/// Joins header tokens split at spaces back onto their unit suffix (`Depth`, `(ft)`).
-fn merge_unit_tokens(tokens: Vec<&str>) -> Vec<String> {
-    let mut out: Vec<String> = Vec::new();
-    for t in tokens {
-        match out.last_mut() {
-            Some(last) if t.starts_with('(') || t.starts_with('[') => {
-                last.push(' ');
-                last.push_str(t);
-            }
-            _ => out.push(t.to_string()),
-        }
-    }
-    out
 }
 
 /// The points of a file, one entry per data line.
@@ -808,9 +824,10 @@ impl Points {
     }
 }
 
+/// Reads the data `lines` (from the first data line on) into points, one per line.
 fn read_fields<'a>(
     lines: impl Iterator<Item = (usize, &'a str)>,
-    delimiter: Delimiter,
+    splitter: &mut Splitter,
     columns: &[Column],
     options: &PointOptions,
 ) -> std::result::Result<Points, String> {
@@ -831,87 +848,76 @@ fn read_fields<'a>(
         .map(|c| c.name.as_str())
         .collect::<Vec<_>>()
         .join(", ");
-    let mut fields = Vec::with_capacity(columns.len());
+    let delimiter = splitter.delimiter();
     for (line, text) in lines {
-        delimiter.split(text, &mut fields);
-        if fields.len() != columns.len() {
+        let mut fields = splitter.split(text);
+        if !fields.fit(columns.len()) {
             return Err(format!(
-                "line {line} has {} fields but {} columns are expected ({names}); fix the line, mark it a comment with #, or give --columns",
+                "line {line} has {} fields but {} columns are expected ({names}){}; fix the line, mark it a comment with #, or give --columns",
                 fields.len(),
-                columns.len()
+                columns.len(),
+                count_hint(text, delimiter, fields.len(), columns.len())
             ));
         }
-        let bad = |k: usize, field: &str, what: &str| {
-            format!(
-                "line {line}, column {} ({}): '{field}' {what}",
-                k + 1,
-                columns[k].name
-            )
-        };
         for (k, (field, column)) in fields.iter().zip(columns).enumerate() {
-            if column.role == Role::Skip {
-                continue;
-            }
-            let v: f64 = field.parse().map_err(|_| {
-                let hint = if field.contains(',') {
-                    " (decimal commas are not read: export with decimal points)"
-                } else {
-                    ""
-                };
-                bad(
-                    k,
-                    field,
-                    &format!("is not a number{hint}; fix the line, or write a null as nan or a --nodata value"),
+            let v = field_value(field, column.role, &options.nodata).map_err(|what| {
+                format!(
+                    "line {line}, column {} ({}): '{field}' {what}",
+                    k + 1,
+                    columns[k].name
                 )
             })?;
             match column.role {
-                Role::Value => {
-                    if v.is_nan() || options.nodata.contains(&v) {
-                        p.values.push(f64::NAN);
-                    } else if v.is_infinite() {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a finite number; write a null as nan or a --nodata value",
-                        ));
-                    } else {
-                        p.values.push(v);
-                    }
-                }
-                Role::X | Role::Y => {
-                    if !v.is_finite() {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a map coordinate; leave out the line (a node without a point is null)",
-                        ));
-                    }
-                    if column.role == Role::X {
-                        p.x.push(v);
-                    } else {
-                        p.y.push(v);
-                    }
-                }
-                Role::Inline | Role::Crossline => {
-                    if !(v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15) {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a whole line number; fix the numbering, or mark the inline and crossline columns skip (--columns) to find the lattice from x, y alone",
-                        ));
-                    }
-                    if column.role == Role::Inline {
-                        p.inline.push(v as i64);
-                    } else {
-                        p.crossline.push(v as i64);
-                    }
-                }
+                Role::Value => p.values.push(v),
+                Role::X => p.x.push(v),
+                Role::Y => p.y.push(v),
+                Role::Inline => p.inline.push(v as i64),
+                Role::Crossline => p.crossline.push(v as i64),
                 Role::Skip => {}
             }
         }
         p.lines.push(line);
     }
     Ok(p)
+}
+
+/// The number a field of a column with `role` holds (NaN for a null value), or what is wrong
+/// with it and what to do.
+fn field_value(field: &str, role: Role, nodata: &[f64]) -> std::result::Result<f64, String> {
+    let number = field.parse::<f64>();
+    match role {
+        Role::Skip => Ok(0.0),
+        Role::Value if is_null_word(field) => Ok(f64::NAN),
+        Role::Value => match number {
+            Ok(v) if v.is_nan() || nodata.contains(&v) => Ok(f64::NAN),
+            Ok(v) if v.is_finite() => Ok(v),
+            Ok(_) => Err(
+                "is not a finite number; write a null as nan or a --nodata value".to_string(),
+            ),
+            Err(_) => Err(format!(
+                "is not a number{}; fix the line, or write a null as nan or a --nodata value",
+                number_hint(field)
+            )),
+        },
+        Role::X | Role::Y => match number {
+            Ok(v) if v.is_finite() => Ok(v),
+            Err(_) if !is_null_word(field) => Err(format!(
+                "is not a number{}; fix the line",
+                number_hint(field)
+            )),
+            _ => Err(
+                "is not a map coordinate; leave out the line (a node without a point is null)"
+                    .to_string(),
+            ),
+        },
+        Role::Inline | Role::Crossline => match number {
+            Ok(v) if v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15 => Ok(v),
+            _ => Err(
+                "is not a whole line number; fix the numbering, or mark the inline and crossline columns skip (--columns) to find the lattice from x, y alone"
+                    .to_string(),
+            ),
+        },
+    }
 }
 
 // ---------------------------------------------------------------------------------------
@@ -1409,6 +1415,7 @@ fn place(
     (cols_in, rows_in): Indices,
     numbering: Option<Numbering>,
     value_columns: Vec<ValueColumn>,
+    preamble: Option<(usize, usize)>,
     tolerance: f64,
 ) -> std::result::Result<PointGrid, String> {
     let n = p.len();
@@ -1578,6 +1585,7 @@ fn place(
             empty_nodes,
             null_nodes,
             repeated,
+            preamble,
         },
     })
 }
@@ -1615,6 +1623,8 @@ mod tests {
         /// (first inline, inline step, first crossline, crossline step); rows follow inline.
         numbering: Option<(i64, i64, i64, i64)>,
         bands: usize,
+        /// Decimals of the coordinates as written (`None`: shortest round-trip text).
+        decimals: Option<usize>,
     }
 
     impl Export {
@@ -1625,6 +1635,7 @@ mod tests {
                 rows,
                 numbering: None,
                 bands: 1,
+                decimals: None,
             }
         }
 
@@ -1654,8 +1665,12 @@ mod tests {
                     fields.push((il0 + r as i64 * ils).to_string());
                     fields.push((xl0 + c as i64 * xls).to_string());
                 }
-                fields.push(x.to_string());
-                fields.push(y.to_string());
+                for coordinate in [x, y] {
+                    fields.push(match self.decimals {
+                        Some(d) => format!("{coordinate:.d$}"),
+                        None => coordinate.to_string(),
+                    });
+                }
                 fields.extend(values);
                 out.push_str(&fields.join(sep));
                 out.push('\n');
@@ -1694,14 +1709,16 @@ mod tests {
         assert_picture_within(grid, gt, size, expected, 1e-6);
     }
 
-    /// [`assert_picture`] with cell centres within `cells` of a generating cell centre.
+    /// [`assert_picture`] with cell centres within `cells` of a generating cell centre;
+    /// returns the largest offset found, as a share of a bin along either axis.
     fn assert_picture_within(
         grid: &PointGrid,
         gt: &[f64; 6],
         (cols, rows): (usize, usize),
         expected: impl Fn(usize, usize, usize) -> Option<f64>,
         cells: f64,
-    ) {
+    ) -> f64 {
+        let mut worst = 0.0f64;
         assert_eq!(grid.cols * grid.rows, cols * rows, "grid size");
         let generating = GridGeometry {
             cols,
@@ -1715,6 +1732,7 @@ mod tests {
                 let (x, y) = centre(&grid.geo_transform, c, r);
                 let (fc, fr) = generating.map_to_grid(x, y);
                 let (gc, gr) = ((fc - 0.5).round(), (fr - 0.5).round());
+                worst = worst.max((fc - 0.5 - gc).abs()).max((fr - 0.5 - gr).abs());
                 assert!(
                     (fc - 0.5 - gc).abs() < cells && (fr - 0.5 - gr).abs() < cells,
                     "cell ({c}, {r}) is at ({fc}, {fr}) of the generating grid"
@@ -1732,6 +1750,122 @@ mod tests {
                     }
                 }
             }
+        }
+        worst
+    }
+
+    #[test]
+    fn null_words_and_empty_fields_are_nulls_in_value_columns_only() {
+        // Common practice of exports: NULL, N/A, null, NaN, - and an empty field mark a node
+        // without a value; in a coordinate or line-number column they are refused by line.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let e = Export::new(gt, 4, 4);
+        let words = ["NULL", "N/A", "null", "NaN", "-", ""];
+        let field = |c: usize, r: usize, b: usize| {
+            Some(match r * 4 + c {
+                k @ 1..=6 => words[k - 1].to_string(),
+                _ => value(c, r, b).to_string(),
+            })
+        };
+        let text = e.text(",", Some("x,y,z"), field);
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        assert_picture(&grid, &gt, (4, 4), |c, r, b| {
+            (!(1..=6).contains(&(r * 4 + c))).then(|| value(c, r, b))
+        });
+        assert_eq!(grid.lattice.null_nodes, 6);
+        // The empty value is the last field of its line, as exports write it ("x,y,").
+        assert!(text.lines().any(|l| l.ends_with(',')));
+        let lines: Vec<&str> = text.lines().collect();
+        let k = lines.iter().position(|l| l.ends_with(",NULL")).unwrap();
+        let mut bad = lines.clone();
+        let moved = lines[k].replacen(',', ",NULL,", 1);
+        let moved = moved.rsplit_once(',').unwrap().0.to_string();
+        bad[k] = &moved;
+        refused(
+            &bad.join("\n"),
+            &PointOptions::default(),
+            &[
+                &format!("line {}, column 2 (y): 'NULL'", k + 1),
+                "not a map coordinate",
+            ],
+        );
+        let numbered = "il xl x y z\n1 N/A 0 0 1\n";
+        refused(
+            numbered,
+            &PointOptions::default(),
+            &["line 2, column 2 (crossline): 'N/A'", "whole line number"],
+        );
+    }
+
+    #[test]
+    fn free_text_above_the_header_is_skipped_and_reported() {
+        // Exports often open with a title and a line like "Horizon: X" above the column
+        // names (here with a number in it): they are skipped and the report says so. Free text above data without a
+        // header is refused naming its line.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let mut e = Export::new(gt, 4, 4);
+        e.numbering = Some((1, 1, 1, 1));
+        let body = e.full(" ", Some("Inline Crossline X Y Z"));
+        let text =
+            format!("Horizon: Vessa Shale top\nExported 2024 by an interpretation package\n{body}");
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        assert_picture(&grid, &gt, (4, 4), |c, r, b| Some(value(c, r, b)));
+        assert_eq!(grid.lattice.preamble, Some((1, 2)));
+        assert!(grid
+            .lattice
+            .describe()
+            .contains("lines 1..2 before the header skipped as free text"));
+        let headless = format!("Horizon: Vessa Shale top\n{}", e.full(" ", None));
+        refused(
+            &headless,
+            &PointOptions::default(),
+            &[
+                "line 1 (Horizon:, Vessa, Shale, top) names 4 columns",
+                "line 2, the first data line, has 5 fields",
+                "mark it a comment with #",
+            ],
+        );
+    }
+
+    #[test]
+    fn header_names_of_common_exports_are_recognised() {
+        // Common practice of interpretation exports: INLINE_3D/CROSSLINE_3D, "inline no",
+        // units after an underscore (TWT_ms, Depth_ft) as in brackets; az_15 stays a name.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let mut e = Export::new(gt, 4, 4);
+        e.numbering = Some((1, 1, 1, 1));
+        e.bands = 2;
+        for (header, names, units) in [
+            (
+                "INLINE_3D,CROSSLINE_3D,CDP_X,CDP_Y,TWT_ms,az_15",
+                ["TWT", "az_15"],
+                [Some("ms"), None],
+            ),
+            (
+                "inline no,xline no,x,y,Depth_ft,time_s",
+                ["Depth", "time"],
+                [Some("ft"), Some("s")],
+            ),
+            (
+                "inline_3d,crossline_3d,x_m,y_m,z_m,Z2 (us-ft)",
+                ["z", "Z2"],
+                [Some("m"), Some("us-ft")],
+            ),
+        ] {
+            let grid = parse(&e.full(",", Some(header)), &PointOptions::default())
+                .unwrap_or_else(|err| panic!("{header}: {err}"));
+            assert!(grid.lattice.numbering.is_some(), "{header}");
+            assert_picture(&grid, &gt, (4, 4), |c, r, b| Some(value(c, r, b)));
+            let got: Vec<(&str, Option<&str>)> = grid
+                .value_columns
+                .iter()
+                .map(|v| (v.name.as_str(), v.unit.as_deref()))
+                .collect();
+            assert_eq!(
+                got,
+                vec![(names[0], units[0]), (names[1], units[1])],
+                "{header}"
+            );
         }
     }
 
@@ -2099,13 +2233,31 @@ mod tests {
             &d,
             &["line 2 (a, b, c)", "names no column", "--columns x,y,z"],
         );
+        let extra: String = good
+            .replace("x y z", "x y z inline")
+            .lines()
+            .map(|l| match l.starts_with(|c: char| c.is_ascii_digit()) {
+                true => format!("{l} 7\n"),
+                false => format!("{l}\n"),
+            })
+            .collect();
         refused(
-            &good.replace("x y z", "inline x y z"),
+            &extra,
             &d,
             &[
                 "line 2",
                 "inline column but no crossline",
-                "--columns skip,x,y,z",
+                "--columns x,y,z,skip",
+            ],
+        );
+        // A header whose names are not as many as the data's fields.
+        refused(
+            &good.replace("x y z", "x y z inline"),
+            &d,
+            &[
+                "line 2 (x, y, z, inline) names 4 columns",
+                "line 3, the first data line, has 3 fields",
+                "mark it a comment with #",
             ],
         );
         refused(
@@ -2408,7 +2560,7 @@ mod tests {
         // files and GDAL's text raster formats (ESRI ASCII grid, Surfer, GRASS, VRT XML) are
         // not (their first lines from the formats' documentation, from memory).
         let dir = tempfile::tempdir().unwrap();
-        let cases: [(&str, &[u8], bool); 12] = [
+        let cases: [(&str, &[u8], bool); 16] = [
             (
                 "a.xyz",
                 b"500000.0 4100000.0 1500.25\n500025.0 4100000.0 1501\n",
@@ -2433,6 +2585,24 @@ mod tests {
             ("i.tif", b"II*\x00\x08\x00\x00\x00\x10\x00", false),
             ("j.txt", b"1 2\n3 4\n", false),
             ("k.csv", b"well,md\nA,100\n", false),
+            // Recognised column names are enough, whatever the data below them: a null
+            // word, decimal commas (then refused by line), free text above the header.
+            (
+                "m.txt",
+                b"Inline Xline X Y TWT\n1000 2000 480000.00 3900000.00 NULL\n",
+                true,
+            ),
+            (
+                "n.csv",
+                b"Inline;Crossline;X;Y;Z\n1000;2000;478000,00;3897000,00;2399,957\n",
+                true,
+            ),
+            (
+                "o.txt",
+                b"Horizon: Vessa Shale top\nExported 2024\nInline Crossline X Y Z\n1000 2000 478000.00 3897000.00 2399.957\n",
+                true,
+            ),
+            ("p.txt", b"Horizon: Vessa Shale top\n1 2\n", false),
         ];
         for (name, bytes, expected) in cases {
             let path = dir.path().join(name);
@@ -2440,6 +2610,23 @@ mod tests {
             assert_eq!(is_point_list(&path), expected, "{name}");
         }
         assert!(!is_point_list(&dir.path().join("missing.xyz")));
+        // Plain text GDAL would read as no raster format of its own: the point-list reader
+        // explains it by line (the binary file and GDAL's text formats are left to GDAL).
+        for (name, plain) in [
+            ("p.txt", true),
+            ("a.xyz", true),
+            ("e.asc", false),
+            ("i.tif", false),
+        ] {
+            assert_eq!(is_plain_text(&dir.path().join(name)), plain, "{name}");
+        }
+        let err = read_points(&dir.path().join("p.txt"), &PointOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            err.contains("p.txt: has no data line") && err.contains("line 1"),
+            "{err}"
+        );
         let path = dir.path().join("i.tif");
         let err = read_points(&path, &PointOptions::default())
             .unwrap_err()
