@@ -24,12 +24,18 @@
 //!   smaller azimuth); the row axis is the other, signed so rows run clockwise from columns as
 //!   on a north-up grid. Points get integer indices by rounding, refined by least-squares refits
 //!   on growing neighbourhoods of the first point.
-//! - In both cases the map position of a node is an affine function of its (column, row),
-//!   fitted by ordinary least squares to all points (coordinates taken relative to the first
-//!   point, compensated sums), and becomes a GDAL geotransform: node (0, 0) is the centre of
-//!   the top-left cell, so the corner is half a column step and half a row step before it (GDAL
-//!   data model: a cell's centre is at `i + 0.5, j + 0.5`). Rotation terms below 1e-12 of
-//!   their bin are snapped to zero, so north-up grids come back exactly north-up.
+//! - In both cases, before anything lattice-sized is made, every point is checked against a
+//!   map from indices to coordinates that a few wrong points cannot pull (median steps between
+//!   the first and last point of every row and column and median origin, then least squares
+//!   on the points within a quarter bin of it), so a typo in a number or a coordinate is named
+//!   by its line instead of stretching or tilting the lattice; a lattice too large for memory
+//!   or too sparse for its points is refused naming the point farthest out. Then
+//!   the map position of a node is an affine function of its (column, row), fitted by ordinary
+//!   least squares to all points (coordinates taken relative to the first point, compensated
+//!   sums), and becomes a GDAL geotransform: node (0, 0) is the centre of the top-left cell, so
+//!   the corner is half a column step and half a row step before it (GDAL data model: a cell's
+//!   centre is at `i + 0.5, j + 0.5`). Rotation terms below 1e-12 of their bin are snapped to
+//!   zero, so north-up grids come back exactly north-up.
 //!
 //! The CRS is the caller's concern: a point list declares none.
 
@@ -374,8 +380,10 @@ pub fn read_points(path: &Path, options: &PointOptions) -> Result<PointGrid> {
 /// must be numbers.
 ///
 /// Errors (one line each, naming the file line where there is one): unreadable columns,
-/// non-numeric fields, points off the lattice by more than the tolerance, scattered points
-/// that need gridding, nodes given twice with different values, fewer than 3 x 3 nodes.
+/// non-numeric fields, points off the lattice by more than the tolerance (with a fit that a
+/// few wrong points cannot pull, so a typo is named by its line), scattered points that need
+/// gridding, a lattice too large or too sparse for its points, nodes given twice with
+/// different values, fewer than 3 x 3 points or nodes.
 pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<PointGrid> {
     let fail = |reason: String| FlexureError::input(path, reason);
     let tolerance = options.lattice_tolerance;
@@ -421,6 +429,7 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
             points.len()
         )));
     }
+    enough(points.len(), "points").map_err(&fail)?;
     let value_columns: Vec<ValueColumn> = columns
         .iter()
         .filter(|c| c.role == Role::Value)
@@ -433,17 +442,26 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
         let (cols, rows, numbering) = lattice_from_numbering(&points);
         ((cols, rows), Some(numbering))
     } else {
-        (lattice_from_coordinates(&points).map_err(&fail)?, None)
+        let indices = lattice_from_coordinates(&points).map_err(&fail)?;
+        (indices, None)
     };
-    place(
-        points,
-        indices,
+    let reading = Reading {
         numbering,
         value_columns,
-        layout.preamble,
+        preamble: layout.preamble,
         tolerance,
-    )
-    .map_err(fail)
+    };
+    place(points, indices, reading).map_err(fail)
+}
+
+/// Refuses fewer than 3 x 3 `what` (points, or distinct nodes).
+fn enough(count: usize, what: &str) -> std::result::Result<(), String> {
+    if count < 9 {
+        return Err(format!(
+            "holds only {count} {what}; a horizon needs at least 3 x 3 points"
+        ));
+    }
+    Ok(())
 }
 
 // ---------------------------------------------------------------------------------------
@@ -1298,7 +1316,7 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
 // Least squares and placement
 
 /// Map position relative to the first point: `origin + c col + r row` for node (c, r).
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq)]
 struct Affine {
     origin: (f64, f64),
     col: (f64, f64),
@@ -1324,6 +1342,14 @@ impl Affine {
             (self.row.1 * du - self.row.0 * dv) / det,
             (-self.col.1 * du + self.col.0 * dv) / det,
         ))
+    }
+
+    /// The smaller of the two bins (step lengths).
+    fn min_bin(&self) -> f64 {
+        self.col
+            .0
+            .hypot(self.col.1)
+            .min(self.row.0.hypot(self.row.1))
     }
 }
 
@@ -1398,27 +1424,262 @@ fn fit_affine(n: usize, sample: impl Fn(usize) -> Option<(f64, f64, f64, f64)>) 
     })
 }
 
-/// Names a node in messages.
-fn node_name(numbering: &Option<Numbering>, c: usize, r: usize) -> String {
+/// Names a node in messages (indices may lie outside the lattice).
+fn node_name(numbering: &Option<Numbering>, c: i64, r: i64) -> String {
     match numbering {
         Some(n) => format!(
             "inline {}, crossline {}",
-            n.inline_first + r as i64 * n.inline_step,
-            n.crossline_first + c as i64 * n.crossline_step
+            n.inline_first + r * n.inline_step,
+            n.crossline_first + c * n.crossline_step
         ),
         None => format!("column {c}, row {r}"),
     }
 }
 
-fn place(
-    p: Points,
-    (cols_in, rows_in): Indices,
+/// What a point list is read with besides its points and indices.
+struct Reading {
     numbering: Option<Numbering>,
     value_columns: Vec<ValueColumn>,
     preamble: Option<(usize, usize)>,
     tolerance: f64,
+}
+
+/// Most values (nodes x bands) a point list is read onto: 250 million, 2 GB as doubles. Survey
+/// grids exported as text stay far below; a lattice beyond it comes from a typo.
+const MAX_VALUES: u128 = 250_000_000;
+/// Most lattice nodes per point: on a lattice where fewer than 1 node in 16 holds a point the
+/// points look scattered (a seed grid on every 4th inline and crossline fills 1 in 16).
+const NODES_PER_POINT: u128 = 16;
+
+/// Share of the smaller bin beyond which a point is set aside before the outlier fit: gross
+/// errors only, so that coordinates rounded coarsely still get the plain least-squares fit.
+const SCREEN_SHARE: f64 = 0.25;
+
+/// The points (coordinates relative to the first point) and their lattice indices, for the
+/// checks and fits.
+struct Placed<'p> {
+    p: &'p Points,
+    index: Vec<(usize, usize)>,
+    numbering: Option<Numbering>,
+}
+
+impl Placed<'_> {
+    fn len(&self) -> usize {
+        self.index.len()
+    }
+
+    /// Point `k` as (column, row, u, v).
+    fn at(&self, k: usize) -> (f64, f64, f64, f64) {
+        let (c, r) = self.index[k];
+        (
+            c as f64,
+            r as f64,
+            self.p.x[k] - self.p.x[0],
+            self.p.y[k] - self.p.y[0],
+        )
+    }
+
+    /// Distance of point `k` from where `map` puts its node.
+    fn miss(&self, map: &Affine, k: usize) -> f64 {
+        let (c, r, u, v) = self.at(k);
+        let (pu, pv) = map.at(c, r);
+        (u - pu).hypot(v - pv)
+    }
+
+    /// Points more than `limit` from where `map` puts their nodes, as (distance, point), worst
+    /// first.
+    fn off(&self, map: &Affine, limit: f64) -> Vec<(f64, usize)> {
+        let mut off: Vec<(f64, usize)> = (0..self.len())
+            .map(|k| (self.miss(map, k), k))
+            .filter(|&(d, _)| d > limit)
+            .collect();
+        off.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+        off
+    }
+
+    fn node(&self, c: i64, r: i64) -> String {
+        node_name(&self.numbering, c, r)
+    }
+
+    /// The refusal for the points `off` (distance, point; worst first) more than `tolerance`
+    /// of the smaller bin off `map`.
+    fn off_lattice(&self, map: &Affine, off: &[(f64, usize)], tolerance: f64) -> String {
+        let (n, bin) = (self.len(), map.min_bin());
+        let (worst, k) = off[0];
+        let line = self.p.lines[k];
+        if off.len() * 10 > n {
+            return match &self.numbering {
+                Some(_) => format!(
+                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst:.3} CRS units); check the columns (--columns) and the export",
+                    off.len()
+                ),
+                None => format!(
+                    "the points lie on no regular lattice ({} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst:.3} CRS units); {GRID_FIRST}",
+                    off.len()
+                ),
+            };
+        }
+        let others = match off.len() {
+            1 => String::new(),
+            m => format!(
+                " (points that far off: {m} of {n}, worst on lines {})",
+                off.iter()
+                    .take(3)
+                    .map(|o| self.p.lines[o.1].to_string())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        };
+        let (c, r, u, v) = self.at(k);
+        let (c, r) = (c as i64, r as i64);
+        // The node the point's coordinates fall on, when they fall on one.
+        let landing = map.index(u, v).and_then(|(fc, fr)| {
+            let (pu, pv) = map.at(fc.round(), fr.round());
+            ((u - pu).hypot(v - pv) <= tolerance * bin && fc.abs() < 1e15 && fr.abs() < 1e15)
+                .then(|| (fc.round() as i64, fr.round() as i64))
+        });
+        match landing {
+            Some(node) if self.numbering.is_some() && node != (c, r) => format!(
+                "line {line}: {} is off the numbering/coordinates of the others: its x, y are those of {}, {worst:.3} CRS units from where the others put it; check it{others}",
+                self.node(c, r),
+                self.node(node.0, node.1)
+            ),
+            _ => format!(
+                "line {line} lies {worst:.3} CRS units ({:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those lines, or raise --lattice-tolerance (to {:.2}) if the export rounds coordinates coarsely",
+                worst / bin,
+                self.node(c, r),
+                (worst / bin * 100.0).ceil() / 100.0
+            ),
+        }
+    }
+
+    /// Refuses points off the lattice before anything lattice-sized is made: the points more
+    /// than [`SCREEN_SHARE`] of a bin (or `tolerance`, if larger) off a map that a few wrong
+    /// points cannot pull ([`robust_affine`]) are set aside, the others fitted by least
+    /// squares (as precise as the final fit, unpulled), and every point checked against that
+    /// fit. A typo in a line
+    /// number or a coordinate is so named by its line instead of stretching or tilting the
+    /// lattice.
+    fn check_outliers(&self, tolerance: f64) -> std::result::Result<(), String> {
+        let Some(map) = robust_affine(self) else {
+            return Ok(()); // no row or column with two points: the least-squares fit decides
+        };
+        let mut suspect = vec![false; self.len()];
+        for (_, k) in self.off(&map, tolerance.max(SCREEN_SHARE) * map.min_bin()) {
+            suspect[k] = true;
+        }
+        let map = fit_affine(self.len(), |k| (!suspect[k]).then(|| self.at(k))).unwrap_or(map);
+        let off = self.off(&map, tolerance * map.min_bin());
+        match off.is_empty() {
+            true => Ok(()),
+            false => Err(self.off_lattice(&map, &off, tolerance)),
+        }
+    }
+
+    /// The point farthest (in nodes) from the median column and row of all points, for
+    /// messages about lattices stretched by a typo.
+    fn farthest(&self) -> String {
+        let middle = |f: fn(&(usize, usize)) -> usize| {
+            median(self.index.iter().map(|i| f(i) as f64).collect()).unwrap_or(0.0)
+        };
+        let (mc, mr) = (middle(|i| i.0), middle(|i| i.1));
+        let reach = |k: usize| {
+            let (c, r, _, _) = self.at(k);
+            (c - mc).abs() + (r - mr).abs()
+        };
+        let k = (0..self.len())
+            .max_by(|&a, &b| reach(a).total_cmp(&reach(b)).then(b.cmp(&a)))
+            .unwrap_or(0);
+        let (c, r) = self.index[k];
+        format!(
+            "the point farthest from the others is on line {} ({})",
+            self.p.lines[k],
+            self.node(c as i64, r as i64)
+        )
+    }
+
+    /// Refuses a lattice of `cols` x `rows` nodes too large for memory ([`MAX_VALUES`]) or too
+    /// sparse for its points ([`NODES_PER_POINT`]).
+    fn check_extent(&self, cols: u64, rows: u64) -> std::result::Result<(), String> {
+        let (n, bands) = (self.len(), self.p.bands);
+        let nodes = cols as u128 * rows as u128;
+        let values = nodes * bands as u128;
+        if values > MAX_VALUES {
+            return Err(format!(
+                "the lattice would be {cols} x {rows} nodes x {bands} band(s) ({:.0} million values, {:.1} GB), more than flexure reads from a point list ({} million): from {n} points that more likely comes from a typo in a line number or coordinate than from the survey; {}: check it, or give a raster",
+                values as f64 / 1e6,
+                values as f64 * 8.0 / 1e9,
+                MAX_VALUES / 1_000_000,
+                self.farthest()
+            ));
+        }
+        if nodes > NODES_PER_POINT * n as u128 {
+            let what = match &self.numbering {
+                Some(_) => "their inline/crossline numbers span",
+                None => "the lattice they seem to lie on spans",
+            };
+            return Err(format!(
+                "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in {NODES_PER_POINT} holds a point, so they look scattered ({}: check it if a typo stretches the lattice); else {GRID_FIRST}",
+                self.farthest()
+            ));
+        }
+        Ok(())
+    }
+}
+
+/// A map from lattice indices to coordinates that a few wrong points cannot pull: the column
+/// step is the median, component by component, of the steps between the first and last point
+/// of every row, the row step likewise over columns, and the origin the median of the origins
+/// the points imply. `None` when no row or no column holds points at two indices.
+fn robust_affine(placed: &Placed) -> Option<Affine> {
+    let col = median_step(placed, |(c, r)| (r, c))?;
+    let row = median_step(placed, |(c, r)| (c, r))?;
+    let (ou, ov): (Vec<f64>, Vec<f64>) = (0..placed.len())
+        .map(|k| {
+            let (c, r, u, v) = placed.at(k);
+            (u - c * col.0 - r * row.0, v - c * col.1 - r * row.1)
+        })
+        .unzip();
+    Some(Affine {
+        origin: (median(ou)?, median(ov)?),
+        col,
+        row,
+    })
+}
+
+/// The median step per index along the second of `key`'s pair, between the first and last
+/// point of each group of points that share the first.
+fn median_step(
+    placed: &Placed,
+    key: impl Fn((usize, usize)) -> (usize, usize),
+) -> Option<(f64, f64)> {
+    let key = |k: usize| key(placed.index[k]);
+    let mut order: Vec<usize> = (0..placed.len()).collect();
+    order.sort_unstable_by_key(|&k| key(k));
+    let (mut su, mut sv) = (Vec::new(), Vec::new());
+    for group in order.chunk_by(|&a, &b| key(a).0 == key(b).0) {
+        let (a, b) = (group[0], group[group.len() - 1]);
+        let steps = (key(b).1 - key(a).1) as f64;
+        if steps > 0.0 {
+            let ((_, _, ua, va), (_, _, ub, vb)) = (placed.at(a), placed.at(b));
+            su.push((ub - ua) / steps);
+            sv.push((vb - va) / steps);
+        }
+    }
+    Some((median(su)?, median(sv)?))
+}
+
+/// Places the points on their lattice after the checks: at least 3 x 3 nodes spanned, no
+/// point off the lattice ([`Placed::check_outliers`]), a lattice neither too large nor too
+/// sparse, the least-squares fit within the tolerance, no node given twice with different
+/// values, at least 3 x 3 distinct nodes.
+fn place(
+    p: Points,
+    (cols_in, rows_in): Indices,
+    reading: Reading,
 ) -> std::result::Result<PointGrid, String> {
     let n = p.len();
+    let tolerance = reading.tolerance;
     let span = |a: &[i64]| {
         let lo = a.iter().copied().min().unwrap_or(0);
         let hi = a.iter().copied().max().unwrap_or(0);
@@ -1430,33 +1691,20 @@ fn place(
             "the points span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3"
         ));
     }
-    let nodes = cols as u128 * rows as u128;
-    if nodes > 20 * n as u128 {
-        let what = match &numbering {
-            Some(_) => "their inline/crossline numbers span",
-            None => "the lattice they seem to lie on spans",
-        };
-        return Err(format!(
-            "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in 20 holds a point, so they look scattered; {GRID_FIRST}"
-        ));
-    }
-    let (cols, rows) = (cols as usize, rows as usize);
-    let index: Vec<(usize, usize)> = cols_in
-        .iter()
-        .zip(&rows_in)
-        .map(|(&c, &r)| ((c - c0) as usize, (r - r0) as usize))
-        .collect();
+    let placed = Placed {
+        p: &p,
+        index: cols_in
+            .iter()
+            .zip(&rows_in)
+            .map(|(&c, &r)| (c.abs_diff(c0) as usize, r.abs_diff(r0) as usize))
+            .collect(),
+        numbering: reading.numbering,
+    };
     drop((cols_in, rows_in));
-    let (x0, y0) = (p.x[0], p.y[0]);
-    let fit = fit_affine(n, |k| {
-        Some((
-            index[k].0 as f64,
-            index[k].1 as f64,
-            p.x[k] - x0,
-            p.y[k] - y0,
-        ))
-    })
-    .ok_or_else(|| {
+    placed.check_outliers(tolerance)?;
+    placed.check_extent(cols, rows)?;
+    let (cols, rows) = (cols as usize, rows as usize);
+    let fit = fit_affine(n, |k| Some(placed.at(k))).ok_or_else(|| {
         "the points lie along one line of their lattice; a horizon needs a two-dimensional grid"
             .to_string()
     })?;
@@ -1468,41 +1716,81 @@ fn place(
                 .to_string(),
         );
     }
-    let bin = column_bin.min(row_bin);
-    let mut worst = (0.0f64, 0usize);
-    let mut off = 0usize;
-    for (k, &(c, r)) in index.iter().enumerate() {
-        let (u, v) = fit.at(c as f64, r as f64);
-        let d = (p.x[k] - x0 - u).hypot(p.y[k] - y0 - v);
-        if d > worst.0 {
-            worst = (d, k);
-        }
-        if d > tolerance * bin {
-            off += 1;
-        }
+    let bin = fit.min_bin();
+    let off = placed.off(&fit, tolerance * bin);
+    if !off.is_empty() {
+        return Err(placed.off_lattice(&fit, &off, tolerance));
     }
-    let (worst_misfit, worst_k) = worst;
-    if off > 0 {
-        let line = p.lines[worst_k];
-        let (c, r) = index[worst_k];
-        let share = worst_misfit / bin;
-        if off * 10 > n {
-            return Err(match &numbering {
-                Some(_) => format!(
-                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({off} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst_misfit:.3} CRS units); check the columns (--columns) and the export"
-                ),
-                None => format!(
-                    "the points lie on no regular lattice ({off} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst_misfit:.3} CRS units); {GRID_FIRST}"
-                ),
-            });
-        }
-        return Err(format!(
-            "line {line} lies {worst_misfit:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance} (points that far off: {off} of {n}); fix those lines, or raise --lattice-tolerance if the export rounds coordinates coarsely",
-            node_name(&numbering, c, r)
-        ));
+    let (worst_misfit, worst_k) = (0..n)
+        .map(|k| (placed.miss(&fit, k), k))
+        .fold((0.0, 0), |a, b| if b.0 > a.0 { b } else { a });
+    let numbering = placed.numbering;
+    let nodes = fill(&p, &placed.index, (cols, rows), &numbering)?;
+    let occupied = cols * rows - nodes.empty;
+    if occupied < n {
+        enough(
+            occupied,
+            &format!("distinct nodes ({n} points, repeats read once)"),
+        )?;
     }
 
-    // Nodes: the first point of each; repeats must carry the same values.
+    // Geotransform: node (0, 0) is the centre of cell (0, 0).
+    let (x0, y0) = (p.x[0], p.y[0]);
+    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
+    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
+    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
+    let geo_transform = [
+        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
+        g1,
+        g2,
+        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
+        g4,
+        g5,
+    ];
+    Ok(PointGrid {
+        cols,
+        rows,
+        geo_transform,
+        bands: nodes.bands,
+        value_columns: reading.value_columns,
+        lattice: LatticeReport {
+            points: n,
+            numbering,
+            column_azimuth: azimuth((g1, g4)),
+            row_azimuth: azimuth((g2, g5)),
+            column_bin,
+            row_bin,
+            worst_misfit,
+            worst_misfit_share: worst_misfit / bin,
+            worst_misfit_line: p.lines[worst_k],
+            empty_nodes: nodes.empty,
+            null_nodes: nodes.null,
+            repeated: nodes.repeated,
+            preamble: reading.preamble,
+        },
+    })
+}
+
+/// The bands of a lattice and what filling it found.
+struct Nodes {
+    /// One array per band, `[row, col]`, NaN where null.
+    bands: Vec<Array2<f64>>,
+    /// Nodes without a point.
+    empty: usize,
+    /// Nodes null in every band.
+    null: usize,
+    /// Points that repeated a node with the same values.
+    repeated: usize,
+}
+
+/// Fills a `cols` x `rows` lattice with the points at `index`: the first point of a node
+/// gives its values; a repeat must carry the same values (refused naming both lines).
+fn fill(
+    p: &Points,
+    index: &[(usize, usize)],
+    (cols, rows): (usize, usize),
+    numbering: &Option<Numbering>,
+) -> std::result::Result<Nodes, String> {
     let bands = p.bands;
     let same = |a: usize, b: usize| {
         (0..bands).all(|j| {
@@ -1530,19 +1818,19 @@ fn place(
                 "lines {} and {} both give node ({}) but with different values ({} vs {}); remove one of them",
                 p.lines[first],
                 p.lines[k],
-                node_name(&numbering, c, r),
+                node_name(numbering, c as i64, r as i64),
                 show(first),
                 show(k)
             ));
         }
     }
     let mut arrays = vec![Array2::from_elem((rows, cols), f64::NAN); bands];
-    let (mut empty_nodes, mut null_nodes) = (0, 0);
+    let (mut empty, mut null) = (0, 0);
     for (node, &k) in owner.iter().enumerate() {
         let (r, c) = (node / cols, node % cols);
         if k == u32::MAX {
-            empty_nodes += 1;
-            null_nodes += 1;
+            empty += 1;
+            null += 1;
             continue;
         }
         let mut all_null = true;
@@ -1551,42 +1839,13 @@ fn place(
             all_null &= value.is_nan();
             band[[r, c]] = value;
         }
-        null_nodes += all_null as usize;
+        null += all_null as usize;
     }
-
-    // Geotransform: node (0, 0) is the centre of cell (0, 0).
-    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
-    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
-    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
-    let geo_transform = [
-        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
-        g1,
-        g2,
-        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
-        g4,
-        g5,
-    ];
-    Ok(PointGrid {
-        cols,
-        rows,
-        geo_transform,
+    Ok(Nodes {
         bands: arrays,
-        value_columns,
-        lattice: LatticeReport {
-            points: n,
-            numbering,
-            column_azimuth: azimuth((g1, g4)),
-            row_azimuth: azimuth((g2, g5)),
-            column_bin,
-            row_bin,
-            worst_misfit,
-            worst_misfit_share: worst_misfit / bin,
-            worst_misfit_line: p.lines[worst_k],
-            empty_nodes,
-            null_nodes,
-            repeated,
-            preamble,
-        },
+        empty,
+        null,
+        repeated,
     })
 }
 
@@ -1752,6 +2011,220 @@ mod tests {
             }
         }
         worst
+    }
+
+    /// Largest distance between where two geotransforms put the centres of the corner cells of
+    /// a `cols` x `rows` grid, as a share of the smaller bin of `b` (GDAL data model; the
+    /// difference of two affine maps is affine, so over the grid it is largest at a corner:
+    /// elementary geometry).
+    fn gt_distance(a: &[f64; 6], b: &[f64; 6], (cols, rows): (usize, usize)) -> f64 {
+        let bin = b[1].hypot(b[4]).min(b[2].hypot(b[5]));
+        [(0, 0), (cols - 1, 0), (0, rows - 1), (cols - 1, rows - 1)]
+            .into_iter()
+            .map(|(c, r)| {
+                let ((xa, ya), (xb, yb)) = (centre(a, c, r), centre(b, c, r));
+                (xa - xb).hypot(ya - yb) / bin
+            })
+            .fold(0.0, f64::max)
+    }
+
+    #[test]
+    fn exports_rounded_to_centimetres_read_back_to_their_lattice() {
+        // Common practice: interpretation packages write coordinates to 0.01 m. Rotated
+        // lattices with unequal bins, read from x, y alone and from the numbering, come back
+        // on their generating lattice: every cell centre within 2e-5 of a bin of its node
+        // (measured: under 1e-5; the least-squares fit over all nodes averages the rounding,
+        // elementary statistics), every value bit for bit.
+        let cases = [
+            (63.0, (25.0, 12.5), (60, 45)),
+            (117.5, (12.5, 30.0), (41, 70)),
+            (91.0, (20.0, 20.0), (35, 35)),
+        ];
+        for (azimuth, bins, (cols, rows)) in cases {
+            let g = survey_geometry((483_117.0, 6_702_345.0), azimuth, bins, (cols, rows));
+            let mut e = Export::new(g.geo_transform, cols, rows);
+            e.decimals = Some(2);
+            for numbering in [None, Some((1200, 1, 3000, 2))] {
+                e.numbering = numbering;
+                let grid = parse(&e.full(" ", None), &PointOptions::default()).unwrap();
+                let all = |c, r, b| Some(value(c, r, b));
+                let worst = assert_picture_within(&grid, &g.geo_transform, (cols, rows), all, 2e-5);
+                assert!(worst < 2e-5, "{azimuth}: {worst}");
+                assert!(grid.lattice.worst_misfit < 0.0075, "{:?}", grid.lattice);
+            }
+        }
+    }
+
+    #[test]
+    fn two_exports_of_one_survey_with_different_gaps_agree() {
+        // Common practice: one package leaves a fault gap out, another writes it as -999.25.
+        // Both exports of one survey (coordinates to 0.01 m) read to the same lattice, node
+        // centres within 1e-5 of a bin of each other (measured: under 2e-6), and to the same
+        // values bit for bit; from x, y alone and from the numbering.
+        let g = survey_geometry((402_500.0, 6_450_000.0), 104.0, (12.5, 25.0), (70, 52));
+        let fault = |c: usize, r: usize| {
+            (c as f64 - 0.6 * r as f64 - 20.0).abs() < 1.5 && (6..45).contains(&r)
+        };
+        let mut e = Export::new(g.geo_transform, 70, 52);
+        e.decimals = Some(2);
+        let sentinel = PointOptions {
+            nodata: vec![-999.25],
+            ..PointOptions::default()
+        };
+        for numbering in [None, Some((501, 1, 1001, 1))] {
+            e.numbering = numbering;
+            let omitted = e.text(",", None, |c, r, b| {
+                (!fault(c, r)).then(|| value(c, r, b).to_string())
+            });
+            let written = e.text(",", None, |c, r, b| {
+                Some(match fault(c, r) {
+                    true => "-999.25".to_string(),
+                    false => value(c, r, b).to_string(),
+                })
+            });
+            let a = parse(&omitted, &PointOptions::default()).unwrap();
+            let b = parse(&written, &sentinel).unwrap();
+            assert_eq!((a.cols, a.rows), (b.cols, b.rows));
+            let d = gt_distance(&a.geo_transform, &b.geo_transform, (a.cols, a.rows));
+            assert!(d < 1e-5, "{numbering:?}: {d}");
+            for (x, y) in a.bands[0].iter().zip(b.bands[0].iter()) {
+                assert!(x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan()));
+            }
+            assert_eq!(a.lattice.null_nodes, b.lattice.null_nodes);
+            assert!(a.lattice.empty_nodes > 0 && b.lattice.empty_nodes == 0);
+        }
+    }
+
+    #[test]
+    fn typos_in_line_numbers_and_coordinates_are_named_by_line() {
+        // Hand-checkable: a regular export in which one line is mistyped. The typo is named by
+        // its line, with the node its coordinates belong to, however far it is (1012 -> 9012
+        // or 1112); it neither stretches the lattice nor tilts its fit.
+        let g = survey_geometry((480_000.0, 3_900_000.0), 30.0, (25.0, 12.5), (40, 30));
+        let mut e = Export::new(g.geo_transform, 40, 30);
+        e.numbering = Some((1000, 1, 2000, 2));
+        e.decimals = Some(2);
+        let text = e.full(" ", Some("Inline Xline X Y Z"));
+        let line = text
+            .lines()
+            .position(|l| l.starts_with("1012 2036 "))
+            .unwrap()
+            + 1;
+        let d = PointOptions::default();
+        for typo in ["9012", "1112", "1013"] {
+            let bad = text.replacen("\n1012 2036 ", &format!("\n{typo} 2036 "), 1);
+            refused(
+                &bad,
+                &d,
+                &[
+                    &format!("line {line}: inline {typo}, crossline 2036 is off the numbering/coordinates of the others"),
+                    "its x, y are those of inline 1012, crossline 2036",
+                    "check it",
+                ],
+            );
+        }
+        // A crossline typo on another line as well: both named, the worst first.
+        let other = text
+            .lines()
+            .position(|l| l.starts_with("1020 2050 "))
+            .unwrap()
+            + 1;
+        let two = text.replacen("\n1012 2036 ", "\n9012 2036 ", 1).replacen(
+            "\n1020 2050 ",
+            "\n1020 2052 ",
+            1,
+        );
+        refused(
+            &two,
+            &d,
+            &[
+                &format!("line {line}: inline 9012"),
+                &format!("points that far off: 2 of 1200, worst on lines {line}, {other}"),
+            ],
+        );
+        // From x, y alone, a mistyped coordinate (3 m off) is named by its line.
+        e.numbering = None;
+        let xyz = e.full(" ", None);
+        let first: Vec<&str> = xyz.lines().nth(400).unwrap().split(' ').collect();
+        let x: f64 = first[0].parse().unwrap();
+        let typo = xyz.replacen(first[0], &format!("{:.2}", x + 3.0), 1);
+        refused(
+            &typo,
+            &d,
+            &[
+                "line 401 lies",
+                "off its lattice node",
+                "--lattice-tolerance",
+            ],
+        );
+    }
+
+    #[test]
+    fn fewer_than_nine_points_are_refused() {
+        // Brief: a file with fewer than 3 x 3 points is refused, even when its numbering
+        // spans 3 x 3 nodes; repeats of a node count once.
+        let five = "Inline Xline X Y Z\n1 1 0 0 10\n1 3 50 0 11\n3 1 0 -50 12\n3 3 50 -50 13\n2 2 25 -25 14\n";
+        refused(
+            five,
+            &PointOptions::default(),
+            &["holds only 5 points", "at least 3 x 3 points"],
+        );
+        let repeats = format!("{five}1 1 0 0 10\n1 3 50 0 11\n3 1 0 -50 12\n3 3 50 -50 13\n");
+        refused(
+            &repeats,
+            &PointOptions::default(),
+            &["holds only 5 distinct nodes (9 points", "at least 3 x 3"],
+        );
+    }
+
+    #[test]
+    fn lattices_too_large_or_too_sparse_are_refused_before_they_are_made() {
+        // Hand-checkable arithmetic: 20 000 x 20 000 nodes x 1 band is 400 million values,
+        // over the 250 million cap; 100 x 100 nodes for 10 points is under 1 in 16.
+        let p = Points {
+            lines: (1..=10).collect(),
+            x: vec![0.0; 10],
+            y: vec![0.0; 10],
+            inline: Vec::new(),
+            crossline: Vec::new(),
+            has_numbering: false,
+            values: vec![1.0; 10],
+            bands: 1,
+        };
+        let placed = Placed {
+            p: &p,
+            index: (0..10).map(|k| (k, k)).collect(),
+            numbering: None,
+        };
+        let err = placed.check_extent(20_000, 20_000).unwrap_err();
+        for s in [
+            "20000 x 20000 nodes x 1 band(s)",
+            "400 million values",
+            "3.2 GB",
+            "typo",
+        ] {
+            assert!(err.contains(s), "'{s}' in {err}");
+        }
+        let err = placed.check_extent(100, 100).unwrap_err();
+        assert!(
+            err.contains("1 node in 16") && err.contains("line 1 (column 0, row 0)"),
+            "{err}"
+        );
+        assert!(placed.check_extent(12, 12).is_ok());
+
+        // A line far outside the others with consistent numbering and coordinates (a typo in
+        // both) is named as the point farthest out.
+        let mut e = Export::new([0.0, 10.0, 0.0, 0.0, 0.0, -10.0], 10, 10);
+        e.numbering = Some((1, 1, 1, 1));
+        let text = format!("{}2001 5 45 -20005 1\n", e.full(" ", None));
+        refused(
+            &text,
+            &PointOptions::default(),
+            &[
+                "span 10 x 2001 nodes but only 101 points",
+                "on line 101 (inline 2001, crossline 5)",
+            ],
+        );
     }
 
     #[test]
@@ -2471,7 +2944,12 @@ mod tests {
         refused(
             &sparse,
             &PointOptions::default(),
-            &["100 x 100 nodes", "1 node in 20", "grid them first"],
+            &[
+                "100 x 100 nodes",
+                "1 node in 16",
+                "grid them first",
+                "farthest from the others is on line",
+            ],
         );
         // Numbered points whose coordinates are scattered.
         let numbered: String = (0..100u64)
