@@ -19,11 +19,16 @@
 //!   vector and the most frequent shortest vector not parallel to it (searched in a bucket
 //!   grid, on a fixed sample of at most 20 000 points), reduced to a shortest basis by
 //!   Lagrange's (Gauss's) two-dimensional reduction (Nguyen 2010, "Hermite's constant and
-//!   lattice algorithms", in *The LLL Algorithm*, Springer, section 2 [from memory]). The column
-//!   axis is whichever of the four basis directions points closest to east (ties go to the
-//!   smaller azimuth); the row axis is the other, signed so rows run clockwise from columns as
-//!   on a north-up grid. Points get integer indices by rounding, refined by least-squares refits
-//!   on growing neighbourhoods of the first point.
+//!   lattice algorithms", in *The LLL Algorithm*, Springer, section 2 [from memory]), anchored
+//!   at a point whose nearest neighbour is one such step away. Points get integer indices by
+//!   rounding, refined by least-squares refits, over growing neighbourhoods of the anchor, on
+//!   the points near a node. Points off that lattice that sit in groups at 1/2, 1/3 or 1/4 of
+//!   a step (an interpretation on every 2nd inline with patches on every inline) refine it to
+//!   the lattice its steps and those offsets generate (Hermite normal form of the generators,
+//!   in twelfths of a step; elementary number theory), so the lattice is the finest one the
+//!   points lie on; lone points off the lattice never refine it. The column axis is whichever
+//!   of the four basis directions points closest to east (ties go to the smaller azimuth); the
+//!   row axis is the other, signed so rows run clockwise from columns as on a north-up grid.
 //! - In both cases, before anything lattice-sized is made, every point is checked against a
 //!   map from indices to coordinates that a few wrong points cannot pull (median steps between
 //!   the first and last point of every row and column and median origin, then least squares
@@ -442,7 +447,7 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
         let (cols, rows, numbering) = lattice_from_numbering(&points);
         ((cols, rows), Some(numbering))
     } else {
-        let indices = lattice_from_coordinates(&points).map_err(&fail)?;
+        let indices = lattice_from_coordinates(&points, tolerance).map_err(&fail)?;
         (indices, None)
     };
     let reading = Reading {
@@ -1224,38 +1229,77 @@ fn orient(b1: (f64, f64), b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
     (col, row)
 }
 
-fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> {
-    let n = p.len();
-    if n < 9 {
-        return Err(format!(
-            "holds only {n} points; a horizon needs at least 3 x 3 nodes"
-        ));
-    }
+/// Share of the smaller bin within which a point counts as on a node while the lattice is
+/// refitted: half the smallest sub-lattice offset looked for (1/4 of a step).
+const FIT_SHARE: f64 = 0.125;
+/// Largest denominator of the sub-lattice offsets looked for (1/2, 1/3 and 1/4 of a step).
+const MAX_DIVISOR: i64 = 4;
+/// Points of one sub-lattice offset that must each have a point of the same offset one step
+/// away along a row or column before the offset refines the lattice.
+const MIN_GROUPED: usize = 4;
+
+fn scattered(what: &str) -> String {
+    format!("the points lie on no regular lattice ({what}); {GRID_FIRST}")
+}
+
+/// Column and row indices of the points from their coordinates alone: the first lattice
+/// ([`first_lattice`]) settled on the points ([`settle`]) and refined to the finest lattice
+/// the points lie on ([`finer_basis`], at most twice).
+fn lattice_from_coordinates(p: &Points, tolerance: f64) -> std::result::Result<Indices, String> {
     // Coordinates relative to the first point (UTM eastings are ~1e6).
     let (x0, y0) = (p.x[0], p.y[0]);
     let u: Vec<f64> = p.x.iter().map(|x| x - x0).collect();
     let v: Vec<f64> = p.y.iter().map(|y| y - y0).collect();
-    let buckets = Buckets::new(&u, &v).ok_or_else(|| {
+    let mut lattice = settle(&u, &v, first_lattice(&u, &v)?);
+    for _ in 0..2 {
+        let Some((col, row)) = finer_basis(&u, &v, &lattice, tolerance) else {
+            break;
+        };
+        lattice = settle(
+            &u,
+            &v,
+            Affine {
+                col,
+                row,
+                ..lattice
+            },
+        );
+    }
+    let indices: Option<Vec<(i64, i64)>> = (0..p.len())
+        .map(|k| {
+            let (c, r) = lattice.index(u[k], v[k])?;
+            (c.abs() < 1e15 && r.abs() < 1e15).then(|| (c.round() as i64, r.round() as i64))
+        })
+        .collect();
+    let indices = indices.ok_or_else(|| scattered("the steps between neighbours do not repeat"))?;
+    Ok(indices.into_iter().unzip())
+}
+
+/// A first lattice from the points themselves: the most frequent step to the nearest
+/// neighbour and the most frequent shortest step not parallel to it, reduced and oriented
+/// ([`reduce`], [`orient`]), with its origin at the first sampled point whose nearest
+/// neighbour is one most frequent step away (so a lone wrong point cannot anchor it).
+fn first_lattice(u: &[f64], v: &[f64]) -> std::result::Result<Affine, String> {
+    let n = u.len();
+    let buckets = Buckets::new(u, v).ok_or_else(|| {
         "has all its points at one place; a horizon needs a two-dimensional grid of points"
             .to_string()
     })?;
     let stride = n.div_ceil(BASIS_SAMPLES);
     let sample = || (0..n).step_by(stride);
-    let scattered =
-        |what: &str| format!("the points lie on no regular lattice ({what}); {GRID_FIRST}");
-
-    let nearest: Vec<(f64, f64)> = sample()
-        .filter_map(|k| buckets.nearest(&u, &v, k, |_, _| true))
+    let nearest: Vec<(usize, (f64, f64))> = sample()
+        .filter_map(|k| Some((k, buckets.nearest(u, v, k, |_, _| true)?)))
         .collect();
-    let scale = median(nearest.iter().map(|a| a.0.hypot(a.1)).collect())
+    let steps: Vec<(f64, f64)> = nearest.iter().map(|n| n.1).collect();
+    let scale = median(steps.iter().map(|a| a.0.hypot(a.1)).collect())
         .ok_or_else(|| scattered("no point has a neighbour"))?;
-    let b1 = mode_vector(&nearest, scale)
-        .ok_or_else(|| scattered("no common step between neighbours"))?;
+    let b1 =
+        mode_vector(&steps, scale).ok_or_else(|| scattered("no common step between neighbours"))?;
     let b1_len = b1.0.hypot(b1.1);
     let independent =
         |du: f64, dv: f64| (du * b1.1 - dv * b1.0).abs() > 0.34 * b1_len * du.hypot(dv);
     let second: Vec<(f64, f64)> = sample()
-        .filter_map(|k| buckets.nearest(&u, &v, k, independent))
+        .filter_map(|k| buckets.nearest(u, v, k, independent))
         .collect();
     let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect()).ok_or_else(|| {
         "all points lie along one line; a horizon needs a two-dimensional grid of points"
@@ -1263,53 +1307,137 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
     })?;
     let b2 = mode_vector(&second, scale2)
         .ok_or_else(|| scattered("no common second step between neighbours"))?;
-    let (b1, b2) = reduce(b1, b2);
-    let cross = (b1.0 * b2.1 - b1.1 * b2.0).abs();
-    if cross.is_nan() || cross <= 0.1 * b1.0.hypot(b1.1) * b2.0.hypot(b2.1) {
+    let (r1, r2) = reduce(b1, b2);
+    let cross = (r1.0 * r2.1 - r1.1 * r2.0).abs();
+    if cross.is_nan() || cross <= 0.1 * r1.0.hypot(r1.1) * r2.0.hypot(r2.1) {
         return Err(scattered(
             "the steps between neighbours are nearly parallel",
         ));
     }
-    let (col, row) = orient(b1, b2);
-
-    // Indices by rounding, with the lattice refitted on growing neighbourhoods of the first
-    // point so that a slightly-off basis cannot drift across a large grid.
-    let mut lattice = Affine {
-        origin: (0.0, 0.0),
+    let (col, row) = orient(r1, r2);
+    let typical = |a: (f64, f64)| {
+        (a.0 - b1.0)
+            .hypot(a.1 - b1.1)
+            .min((a.0 + b1.0).hypot(a.1 + b1.1))
+            <= 0.05 * b1_len
+    };
+    let anchor = nearest.iter().find(|(_, a)| typical(*a)).map_or(0, |n| n.0);
+    Ok(Affine {
+        origin: (u[anchor], v[anchor]),
         col,
         row,
+    })
+}
+
+/// `lattice` refitted by least squares to the points within [`FIT_SHARE`] of the smaller bin
+/// of a node: over growing neighbourhoods of its origin, so that a slightly-off first basis
+/// cannot drift across a large grid, then over all points until the fit no longer changes.
+fn settle(u: &[f64], v: &[f64], mut lattice: Affine) -> Affine {
+    let near_node = |a: &Affine, k: usize, radius: f64| {
+        let (c, r) = a.index(u[k], v[k])?;
+        let (c, r) = (c.round(), r.round());
+        let (pu, pv) = a.at(c, r);
+        let near = (u[k] - pu).hypot(v[k] - pv) <= FIT_SHARE * a.min_bin();
+        (near && c.abs() <= radius && r.abs() <= radius).then_some((c, r, u[k], v[k]))
     };
-    let round = |a: &Affine, k: usize| a.index(u[k], v[k]).map(|(c, r)| (c.round(), r.round()));
-    for radius in [4.0, 32.0, 256.0, 2048.0, f64::INFINITY] {
+    for radius in [4.0, 32.0, 256.0, 2048.0] {
         let current = lattice;
-        let near = |k: usize| {
-            let (c, r) = current.index(u[k], v[k])?;
-            (c.abs() <= radius + 0.5 && r.abs() <= radius + 0.5)
-                .then(|| (c.round(), r.round(), u[k], v[k]))
-        };
-        if let Some(fit) = fit_affine(n, near) {
+        if let Some(fit) = fit_affine(u.len(), |k| near_node(&current, k, radius)) {
             lattice = fit;
         }
     }
-    let mut indices: Vec<(f64, f64)> = Vec::with_capacity(n);
     for _ in 0..8 {
-        let next: Option<Vec<(f64, f64)>> = (0..n).map(|k| round(&lattice, k)).collect();
-        let next = next.ok_or_else(|| scattered("the lattice is degenerate"))?;
-        if next == indices {
-            break;
-        }
-        indices = next;
-        if let Some(fit) = fit_affine(n, |k| Some((indices[k].0, indices[k].1, u[k], v[k]))) {
-            lattice = fit;
+        let current = lattice;
+        match fit_affine(u.len(), |k| near_node(&current, k, f64::INFINITY)) {
+            Some(fit) if fit != current => lattice = fit,
+            _ => break,
         }
     }
-    let too_far = indices
-        .iter()
-        .any(|&(c, r)| !(c.abs() < 1e15 && r.abs() < 1e15));
-    if too_far {
-        return Err(scattered("the steps between neighbours do not repeat"));
+    lattice
+}
+
+/// A finer lattice through the nodes of `lattice` when points off it sit in groups at simple
+/// fractions of its steps (1/2, 1/3 or 1/4; e.g. the inlines between the interpreted ones
+/// where a patch was picked on every inline): the reduced, oriented basis of the lattice that
+/// its steps and those offsets generate. An offset counts when at least [`MIN_GROUPED`] of
+/// its points have a point of the same offset one step away along a row or column, so lone
+/// wrong points never refine a lattice; `None` when none counts.
+fn finer_basis(
+    u: &[f64],
+    v: &[f64],
+    lattice: &Affine,
+    tolerance: f64,
+) -> Option<((f64, f64), (f64, f64))> {
+    let bin = lattice.min_bin();
+    let twelfths = |d: f64| (d * 12.0).round() as i64;
+    // (offset in twelfths of a step, column, row of the node the offset is taken from)
+    let mut members: Vec<((i64, i64), i64, i64)> = Vec::new();
+    for k in 0..u.len() {
+        let Some((c, r)) = lattice.index(u[k], v[k]) else {
+            continue;
+        };
+        let miss = |dc: f64, dr: f64| {
+            let (pu, pv) = lattice.at(c.round() + dc, r.round() + dr);
+            (u[k] - pu).hypot(v[k] - pv)
+        };
+        if miss(0.0, 0.0) <= tolerance * bin {
+            continue;
+        }
+        for q in (2..=MAX_DIVISOR).map(|q| q as f64) {
+            let snap = |f: f64| ((f - f.round()) * q).round() / q;
+            let (dc, dr) = (snap(c).rem_euclid(1.0), snap(r).rem_euclid(1.0));
+            let (base_c, base_r) = ((c - dc).round(), (r - dr).round());
+            let (pu, pv) = lattice.at(base_c + dc, base_r + dr);
+            if (dc, dr) != (0.0, 0.0) && (u[k] - pu).hypot(v[k] - pv) <= tolerance * bin / q {
+                members.push(((twelfths(dc), twelfths(dr)), base_c as i64, base_r as i64));
+                break;
+            }
+        }
     }
-    Ok(indices.iter().map(|&(c, r)| (c as i64, r as i64)).unzip())
+    members.sort_unstable();
+    let mut generators = vec![(12, 0), (0, 12)];
+    for group in members.chunk_by(|a, b| a.0 == b.0) {
+        let has = |c: i64, r: i64| group.binary_search_by(|m| (m.1, m.2).cmp(&(c, r))).is_ok();
+        let grouped = group
+            .iter()
+            .filter(|&&(_, c, r)| has(c - 1, r) || has(c + 1, r) || has(c, r - 1) || has(c, r + 1))
+            .count();
+        if grouped >= MIN_GROUPED {
+            generators.push(group[0].0);
+        }
+    }
+    if generators.len() == 2 {
+        return None;
+    }
+    let ((a, _), (b, c)) = hermite(&generators);
+    let step = |w: (f64, f64), f: i64| (w.0 * f as f64 / 12.0, w.1 * f as f64 / 12.0);
+    let e1 = step(lattice.col, a);
+    let (e2c, e2r) = (step(lattice.col, b), step(lattice.row, c));
+    let (b1, b2) = reduce(e1, (e2c.0 + e2r.0, e2c.1 + e2r.1));
+    Some(orient(b1, b2))
+}
+
+/// A basis `((a, 0), (b, c))` (a, c > 0, 0 <= b < a) of the integer lattice that `vectors`
+/// generate, which must include two independent ones: the Hermite normal form, by Euclid's
+/// algorithm on the second components and the gcd of the first components left (elementary
+/// number theory).
+fn hermite(vectors: &[(i64, i64)]) -> ((i64, i64), (i64, i64)) {
+    let mut pivot = (0i64, 0i64);
+    let mut a = 0u64;
+    for &w in vectors {
+        let mut w = w;
+        while w.1 != 0 {
+            let q = pivot.1.div_euclid(w.1);
+            pivot = (pivot.0 - q * w.0, pivot.1 - q * w.1);
+            std::mem::swap(&mut pivot, &mut w);
+        }
+        a = gcd(a, w.0.unsigned_abs());
+    }
+    if pivot.1 < 0 {
+        pivot = (-pivot.0, -pivot.1);
+    }
+    let a = a as i64;
+    ((a, 0), (pivot.0.rem_euclid(a), pivot.1))
 }
 
 // ---------------------------------------------------------------------------------------
@@ -2053,6 +2181,74 @@ mod tests {
                 assert!(grid.lattice.worst_misfit < 0.0075, "{:?}", grid.lattice);
             }
         }
+    }
+
+    #[test]
+    fn decimated_interpretations_read_onto_the_finest_lattice() {
+        // Brief (the lattice from "two shortest independent steps"): a survey interpreted on
+        // every 2nd inline over most of its area and on every inline in two patches, read
+        // from x, y alone, comes back on the full survey lattice with nulls between the
+        // interpreted lines (elementary geometry); likewise every 3rd crossline with a patch,
+        // and a checkerboard with a full patch. Coordinates rounded to 0.01 m; node centres
+        // within 1e-4 of a bin (measured: 2e-5, 8e-6 and 8e-5; the checkerboard's rounding
+        // errors are correlated, and with 0.001 m they fall to 6e-7).
+        let g = survey_geometry((512_000.0, 7_010_000.0), 63.0, (25.0, 12.5), (48, 37));
+        type Keep = fn(usize, usize) -> bool;
+        let patterns: [(&str, Keep); 3] = [
+            ("every 2nd row", |c, r| {
+                r % 2 == 0 || (c < 6 && r < 10) || (c > 30 && r > 20)
+            }),
+            ("every 3rd column", |c, r| c % 3 == 0 || (r > 25 && c > 20)),
+            ("checkerboard", |c, r| {
+                (c + r) % 2 == 0 || (c > 10 && c < 20 && r > 5 && r < 15)
+            }),
+        ];
+        let mut e = Export::new(g.geo_transform, 48, 37);
+        e.decimals = Some(2);
+        for (what, keep) in patterns {
+            let text = e.text(" ", Some("x y z"), |c, r, b| {
+                keep(c, r).then(|| value(c, r, b).to_string())
+            });
+            let grid = parse(&text, &PointOptions::default())
+                .unwrap_or_else(|err| panic!("{what}: {err}"));
+            let worst = assert_picture_within(
+                &grid,
+                &g.geo_transform,
+                (48, 37),
+                |c, r, b| keep(c, r).then(|| value(c, r, b)),
+                1e-4,
+            );
+            assert!(worst < 1e-4, "{what}: {worst}");
+            let kept = (0..48 * 37).filter(|k| keep(k % 48, k / 48)).count();
+            assert_eq!(grid.lattice.empty_nodes, 48 * 37 - kept, "{what}");
+        }
+
+        // Three lone lines half a row off are errors, not a finer lattice: refused by line.
+        let shifted = [(7, 4), (30, 16), (12, 30)];
+        let (hx, hy) = (0.5 * g.geo_transform[2], 0.5 * g.geo_transform[5]);
+        let mut text = String::from("x y z\n");
+        for r in 0..37 {
+            for c in 0..48 {
+                let (x, y) = centre(&g.geo_transform, c, r);
+                let (x, y) = match shifted.contains(&(c, r)) {
+                    true => (x + hx, y + hy),
+                    false => (x, y),
+                };
+                text.push_str(&format!("{x:.2} {y:.2} {}\n", value(c, r, 0)));
+            }
+        }
+        let line = |(c, r): (usize, usize)| (2 + r * 48 + c).to_string();
+        refused(
+            &text,
+            &PointOptions::default(),
+            &[
+                "off its lattice node",
+                "points that far off: 3 of 1776",
+                &line(shifted[0]),
+                &line(shifted[1]),
+                &line(shifted[2]),
+            ],
+        );
     }
 
     #[test]
