@@ -1333,22 +1333,23 @@ fn first_lattice(u: &[f64], v: &[f64]) -> std::result::Result<Affine, String> {
 /// of a node: over growing neighbourhoods of its origin, so that a slightly-off first basis
 /// cannot drift across a large grid, then over all points until the fit no longer changes.
 fn settle(u: &[f64], v: &[f64], mut lattice: Affine) -> Affine {
-    let near_node = |a: &Affine, k: usize, radius: f64| {
+    // Point `k` as (column, row, u, v) when it lies within `limit` of its node of `a` and
+    // `radius` nodes of its origin.
+    let near_node = |a: &Affine, limit: f64, k: usize, radius: f64| {
         let (c, r) = a.index(u[k], v[k])?;
         let (c, r) = (c.round(), r.round());
-        let (pu, pv) = a.at(c, r);
-        let near = (u[k] - pu).hypot(v[k] - pv) <= FIT_SHARE * a.min_bin();
+        let near = squared_distance((u[k], v[k]), a.at(c, r)) <= limit * limit;
         (near && c.abs() <= radius && r.abs() <= radius).then_some((c, r, u[k], v[k]))
     };
     for radius in [4.0, 32.0, 256.0, 2048.0] {
-        let current = lattice;
-        if let Some(fit) = fit_affine(u.len(), |k| near_node(&current, k, radius)) {
+        let (current, limit) = (lattice, FIT_SHARE * lattice.min_bin());
+        if let Some(fit) = fit_affine(u.len(), |k| near_node(&current, limit, k, radius)) {
             lattice = fit;
         }
     }
     for _ in 0..8 {
-        let current = lattice;
-        match fit_affine(u.len(), |k| near_node(&current, k, f64::INFINITY)) {
+        let (current, limit) = (lattice, FIT_SHARE * lattice.min_bin());
+        match fit_affine(u.len(), |k| near_node(&current, limit, k, f64::INFINITY)) {
             Some(fit) if fit != current => lattice = fit,
             _ => break,
         }
@@ -1376,19 +1377,17 @@ fn finer_basis(
         let Some((c, r)) = lattice.index(u[k], v[k]) else {
             continue;
         };
-        let miss = |dc: f64, dr: f64| {
-            let (pu, pv) = lattice.at(c.round() + dc, r.round() + dr);
-            (u[k] - pu).hypot(v[k] - pv)
-        };
-        if miss(0.0, 0.0) <= tolerance * bin {
+        let on_node = lattice.at(c.round(), r.round());
+        if squared_distance((u[k], v[k]), on_node) <= (tolerance * bin).powi(2) {
             continue;
         }
         for q in (2..=MAX_DIVISOR).map(|q| q as f64) {
             let snap = |f: f64| ((f - f.round()) * q).round() / q;
             let (dc, dr) = (snap(c).rem_euclid(1.0), snap(r).rem_euclid(1.0));
             let (base_c, base_r) = ((c - dc).round(), (r - dr).round());
-            let (pu, pv) = lattice.at(base_c + dc, base_r + dr);
-            if (dc, dr) != (0.0, 0.0) && (u[k] - pu).hypot(v[k] - pv) <= tolerance * bin / q {
+            let at_offset = lattice.at(base_c + dc, base_r + dr);
+            let near = squared_distance((u[k], v[k]), at_offset) <= (tolerance * bin / q).powi(2);
+            if (dc, dr) != (0.0, 0.0) && near {
                 members.push(((twelfths(dc), twelfths(dr)), base_c as i64, base_r as i64));
                 break;
             }
@@ -1474,11 +1473,13 @@ impl Affine {
 
     /// The smaller of the two bins (step lengths).
     fn min_bin(&self) -> f64 {
-        self.col
-            .0
-            .hypot(self.col.1)
-            .min(self.row.0.hypot(self.row.1))
+        let length2 = |a: (f64, f64)| a.0 * a.0 + a.1 * a.1;
+        length2(self.col).min(length2(self.row)).sqrt()
     }
+}
+
+fn squared_distance(a: (f64, f64), b: (f64, f64)) -> f64 {
+    (a.0 - b.0) * (a.0 - b.0) + (a.1 - b.1) * (a.1 - b.1)
 }
 
 /// Neumaier's compensated sum.
@@ -1607,19 +1608,19 @@ impl Placed<'_> {
         )
     }
 
-    /// Distance of point `k` from where `map` puts its node.
-    fn miss(&self, map: &Affine, k: usize) -> f64 {
+    /// Squared distance of point `k` from where `map` puts its node.
+    fn miss2(&self, map: &Affine, k: usize) -> f64 {
         let (c, r, u, v) = self.at(k);
-        let (pu, pv) = map.at(c, r);
-        (u - pu).hypot(v - pv)
+        squared_distance((u, v), map.at(c, r))
     }
 
     /// Points more than `limit` from where `map` puts their nodes, as (distance, point), worst
     /// first.
     fn off(&self, map: &Affine, limit: f64) -> Vec<(f64, usize)> {
         let mut off: Vec<(f64, usize)> = (0..self.len())
-            .map(|k| (self.miss(map, k), k))
-            .filter(|&(d, _)| d > limit)
+            .map(|k| (self.miss2(map, k), k))
+            .filter(|&(d2, _)| d2 > limit * limit)
+            .map(|(d2, k)| (d2.sqrt(), k))
             .collect();
         off.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
         off
@@ -1849,9 +1850,10 @@ fn place(
     if !off.is_empty() {
         return Err(placed.off_lattice(&fit, &off, tolerance));
     }
-    let (worst_misfit, worst_k) = (0..n)
-        .map(|k| (placed.miss(&fit, k), k))
+    let (worst2, worst_k) = (0..n)
+        .map(|k| (placed.miss2(&fit, k), k))
         .fold((0.0, 0), |a, b| if b.0 > a.0 { b } else { a });
+    let worst_misfit = f64::sqrt(worst2);
     let numbering = placed.numbering;
     let nodes = fill(&p, &placed.index, (cols, rows), &numbering)?;
     let occupied = cols * rows - nodes.empty;
