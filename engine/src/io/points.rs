@@ -762,12 +762,16 @@ fn example_columns(n: usize) -> String {
 // Lines and fields
 
 /// Whether a line's fields are data: at least 3 fields, none a recognised column name, and
-/// most of them numbers (decimal commas and null words included), so that a line of numbers
-/// with a typo is data (its error then names the bad field) while free text with a number in
-/// it (`Exported 2024 by ...`) and a header of names and sector azimuths
-/// (`inline,xline,x,y,15,45,75`) are not.
+/// most of them numbers or mistyped numbers (starting with a digit, sign or point; decimal
+/// commas included) or null words, so that a line of numbers with typos is data (its error
+/// then names the bad field) while free text with a number in it (`Exported 2024 by ...`)
+/// and a header of names and sector azimuths (`inline,xline,x,y,15,45,75`) are not.
 fn is_data(fields: &[String]) -> bool {
-    let numeric = |f: &&String| is_null_word(f) || f.replacen(',', ".", 1).parse::<f64>().is_ok();
+    let numeric = |f: &&String| {
+        is_null_word(f)
+            || f.starts_with(|c: char| c.is_ascii_digit() || matches!(c, '+' | '-' | '.'))
+            || f.parse::<f64>().is_ok()
+    };
     fields.len() >= 3
         && !fields.iter().any(|f| role_name(f))
         && 2 * fields.iter().filter(numeric).count() > fields.len()
@@ -2884,6 +2888,21 @@ mod tests {
         let fields: Vec<&str> = first.split(' ').collect();
         let typo = headless.replacen(&first, &format!("{} 9o {}", fields[0], fields[2]), 1);
         refused(&typo, &d, &["line 1, column 2 (y)", "'9o' is not a number"]);
+        // Typos in most fields of the first line, with --columns: still data, not a header.
+        let twice = headless.replacen(
+            &first,
+            &format!("{}O {}O {}", fields[0], fields[1], fields[2]),
+            1,
+        );
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("x,y,z").unwrap()),
+            ..PointOptions::default()
+        };
+        refused(
+            &twice,
+            &options,
+            &["line 1, column 1 (x)", "is not a number"],
+        );
         // Semicolon-separated with a decimal comma on line 3 (x and y here are whole numbers).
         let mut european: Vec<String> = e.full(";", None).lines().map(str::to_string).collect();
         european[2] = european[2].replacen('.', ",", 1);
