@@ -671,7 +671,9 @@ mod tests {
     #[test]
     fn one_delimiter_rule_for_every_text_reader() {
         // The rule every text reader (tables, point lists) uses: semicolon, else tab, else
-        // comma, outside quotes; two tabs in a row mean alignment, not an empty field.
+        // comma, outside quotes; two tabs in a row mean alignment, not an empty field. Quoted
+        // fields and doubled quotes as in RFC 4180 (the csv crate's parser), blanks around
+        // delimiters dropped (hand-checkable).
         for (line, want) in [
             ("a;b,c", Delimiter::Semicolon),
             ("a,5;b", Delimiter::Semicolon),
