@@ -10,7 +10,9 @@
 //! back to the GeoTIFF's own geotransform and `read_raster` values, bit for bit.
 
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::io::points::{is_point_list, read_points, PointGrid, PointOptions};
+use flexure_engine::io::points::{
+    is_plain_text, is_point_list, read_points, PointGrid, PointOptions,
+};
 use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions, NODATA};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
@@ -134,4 +136,44 @@ fn gdal2xyz_exports_read_back_to_the_geotiff() {
         &geometry,
         &bands,
     );
+}
+
+#[test]
+fn text_gdal_cannot_open_goes_to_the_point_list_reader() {
+    // GDAL opens no raster from these texts (its XYZ driver wants x y z lines from the
+    // start). They are plain text, so the point-list reader gives the reason by line, or
+    // reads the file when only its first 8 KB (free text) hid that it is a point list.
+    let dir = tempfile::tempdir().unwrap();
+    let notes = dir.path().join("notes.txt");
+    std::fs::write(&notes, "Horizon: Vessa Shale top\n1 2\n3 4\n").unwrap();
+    let long = dir.path().join("long_preamble.txt");
+    let mut text = "Survey note: picks reviewed by the interpreter\n".repeat(200);
+    text.push_str("Inline Crossline X Y Z\n");
+    for r in 0..4 {
+        for c in 0..4 {
+            let (x, y) = (500_000.0 + 25.0 * c as f64, 4_000_000.0 - 25.0 * r as f64);
+            text.push_str(&format!(
+                "{} {} {x:.2} {y:.2} {}\n",
+                10 + r,
+                20 + c,
+                1500 + r * 4 + c
+            ));
+        }
+    }
+    std::fs::write(&long, text).unwrap();
+    for path in [&notes, &long] {
+        assert!(gdal::Dataset::open(path).is_err(), "{path:?}");
+        assert!(!is_point_list(path) && is_plain_text(path), "{path:?}");
+    }
+    let err = read_points(&notes, &PointOptions::default())
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("notes.txt: has no data line") && err.contains("is line 1"),
+        "{err}"
+    );
+    let grid = read_points(&long, &PointOptions::default()).unwrap();
+    assert_eq!((grid.cols, grid.rows), (4, 4));
+    assert_eq!(grid.lattice.preamble, Some((1, 200)));
+    assert_eq!(grid.bands[0][[3, 2]], 1514.0);
 }

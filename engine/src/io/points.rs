@@ -7,6 +7,10 @@
 //! GDAL's XYZ driver reads only north-up grids sorted by row; survey grids are rotated from
 //! north and exported in inline/crossline order, hence this reader.
 //!
+//! Text: lines, delimiters, fields, null words and header names come from the one tokenizer
+//! of text inputs ([`crate::io::table`]). Free text before a header (a title, `Horizon: X`) is
+//! skipped and reported; the header is the line of names just before the first data line.
+//!
 //! Method:
 //! - With inline/crossline numbers, the lattice indices come from the numbering: the step of
 //!   each is the greatest common divisor of the differences of its distinct numbers; columns
@@ -15,20 +19,35 @@
 //!   vector and the most frequent shortest vector not parallel to it (searched in a bucket
 //!   grid, on a fixed sample of at most 20 000 points), reduced to a shortest basis by
 //!   Lagrange's (Gauss's) two-dimensional reduction (Nguyen 2010, "Hermite's constant and
-//!   lattice algorithms", in *The LLL Algorithm*, Springer, section 2 [from memory]). The column
-//!   axis is whichever of the four basis directions points closest to east (ties go to the
-//!   smaller azimuth); the row axis is the other, signed so rows run clockwise from columns as
-//!   on a north-up grid. Points get integer indices by rounding, refined by least-squares refits
-//!   on growing neighbourhoods of the first point.
-//! - In both cases the map position of a node is an affine function of its (column, row),
-//!   fitted by ordinary least squares to all points (coordinates taken relative to the first
-//!   point, compensated sums), and becomes a GDAL geotransform: node (0, 0) is the centre of
-//!   the top-left cell, so the corner is half a column step and half a row step before it (GDAL
-//!   data model: a cell's centre is at `i + 0.5, j + 0.5`). Rotation terms below 1e-12 of
-//!   their bin are snapped to zero, so north-up grids come back exactly north-up.
+//!   lattice algorithms", in *The LLL Algorithm*, Springer, section 2 [from memory]), anchored
+//!   at a point whose nearest neighbour is one such step away. Points get integer indices by
+//!   rounding, refined by least-squares refits, over growing neighbourhoods of the anchor, on
+//!   the points near a node. Points off that lattice that sit in groups at 1/2, 1/3 or 1/4 of
+//!   a step (an interpretation on every 2nd inline with patches on every inline) refine it to
+//!   the lattice its steps and those offsets generate (Hermite normal form of the generators,
+//!   in twelfths of a step; elementary number theory), so the lattice is the finest one the
+//!   points lie on; lone points off the lattice never refine it. The column axis is whichever
+//!   of the four basis directions points closest to east (ties go to the smaller azimuth); the
+//!   row axis is the other, signed so rows run clockwise from columns as on a north-up grid.
+//! - In both cases, before anything lattice-sized is made, every point is checked against a
+//!   map from indices to coordinates that a few wrong points cannot pull (median steps between
+//!   the first and last point of every row and column and median origin, then least squares
+//!   on the points within a quarter bin of it), so a typo in a number or a coordinate is named
+//!   by its line instead of stretching or tilting the lattice; a lattice too large for memory
+//!   or too sparse for its points is refused naming the point farthest out. Then
+//!   the map position of a node is an affine function of its (column, row), fitted by ordinary
+//!   least squares to all points (coordinates taken relative to the first point, compensated
+//!   sums), and becomes a GDAL geotransform: node (0, 0) is the centre of the top-left cell, so
+//!   the corner is half a column step and half a row step before it (GDAL data model: a cell's
+//!   centre is at `i + 0.5, j + 0.5`). Rotation terms below 1e-12 of their bin are snapped to
+//!   zero, so north-up grids come back exactly north-up.
 //!
 //! The CRS is the caller's concern: a point list declares none.
 
+use super::table::{
+    content_lines, count_hint, header_names, is_null_word, name_key, number_hint, split_unit,
+    Delimiter, Splitter,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use ndarray::Array2;
@@ -47,7 +66,7 @@ pub enum ColumnRole {
     /// Grid northing, CRS units.
     Y,
     /// A value band, named as given (e.g. `z`, `TWT`, `az15`); the text may end with a unit
-    /// in parentheses or brackets (`Depth (ft)`), which becomes [`ValueColumn::unit`].
+    /// (`Depth (ft)`, `TWT_ms`; see [`split_unit`]), which becomes [`ValueColumn::unit`].
     Value(String),
     /// A column to ignore.
     Skip,
@@ -55,9 +74,10 @@ pub enum ColumnRole {
 
 impl ColumnRole {
     /// Parses a comma-separated column list such as `inline,xline,x,y,z` (the `--columns`
-    /// option). Recognised names, case-insensitive, ignoring `-`, `_`, spaces and a unit suffix:
-    /// inline `inline`/`iline`/`il`/`in-line`; crossline `xline`/`crossline`/`xl`/`trace`/
-    /// `cross-line`; x `x`/`easting`/`cdp_x`/`cdpx`; y `y`/`northing`/`cdp_y`/`cdpy`; `skip`.
+    /// option). Recognised names, case-insensitive, ignoring `-`, `_`, `.`, spaces and a unit
+    /// suffix ([`split_unit`]): inline `inline`/`iline`/`il`/`in-line`/`inline_3d`/`inline no`;
+    /// crossline `xline`/`crossline`/`xl`/`trace`/`cross-line`/`crossline_3d`/`xline no`; x
+    /// `x`/`easting`/`cdp_x`/`cdpx`; y `y`/`northing`/`cdp_y`/`cdpy`; `skip`.
     /// Any other name is a value column named as given. The list must hold exactly one x and
     /// one y, inline and crossline both or neither, and at least one value column.
     pub fn parse_list(spec: &str) -> Result<Vec<ColumnRole>> {
@@ -180,11 +200,14 @@ pub struct LatticeReport {
     pub null_nodes: usize,
     /// Lines that repeated a node with identical values (read once).
     pub repeated: usize,
+    /// First and last line of free text before the header, skipped (e.g. a title and a line
+    /// `Horizon: X` above the column names); `None` when the header (or data) came first.
+    pub preamble: Option<(usize, usize)>,
 }
 
 impl LatticeReport {
     /// One line for reports: points, where the lattice came from, axis azimuth, bins, worst
-    /// misfit and its line, null nodes.
+    /// misfit and its line, null nodes, skipped free text.
     pub fn describe(&self) -> String {
         let source = match &self.numbering {
             Some(n) => format!(
@@ -198,8 +221,13 @@ impl LatticeReport {
             ),
             None => "a lattice found from x, y alone".to_string(),
         };
+        let preamble = match self.preamble {
+            Some((a, b)) if a == b => format!("; line {a} before the header skipped as free text"),
+            Some((a, b)) => format!("; lines {a}..{b} before the header skipped as free text"),
+            None => String::new(),
+        };
         format!(
-            "{} points on {source}; column axis at {:.3} deg, row axis at {:.3} deg from grid north; bins {:.4} x {:.4} CRS units; worst misfit {:.4} ({:.3} of the smaller bin) at line {}; {} null nodes ({} without a point{})",
+            "{} points on {source}; column axis at {:.3} deg, row axis at {:.3} deg from grid north; bins {:.4} x {:.4} CRS units; worst misfit {:.4} ({:.3} of the smaller bin) at line {}; {} null nodes ({} without a point{}){preamble}",
             self.points,
             self.column_azimuth,
             self.row_azimuth,
@@ -254,71 +282,79 @@ impl PointGrid {
 }
 
 /// Whether `path` looks like a point list, from its first 8 KB: text (no NUL or other control
-/// bytes) whose first line that is neither blank nor a `#` comment holds at least 3 numbers,
-/// or at least 3 names followed by such a line. False for binary files and for the text
-/// raster formats GDAL reads itself (ESRI ASCII grid `ncols ...`, Surfer `DSAA`, GRASS ASCII
-/// `north: ...`, XML such as VRT, JSON).
+/// bytes) that is not one of the text raster formats GDAL reads itself (ESRI ASCII grid
+/// `ncols ...`, Surfer `DSAA`, GRASS ASCII `north: ...`, XML such as VRT, JSON), laid out as
+/// [`parse_points`] reads it, with
+/// - a header of at least 3 names, some of them recognised column names (whatever follows:
+///   the reader then names any bad line), possibly below free text; or
+/// - a first data line of at least 3 numbers or null words, below a header of at least 3
+///   names or numbers when there is one.
 pub fn is_point_list(path: &Path) -> bool {
-    let Ok(file) = std::fs::File::open(path) else {
-        return false;
-    };
-    let mut bytes = Vec::with_capacity(SNIFF_BYTES);
-    if file
-        .take(SNIFF_BYTES as u64)
-        .read_to_end(&mut bytes)
-        .is_err()
-    {
-        return false;
-    }
-    sniff(&bytes, bytes.len() == SNIFF_BYTES)
+    sniff_text(path).is_some_and(|text| sniff(&text))
+}
+
+/// Whether `path` is a text file that is not one of the text raster formats GDAL reads (see
+/// [`is_point_list`]). When GDAL cannot open such a file, [`read_points`] says why in one line
+/// naming the file line (or reads it, when only its first 8 KB hid that it is a point list),
+/// where GDAL's own message would not: the raster reader can hand such files to it.
+pub fn is_plain_text(path: &Path) -> bool {
+    sniff_text(path).is_some()
 }
 
 const SNIFF_BYTES: usize = 8192;
 
-fn sniff(bytes: &[u8], truncated: bool) -> bool {
+/// First content lines of GDAL's text raster formats, lower-cased.
+const RASTER_STARTS: [&str; 12] = [
+    "ncols", "nrows", "xllc", "yllc", "dsaa", "dsrb", "north:", "south:", "rows:", "cols:", "<",
+    "{",
+];
+
+/// The first 8 KB of `path` as text without a last line cut short; `None` for an unreadable or
+/// binary file or one of GDAL's text raster formats.
+fn sniff_text(path: &Path) -> Option<String> {
+    let file = std::fs::File::open(path).ok()?;
+    let mut bytes = Vec::with_capacity(SNIFF_BYTES);
+    file.take(SNIFF_BYTES as u64).read_to_end(&mut bytes).ok()?;
     let binary = |b: &u8| *b < 0x20 && !matches!(*b, b'\t' | b'\n' | b'\r' | 0x0c);
     if bytes.iter().any(binary) {
-        return false;
+        return None;
     }
-    let text = String::from_utf8_lossy(bytes);
-    let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
-    let mut lines: Vec<&str> = text.lines().collect();
-    if truncated {
-        lines.pop();
+    let mut text = String::from_utf8_lossy(&bytes).into_owned();
+    if bytes.len() == SNIFF_BYTES {
+        text.truncate(text.rfind('\n').unwrap_or(0));
     }
-    let mut significant = lines.into_iter().map(str::trim).filter(|l| is_data_line(l));
-    let Some(first) = significant.next() else {
-        return false;
-    };
-    let lower = first.to_ascii_lowercase();
-    const RASTER_STARTS: [&str; 12] = [
-        "ncols", "nrows", "xllc", "yllc", "dsaa", "dsrb", "north:", "south:", "rows:", "cols:",
-        "<", "{",
-    ];
-    if RASTER_STARTS.iter().any(|s| lower.starts_with(s)) {
-        return false;
+    let first = content_lines(&text)
+        .next()
+        .map(|(_, l)| l.trim().to_ascii_lowercase());
+    if first.is_some_and(|l| RASTER_STARTS.iter().any(|s| l.starts_with(s))) {
+        return None;
     }
+    Some(text)
+}
+
+fn sniff(text: &str) -> bool {
+    let layout = layout(content_lines(text));
     let numeric = |line: &str| {
-        let mut fields = Vec::new();
-        Delimiter::detect(line).split(line, &mut fields);
-        fields.len() >= 3 && fields.iter().all(|f| f.parse::<f64>().is_ok())
+        let mut splitter = Splitter::new(layout.delimiter);
+        let fields = splitter.split(line);
+        fields.len() >= 3
+            && fields
+                .iter()
+                .all(|f| is_null_word(f) || f.parse::<f64>().is_ok())
     };
-    if numeric(first) {
-        return true;
-    }
-    let mut names = Vec::new();
-    Delimiter::detect(first).split(first, &mut names);
-    let names = merge_unit_tokens(names);
+    let data_numeric = layout.data.is_some_and(|(_, line)| numeric(line));
+    let Some((_, names)) = &layout.header else {
+        return data_numeric;
+    };
     let name_like = |f: &String| {
         f.chars()
             .next()
             .is_some_and(|c| c.is_alphabetic() || c == '_')
     };
     let name_or_number = |f: &String| name_like(f) || f.parse::<f64>().is_ok();
-    if names.len() < 3 || !names.iter().all(name_or_number) || !names.iter().any(name_like) {
-        return false;
-    }
-    significant.next().is_none_or(numeric)
+    names.len() >= 3
+        && (names.iter().any(|n| role_name(n))
+            || (layout.preamble.is_none() && names.iter().all(name_or_number) && data_numeric))
 }
 
 /// Reads the point list at `path` onto its lattice (see [`parse_points`]).
@@ -336,17 +372,23 @@ pub fn read_points(path: &Path, options: &PointOptions) -> Result<PointGrid> {
 
 /// Reads point-list `text` onto its lattice; `path` is used only in messages. Pure.
 ///
-/// Format: one point a line, fields separated by commas, semicolons, tabs or spaces (detected
-/// from the first data line); blank lines and lines starting with `#` are skipped; an optional
-/// first line of names (a header). Column roles come from `options.columns`, else from the
-/// header (see [`ColumnRole::parse_list`] for the names; `z`, `depth`, `time`, `twt`,
-/// `value`, `elevation` are known value names, and once x and y are found every other column
-/// is a value column), else from the field count. Values equal to an `options.nodata`
-/// sentinel, and `nan`, are nulls.
+/// Format: one point a line, fields separated by semicolons, tabs, commas or spaces (detected
+/// from the header, else the first data line; see [`Delimiter::detect`]); blank lines and
+/// lines starting with `#` are skipped; an optional header line of names, the line of names
+/// just before the first data line (a line of at least 3 fields, mostly numbers); free text
+/// lines above the header are skipped and reported ([`LatticeReport::preamble`]). Column roles
+/// come from `options.columns`, else from the header (see [`ColumnRole::parse_list`] for the
+/// names; `z`, `depth`, `time`, `twt`, `value`, `elevation` are known value names, and once x
+/// and y are found every other column is a value column), else from the field count. In value
+/// columns, values equal to an `options.nodata` sentinel, an empty field and the null words
+/// `nan`, `null`, `n/a`, `na`, `#n/a`, `-` (any case) are nulls; coordinates and line numbers
+/// must be numbers.
 ///
 /// Errors (one line each, naming the file line where there is one): unreadable columns,
-/// non-numeric fields, points off the lattice by more than the tolerance, scattered points
-/// that need gridding, nodes given twice with different values, fewer than 3 x 3 nodes.
+/// non-numeric fields, points off the lattice by more than the tolerance (with a fit that a
+/// few wrong points cannot pull, so a typo is named by its line), scattered points that need
+/// gridding, a lattice too large or too sparse for its points, nodes given twice with
+/// different values, fewer than 3 x 3 points or nodes.
 pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<PointGrid> {
     let fail = |reason: String| FlexureError::input(path, reason);
     let tolerance = options.lattice_tolerance;
@@ -355,54 +397,44 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
             "--lattice-tolerance {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin (default 0.05)"
         )));
     }
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let mut lines = text
-        .lines()
-        .enumerate()
-        .map(|(i, l)| (i + 1, l))
-        .filter(|(_, l)| is_data_line(l.trim()));
-    let Some((first_no, first)) = lines.next() else {
-        return Err(fail(
-            "holds no data lines: give a point list with x, y and value columns".to_string(),
-        ));
+    let layout = layout(content_lines(text));
+    let Some((data_line, data_first)) = layout.data else {
+        return Err(fail(match &layout.header {
+            Some((line, names)) if names.iter().any(|n| role_name(n)) => format!(
+                "line {line} is a header but no data lines follow (a data line has at least 3 fields, mostly numbers): give the points below it"
+            ),
+            Some((line, _)) => format!(
+                "has no data line (one of at least 3 fields, mostly numbers; the first line with content is line {line}): give a point list with x, y and value columns, one point per line"
+            ),
+            None => "holds no data lines: give a point list with x, y and value columns"
+                .to_string(),
+        }));
     };
-    let mut fields = Vec::new();
-    Delimiter::detect(first).split(first, &mut fields);
-    let header_line = is_header(&fields).then_some((first_no, first));
-    let mut data = lines.peekable();
-    let data_first = match header_line {
-        Some(_) => data.peek().copied(),
-        None => Some((first_no, first)),
+    let mut splitter = Splitter::new(layout.delimiter);
+    let first = {
+        let mut fields = splitter.split(data_first);
+        let fits = layout
+            .header
+            .as_ref()
+            .is_none_or(|(_, names)| fields.fit(names.len()));
+        FirstData {
+            line: data_line,
+            text: data_first,
+            fields: fields.len(),
+            fits,
+        }
     };
-    let Some((_, data_first)) = data_first else {
-        return Err(fail(format!(
-            "line {first_no} is a header but no data lines follow: give the points below it"
-        )));
-    };
-    let delimiter = Delimiter::detect(data_first);
-    let header = header_line.map(|(no, line)| {
-        let mut names = Vec::new();
-        delimiter.split(line, &mut names);
-        let names = match delimiter {
-            Delimiter::Whitespace => merge_unit_tokens(names),
-            _ => names.into_iter().map(str::to_string).collect(),
-        };
-        (no, names)
-    });
-    let columns =
-        resolve_columns(header.as_ref(), data_first, delimiter, options).map_err(&fail)?;
-    let first_lines = header_line
-        .is_none()
-        .then_some((first_no, first))
-        .into_iter();
-    let points =
-        read_fields(first_lines.chain(data), delimiter, &columns, options).map_err(&fail)?;
+    let columns = resolve_columns(layout.header.as_ref(), &first, layout.delimiter, options)
+        .map_err(&fail)?;
+    let lines = content_lines(text).skip_while(|&(line, _)| line < data_line);
+    let points = read_fields(lines, &mut splitter, &columns, options).map_err(&fail)?;
     if points.len() >= u32::MAX as usize {
         return Err(fail(format!(
             "holds {} points, more than flexure reads from one list; give a raster",
             points.len()
         )));
     }
+    enough(points.len(), "points").map_err(&fail)?;
     let value_columns: Vec<ValueColumn> = columns
         .iter()
         .filter(|c| c.role == Role::Value)
@@ -415,9 +447,26 @@ pub fn parse_points(text: &str, path: &Path, options: &PointOptions) -> Result<P
         let (cols, rows, numbering) = lattice_from_numbering(&points);
         ((cols, rows), Some(numbering))
     } else {
-        (lattice_from_coordinates(&points).map_err(&fail)?, None)
+        let indices = lattice_from_coordinates(&points, tolerance).map_err(&fail)?;
+        (indices, None)
     };
-    place(points, indices, numbering, value_columns, tolerance).map_err(fail)
+    let reading = Reading {
+        numbering,
+        value_columns,
+        preamble: layout.preamble,
+        tolerance,
+    };
+    place(points, indices, reading).map_err(fail)
+}
+
+/// Refuses fewer than 3 x 3 `what` (points, or distinct nodes).
+fn enough(count: usize, what: &str) -> std::result::Result<(), String> {
+    if count < 9 {
+        return Err(format!(
+            "holds only {count} {what}; a horizon needs at least 3 x 3 points"
+        ));
+    }
+    Ok(())
 }
 
 // ---------------------------------------------------------------------------------------
@@ -449,14 +498,10 @@ impl Known {
 
 /// The role a column name stands for (`name` without its unit suffix).
 fn recognise(name: &str) -> Option<Known> {
-    let key: String = name
-        .chars()
-        .filter(|c| !matches!(c, '-' | '_' | ' ' | '.'))
-        .flat_map(char::to_lowercase)
-        .collect();
-    Some(match key.as_str() {
-        "inline" | "iline" | "il" => Known::Inline,
-        "xline" | "crossline" | "xl" | "trace" => Known::Crossline,
+    Some(match name_key(name).as_str() {
+        "inline" | "iline" | "il" | "inline3d" | "inlineno" | "inlinenumber" => Known::Inline,
+        "xline" | "crossline" | "xl" | "trace" | "crossline3d" | "xline3d" | "xlineno"
+        | "crosslineno" | "xlinenumber" | "crosslinenumber" => Known::Crossline,
         "x" | "easting" | "cdpx" => Known::X,
         "y" | "northing" | "cdpy" => Known::Y,
         "z" | "depth" | "time" | "twt" | "value" | "elevation" => Known::Value,
@@ -465,21 +510,10 @@ fn recognise(name: &str) -> Option<Known> {
     })
 }
 
-/// Splits `Depth (ft)` / `TWT[ms]` into the name and the lower-cased unit.
-fn split_unit(text: &str) -> (&str, Option<String>) {
-    let text = text.trim();
-    for (open, close) in [('(', ')'), ('[', ']')] {
-        if let Some(body) = text.strip_suffix(close) {
-            if let Some(at) = body.rfind(open) {
-                let name = body[..at].trim();
-                let unit = body[at + 1..].trim().to_lowercase();
-                if !name.is_empty() {
-                    return (name, (!unit.is_empty()).then_some(unit));
-                }
-            }
-        }
-    }
-    (text, None)
+/// Whether a header name (with or without a unit suffix) is a column name the reader
+/// recognises, `skip` aside.
+fn role_name(name: &str) -> bool {
+    recognise(split_unit(name).0).is_some_and(|k| k != Known::Skip)
 }
 
 /// Role of a column while reading.
@@ -553,12 +587,33 @@ fn check_roles(roles: &[ColumnRole]) -> std::result::Result<(), String> {
     Ok(())
 }
 
+/// The first data line: its number, text, field count and whether that count fits the
+/// header's ([`crate::io::table::Fields::fit`]; true without a header).
+struct FirstData<'a> {
+    line: usize,
+    text: &'a str,
+    fields: usize,
+    fits: bool,
+}
+
+/// The columns of a point list from `--columns`, else its header, else the first data line's
+/// field count; refuses a header whose name count is not the data's.
 fn resolve_columns(
     header: Option<&(usize, Vec<String>)>,
-    data_first: &str,
+    first: &FirstData,
     delimiter: Delimiter,
     options: &PointOptions,
 ) -> std::result::Result<Vec<Column>, String> {
+    if let Some((line, names)) = header.filter(|_| !first.fits) {
+        return Err(format!(
+            "line {line} ({}) names {} columns but line {}, the first data line, has {} fields{}: if line {line} is not a header, mark it a comment with #; else give one name per column",
+            names.join(", "),
+            names.len(),
+            first.line,
+            first.fields,
+            count_hint(first.text, delimiter, first.fields, names.len())
+        ));
+    }
     let column = |role: &ColumnRole, header_unit: Option<String>| -> Column {
         let (r, text) = match role {
             ColumnRole::Inline => (Role::Inline, "inline"),
@@ -642,9 +697,7 @@ fn resolve_columns(
         })?;
         return Ok(roles.iter().map(|r| column(r, None)).collect());
     }
-    let mut fields = Vec::new();
-    delimiter.split(data_first, &mut fields);
-    let names: &[&str] = match fields.len() {
+    let names: &[&str] = match first.fields {
         3 => &["x", "y", "z"],
         5 => &["inline", "xline", "x", "y", "z"],
         n => {
@@ -708,80 +761,70 @@ fn example_columns(n: usize) -> String {
 // ---------------------------------------------------------------------------------------
 // Lines and fields
 
-/// Whether the first line's fields are a header: no field is a number, or some are names
-/// flexure recognises (`inline,xline,x,y,15,45,75`). A line of numbers with a typo is data,
-/// so its error names the bad field.
-fn is_header(fields: &[&str]) -> bool {
-    let number = |f: &&str| f.parse::<f64>().is_ok();
-    let known = |f: &&str| recognise(split_unit(f).0).is_some_and(|k| k != Known::Skip);
-    !fields.iter().any(number) || (!fields.iter().all(number) && fields.iter().any(known))
+/// Whether a line's fields are data: at least 3 fields, none a recognised column name, and
+/// most of them numbers or mistyped numbers (starting with a digit, sign or point; decimal
+/// commas included) or null words, so that a line of numbers with typos is data (its error
+/// then names the bad field) while free text with a number in it (`Exported 2024 by ...`)
+/// and a header of names and sector azimuths (`inline,xline,x,y,15,45,75`) are not.
+fn is_data(fields: &[String]) -> bool {
+    let numeric = |f: &&String| {
+        is_null_word(f)
+            || f.starts_with(|c: char| c.is_ascii_digit() || matches!(c, '+' | '-' | '.'))
+            || f.parse::<f64>().is_ok()
+    };
+    fields.len() >= 3
+        && !fields.iter().any(|f| role_name(f))
+        && 2 * fields.iter().filter(numeric).count() > fields.len()
 }
 
-fn is_data_line(trimmed: &str) -> bool {
-    !trimmed.is_empty() && !trimmed.starts_with('#')
+/// Where a point list's parts begin.
+struct Layout<'a> {
+    /// First and last line of free text above the header.
+    preamble: Option<(usize, usize)>,
+    /// Line number and names of the header.
+    header: Option<(usize, Vec<String>)>,
+    /// Number and text of the first data line.
+    data: Option<(usize, &'a str)>,
+    /// The header's delimiter, else the first data line's.
+    delimiter: Delimiter,
 }
 
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-enum Delimiter {
-    Comma,
-    Semicolon,
-    Tab,
-    Whitespace,
-}
-
-impl Delimiter {
-    /// Semicolon if the line has one (so decimal commas are not taken for delimiters), else
-    /// comma, else tab, else runs of spaces.
-    fn detect(line: &str) -> Self {
-        if line.contains(';') {
-            Delimiter::Semicolon
-        } else if line.contains(',') {
-            Delimiter::Comma
-        } else if line.contains('\t') {
-            Delimiter::Tab
-        } else {
-            Delimiter::Whitespace
+/// The layout of content `lines`: the first data line is the first that [`is_data`]; the
+/// header, the line just before it; free text, the lines before the header. With no data
+/// line, the first line is the header.
+fn layout<'a>(lines: impl Iterator<Item = (usize, &'a str)>) -> Layout<'a> {
+    let header_of = |(line, text): (usize, &str)| {
+        let delimiter = Delimiter::detect(text);
+        (Some((line, header_names(text, delimiter))), delimiter)
+    };
+    // The first text line, the line number of the text line before the last, the last.
+    let mut first_text: Option<(usize, &str)> = None;
+    let mut before_last: Option<usize> = None;
+    let mut last_text: Option<(usize, &str)> = None;
+    for (line, text) in lines {
+        let delimiter = Delimiter::detect(text);
+        let fields = header_names(text, delimiter);
+        if !is_data(&fields) {
+            first_text = first_text.or(Some((line, text)));
+            before_last = last_text.map(|(l, _)| l);
+            last_text = Some((line, text));
+            continue;
         }
+        let (header, header_delimiter) = last_text.map_or((None, delimiter), header_of);
+        return Layout {
+            preamble: first_text.map(|(l, _)| l).zip(before_last),
+            header,
+            data: Some((line, text)),
+            delimiter: header_delimiter,
+        };
     }
-
-    /// Splits a line into trimmed, unquoted fields. Comma and semicolon lines keep empty
-    /// fields (except one trailing delimiter); runs of tabs or spaces count as one.
-    fn split<'a>(self, line: &'a str, out: &mut Vec<&'a str>) {
-        out.clear();
-        let clean = |f: &'a str| unquote(f.trim());
-        match self {
-            Delimiter::Comma | Delimiter::Semicolon => {
-                let c = if self == Delimiter::Comma { ',' } else { ';' };
-                out.extend(line.split(c).map(clean));
-                if out.len() > 1 && out.last() == Some(&"") {
-                    out.pop();
-                }
-            }
-            Delimiter::Tab => out.extend(line.split('\t').map(clean).filter(|f| !f.is_empty())),
-            Delimiter::Whitespace => out.extend(line.split_ascii_whitespace().map(unquote)),
-        }
+    let (header, delimiter) = first_text.map_or((None, Delimiter::Whitespace), header_of);
+    Layout {
+        preamble: None,
+        header,
+        data: None,
+        delimiter,
     }
-}
-
-fn unquote(f: &str) -> &str {
-    f.strip_prefix('"')
-        .and_then(|g| g.strip_suffix('"'))
-        .unwrap_or(f)
-}
-
-/// Joins header tokens split at spaces back onto their unit suffix (`Depth`, `(ft)`).
-fn merge_unit_tokens(tokens: Vec<&str>) -> Vec<String> {
-    let mut out: Vec<String> = Vec::new();
-    for t in tokens {
-        match out.last_mut() {
-            Some(last) if t.starts_with('(') || t.starts_with('[') => {
-                last.push(' ');
-                last.push_str(t);
-            }
-            _ => out.push(t.to_string()),
-        }
-    }
-    out
 }
 
 /// The points of a file, one entry per data line.
@@ -808,9 +851,10 @@ impl Points {
     }
 }
 
+/// Reads the data `lines` (from the first data line on) into points, one per line.
 fn read_fields<'a>(
     lines: impl Iterator<Item = (usize, &'a str)>,
-    delimiter: Delimiter,
+    splitter: &mut Splitter,
     columns: &[Column],
     options: &PointOptions,
 ) -> std::result::Result<Points, String> {
@@ -831,87 +875,76 @@ fn read_fields<'a>(
         .map(|c| c.name.as_str())
         .collect::<Vec<_>>()
         .join(", ");
-    let mut fields = Vec::with_capacity(columns.len());
+    let delimiter = splitter.delimiter();
     for (line, text) in lines {
-        delimiter.split(text, &mut fields);
-        if fields.len() != columns.len() {
+        let mut fields = splitter.split(text);
+        if !fields.fit(columns.len()) {
             return Err(format!(
-                "line {line} has {} fields but {} columns are expected ({names}); fix the line, mark it a comment with #, or give --columns",
+                "line {line} has {} fields but {} columns are expected ({names}){}; fix the line, mark it a comment with #, or give --columns",
                 fields.len(),
-                columns.len()
+                columns.len(),
+                count_hint(text, delimiter, fields.len(), columns.len())
             ));
         }
-        let bad = |k: usize, field: &str, what: &str| {
-            format!(
-                "line {line}, column {} ({}): '{field}' {what}",
-                k + 1,
-                columns[k].name
-            )
-        };
         for (k, (field, column)) in fields.iter().zip(columns).enumerate() {
-            if column.role == Role::Skip {
-                continue;
-            }
-            let v: f64 = field.parse().map_err(|_| {
-                let hint = if field.contains(',') {
-                    " (decimal commas are not read: export with decimal points)"
-                } else {
-                    ""
-                };
-                bad(
-                    k,
-                    field,
-                    &format!("is not a number{hint}; fix the line, or write a null as nan or a --nodata value"),
+            let v = field_value(field, column.role, &options.nodata).map_err(|what| {
+                format!(
+                    "line {line}, column {} ({}): '{field}' {what}",
+                    k + 1,
+                    columns[k].name
                 )
             })?;
             match column.role {
-                Role::Value => {
-                    if v.is_nan() || options.nodata.contains(&v) {
-                        p.values.push(f64::NAN);
-                    } else if v.is_infinite() {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a finite number; write a null as nan or a --nodata value",
-                        ));
-                    } else {
-                        p.values.push(v);
-                    }
-                }
-                Role::X | Role::Y => {
-                    if !v.is_finite() {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a map coordinate; leave out the line (a node without a point is null)",
-                        ));
-                    }
-                    if column.role == Role::X {
-                        p.x.push(v);
-                    } else {
-                        p.y.push(v);
-                    }
-                }
-                Role::Inline | Role::Crossline => {
-                    if !(v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15) {
-                        return Err(bad(
-                            k,
-                            field,
-                            "is not a whole line number; fix the numbering, or mark the inline and crossline columns skip (--columns) to find the lattice from x, y alone",
-                        ));
-                    }
-                    if column.role == Role::Inline {
-                        p.inline.push(v as i64);
-                    } else {
-                        p.crossline.push(v as i64);
-                    }
-                }
+                Role::Value => p.values.push(v),
+                Role::X => p.x.push(v),
+                Role::Y => p.y.push(v),
+                Role::Inline => p.inline.push(v as i64),
+                Role::Crossline => p.crossline.push(v as i64),
                 Role::Skip => {}
             }
         }
         p.lines.push(line);
     }
     Ok(p)
+}
+
+/// The number a field of a column with `role` holds (NaN for a null value), or what is wrong
+/// with it and what to do.
+fn field_value(field: &str, role: Role, nodata: &[f64]) -> std::result::Result<f64, String> {
+    let number = field.parse::<f64>();
+    match role {
+        Role::Skip => Ok(0.0),
+        Role::Value if is_null_word(field) => Ok(f64::NAN),
+        Role::Value => match number {
+            Ok(v) if v.is_nan() || nodata.contains(&v) => Ok(f64::NAN),
+            Ok(v) if v.is_finite() => Ok(v),
+            Ok(_) => Err(
+                "is not a finite number; write a null as nan or a --nodata value".to_string(),
+            ),
+            Err(_) => Err(format!(
+                "is not a number{}; fix the line, or write a null as nan or a --nodata value",
+                number_hint(field)
+            )),
+        },
+        Role::X | Role::Y => match number {
+            Ok(v) if v.is_finite() => Ok(v),
+            Err(_) if !is_null_word(field) => Err(format!(
+                "is not a number{}; fix the line",
+                number_hint(field)
+            )),
+            _ => Err(
+                "is not a map coordinate; leave out the line (a node without a point is null)"
+                    .to_string(),
+            ),
+        },
+        Role::Inline | Role::Crossline => match number {
+            Ok(v) if v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15 => Ok(v),
+            _ => Err(
+                "is not a whole line number; fix the numbering, or mark the inline and crossline columns skip (--columns) to find the lattice from x, y alone"
+                    .to_string(),
+            ),
+        },
+    }
 }
 
 // ---------------------------------------------------------------------------------------
@@ -1200,38 +1233,77 @@ fn orient(b1: (f64, f64), b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
     (col, row)
 }
 
-fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> {
-    let n = p.len();
-    if n < 9 {
-        return Err(format!(
-            "holds only {n} points; a horizon needs at least 3 x 3 nodes"
-        ));
-    }
+/// Share of the smaller bin within which a point counts as on a node while the lattice is
+/// refitted: half the smallest sub-lattice offset looked for (1/4 of a step).
+const FIT_SHARE: f64 = 0.125;
+/// Largest denominator of the sub-lattice offsets looked for (1/2, 1/3 and 1/4 of a step).
+const MAX_DIVISOR: i64 = 4;
+/// Points of one sub-lattice offset that must each have a point of the same offset one step
+/// away along a row or column before the offset refines the lattice.
+const MIN_GROUPED: usize = 4;
+
+fn scattered(what: &str) -> String {
+    format!("the points lie on no regular lattice ({what}); {GRID_FIRST}")
+}
+
+/// Column and row indices of the points from their coordinates alone: the first lattice
+/// ([`first_lattice`]) settled on the points ([`settle`]) and refined to the finest lattice
+/// the points lie on ([`finer_basis`], at most twice).
+fn lattice_from_coordinates(p: &Points, tolerance: f64) -> std::result::Result<Indices, String> {
     // Coordinates relative to the first point (UTM eastings are ~1e6).
     let (x0, y0) = (p.x[0], p.y[0]);
     let u: Vec<f64> = p.x.iter().map(|x| x - x0).collect();
     let v: Vec<f64> = p.y.iter().map(|y| y - y0).collect();
-    let buckets = Buckets::new(&u, &v).ok_or_else(|| {
+    let mut lattice = settle(&u, &v, first_lattice(&u, &v)?);
+    for _ in 0..2 {
+        let Some((col, row)) = finer_basis(&u, &v, &lattice, tolerance) else {
+            break;
+        };
+        lattice = settle(
+            &u,
+            &v,
+            Affine {
+                col,
+                row,
+                ..lattice
+            },
+        );
+    }
+    let indices: Option<Vec<(i64, i64)>> = (0..p.len())
+        .map(|k| {
+            let (c, r) = lattice.index(u[k], v[k])?;
+            (c.abs() < 1e15 && r.abs() < 1e15).then(|| (c.round() as i64, r.round() as i64))
+        })
+        .collect();
+    let indices = indices.ok_or_else(|| scattered("the steps between neighbours do not repeat"))?;
+    Ok(indices.into_iter().unzip())
+}
+
+/// A first lattice from the points themselves: the most frequent step to the nearest
+/// neighbour and the most frequent shortest step not parallel to it, reduced and oriented
+/// ([`reduce`], [`orient`]), with its origin at the first sampled point whose nearest
+/// neighbour is one most frequent step away (so a lone wrong point cannot anchor it).
+fn first_lattice(u: &[f64], v: &[f64]) -> std::result::Result<Affine, String> {
+    let n = u.len();
+    let buckets = Buckets::new(u, v).ok_or_else(|| {
         "has all its points at one place; a horizon needs a two-dimensional grid of points"
             .to_string()
     })?;
     let stride = n.div_ceil(BASIS_SAMPLES);
     let sample = || (0..n).step_by(stride);
-    let scattered =
-        |what: &str| format!("the points lie on no regular lattice ({what}); {GRID_FIRST}");
-
-    let nearest: Vec<(f64, f64)> = sample()
-        .filter_map(|k| buckets.nearest(&u, &v, k, |_, _| true))
+    let nearest: Vec<(usize, (f64, f64))> = sample()
+        .filter_map(|k| Some((k, buckets.nearest(u, v, k, |_, _| true)?)))
         .collect();
-    let scale = median(nearest.iter().map(|a| a.0.hypot(a.1)).collect())
+    let steps: Vec<(f64, f64)> = nearest.iter().map(|n| n.1).collect();
+    let scale = median(steps.iter().map(|a| a.0.hypot(a.1)).collect())
         .ok_or_else(|| scattered("no point has a neighbour"))?;
-    let b1 = mode_vector(&nearest, scale)
-        .ok_or_else(|| scattered("no common step between neighbours"))?;
+    let b1 =
+        mode_vector(&steps, scale).ok_or_else(|| scattered("no common step between neighbours"))?;
     let b1_len = b1.0.hypot(b1.1);
     let independent =
         |du: f64, dv: f64| (du * b1.1 - dv * b1.0).abs() > 0.34 * b1_len * du.hypot(dv);
     let second: Vec<(f64, f64)> = sample()
-        .filter_map(|k| buckets.nearest(&u, &v, k, independent))
+        .filter_map(|k| buckets.nearest(u, v, k, independent))
         .collect();
     let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect()).ok_or_else(|| {
         "all points lie along one line; a horizon needs a two-dimensional grid of points"
@@ -1239,60 +1311,143 @@ fn lattice_from_coordinates(p: &Points) -> std::result::Result<Indices, String> 
     })?;
     let b2 = mode_vector(&second, scale2)
         .ok_or_else(|| scattered("no common second step between neighbours"))?;
-    let (b1, b2) = reduce(b1, b2);
-    let cross = (b1.0 * b2.1 - b1.1 * b2.0).abs();
-    if cross.is_nan() || cross <= 0.1 * b1.0.hypot(b1.1) * b2.0.hypot(b2.1) {
+    let (r1, r2) = reduce(b1, b2);
+    let cross = (r1.0 * r2.1 - r1.1 * r2.0).abs();
+    if cross.is_nan() || cross <= 0.1 * r1.0.hypot(r1.1) * r2.0.hypot(r2.1) {
         return Err(scattered(
             "the steps between neighbours are nearly parallel",
         ));
     }
-    let (col, row) = orient(b1, b2);
-
-    // Indices by rounding, with the lattice refitted on growing neighbourhoods of the first
-    // point so that a slightly-off basis cannot drift across a large grid.
-    let mut lattice = Affine {
-        origin: (0.0, 0.0),
+    let (col, row) = orient(r1, r2);
+    let typical = |a: (f64, f64)| {
+        (a.0 - b1.0)
+            .hypot(a.1 - b1.1)
+            .min((a.0 + b1.0).hypot(a.1 + b1.1))
+            <= 0.05 * b1_len
+    };
+    let anchor = nearest.iter().find(|(_, a)| typical(*a)).map_or(0, |n| n.0);
+    Ok(Affine {
+        origin: (u[anchor], v[anchor]),
         col,
         row,
+    })
+}
+
+/// `lattice` refitted by least squares to the points within [`FIT_SHARE`] of the smaller bin
+/// of a node: over growing neighbourhoods of its origin, so that a slightly-off first basis
+/// cannot drift across a large grid, then over all points until the fit no longer changes.
+fn settle(u: &[f64], v: &[f64], mut lattice: Affine) -> Affine {
+    // Point `k` as (column, row, u, v) when it lies within `limit` of its node of `a` and
+    // `radius` nodes of its origin.
+    let near_node = |a: &Affine, limit: f64, k: usize, radius: f64| {
+        let (c, r) = a.index(u[k], v[k])?;
+        let (c, r) = (c.round(), r.round());
+        let near = squared_distance((u[k], v[k]), a.at(c, r)) <= limit * limit;
+        (near && c.abs() <= radius && r.abs() <= radius).then_some((c, r, u[k], v[k]))
     };
-    let round = |a: &Affine, k: usize| a.index(u[k], v[k]).map(|(c, r)| (c.round(), r.round()));
-    for radius in [4.0, 32.0, 256.0, 2048.0, f64::INFINITY] {
-        let current = lattice;
-        let near = |k: usize| {
-            let (c, r) = current.index(u[k], v[k])?;
-            (c.abs() <= radius + 0.5 && r.abs() <= radius + 0.5)
-                .then(|| (c.round(), r.round(), u[k], v[k]))
-        };
-        if let Some(fit) = fit_affine(n, near) {
+    for radius in [4.0, 32.0, 256.0, 2048.0] {
+        let (current, limit) = (lattice, FIT_SHARE * lattice.min_bin());
+        if let Some(fit) = fit_affine(u.len(), |k| near_node(&current, limit, k, radius)) {
             lattice = fit;
         }
     }
-    let mut indices: Vec<(f64, f64)> = Vec::with_capacity(n);
     for _ in 0..8 {
-        let next: Option<Vec<(f64, f64)>> = (0..n).map(|k| round(&lattice, k)).collect();
-        let next = next.ok_or_else(|| scattered("the lattice is degenerate"))?;
-        if next == indices {
-            break;
-        }
-        indices = next;
-        if let Some(fit) = fit_affine(n, |k| Some((indices[k].0, indices[k].1, u[k], v[k]))) {
-            lattice = fit;
+        let (current, limit) = (lattice, FIT_SHARE * lattice.min_bin());
+        match fit_affine(u.len(), |k| near_node(&current, limit, k, f64::INFINITY)) {
+            Some(fit) if fit != current => lattice = fit,
+            _ => break,
         }
     }
-    let too_far = indices
-        .iter()
-        .any(|&(c, r)| !(c.abs() < 1e15 && r.abs() < 1e15));
-    if too_far {
-        return Err(scattered("the steps between neighbours do not repeat"));
+    lattice
+}
+
+/// A finer lattice through the nodes of `lattice` when points off it sit in groups at simple
+/// fractions of its steps (1/2, 1/3 or 1/4; e.g. the inlines between the interpreted ones
+/// where a patch was picked on every inline): the reduced, oriented basis of the lattice that
+/// its steps and those offsets generate. An offset counts when at least [`MIN_GROUPED`] of
+/// its points have a point of the same offset one step away along a row or column, so lone
+/// wrong points never refine a lattice; `None` when none counts.
+fn finer_basis(
+    u: &[f64],
+    v: &[f64],
+    lattice: &Affine,
+    tolerance: f64,
+) -> Option<((f64, f64), (f64, f64))> {
+    let bin = lattice.min_bin();
+    let twelfths = |d: f64| (d * 12.0).round() as i64;
+    // (offset in twelfths of a step, column, row of the node the offset is taken from)
+    let mut members: Vec<((i64, i64), i64, i64)> = Vec::new();
+    for k in 0..u.len() {
+        let Some((c, r)) = lattice.index(u[k], v[k]) else {
+            continue;
+        };
+        let on_node = lattice.at(c.round(), r.round());
+        if squared_distance((u[k], v[k]), on_node) <= (tolerance * bin).powi(2) {
+            continue;
+        }
+        for q in (2..=MAX_DIVISOR).map(|q| q as f64) {
+            let snap = |f: f64| ((f - f.round()) * q).round() / q;
+            let (dc, dr) = (snap(c).rem_euclid(1.0), snap(r).rem_euclid(1.0));
+            let (base_c, base_r) = ((c - dc).round(), (r - dr).round());
+            let at_offset = lattice.at(base_c + dc, base_r + dr);
+            let near = squared_distance((u[k], v[k]), at_offset) <= (tolerance * bin / q).powi(2);
+            if (dc, dr) != (0.0, 0.0) && near {
+                members.push(((twelfths(dc), twelfths(dr)), base_c as i64, base_r as i64));
+                break;
+            }
+        }
     }
-    Ok(indices.iter().map(|&(c, r)| (c as i64, r as i64)).unzip())
+    members.sort_unstable();
+    let mut generators = vec![(12, 0), (0, 12)];
+    for group in members.chunk_by(|a, b| a.0 == b.0) {
+        let has = |c: i64, r: i64| group.binary_search_by(|m| (m.1, m.2).cmp(&(c, r))).is_ok();
+        let grouped = group
+            .iter()
+            .filter(|&&(_, c, r)| has(c - 1, r) || has(c + 1, r) || has(c, r - 1) || has(c, r + 1))
+            .count();
+        if grouped >= MIN_GROUPED {
+            generators.push(group[0].0);
+        }
+    }
+    if generators.len() == 2 {
+        return None;
+    }
+    let ((a, _), (b, c)) = hermite(&generators);
+    let step = |w: (f64, f64), f: i64| (w.0 * f as f64 / 12.0, w.1 * f as f64 / 12.0);
+    let e1 = step(lattice.col, a);
+    let (e2c, e2r) = (step(lattice.col, b), step(lattice.row, c));
+    let (b1, b2) = reduce(e1, (e2c.0 + e2r.0, e2c.1 + e2r.1));
+    Some(orient(b1, b2))
+}
+
+/// A basis `((a, 0), (b, c))` (a, c > 0, 0 <= b < a) of the integer lattice that `vectors`
+/// generate, which must include two independent ones: the Hermite normal form, by Euclid's
+/// algorithm on the second components and the gcd of the first components left (elementary
+/// number theory).
+fn hermite(vectors: &[(i64, i64)]) -> ((i64, i64), (i64, i64)) {
+    let mut pivot = (0i64, 0i64);
+    let mut a = 0u64;
+    for &w in vectors {
+        let mut w = w;
+        while w.1 != 0 {
+            let q = pivot.1.div_euclid(w.1);
+            pivot = (pivot.0 - q * w.0, pivot.1 - q * w.1);
+            std::mem::swap(&mut pivot, &mut w);
+        }
+        a = gcd(a, w.0.unsigned_abs());
+    }
+    if pivot.1 < 0 {
+        pivot = (-pivot.0, -pivot.1);
+    }
+    let a = a as i64;
+    ((a, 0), (pivot.0.rem_euclid(a), pivot.1))
 }
 
 // ---------------------------------------------------------------------------------------
 // Least squares and placement
 
 /// Map position relative to the first point: `origin + c col + r row` for node (c, r).
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Copy, Debug, PartialEq)]
 struct Affine {
     origin: (f64, f64),
     col: (f64, f64),
@@ -1319,6 +1474,16 @@ impl Affine {
             (-self.col.1 * du + self.col.0 * dv) / det,
         ))
     }
+
+    /// The smaller of the two bins (step lengths).
+    fn min_bin(&self) -> f64 {
+        let length2 = |a: (f64, f64)| a.0 * a.0 + a.1 * a.1;
+        length2(self.col).min(length2(self.row)).sqrt()
+    }
+}
+
+fn squared_distance(a: (f64, f64), b: (f64, f64)) -> f64 {
+    (a.0 - b.0) * (a.0 - b.0) + (a.1 - b.1) * (a.1 - b.1)
 }
 
 /// Neumaier's compensated sum.
@@ -1392,26 +1557,262 @@ fn fit_affine(n: usize, sample: impl Fn(usize) -> Option<(f64, f64, f64, f64)>) 
     })
 }
 
-/// Names a node in messages.
-fn node_name(numbering: &Option<Numbering>, c: usize, r: usize) -> String {
+/// Names a node in messages (indices may lie outside the lattice).
+fn node_name(numbering: &Option<Numbering>, c: i64, r: i64) -> String {
     match numbering {
         Some(n) => format!(
             "inline {}, crossline {}",
-            n.inline_first + r as i64 * n.inline_step,
-            n.crossline_first + c as i64 * n.crossline_step
+            n.inline_first + r * n.inline_step,
+            n.crossline_first + c * n.crossline_step
         ),
         None => format!("column {c}, row {r}"),
     }
 }
 
+/// What a point list is read with besides its points and indices.
+struct Reading {
+    numbering: Option<Numbering>,
+    value_columns: Vec<ValueColumn>,
+    preamble: Option<(usize, usize)>,
+    tolerance: f64,
+}
+
+/// Most values (nodes x bands) a point list is read onto: 250 million, 2 GB as doubles. Survey
+/// grids exported as text stay far below; a lattice beyond it comes from a typo.
+const MAX_VALUES: u128 = 250_000_000;
+/// Most lattice nodes per point: on a lattice where fewer than 1 node in 16 holds a point the
+/// points look scattered (a seed grid on every 4th inline and crossline fills 1 in 16).
+const NODES_PER_POINT: u128 = 16;
+
+/// Share of the smaller bin beyond which a point is set aside before the outlier fit: gross
+/// errors only, so that coordinates rounded coarsely still get the plain least-squares fit.
+const SCREEN_SHARE: f64 = 0.25;
+
+/// The points (coordinates relative to the first point) and their lattice indices, for the
+/// checks and fits.
+struct Placed<'p> {
+    p: &'p Points,
+    index: Vec<(usize, usize)>,
+    numbering: Option<Numbering>,
+}
+
+impl Placed<'_> {
+    fn len(&self) -> usize {
+        self.index.len()
+    }
+
+    /// Point `k` as (column, row, u, v).
+    fn at(&self, k: usize) -> (f64, f64, f64, f64) {
+        let (c, r) = self.index[k];
+        (
+            c as f64,
+            r as f64,
+            self.p.x[k] - self.p.x[0],
+            self.p.y[k] - self.p.y[0],
+        )
+    }
+
+    /// Squared distance of point `k` from where `map` puts its node.
+    fn miss2(&self, map: &Affine, k: usize) -> f64 {
+        let (c, r, u, v) = self.at(k);
+        squared_distance((u, v), map.at(c, r))
+    }
+
+    /// Points more than `limit` from where `map` puts their nodes, as (distance, point), worst
+    /// first.
+    fn off(&self, map: &Affine, limit: f64) -> Vec<(f64, usize)> {
+        let mut off: Vec<(f64, usize)> = (0..self.len())
+            .map(|k| (self.miss2(map, k), k))
+            .filter(|&(d2, _)| d2 > limit * limit)
+            .map(|(d2, k)| (d2.sqrt(), k))
+            .collect();
+        off.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+        off
+    }
+
+    fn node(&self, c: i64, r: i64) -> String {
+        node_name(&self.numbering, c, r)
+    }
+
+    /// The refusal for the points `off` (distance, point; worst first) more than `tolerance`
+    /// of the smaller bin off `map`.
+    fn off_lattice(&self, map: &Affine, off: &[(f64, usize)], tolerance: f64) -> String {
+        let (n, bin) = (self.len(), map.min_bin());
+        let (worst, k) = off[0];
+        let line = self.p.lines[k];
+        if off.len() * 10 > n {
+            return match &self.numbering {
+                Some(_) => format!(
+                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst:.3} CRS units); check the columns (--columns) and the export",
+                    off.len()
+                ),
+                None => format!(
+                    "the points lie on no regular lattice ({} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst:.3} CRS units); {GRID_FIRST}",
+                    off.len()
+                ),
+            };
+        }
+        let others = match off.len() {
+            1 => String::new(),
+            m => format!(
+                " (points that far off: {m} of {n}, worst on lines {})",
+                off.iter()
+                    .take(3)
+                    .map(|o| self.p.lines[o.1].to_string())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        };
+        let (c, r, u, v) = self.at(k);
+        let (c, r) = (c as i64, r as i64);
+        // The node the point's coordinates fall on, when they fall on one.
+        let landing = map.index(u, v).and_then(|(fc, fr)| {
+            let (pu, pv) = map.at(fc.round(), fr.round());
+            ((u - pu).hypot(v - pv) <= tolerance * bin && fc.abs() < 1e15 && fr.abs() < 1e15)
+                .then(|| (fc.round() as i64, fr.round() as i64))
+        });
+        match landing {
+            Some(node) if self.numbering.is_some() && node != (c, r) => format!(
+                "line {line}: {} is off the numbering/coordinates of the others: its x, y are those of {}, {worst:.3} CRS units from where the others put it; check it{others}",
+                self.node(c, r),
+                self.node(node.0, node.1)
+            ),
+            _ => format!(
+                "line {line} lies {worst:.3} CRS units ({:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those lines, or raise --lattice-tolerance (to {:.2}) if the export rounds coordinates coarsely",
+                worst / bin,
+                self.node(c, r),
+                (worst / bin * 100.0).ceil() / 100.0
+            ),
+        }
+    }
+
+    /// Refuses points off the lattice before anything lattice-sized is made: the points more
+    /// than [`SCREEN_SHARE`] of a bin (or `tolerance`, if larger) off a map that a few wrong
+    /// points cannot pull ([`robust_affine`]) are set aside, the others fitted by least
+    /// squares (as precise as the final fit, unpulled), and every point checked against that
+    /// fit. A typo in a line
+    /// number or a coordinate is so named by its line instead of stretching or tilting the
+    /// lattice.
+    fn check_outliers(&self, tolerance: f64) -> std::result::Result<(), String> {
+        let Some(map) = robust_affine(self) else {
+            return Ok(()); // no row or column with two points: the least-squares fit decides
+        };
+        let mut suspect = vec![false; self.len()];
+        for (_, k) in self.off(&map, tolerance.max(SCREEN_SHARE) * map.min_bin()) {
+            suspect[k] = true;
+        }
+        let map = fit_affine(self.len(), |k| (!suspect[k]).then(|| self.at(k))).unwrap_or(map);
+        let off = self.off(&map, tolerance * map.min_bin());
+        match off.is_empty() {
+            true => Ok(()),
+            false => Err(self.off_lattice(&map, &off, tolerance)),
+        }
+    }
+
+    /// The point farthest (in nodes) from the median column and row of all points, for
+    /// messages about lattices stretched by a typo.
+    fn farthest(&self) -> String {
+        let middle = |f: fn(&(usize, usize)) -> usize| {
+            median(self.index.iter().map(|i| f(i) as f64).collect()).unwrap_or(0.0)
+        };
+        let (mc, mr) = (middle(|i| i.0), middle(|i| i.1));
+        let reach = |k: usize| {
+            let (c, r, _, _) = self.at(k);
+            (c - mc).abs() + (r - mr).abs()
+        };
+        let k = (0..self.len())
+            .max_by(|&a, &b| reach(a).total_cmp(&reach(b)).then(b.cmp(&a)))
+            .unwrap_or(0);
+        let (c, r) = self.index[k];
+        format!(
+            "the point farthest from the others is on line {} ({})",
+            self.p.lines[k],
+            self.node(c as i64, r as i64)
+        )
+    }
+
+    /// Refuses a lattice of `cols` x `rows` nodes too large for memory ([`MAX_VALUES`]) or too
+    /// sparse for its points ([`NODES_PER_POINT`]).
+    fn check_extent(&self, cols: u64, rows: u64) -> std::result::Result<(), String> {
+        let (n, bands) = (self.len(), self.p.bands);
+        let nodes = cols as u128 * rows as u128;
+        let values = nodes * bands as u128;
+        if values > MAX_VALUES {
+            return Err(format!(
+                "the lattice would be {cols} x {rows} nodes x {bands} band(s) ({:.0} million values, {:.1} GB), more than flexure reads from a point list ({} million): from {n} points that more likely comes from a typo in a line number or coordinate than from the survey; {}: check it, or give a raster",
+                values as f64 / 1e6,
+                values as f64 * 8.0 / 1e9,
+                MAX_VALUES / 1_000_000,
+                self.farthest()
+            ));
+        }
+        if nodes > NODES_PER_POINT * n as u128 {
+            let what = match &self.numbering {
+                Some(_) => "their inline/crossline numbers span",
+                None => "the lattice they seem to lie on spans",
+            };
+            return Err(format!(
+                "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in {NODES_PER_POINT} holds a point, so they look scattered ({}: check it if a typo stretches the lattice); else {GRID_FIRST}",
+                self.farthest()
+            ));
+        }
+        Ok(())
+    }
+}
+
+/// A map from lattice indices to coordinates that a few wrong points cannot pull: the column
+/// step is the median, component by component, of the steps between the first and last point
+/// of every row, the row step likewise over columns, and the origin the median of the origins
+/// the points imply. `None` when no row or no column holds points at two indices.
+fn robust_affine(placed: &Placed) -> Option<Affine> {
+    let col = median_step(placed, |(c, r)| (r, c))?;
+    let row = median_step(placed, |(c, r)| (c, r))?;
+    let (ou, ov): (Vec<f64>, Vec<f64>) = (0..placed.len())
+        .map(|k| {
+            let (c, r, u, v) = placed.at(k);
+            (u - c * col.0 - r * row.0, v - c * col.1 - r * row.1)
+        })
+        .unzip();
+    Some(Affine {
+        origin: (median(ou)?, median(ov)?),
+        col,
+        row,
+    })
+}
+
+/// The median step per index along the second of `key`'s pair, between the first and last
+/// point of each group of points that share the first.
+fn median_step(
+    placed: &Placed,
+    key: impl Fn((usize, usize)) -> (usize, usize),
+) -> Option<(f64, f64)> {
+    let key = |k: usize| key(placed.index[k]);
+    let mut order: Vec<usize> = (0..placed.len()).collect();
+    order.sort_unstable_by_key(|&k| key(k));
+    let (mut su, mut sv) = (Vec::new(), Vec::new());
+    for group in order.chunk_by(|&a, &b| key(a).0 == key(b).0) {
+        let (a, b) = (group[0], group[group.len() - 1]);
+        let steps = (key(b).1 - key(a).1) as f64;
+        if steps > 0.0 {
+            let ((_, _, ua, va), (_, _, ub, vb)) = (placed.at(a), placed.at(b));
+            su.push((ub - ua) / steps);
+            sv.push((vb - va) / steps);
+        }
+    }
+    Some((median(su)?, median(sv)?))
+}
+
+/// Places the points on their lattice after the checks: at least 3 x 3 nodes spanned, no
+/// point off the lattice ([`Placed::check_outliers`]), a lattice neither too large nor too
+/// sparse, the least-squares fit within the tolerance, no node given twice with different
+/// values, at least 3 x 3 distinct nodes.
 fn place(
     p: Points,
     (cols_in, rows_in): Indices,
-    numbering: Option<Numbering>,
-    value_columns: Vec<ValueColumn>,
-    tolerance: f64,
+    reading: Reading,
 ) -> std::result::Result<PointGrid, String> {
     let n = p.len();
+    let tolerance = reading.tolerance;
     let span = |a: &[i64]| {
         let lo = a.iter().copied().min().unwrap_or(0);
         let hi = a.iter().copied().max().unwrap_or(0);
@@ -1423,33 +1824,20 @@ fn place(
             "the points span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3"
         ));
     }
-    let nodes = cols as u128 * rows as u128;
-    if nodes > 20 * n as u128 {
-        let what = match &numbering {
-            Some(_) => "their inline/crossline numbers span",
-            None => "the lattice they seem to lie on spans",
-        };
-        return Err(format!(
-            "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in 20 holds a point, so they look scattered; {GRID_FIRST}"
-        ));
-    }
-    let (cols, rows) = (cols as usize, rows as usize);
-    let index: Vec<(usize, usize)> = cols_in
-        .iter()
-        .zip(&rows_in)
-        .map(|(&c, &r)| ((c - c0) as usize, (r - r0) as usize))
-        .collect();
+    let placed = Placed {
+        p: &p,
+        index: cols_in
+            .iter()
+            .zip(&rows_in)
+            .map(|(&c, &r)| (c.abs_diff(c0) as usize, r.abs_diff(r0) as usize))
+            .collect(),
+        numbering: reading.numbering,
+    };
     drop((cols_in, rows_in));
-    let (x0, y0) = (p.x[0], p.y[0]);
-    let fit = fit_affine(n, |k| {
-        Some((
-            index[k].0 as f64,
-            index[k].1 as f64,
-            p.x[k] - x0,
-            p.y[k] - y0,
-        ))
-    })
-    .ok_or_else(|| {
+    placed.check_outliers(tolerance)?;
+    placed.check_extent(cols, rows)?;
+    let (cols, rows) = (cols as usize, rows as usize);
+    let fit = fit_affine(n, |k| Some(placed.at(k))).ok_or_else(|| {
         "the points lie along one line of their lattice; a horizon needs a two-dimensional grid"
             .to_string()
     })?;
@@ -1461,41 +1849,82 @@ fn place(
                 .to_string(),
         );
     }
-    let bin = column_bin.min(row_bin);
-    let mut worst = (0.0f64, 0usize);
-    let mut off = 0usize;
-    for (k, &(c, r)) in index.iter().enumerate() {
-        let (u, v) = fit.at(c as f64, r as f64);
-        let d = (p.x[k] - x0 - u).hypot(p.y[k] - y0 - v);
-        if d > worst.0 {
-            worst = (d, k);
-        }
-        if d > tolerance * bin {
-            off += 1;
-        }
+    let bin = fit.min_bin();
+    let off = placed.off(&fit, tolerance * bin);
+    if !off.is_empty() {
+        return Err(placed.off_lattice(&fit, &off, tolerance));
     }
-    let (worst_misfit, worst_k) = worst;
-    if off > 0 {
-        let line = p.lines[worst_k];
-        let (c, r) = index[worst_k];
-        let share = worst_misfit / bin;
-        if off * 10 > n {
-            return Err(match &numbering {
-                Some(_) => format!(
-                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({off} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst_misfit:.3} CRS units); check the columns (--columns) and the export"
-                ),
-                None => format!(
-                    "the points lie on no regular lattice ({off} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst_misfit:.3} CRS units); {GRID_FIRST}"
-                ),
-            });
-        }
-        return Err(format!(
-            "line {line} lies {worst_misfit:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance} (points that far off: {off} of {n}); fix those lines, or raise --lattice-tolerance if the export rounds coordinates coarsely",
-            node_name(&numbering, c, r)
-        ));
+    let (worst2, worst_k) = (0..n)
+        .map(|k| (placed.miss2(&fit, k), k))
+        .fold((0.0, 0), |a, b| if b.0 > a.0 { b } else { a });
+    let worst_misfit = f64::sqrt(worst2);
+    let numbering = placed.numbering;
+    let nodes = fill(&p, &placed.index, (cols, rows), &numbering)?;
+    let occupied = cols * rows - nodes.empty;
+    if occupied < n {
+        enough(
+            occupied,
+            &format!("distinct nodes ({n} points, repeats read once)"),
+        )?;
     }
 
-    // Nodes: the first point of each; repeats must carry the same values.
+    // Geotransform: node (0, 0) is the centre of cell (0, 0).
+    let (x0, y0) = (p.x[0], p.y[0]);
+    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
+    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
+    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
+    let geo_transform = [
+        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
+        g1,
+        g2,
+        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
+        g4,
+        g5,
+    ];
+    Ok(PointGrid {
+        cols,
+        rows,
+        geo_transform,
+        bands: nodes.bands,
+        value_columns: reading.value_columns,
+        lattice: LatticeReport {
+            points: n,
+            numbering,
+            column_azimuth: azimuth((g1, g4)),
+            row_azimuth: azimuth((g2, g5)),
+            column_bin,
+            row_bin,
+            worst_misfit,
+            worst_misfit_share: worst_misfit / bin,
+            worst_misfit_line: p.lines[worst_k],
+            empty_nodes: nodes.empty,
+            null_nodes: nodes.null,
+            repeated: nodes.repeated,
+            preamble: reading.preamble,
+        },
+    })
+}
+
+/// The bands of a lattice and what filling it found.
+struct Nodes {
+    /// One array per band, `[row, col]`, NaN where null.
+    bands: Vec<Array2<f64>>,
+    /// Nodes without a point.
+    empty: usize,
+    /// Nodes null in every band.
+    null: usize,
+    /// Points that repeated a node with the same values.
+    repeated: usize,
+}
+
+/// Fills a `cols` x `rows` lattice with the points at `index`: the first point of a node
+/// gives its values; a repeat must carry the same values (refused naming both lines).
+fn fill(
+    p: &Points,
+    index: &[(usize, usize)],
+    (cols, rows): (usize, usize),
+    numbering: &Option<Numbering>,
+) -> std::result::Result<Nodes, String> {
     let bands = p.bands;
     let same = |a: usize, b: usize| {
         (0..bands).all(|j| {
@@ -1523,19 +1952,19 @@ fn place(
                 "lines {} and {} both give node ({}) but with different values ({} vs {}); remove one of them",
                 p.lines[first],
                 p.lines[k],
-                node_name(&numbering, c, r),
+                node_name(numbering, c as i64, r as i64),
                 show(first),
                 show(k)
             ));
         }
     }
     let mut arrays = vec![Array2::from_elem((rows, cols), f64::NAN); bands];
-    let (mut empty_nodes, mut null_nodes) = (0, 0);
+    let (mut empty, mut null) = (0, 0);
     for (node, &k) in owner.iter().enumerate() {
         let (r, c) = (node / cols, node % cols);
         if k == u32::MAX {
-            empty_nodes += 1;
-            null_nodes += 1;
+            empty += 1;
+            null += 1;
             continue;
         }
         let mut all_null = true;
@@ -1544,41 +1973,13 @@ fn place(
             all_null &= value.is_nan();
             band[[r, c]] = value;
         }
-        null_nodes += all_null as usize;
+        null += all_null as usize;
     }
-
-    // Geotransform: node (0, 0) is the centre of cell (0, 0).
-    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
-    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
-    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
-    let geo_transform = [
-        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
-        g1,
-        g2,
-        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
-        g4,
-        g5,
-    ];
-    Ok(PointGrid {
-        cols,
-        rows,
-        geo_transform,
+    Ok(Nodes {
         bands: arrays,
-        value_columns,
-        lattice: LatticeReport {
-            points: n,
-            numbering,
-            column_azimuth: azimuth((g1, g4)),
-            row_azimuth: azimuth((g2, g5)),
-            column_bin,
-            row_bin,
-            worst_misfit,
-            worst_misfit_share: worst_misfit / bin,
-            worst_misfit_line: p.lines[worst_k],
-            empty_nodes,
-            null_nodes,
-            repeated,
-        },
+        empty,
+        null,
+        repeated,
     })
 }
 
@@ -1615,6 +2016,8 @@ mod tests {
         /// (first inline, inline step, first crossline, crossline step); rows follow inline.
         numbering: Option<(i64, i64, i64, i64)>,
         bands: usize,
+        /// Decimals of the coordinates as written (`None`: shortest round-trip text).
+        decimals: Option<usize>,
     }
 
     impl Export {
@@ -1625,6 +2028,7 @@ mod tests {
                 rows,
                 numbering: None,
                 bands: 1,
+                decimals: None,
             }
         }
 
@@ -1654,8 +2058,12 @@ mod tests {
                     fields.push((il0 + r as i64 * ils).to_string());
                     fields.push((xl0 + c as i64 * xls).to_string());
                 }
-                fields.push(x.to_string());
-                fields.push(y.to_string());
+                for coordinate in [x, y] {
+                    fields.push(match self.decimals {
+                        Some(d) => format!("{coordinate:.d$}"),
+                        None => coordinate.to_string(),
+                    });
+                }
                 fields.extend(values);
                 out.push_str(&fields.join(sep));
                 out.push('\n');
@@ -1694,14 +2102,16 @@ mod tests {
         assert_picture_within(grid, gt, size, expected, 1e-6);
     }
 
-    /// [`assert_picture`] with cell centres within `cells` of a generating cell centre.
+    /// [`assert_picture`] with cell centres within `cells` of a generating cell centre;
+    /// returns the largest offset found, as a share of a bin along either axis.
     fn assert_picture_within(
         grid: &PointGrid,
         gt: &[f64; 6],
         (cols, rows): (usize, usize),
         expected: impl Fn(usize, usize, usize) -> Option<f64>,
         cells: f64,
-    ) {
+    ) -> f64 {
+        let mut worst = 0.0f64;
         assert_eq!(grid.cols * grid.rows, cols * rows, "grid size");
         let generating = GridGeometry {
             cols,
@@ -1715,6 +2125,7 @@ mod tests {
                 let (x, y) = centre(&grid.geo_transform, c, r);
                 let (fc, fr) = generating.map_to_grid(x, y);
                 let (gc, gr) = ((fc - 0.5).round(), (fr - 0.5).round());
+                worst = worst.max((fc - 0.5 - gc).abs()).max((fr - 0.5 - gr).abs());
                 assert!(
                     (fc - 0.5 - gc).abs() < cells && (fr - 0.5 - gr).abs() < cells,
                     "cell ({c}, {r}) is at ({fc}, {fr}) of the generating grid"
@@ -1732,6 +2143,404 @@ mod tests {
                     }
                 }
             }
+        }
+        worst
+    }
+
+    /// Largest distance between where two geotransforms put the centres of the corner cells of
+    /// a `cols` x `rows` grid, as a share of the smaller bin of `b` (GDAL data model; the
+    /// difference of two affine maps is affine, so over the grid it is largest at a corner:
+    /// elementary geometry).
+    fn gt_distance(a: &[f64; 6], b: &[f64; 6], (cols, rows): (usize, usize)) -> f64 {
+        let bin = b[1].hypot(b[4]).min(b[2].hypot(b[5]));
+        [(0, 0), (cols - 1, 0), (0, rows - 1), (cols - 1, rows - 1)]
+            .into_iter()
+            .map(|(c, r)| {
+                let ((xa, ya), (xb, yb)) = (centre(a, c, r), centre(b, c, r));
+                (xa - xb).hypot(ya - yb) / bin
+            })
+            .fold(0.0, f64::max)
+    }
+
+    #[test]
+    fn exports_rounded_to_centimetres_read_back_to_their_lattice() {
+        // Common practice: interpretation packages write coordinates to 0.01 m. Rotated
+        // lattices with unequal bins, read from x, y alone and from the numbering, come back
+        // on their generating lattice: every cell centre within 2e-5 of a bin of its node
+        // (measured: under 1e-5; the least-squares fit over all nodes averages the rounding,
+        // elementary statistics), every value bit for bit.
+        let cases = [
+            (63.0, (25.0, 12.5), (60, 45)),
+            (117.5, (12.5, 30.0), (41, 70)),
+            (91.0, (20.0, 20.0), (35, 35)),
+        ];
+        for (azimuth, bins, (cols, rows)) in cases {
+            let g = survey_geometry((483_117.0, 6_702_345.0), azimuth, bins, (cols, rows));
+            let mut e = Export::new(g.geo_transform, cols, rows);
+            e.decimals = Some(2);
+            for numbering in [None, Some((1200, 1, 3000, 2))] {
+                e.numbering = numbering;
+                let grid = parse(&e.full(" ", None), &PointOptions::default()).unwrap();
+                let all = |c, r, b| Some(value(c, r, b));
+                let worst = assert_picture_within(&grid, &g.geo_transform, (cols, rows), all, 2e-5);
+                assert!(worst < 2e-5, "{azimuth}: {worst}");
+                assert!(grid.lattice.worst_misfit < 0.0075, "{:?}", grid.lattice);
+            }
+        }
+    }
+
+    #[test]
+    fn decimated_interpretations_read_onto_the_finest_lattice() {
+        // Brief (the lattice from "two shortest independent steps"): a survey interpreted on
+        // every 2nd inline over most of its area and on every inline in two patches, read
+        // from x, y alone, comes back on the full survey lattice with nulls between the
+        // interpreted lines (elementary geometry); likewise every 3rd crossline with a patch,
+        // and a checkerboard with a full patch. Coordinates rounded to 0.01 m; node centres
+        // within 1e-4 of a bin (measured: 2e-5, 8e-6 and 8e-5; the checkerboard's rounding
+        // errors are correlated, and with 0.001 m they fall to 6e-7).
+        let g = survey_geometry((512_000.0, 7_010_000.0), 63.0, (25.0, 12.5), (48, 37));
+        type Keep = fn(usize, usize) -> bool;
+        let patterns: [(&str, Keep); 3] = [
+            ("every 2nd row", |c, r| {
+                r % 2 == 0 || (c < 6 && r < 10) || (c > 30 && r > 20)
+            }),
+            ("every 3rd column", |c, r| c % 3 == 0 || (r > 25 && c > 20)),
+            ("checkerboard", |c, r| {
+                (c + r) % 2 == 0 || (c > 10 && c < 20 && r > 5 && r < 15)
+            }),
+        ];
+        let mut e = Export::new(g.geo_transform, 48, 37);
+        e.decimals = Some(2);
+        for (what, keep) in patterns {
+            let text = e.text(" ", Some("x y z"), |c, r, b| {
+                keep(c, r).then(|| value(c, r, b).to_string())
+            });
+            let grid = parse(&text, &PointOptions::default())
+                .unwrap_or_else(|err| panic!("{what}: {err}"));
+            let worst = assert_picture_within(
+                &grid,
+                &g.geo_transform,
+                (48, 37),
+                |c, r, b| keep(c, r).then(|| value(c, r, b)),
+                1e-4,
+            );
+            assert!(worst < 1e-4, "{what}: {worst}");
+            let kept = (0..48 * 37).filter(|k| keep(k % 48, k / 48)).count();
+            assert_eq!(grid.lattice.empty_nodes, 48 * 37 - kept, "{what}");
+        }
+
+        // Three lone lines half a row off are errors, not a finer lattice: refused by line.
+        let shifted = [(7, 4), (30, 16), (12, 30)];
+        let (hx, hy) = (0.5 * g.geo_transform[2], 0.5 * g.geo_transform[5]);
+        let mut text = String::from("x y z\n");
+        for r in 0..37 {
+            for c in 0..48 {
+                let (x, y) = centre(&g.geo_transform, c, r);
+                let (x, y) = match shifted.contains(&(c, r)) {
+                    true => (x + hx, y + hy),
+                    false => (x, y),
+                };
+                text.push_str(&format!("{x:.2} {y:.2} {}\n", value(c, r, 0)));
+            }
+        }
+        let line = |(c, r): (usize, usize)| (2 + r * 48 + c).to_string();
+        refused(
+            &text,
+            &PointOptions::default(),
+            &[
+                "off its lattice node",
+                "points that far off: 3 of 1776",
+                &line(shifted[0]),
+                &line(shifted[1]),
+                &line(shifted[2]),
+            ],
+        );
+    }
+
+    #[test]
+    fn two_exports_of_one_survey_with_different_gaps_agree() {
+        // Common practice: one package leaves a fault gap out, another writes it as -999.25.
+        // Both exports of one survey (coordinates to 0.01 m) read to the same lattice, node
+        // centres within 1e-5 of a bin of each other (measured: under 2e-6), and to the same
+        // values bit for bit; from x, y alone and from the numbering.
+        let g = survey_geometry((402_500.0, 6_450_000.0), 104.0, (12.5, 25.0), (70, 52));
+        let fault = |c: usize, r: usize| {
+            (c as f64 - 0.6 * r as f64 - 20.0).abs() < 1.5 && (6..45).contains(&r)
+        };
+        let mut e = Export::new(g.geo_transform, 70, 52);
+        e.decimals = Some(2);
+        let sentinel = PointOptions {
+            nodata: vec![-999.25],
+            ..PointOptions::default()
+        };
+        for numbering in [None, Some((501, 1, 1001, 1))] {
+            e.numbering = numbering;
+            let omitted = e.text(",", None, |c, r, b| {
+                (!fault(c, r)).then(|| value(c, r, b).to_string())
+            });
+            let written = e.text(",", None, |c, r, b| {
+                Some(match fault(c, r) {
+                    true => "-999.25".to_string(),
+                    false => value(c, r, b).to_string(),
+                })
+            });
+            let a = parse(&omitted, &PointOptions::default()).unwrap();
+            let b = parse(&written, &sentinel).unwrap();
+            assert_eq!((a.cols, a.rows), (b.cols, b.rows));
+            let d = gt_distance(&a.geo_transform, &b.geo_transform, (a.cols, a.rows));
+            assert!(d < 1e-5, "{numbering:?}: {d}");
+            for (x, y) in a.bands[0].iter().zip(b.bands[0].iter()) {
+                assert!(x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan()));
+            }
+            assert_eq!(a.lattice.null_nodes, b.lattice.null_nodes);
+            assert!(a.lattice.empty_nodes > 0 && b.lattice.empty_nodes == 0);
+        }
+    }
+
+    #[test]
+    fn typos_in_line_numbers_and_coordinates_are_named_by_line() {
+        // Hand-checkable: a regular export in which one line is mistyped. The typo is named by
+        // its line, with the node its coordinates belong to, however far it is (1012 -> 9012
+        // or 1112); it neither stretches the lattice nor tilts its fit.
+        let g = survey_geometry((480_000.0, 3_900_000.0), 30.0, (25.0, 12.5), (40, 30));
+        let mut e = Export::new(g.geo_transform, 40, 30);
+        e.numbering = Some((1000, 1, 2000, 2));
+        e.decimals = Some(2);
+        let text = e.full(" ", Some("Inline Xline X Y Z"));
+        let line = text
+            .lines()
+            .position(|l| l.starts_with("1012 2036 "))
+            .unwrap()
+            + 1;
+        let d = PointOptions::default();
+        for typo in ["9012", "1112", "1013"] {
+            let bad = text.replacen("\n1012 2036 ", &format!("\n{typo} 2036 "), 1);
+            refused(
+                &bad,
+                &d,
+                &[
+                    &format!("line {line}: inline {typo}, crossline 2036 is off the numbering/coordinates of the others"),
+                    "its x, y are those of inline 1012, crossline 2036",
+                    "check it",
+                ],
+            );
+        }
+        // A crossline typo on another line as well: both named, the worst first.
+        let other = text
+            .lines()
+            .position(|l| l.starts_with("1020 2050 "))
+            .unwrap()
+            + 1;
+        let two = text.replacen("\n1012 2036 ", "\n9012 2036 ", 1).replacen(
+            "\n1020 2050 ",
+            "\n1020 2052 ",
+            1,
+        );
+        refused(
+            &two,
+            &d,
+            &[
+                &format!("line {line}: inline 9012"),
+                &format!("points that far off: 2 of 1200, worst on lines {line}, {other}"),
+            ],
+        );
+        // From x, y alone, a mistyped coordinate (3 m off) is named by its line.
+        e.numbering = None;
+        let xyz = e.full(" ", None);
+        let first: Vec<&str> = xyz.lines().nth(400).unwrap().split(' ').collect();
+        let x: f64 = first[0].parse().unwrap();
+        let typo = xyz.replacen(first[0], &format!("{:.2}", x + 3.0), 1);
+        refused(
+            &typo,
+            &d,
+            &[
+                "line 401 lies",
+                "off its lattice node",
+                "--lattice-tolerance",
+            ],
+        );
+    }
+
+    #[test]
+    fn fewer_than_nine_points_are_refused() {
+        // Brief: a file with fewer than 3 x 3 points is refused, even when its numbering
+        // spans 3 x 3 nodes; repeats of a node count once.
+        let five = "Inline Xline X Y Z\n1 1 0 0 10\n1 3 50 0 11\n3 1 0 -50 12\n3 3 50 -50 13\n2 2 25 -25 14\n";
+        refused(
+            five,
+            &PointOptions::default(),
+            &["holds only 5 points", "at least 3 x 3 points"],
+        );
+        let repeats = format!("{five}1 1 0 0 10\n1 3 50 0 11\n3 1 0 -50 12\n3 3 50 -50 13\n");
+        refused(
+            &repeats,
+            &PointOptions::default(),
+            &["holds only 5 distinct nodes (9 points", "at least 3 x 3"],
+        );
+    }
+
+    #[test]
+    fn lattices_too_large_or_too_sparse_are_refused_before_they_are_made() {
+        // Hand-checkable arithmetic: 20 000 x 20 000 nodes x 1 band is 400 million values,
+        // over the 250 million cap; 100 x 100 nodes for 10 points is under 1 in 16.
+        let p = Points {
+            lines: (1..=10).collect(),
+            x: vec![0.0; 10],
+            y: vec![0.0; 10],
+            inline: Vec::new(),
+            crossline: Vec::new(),
+            has_numbering: false,
+            values: vec![1.0; 10],
+            bands: 1,
+        };
+        let placed = Placed {
+            p: &p,
+            index: (0..10).map(|k| (k, k)).collect(),
+            numbering: None,
+        };
+        let err = placed.check_extent(20_000, 20_000).unwrap_err();
+        for s in [
+            "20000 x 20000 nodes x 1 band(s)",
+            "400 million values",
+            "3.2 GB",
+            "typo",
+        ] {
+            assert!(err.contains(s), "'{s}' in {err}");
+        }
+        let err = placed.check_extent(100, 100).unwrap_err();
+        assert!(
+            err.contains("1 node in 16") && err.contains("line 1 (column 0, row 0)"),
+            "{err}"
+        );
+        assert!(placed.check_extent(12, 12).is_ok());
+
+        // A line far outside the others with consistent numbering and coordinates (a typo in
+        // both) is named as the point farthest out.
+        let mut e = Export::new([0.0, 10.0, 0.0, 0.0, 0.0, -10.0], 10, 10);
+        e.numbering = Some((1, 1, 1, 1));
+        let text = format!("{}2001 5 45 -20005 1\n", e.full(" ", None));
+        refused(
+            &text,
+            &PointOptions::default(),
+            &[
+                "span 10 x 2001 nodes but only 101 points",
+                "on line 101 (inline 2001, crossline 5)",
+            ],
+        );
+    }
+
+    #[test]
+    fn null_words_and_empty_fields_are_nulls_in_value_columns_only() {
+        // Common practice of exports: NULL, N/A, null, NaN, - and an empty field mark a node
+        // without a value; in a coordinate or line-number column they are refused by line.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let e = Export::new(gt, 4, 4);
+        let words = ["NULL", "N/A", "null", "NaN", "-", ""];
+        let field = |c: usize, r: usize, b: usize| {
+            Some(match r * 4 + c {
+                k @ 1..=6 => words[k - 1].to_string(),
+                _ => value(c, r, b).to_string(),
+            })
+        };
+        let text = e.text(",", Some("x,y,z"), field);
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        assert_picture(&grid, &gt, (4, 4), |c, r, b| {
+            (!(1..=6).contains(&(r * 4 + c))).then(|| value(c, r, b))
+        });
+        assert_eq!(grid.lattice.null_nodes, 6);
+        // The empty value is the last field of its line, as exports write it ("x,y,").
+        assert!(text.lines().any(|l| l.ends_with(',')));
+        let lines: Vec<&str> = text.lines().collect();
+        let k = lines.iter().position(|l| l.ends_with(",NULL")).unwrap();
+        let mut bad = lines.clone();
+        let moved = lines[k].replacen(',', ",NULL,", 1);
+        let moved = moved.rsplit_once(',').unwrap().0.to_string();
+        bad[k] = &moved;
+        refused(
+            &bad.join("\n"),
+            &PointOptions::default(),
+            &[
+                &format!("line {}, column 2 (y): 'NULL'", k + 1),
+                "not a map coordinate",
+            ],
+        );
+        let numbered = "il xl x y z\n1 N/A 0 0 1\n";
+        refused(
+            numbered,
+            &PointOptions::default(),
+            &["line 2, column 2 (crossline): 'N/A'", "whole line number"],
+        );
+    }
+
+    #[test]
+    fn free_text_above_the_header_is_skipped_and_reported() {
+        // Exports often open with a title and a line like "Horizon: X" above the column
+        // names (here with a number in it): they are skipped and the report says so. Free text above data without a
+        // header is refused naming its line.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let mut e = Export::new(gt, 4, 4);
+        e.numbering = Some((1, 1, 1, 1));
+        let body = e.full(" ", Some("Inline Crossline X Y Z"));
+        let text =
+            format!("Horizon: Vessa Shale top\nExported 2024 by an interpretation package\n{body}");
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        assert_picture(&grid, &gt, (4, 4), |c, r, b| Some(value(c, r, b)));
+        assert_eq!(grid.lattice.preamble, Some((1, 2)));
+        assert!(grid
+            .lattice
+            .describe()
+            .contains("lines 1..2 before the header skipped as free text"));
+        let headless = format!("Horizon: Vessa Shale top\n{}", e.full(" ", None));
+        refused(
+            &headless,
+            &PointOptions::default(),
+            &[
+                "line 1 (Horizon:, Vessa, Shale, top) names 4 columns",
+                "line 2, the first data line, has 5 fields",
+                "mark it a comment with #",
+            ],
+        );
+    }
+
+    #[test]
+    fn header_names_of_common_exports_are_recognised() {
+        // Common practice of interpretation exports: INLINE_3D/CROSSLINE_3D, "inline no",
+        // units after an underscore (TWT_ms, Depth_ft) as in brackets; az_15 stays a name.
+        let gt = [0.0, 10.0, 0.0, 100.0, 0.0, -10.0];
+        let mut e = Export::new(gt, 4, 4);
+        e.numbering = Some((1, 1, 1, 1));
+        e.bands = 2;
+        for (header, names, units) in [
+            (
+                "INLINE_3D,CROSSLINE_3D,CDP_X,CDP_Y,TWT_ms,az_15",
+                ["TWT", "az_15"],
+                [Some("ms"), None],
+            ),
+            (
+                "inline no,xline no,x,y,Depth_ft,time_s",
+                ["Depth", "time"],
+                [Some("ft"), Some("s")],
+            ),
+            (
+                "inline_3d,crossline_3d,x_m,y_m,z_m,Z2 (us-ft)",
+                ["z", "Z2"],
+                [Some("m"), Some("us-ft")],
+            ),
+        ] {
+            let grid = parse(&e.full(",", Some(header)), &PointOptions::default())
+                .unwrap_or_else(|err| panic!("{header}: {err}"));
+            assert!(grid.lattice.numbering.is_some(), "{header}");
+            assert_picture(&grid, &gt, (4, 4), |c, r, b| Some(value(c, r, b)));
+            let got: Vec<(&str, Option<&str>)> = grid
+                .value_columns
+                .iter()
+                .map(|v| (v.name.as_str(), v.unit.as_deref()))
+                .collect();
+            assert_eq!(
+                got,
+                vec![(names[0], units[0]), (names[1], units[1])],
+                "{header}"
+            );
         }
     }
 
@@ -2079,6 +2888,21 @@ mod tests {
         let fields: Vec<&str> = first.split(' ').collect();
         let typo = headless.replacen(&first, &format!("{} 9o {}", fields[0], fields[2]), 1);
         refused(&typo, &d, &["line 1, column 2 (y)", "'9o' is not a number"]);
+        // Typos in most fields of the first line, with --columns: still data, not a header.
+        let twice = headless.replacen(
+            &first,
+            &format!("{}O {}O {}", fields[0], fields[1], fields[2]),
+            1,
+        );
+        let options = PointOptions {
+            columns: Some(ColumnRole::parse_list("x,y,z").unwrap()),
+            ..PointOptions::default()
+        };
+        refused(
+            &twice,
+            &options,
+            &["line 1, column 1 (x)", "is not a number"],
+        );
         // Semicolon-separated with a decimal comma on line 3 (x and y here are whole numbers).
         let mut european: Vec<String> = e.full(";", None).lines().map(str::to_string).collect();
         european[2] = european[2].replacen('.', ",", 1);
@@ -2099,13 +2923,31 @@ mod tests {
             &d,
             &["line 2 (a, b, c)", "names no column", "--columns x,y,z"],
         );
+        let extra: String = good
+            .replace("x y z", "x y z inline")
+            .lines()
+            .map(|l| match l.starts_with(|c: char| c.is_ascii_digit()) {
+                true => format!("{l} 7\n"),
+                false => format!("{l}\n"),
+            })
+            .collect();
         refused(
-            &good.replace("x y z", "inline x y z"),
+            &extra,
             &d,
             &[
                 "line 2",
                 "inline column but no crossline",
-                "--columns skip,x,y,z",
+                "--columns x,y,z,skip",
+            ],
+        );
+        // A header whose names are not as many as the data's fields.
+        refused(
+            &good.replace("x y z", "x y z inline"),
+            &d,
+            &[
+                "line 2 (x, y, z, inline) names 4 columns",
+                "line 3, the first data line, has 3 fields",
+                "mark it a comment with #",
             ],
         );
         refused(
@@ -2319,7 +3161,12 @@ mod tests {
         refused(
             &sparse,
             &PointOptions::default(),
-            &["100 x 100 nodes", "1 node in 20", "grid them first"],
+            &[
+                "100 x 100 nodes",
+                "1 node in 16",
+                "grid them first",
+                "farthest from the others is on line",
+            ],
         );
         // Numbered points whose coordinates are scattered.
         let numbered: String = (0..100u64)
@@ -2408,7 +3255,7 @@ mod tests {
         // files and GDAL's text raster formats (ESRI ASCII grid, Surfer, GRASS, VRT XML) are
         // not (their first lines from the formats' documentation, from memory).
         let dir = tempfile::tempdir().unwrap();
-        let cases: [(&str, &[u8], bool); 12] = [
+        let cases: [(&str, &[u8], bool); 16] = [
             (
                 "a.xyz",
                 b"500000.0 4100000.0 1500.25\n500025.0 4100000.0 1501\n",
@@ -2433,6 +3280,24 @@ mod tests {
             ("i.tif", b"II*\x00\x08\x00\x00\x00\x10\x00", false),
             ("j.txt", b"1 2\n3 4\n", false),
             ("k.csv", b"well,md\nA,100\n", false),
+            // Recognised column names are enough, whatever the data below them: a null
+            // word, decimal commas (then refused by line), free text above the header.
+            (
+                "m.txt",
+                b"Inline Xline X Y TWT\n1000 2000 480000.00 3900000.00 NULL\n",
+                true,
+            ),
+            (
+                "n.csv",
+                b"Inline;Crossline;X;Y;Z\n1000;2000;478000,00;3897000,00;2399,957\n",
+                true,
+            ),
+            (
+                "o.txt",
+                b"Horizon: Vessa Shale top\nExported 2024\nInline Crossline X Y Z\n1000 2000 478000.00 3897000.00 2399.957\n",
+                true,
+            ),
+            ("p.txt", b"Horizon: Vessa Shale top\n1 2\n", false),
         ];
         for (name, bytes, expected) in cases {
             let path = dir.path().join(name);
@@ -2440,6 +3305,23 @@ mod tests {
             assert_eq!(is_point_list(&path), expected, "{name}");
         }
         assert!(!is_point_list(&dir.path().join("missing.xyz")));
+        // Plain text GDAL would read as no raster format of its own: the point-list reader
+        // explains it by line (the binary file and GDAL's text formats are left to GDAL).
+        for (name, plain) in [
+            ("p.txt", true),
+            ("a.xyz", true),
+            ("e.asc", false),
+            ("i.tif", false),
+        ] {
+            assert_eq!(is_plain_text(&dir.path().join(name)), plain, "{name}");
+        }
+        let err = read_points(&dir.path().join("p.txt"), &PointOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            err.contains("p.txt: has no data line") && err.contains("line 1"),
+            "{err}"
+        );
         let path = dir.path().join("i.tif");
         let err = read_points(&path, &PointOptions::default())
             .unwrap_err()

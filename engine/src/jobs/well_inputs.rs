@@ -136,14 +136,15 @@ pub fn read_well_list(path: &Path) -> Result<Vec<WellInput>> {
 /// The rows of a CSV well list as entries, each with its line.
 fn csv_entries(table: &Table) -> Result<Vec<(String, WellEntry)>> {
     if let Some(c) = table.columns.iter().find(|c| {
-        !LIST_COLUMNS
-            .iter()
-            .any(|k| crate::io::table::header_key(k).0 == c.key)
+        c.unit.is_some()
+            || !LIST_COLUMNS
+                .iter()
+                .any(|k| crate::io::table::header_key(k).0 == c.key)
     }) {
         return Err(table.error(
             table.header_line,
             format!(
-                "unknown column '{}': the columns are {}",
+                "unknown column '{}': the columns are {} (lengths in the well's md unit, names without a unit)",
                 c.header,
                 LIST_COLUMNS.join(", ")
             ),
