@@ -150,7 +150,7 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
         Ok(ds) => ds,
         // A text file GDAL cannot read is most likely a point list with something unusual in
         // it: the point reader names the line.
-        Err(_) if is_text(path) => return read_point_list(path, options),
+        Err(_) if points::is_plain_text(path) => return read_point_list(path, options),
         Err(e) => return Err(FlexureError::read(path, e)),
     };
     let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
@@ -179,15 +179,6 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
         info,
         notes,
     })
-}
-
-/// Whether the file's first 8 KiB hold no NUL byte (text rather than a binary raster).
-fn is_text(path: &Path) -> bool {
-    use std::io::Read;
-    let mut head = Vec::with_capacity(8192);
-    std::fs::File::open(path)
-        .and_then(|f| f.take(8192).read_to_end(&mut head))
-        .is_ok_and(|n| n > 0 && !head.contains(&0))
 }
 
 /// A point list on its exact lattice as a raster: bands named after the value columns, units
