@@ -366,13 +366,7 @@ impl HorizonSource {
     /// upward (`positive_up`), and refuses depth or time grids whose values are mostly
     /// negative when the direction was not given (a silent sign flip of every curvature).
     fn orient(&self, grid: &mut Grid, domain: Domain, notes: &mut Vec<String>) -> Result<()> {
-        let values: Vec<f64> = grid
-            .values
-            .iter()
-            .copied()
-            .filter(|v| v.is_finite())
-            .collect();
-        let median = crate::stages::percentiles(&values).2;
+        let median = finite_median(&grid.values);
         match (domain, self.positive_up) {
             (Domain::Elevation, Some(false)) => Err(self.contradiction(
                 "--z-positive down",
@@ -501,13 +495,7 @@ impl HorizonSource {
                 notes.extend(raster.notes.iter().cloned());
                 let (mut vgrid, unit_text) = raster.into_single(path)?;
                 let unit = self.velocity_grid_unit(path, &unit_text)?;
-                let values: Vec<f64> = vgrid
-                    .values
-                    .iter()
-                    .copied()
-                    .filter(|v| v.is_finite())
-                    .collect();
-                let median = crate::stages::percentiles(&values).2;
+                let median = finite_median(&vgrid.values);
                 check_velocity(median * unit.metres_per_second(), median, unit, Some(path))?;
                 let (lo, hi) = PLAUSIBLE_VELOCITY_M_S;
                 vgrid.values.mapv_inplace(|v| v * unit.metres_per_second());
@@ -628,6 +616,12 @@ fn check_magnitude(
         domain.name()
     ));
     Ok(())
+}
+
+/// Median of the finite values (NaN when there are none).
+fn finite_median(values: &Array2<f64>) -> f64 {
+    let finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+    crate::stages::percentiles(&finite).2
 }
 
 /// Average velocity for time-to-depth conversion.
