@@ -195,6 +195,7 @@ impl ReadArgs {
             nodata: self.nodata.clone(),
             columns: self.columns.clone().map(|c| c.0),
             lattice_tolerance: self.lattice_tolerance,
+            ..ReadOptions::default()
         }
     }
 }

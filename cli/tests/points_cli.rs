@@ -397,6 +397,43 @@ fn sector_point_lists_and_shade_points_work_like_rasters() {
         &bands_of(&d.join("a/anisotropy.tif")),
         "anisotropy from a sector point list",
     );
+    // Fold as weights, one column per sector, 0 in the first columns (no traces) and 40
+    // elsewhere: zeros are weights, not null sentinels. Equal weights leave the fit unchanged
+    // where the fold is 40 (weighted least squares is scale invariant).
+    let fold: Vec<Array2<f32>> = (0..6)
+        .map(|_| Array2::from_shape_fn((g.rows, g.cols), |(_, c)| if c < 5 { 0.0 } else { 40.0 }))
+        .collect();
+    let fold_pts = d.join("fold.txt");
+    export(
+        &fold_pts,
+        &g,
+        &fold,
+        "x y f1 f2 f3 f4 f5 f6",
+        false,
+        Nulls::Omitted,
+        " ",
+    );
+    ok(&[
+        "anisotropy",
+        pts.to_str().unwrap(),
+        "--azimuths",
+        &azimuths,
+        "--weights",
+        fold_pts.to_str().unwrap(),
+        "--out",
+        d.join("c").to_str().unwrap(),
+        "--crs",
+        "EPSG:32625",
+        "--quiet",
+    ]);
+    let weighted = bands_of(&d.join("c/anisotropy.tif"));
+    let plain = bands_of(&d.join("b/anisotropy.tif"));
+    let right = |b: &Array2<f64>| b.slice(ndarray::s![.., 5..]).to_owned();
+    assert_same_values(
+        &weighted.iter().map(right).collect::<Vec<_>>(),
+        &plain.iter().map(right).collect::<Vec<_>>(),
+        "equal fold weights",
+    );
     // The anisotropy map shaded by the horizon given as a point list, and as a GeoTIFF: the
     // same picture.
     let z = horizon(&g);

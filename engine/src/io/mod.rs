@@ -67,6 +67,9 @@ pub struct ReadOptions {
     /// Largest distance of a point-list point from its lattice node, as a share of the smaller
     /// bin (`--lattice-tolerance`).
     pub lattice_tolerance: f64,
+    /// Search bands without a declared nodata for undeclared sentinels ([`nulls`]); off for
+    /// grids where 0 or 999 are plain values (sector weights such as fold).
+    pub find_sentinels: bool,
 }
 
 impl Default for ReadOptions {
@@ -77,6 +80,7 @@ impl Default for ReadOptions {
             nodata: Vec::new(),
             columns: points.columns,
             lattice_tolerance: points.lattice_tolerance,
+            find_sentinels: true,
         }
     }
 }
@@ -166,7 +170,7 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
             .to_array()
             .map_err(|e| FlexureError::read(path, e))?
             .mapv(|v| nulls::null_to_nan(v, nodata, &options.nodata));
-        if nodata.is_none() {
+        if nodata.is_none() && options.find_sentinels {
             notes.extend(check_undeclared_nulls(&values, path, &format!("band {i}"))?);
         }
         bands.push(values);
@@ -201,7 +205,9 @@ fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
     )];
     for (band, column) in grid.bands.iter().zip(&grid.value_columns) {
         let label = format!("column '{}'", column.name);
-        notes.extend(check_undeclared_nulls(band, path, &label)?);
+        if options.find_sentinels {
+            notes.extend(check_undeclared_nulls(band, path, &label)?);
+        }
     }
     let info = RasterInfo {
         names: grid.value_columns.iter().map(|c| c.name.clone()).collect(),

@@ -221,7 +221,11 @@ impl AnisotropyJob {
                 w.len()
             ))),
             WeightSource::Grids(paths) => {
-                let stack = read_stack(paths, &self.read, Units::Weight)?;
+                let weights = ReadOptions {
+                    find_sentinels: false,
+                    ..self.read.clone()
+                };
+                let stack = read_stack(paths, &weights, Units::Weight)?;
                 if stack.grids.len() != n {
                     return Err(FlexureError::Parameter(format!(
                         "{} weight grids given for {n} sectors: give one weight grid per sector",
