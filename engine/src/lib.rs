@@ -26,6 +26,7 @@ pub mod jobs;
 pub mod provenance;
 pub mod render;
 pub mod stages;
+pub mod stats;
 pub mod synthetic;
 pub mod vectors;
 pub mod wells;

@@ -111,23 +111,13 @@ pub fn estimate_noise(
     if residuals.is_empty() {
         return Ok(None);
     }
-    let median = median_of(&mut residuals);
+    let median = crate::stats::median(&mut residuals).unwrap_or(f64::NAN);
     let mut deviations: Vec<f64> = residuals.iter().map(|r| (r - median).abs()).collect();
-    let mad = median_of(&mut deviations);
+    let mad = crate::stats::median(&mut deviations).unwrap_or(f64::NAN);
     Ok(Some(NoiseEstimate {
         sigma: 1.4826 * mad / (1.0 - leverage).sqrt(),
         n: residuals.len(),
     }))
-}
-
-fn median_of(v: &mut [f64]) -> f64 {
-    v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        0.5 * (v[n / 2 - 1] + v[n / 2])
-    }
 }
 
 /// Figures of one window, in the attribute's unit where they have one.

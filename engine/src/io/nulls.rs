@@ -71,7 +71,7 @@ pub fn undeclared_sentinel(values: &Array2<f64>) -> Option<(f64, usize)> {
     }
     let lo = others.iter().copied().fold(f64::INFINITY, f64::min);
     let hi = others.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let median = median_in_place(&mut others);
+    let median = crate::stats::median(&mut others)?;
     let margin = (0.5 * (hi - lo)).max(0.1 * median.abs());
     let apart = |v: f64| v.abs() >= 1e10 || v < lo - margin || v > hi + margin;
     count_distinct(shaped.into_iter().filter(|&v| apart(v)).collect())
@@ -110,9 +110,9 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
     if finite.len() < 3 {
         return None;
     }
-    let median = median_in_place(&mut finite);
+    let median = crate::stats::median(&mut finite)?;
     let mut deviations: Vec<f64> = finite.iter().map(|v| (v - median).abs()).collect();
-    let mad = median_in_place(&mut deviations);
+    let mad = crate::stats::median(&mut deviations)?;
     if mad <= 0.0 {
         return None;
     }
@@ -125,12 +125,6 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
         mad,
         values: count_distinct(found),
     })
-}
-
-/// Median of `v` (reorders it); the lower middle value for an even count.
-fn median_in_place(v: &mut [f64]) -> f64 {
-    let mid = (v.len() - 1) / 2;
-    *v.select_nth_unstable_by(mid, f64::total_cmp).1
 }
 
 #[cfg(test)]
@@ -160,7 +154,7 @@ mod tests {
     #[test]
     fn an_undeclared_sentinel_is_found_and_a_bust_is_only_an_outlier() {
         // A 10 x 10 ramp from 2400 to 2499 m with two cells of -999.25 and one picking bust at
-        // 4000 m (by hand: lower median 2448, MAD 25): 4000 is 62 MADs out (an outlier), but
+        // 4000 m (by hand: median 2448.5, MAD 25): 4000 is 62 MADs out (an outlier), but
         // only -999.25 has a sentinel's form and stands apart from the rest.
         let mut v = Array2::from_shape_fn((10, 10), |(r, c)| 2400.0 + (10 * r + c) as f64);
         v[(0, 0)] = -999.25;

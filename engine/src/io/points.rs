@@ -50,6 +50,7 @@ use super::table::{
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
+use crate::stats::median;
 use ndarray::Array2;
 use std::io::Read;
 use std::path::Path;
@@ -1177,15 +1178,6 @@ fn mode_vector(vectors: &[(f64, f64)], scale: f64) -> Option<(f64, f64)> {
     Some(centre)
 }
 
-fn median(mut values: Vec<f64>) -> Option<f64> {
-    if values.is_empty() {
-        return None;
-    }
-    let mid = values.len() / 2;
-    let (_, m, _) = values.select_nth_unstable_by(mid, f64::total_cmp);
-    Some(*m)
-}
-
 /// Lagrange's reduction of a two-dimensional basis: the shortest vector and the shortest one
 /// independent of it.
 fn reduce(mut b1: (f64, f64), mut b2: (f64, f64)) -> ((f64, f64), (f64, f64)) {
@@ -1295,7 +1287,7 @@ fn first_lattice(u: &[f64], v: &[f64]) -> std::result::Result<Affine, String> {
         .filter_map(|k| Some((k, buckets.nearest(u, v, k, |_, _| true)?)))
         .collect();
     let steps: Vec<(f64, f64)> = nearest.iter().map(|n| n.1).collect();
-    let scale = median(steps.iter().map(|a| a.0.hypot(a.1)).collect())
+    let scale = median(&mut steps.iter().map(|a| a.0.hypot(a.1)).collect::<Vec<_>>())
         .ok_or_else(|| scattered("no point has a neighbour"))?;
     let b1 =
         mode_vector(&steps, scale).ok_or_else(|| scattered("no common step between neighbours"))?;
@@ -1305,10 +1297,11 @@ fn first_lattice(u: &[f64], v: &[f64]) -> std::result::Result<Affine, String> {
     let second: Vec<(f64, f64)> = sample()
         .filter_map(|k| buckets.nearest(u, v, k, independent))
         .collect();
-    let scale2 = median(second.iter().map(|a| a.0.hypot(a.1)).collect()).ok_or_else(|| {
-        "all points lie along one line; a horizon needs a two-dimensional grid of points"
-            .to_string()
-    })?;
+    let scale2 = median(&mut second.iter().map(|a| a.0.hypot(a.1)).collect::<Vec<_>>())
+        .ok_or_else(|| {
+            "all points lie along one line; a horizon needs a two-dimensional grid of points"
+                .to_string()
+        })?;
     let b2 = mode_vector(&second, scale2)
         .ok_or_else(|| scattered("no common second step between neighbours"))?;
     let (r1, r2) = reduce(b1, b2);
@@ -1713,7 +1706,7 @@ impl Placed<'_> {
     /// messages about lattices stretched by a typo.
     fn farthest(&self) -> String {
         let middle = |f: fn(&(usize, usize)) -> usize| {
-            median(self.index.iter().map(|i| f(i) as f64).collect()).unwrap_or(0.0)
+            median(&mut self.index.iter().map(|i| f(i) as f64).collect::<Vec<_>>()).unwrap_or(0.0)
         };
         let (mc, mr) = (middle(|i| i.0), middle(|i| i.1));
         let reach = |k: usize| {
@@ -1767,14 +1760,14 @@ impl Placed<'_> {
 fn robust_affine(placed: &Placed) -> Option<Affine> {
     let col = median_step(placed, |(c, r)| (r, c))?;
     let row = median_step(placed, |(c, r)| (c, r))?;
-    let (ou, ov): (Vec<f64>, Vec<f64>) = (0..placed.len())
+    let (mut ou, mut ov): (Vec<f64>, Vec<f64>) = (0..placed.len())
         .map(|k| {
             let (c, r, u, v) = placed.at(k);
             (u - c * col.0 - r * row.0, v - c * col.1 - r * row.1)
         })
         .unzip();
     Some(Affine {
-        origin: (median(ou)?, median(ov)?),
+        origin: (median(&mut ou)?, median(&mut ov)?),
         col,
         row,
     })
@@ -1799,7 +1792,7 @@ fn median_step(
             sv.push((vb - va) / steps);
         }
     }
-    Some((median(su)?, median(sv)?))
+    Some((median(&mut su)?, median(&mut sv)?))
 }
 
 /// Places the points on their lattice after the checks: at least 3 x 3 nodes spanned, no
