@@ -229,15 +229,7 @@ fn weight_source(items: &[String]) -> WeightSource {
 
 /// Parses "X,Y".
 fn point(s: &str) -> Result<(f64, f64), String> {
-    let v: Vec<f64> = s
-        .split(',')
-        .map(|p| p.trim().parse::<f64>())
-        .collect::<Result<_, _>>()
-        .map_err(|_| format!("'{s}' is not X,Y"))?;
-    match v[..] {
-        [x, y] if x.is_finite() && y.is_finite() => Ok((x, y)),
-        _ => Err(format!("'{s}' is not X,Y")),
-    }
+    parse_numbers(s, 2).map(|p| (p[0], p[1]))
 }
 
 /// Corridor options shared by `stages` and `plan`.
@@ -321,7 +313,7 @@ fn named_path(s: &str) -> Result<Named<PathBuf>, String> {
 
 /// Parses NAME=X,Y or X,Y.
 fn named_point(s: &str) -> Result<Named<(f64, f64)>, String> {
-    Named::parse(s, |v| parse_numbers(v, 2).map(|p| (p[0], p[1])))
+    Named::parse(s, point)
 }
 
 /// Parses NAME=VALUE or VALUE.

@@ -70,8 +70,8 @@ pub(crate) struct AnisotropyRaster {
     pub(crate) azimuth_slow: ndarray::Array2<f64>,
     pub(crate) magnitude_stderr: ndarray::Array2<f64>,
     pub(crate) azimuth_stderr: ndarray::Array2<f64>,
-    /// Sectors used per bin, when the raster has the `n_sectors` band.
-    pub(crate) n_sectors: Option<ndarray::Array2<f64>>,
+    /// Sectors used per bin and the grid's most, when the raster has the `n_sectors` band.
+    pub(crate) n_sectors: Option<(ndarray::Array2<f64>, f64)>,
 }
 
 impl AnisotropyRaster {
@@ -95,7 +95,14 @@ impl AnisotropyRaster {
                     )
                 })
         };
-        let n_sectors = take("n_sectors").ok();
+        let n_sectors = take("n_sectors").ok().map(|n| {
+            let max = n
+                .iter()
+                .copied()
+                .filter(|v| v.is_finite())
+                .fold(0.0, f64::max);
+            (n, max)
+        });
         Ok(Self {
             n_sectors,
             magnitude: take("magnitude")?,
@@ -111,12 +118,8 @@ impl AnisotropyRaster {
     /// The grid's largest `n_sectors` and how many of the bins `cells` (row, col) were fitted
     /// from fewer sectors, when there are such bins.
     pub(crate) fn fewer_sectors(&self, cells: &[(usize, usize)]) -> Option<(usize, usize)> {
-        let n = self.n_sectors.as_ref()?;
-        let max = n
-            .iter()
-            .copied()
-            .filter(|v| v.is_finite())
-            .fold(0.0, f64::max);
+        let (n, max) = self.n_sectors.as_ref()?;
+        let max = *max;
         let few = cells.iter().filter(|&&at| n[at] < max).count();
         (few > 0).then_some((max as usize, few))
     }

@@ -585,8 +585,8 @@ fn outside_path(well: &str, top: f64, base: f64) -> FlexureError {
 
 /// `wells/<name>_path.csv` of every well (the path every `SAMPLE_STEP_M` and at every
 /// station, md and TVD below datum in the well's md unit, x and y in CRS units, angles in
-/// degrees from grid north, the table line of each station) and `well_paths.gpkg/.geojson`
-/// lines.
+/// degrees from grid north, the 1-based station number where a point is a station) and
+/// `well_paths.gpkg/.geojson` lines.
 fn stage_paths(dir: &Path, g: &GridGeometry, wells: &[&Well]) -> Result<Vec<StagedFile>> {
     let mut staged = Vec::new();
     let mut features = Vec::new();
