@@ -1,15 +1,20 @@
-//! Raster input and output through GDAL.
+//! Input grids and output rasters.
 //!
-//! Reading: any raster GDAL opens (GeoTIFF, GDAL's XYZ text grids, ...), one band or every band
-//! of a stack, with a projected (or local) CRS in linear units; the declared nodata value and
-//! every NaN/inf are nulls. Writing: float32 GeoTIFF, one band per attribute, DEFLATE with the floating-point
-//! predictor, tiled 256 x 256, declared nodata, band descriptions and unit types.
-//! Every output is written under a temporary name in the target folder, read back to check it,
-//! and renamed when complete ([`StagedFile`]), so an interrupted run never leaves a truncated
-//! file under a final name. GDAL's own messages are captured and reported as one line instead
-//! of printed.
+//! Reading ([`read_raster`], the one reader of input grids): any raster GDAL opens, or a point
+//! list ([`points`]) decided by content; one band or every band of a stack, with a projected
+//! (or local) CRS in linear units; the declared nodata value, `--nodata` sentinels and every
+//! NaN/inf are nulls, and undeclared sentinels are searched for ([`nulls`]). Small text tables
+//! (surveys, stage tables, well lists) are read by [`table`].
+//! Writing: float32 (or float64) GeoTIFF, one band per attribute, DEFLATE with the
+//! floating-point predictor, tiled 256 x 256, declared nodata, band descriptions and unit
+//! types. Every output is written under a temporary name in the target folder, read back to
+//! check it, and renamed when complete ([`StagedFile`]), so an interrupted run never leaves a
+//! truncated file under a final name. GDAL's own messages are captured and reported as one
+//! line instead of printed.
 
+pub mod nulls;
 pub mod points;
+pub mod table;
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
@@ -19,9 +24,6 @@ use gdal::{Dataset, DriverManager, Metadata};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
 use std::sync::{Mutex, Once};
-
-pub mod nulls;
-pub mod table;
 
 /// Nodata value declared in float outputs.
 pub const NODATA: f32 = -99999.0;
@@ -125,11 +127,6 @@ impl Raster {
         };
         Ok((grid, self.info.units.remove(0)))
     }
-
-    /// Index of the band described as `name`.
-    pub fn band_index(&self, name: &str) -> Option<usize> {
-        self.info.names.iter().position(|n| n == name)
-    }
 }
 
 /// Reads band 1 of a single-band raster (see [`read_raster`]).
@@ -188,7 +185,6 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
 /// A point list on its exact lattice as a raster: bands named after the value columns, units
 /// from their header suffixes, the lattice described in the notes.
 fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
-    let grid = points::read_points(path, &options.point_options())?;
     let Some(definition) = options.crs.as_deref() else {
         return Err(FlexureError::input(
             path,
@@ -197,6 +193,7 @@ fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
     };
     let (_, srs) = assigned_crs(definition)?;
     let (crs_wkt, metres_per_unit) = linear_crs(&srs, path)?;
+    let grid = points::read_points(path, &options.point_options())?;
     let geometry = grid.geometry(crs_wkt, metres_per_unit);
     let mut notes = vec![format!(
         "{}: point list read onto its lattice: {}",
