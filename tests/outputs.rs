@@ -114,7 +114,9 @@ fn gdal_reads_back_georeference_bands_and_values() {
             assert_eq!(band["block"], serde_json::json!([256, 256]));
         }
         let structure = &info["metadata"]["IMAGE_STRUCTURE"];
-        assert_eq!(structure["COMPRESSION"], "DEFLATE");
+        // Band-interleaved ZSTD with the floating-point predictor, as GDAL reports it.
+        assert_eq!(structure["COMPRESSION"], "ZSTD");
+        assert_eq!(structure["INTERLEAVE"], "BAND");
         assert_eq!(structure["PREDICTOR"], "3");
         assert_eq!(info["metadata"][""]["FLEXURE_WINDOW_CELLS"], n.to_string());
     }

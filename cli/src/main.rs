@@ -10,11 +10,11 @@ use flexure_engine::horizon::{
     DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
 };
 use flexure_engine::io::points::ColumnRole;
-use flexure_engine::io::ReadOptions;
+use flexure_engine::io::{Compression, ReadOptions, TiffOptions};
 use flexure_engine::jobs::{
-    parse_numbers, read_well_list, AnisotropyJob, AzimuthReference, CurvatureJob, GridJob, Named,
-    PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource, WellBindings,
-    WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
+    parse_memory, parse_numbers, read_well_list, AnisotropyJob, AzimuthReference, CurvatureJob,
+    GridJob, Named, PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource,
+    WellBindings, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};
@@ -151,6 +151,8 @@ struct AnisotropyArgs {
     vector_scale: Option<f64>,
     #[command(flatten)]
     read: ReadArgs,
+    #[command(flatten)]
+    tiff: TiffArgs,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
@@ -176,6 +178,27 @@ struct ReadArgs {
     /// smaller bin.
     #[arg(long, default_value_t = 0.05)]
     lattice_tolerance: f64,
+}
+
+/// How output GeoTIFFs are written, shared by every command that writes rasters.
+#[derive(clap::Args)]
+struct TiffArgs {
+    /// Lossless compression of output GeoTIFFs: zstd (fast; GDAL 2.3 or later reads it),
+    /// deflate (for older readers) or none.
+    #[arg(long, value_parser = Compression::parse, default_value = "zstd")]
+    compress: Compression,
+    /// Write Cloud Optimized GeoTIFFs (with nearest-neighbour overviews).
+    #[arg(long)]
+    cog: bool,
+}
+
+impl TiffArgs {
+    fn options(&self) -> TiffOptions {
+        TiffOptions {
+            compression: self.compress,
+            cog: self.cog,
+        }
+    }
 }
 
 /// A `--columns` list (a newtype, so clap takes the whole list as one value).
@@ -211,6 +234,7 @@ impl AnisotropyArgs {
         job.axis = axis(self.vector);
         job.vector_scale = self.vector_scale;
         job.read = self.read.options();
+        job.tiff = self.tiff.options();
         Ok(job)
     }
 }
@@ -419,6 +443,8 @@ struct RenderArgs {
     shade_positive_up: bool,
     #[command(flatten)]
     read: ReadArgs,
+    #[command(flatten)]
+    tiff: TiffArgs,
     /// Colour limits LO,HI in the band's unit; default robust percentiles (2nd/98th).
     #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
     clip: Option<Vec<f64>>,
@@ -453,6 +479,7 @@ impl RenderArgs {
         job.shade = self.shade.clone();
         job.shade_positive_up = self.shade_positive_up;
         job.read = self.read.options();
+        job.tiff = self.tiff.options();
         job.clip = match self.clip.as_deref() {
             None => Clip::Auto,
             Some([lo, hi]) => Clip::Range(*lo, *hi),
@@ -572,6 +599,8 @@ struct HorizonArgs {
     min_valid: f64,
     #[command(flatten)]
     read: ReadArgs,
+    #[command(flatten)]
+    tiff: TiffArgs,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
@@ -583,6 +612,7 @@ impl HorizonArgs {
         job.horizon = self.domain.source(&self.input);
         job.min_valid = self.min_valid;
         job.read = self.read.options();
+        job.tiff = self.tiff.options();
         job
     }
 }
@@ -650,6 +680,8 @@ struct GridArgs {
     out: PathBuf,
     #[command(flatten)]
     read: ReadArgs,
+    #[command(flatten)]
+    tiff: TiffArgs,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
@@ -666,12 +698,17 @@ struct CurvatureArgs {
     /// Replace existing outputs even when they hold other bands than this run writes.
     #[arg(long)]
     overwrite: bool,
+    /// Working memory beyond the input grid (row batches and GDAL's block cache), e.g. 512M
+    /// or 2G; default a quarter of the machine's memory, at most 1G.
+    #[arg(long, value_parser = parse_memory)]
+    memory: Option<u64>,
 }
 
 impl CurvatureArgs {
     fn job(&self) -> Result<CurvatureJob, FlexureError> {
         let mut job = self.horizon.job();
         job.overwrite = self.overwrite;
+        job.memory = self.memory;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes
@@ -766,6 +803,7 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
         Command::Grid(args) => {
             let mut job = GridJob::new(&args.input, &args.out);
             job.read = args.read.options();
+            job.tiff = args.tiff.options();
             let report = job.run()?;
             if !args.quiet {
                 say(&report.to_string());

@@ -244,3 +244,90 @@ fn xyz_text_grid_is_read_with_an_assigned_crs() {
     );
     assert_eq!(outputs_in(&out), vec!["pick_w03.tif"]);
 }
+
+/// Runs `gdalinfo -json` (GDAL's own reader) on `path`.
+fn gdalinfo(path: &Path) -> serde_json::Value {
+    let o = std::process::Command::new("gdalinfo")
+        .args(["-json", path.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    serde_json::from_slice(&o.stdout).unwrap()
+}
+
+/// Every band's values as bits, read by the gdal crate.
+fn band_bits(path: &Path) -> Vec<Vec<u32>> {
+    let ds = gdal::Dataset::open(path).unwrap();
+    (1..=ds.raster_count())
+        .map(|i| {
+            let b = ds.rasterband(i).unwrap();
+            let size = ds.raster_size();
+            let buf = b.read_as::<f32>((0, 0), size, size, None).unwrap();
+            buf.data().iter().map(|v| v.to_bits()).collect()
+        })
+        .collect()
+}
+
+#[test]
+fn compression_and_cloud_optimized_layout_keep_every_value() {
+    // gdalinfo reports the compression, interleaving and COG layout GDAL finds in the file
+    // (IMAGE_STRUCTURE metadata); the values must read back bit for bit whatever the layout
+    // (lossless compression).
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "h.tif", bowl(600, 300), 32625);
+    let run = |name: &str, extra: &[&str]| {
+        let out = dir.path().join(name);
+        let mut args = vec![
+            "curvature",
+            input.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--windows",
+            "5",
+            "--quiet",
+        ];
+        args.extend(extra);
+        let o = flexure(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        out.join("h_w05.tif")
+    };
+    let zstd = run("zstd", &[]);
+    let deflate = run("deflate", &["--compress", "deflate"]);
+    let plain = run("none", &["--compress", "none", "--memory", "64M"]);
+    let cog = run("cog", &["--cog"]);
+    let structure = |p: &Path| gdalinfo(p)["metadata"]["IMAGE_STRUCTURE"].clone();
+    assert_eq!(structure(&zstd)["COMPRESSION"], "ZSTD");
+    assert_eq!(structure(&zstd)["INTERLEAVE"], "BAND");
+    assert_eq!(structure(&deflate)["COMPRESSION"], "DEFLATE");
+    assert!(structure(&plain).get("COMPRESSION").is_none());
+    assert_eq!(structure(&cog)["LAYOUT"], "COG");
+    assert_eq!(structure(&cog)["COMPRESSION"], "ZSTD");
+    let info = gdalinfo(&cog);
+    assert!(
+        info["bands"][0]["overviews"]
+            .as_array()
+            .is_some_and(|o| !o.is_empty()),
+        "a 600 x 300 COG has overviews"
+    );
+    assert_eq!(info["metadata"][""]["FLEXURE_WINDOW_CELLS"], "5");
+    let reference = band_bits(&zstd);
+    for other in [&deflate, &plain, &cog] {
+        assert!(band_bits(other) == reference, "{}", other.display());
+    }
+    // An unknown compression is refused naming the choices, before anything is written.
+    let out = dir.path().join("bad");
+    let o = flexure(&[
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--compress",
+        "lzw",
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        !o.status.success() && stderr.contains("deflate"),
+        "{stderr}"
+    );
+    assert!(!out.exists());
+}

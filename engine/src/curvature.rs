@@ -336,42 +336,59 @@ impl LocalSurface {
     }
 }
 
-/// Evaluates `attributes` at every cell of `field` (CRS units of `metres_per_unit` metres):
-/// one `[row, col]` array per attribute in its output unit, NaN where undefined or null.
+/// Evaluates `attributes` on every cell of a quadric field: one `[row, col]` array per
+/// attribute, NaN where the cell has no fit or the attribute is undefined there.
 pub fn evaluate_field(
     field: &QuadricField,
     attributes: &[&AttributeDef],
     metres_per_unit: f64,
     tolerance: FlatTolerance,
 ) -> Vec<Array2<f32>> {
-    let n = attributes.len();
     let cols = field.cols;
-    // Each row yields its bands one after another; rows are then joined band by band.
-    let rows: Vec<Vec<f32>> = field
+    let rows: Vec<Vec<Vec<f32>>> = field
         .cells
-        .par_chunks(cols)
+        .par_chunks(cols.max(1))
         .map(|row| {
-            let mut out = vec![f32::NAN; n * cols];
-            for (c, cell) in row.iter().enumerate() {
-                if let Some(q) = cell {
-                    let surface = LocalSurface::new(q, metres_per_unit, tolerance);
-                    for (k, a) in attributes.iter().enumerate() {
-                        out[k * cols + c] = a.evaluate(&surface).map_or(f32::NAN, |v| v as f32);
-                    }
-                }
-            }
-            out
+            let mut bands = vec![Vec::with_capacity(cols); attributes.len()];
+            evaluate_cells(
+                row.iter().map(Option::as_ref),
+                attributes,
+                metres_per_unit,
+                tolerance,
+                &mut bands,
+            );
+            bands
         })
         .collect();
-    (0..n)
+    (0..attributes.len())
         .map(|k| {
-            let mut band = Vec::with_capacity(field.rows * cols);
-            for row in &rows {
-                band.extend_from_slice(&row[k * cols..(k + 1) * cols]);
-            }
+            let band: Vec<f32> = rows.iter().flat_map(|r| r[k].iter().copied()).collect();
             Array2::from_shape_vec((field.rows, cols), band).expect("rows x cols values")
         })
         .collect()
+}
+
+/// Evaluates `attributes` on a run of fitted cells (`None` = no fit), appending one value per
+/// cell to each attribute's vector in `bands` (in `attributes` order; NaN where the cell has
+/// no fit or the attribute is undefined there). Units as in [`ATTRIBUTES`].
+pub fn evaluate_cells<'q>(
+    cells: impl Iterator<Item = Option<&'q Quadric>>,
+    attributes: &[&AttributeDef],
+    metres_per_unit: f64,
+    tolerance: FlatTolerance,
+    bands: &mut [Vec<f32>],
+) {
+    for cell in cells {
+        match cell {
+            Some(q) => {
+                let surface = LocalSurface::new(q, metres_per_unit, tolerance);
+                for (a, band) in attributes.iter().zip(bands.iter_mut()) {
+                    band.push(a.evaluate(&surface).map_or(f32::NAN, |v| v as f32));
+                }
+            }
+            None => bands.iter_mut().for_each(|b| b.push(f32::NAN)),
+        }
+    }
 }
 
 #[cfg(test)]

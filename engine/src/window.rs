@@ -19,7 +19,9 @@
 //!   are valid, or when the valid cells do not determine the quadric: the 1-norm condition
 //!   number of the scaled normal matrix exceeds [`CONDITION_LIMIT`] or its Cholesky factor fails.
 //! - Rows are processed in fixed tiles in parallel (rayon); each cell's sums run in a fixed
-//!   order, so results are bit-identical whatever the thread count.
+//!   order, so results are bit-identical whatever the thread count, and whichever run of rows
+//!   a cell is fitted in: jobs stream the grid through [`WindowFit::map_tiles`] batch by
+//!   batch and write each batch before fitting the next.
 
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -142,18 +144,11 @@ pub fn fit_quadrics_with_noise(
     progress: &(dyn Fn(usize) + Sync),
 ) -> Result<(QuadricField, Array2<f64>)> {
     let (rows, cols) = values.dim();
-    spec.validate(cols, rows)?;
-    let fitter = Fitter::new(values, geometry, spec, functionals)?;
-    let tiles: Vec<usize> = (0..rows).step_by(TILE_ROWS).collect();
-    let per_tile: Vec<Vec<Option<(Quadric, f64)>>> = tiles
-        .par_iter()
-        .map(|&r0| {
-            let r1 = (r0 + TILE_ROWS).min(rows);
-            let out = fitter.fit_tile(r0, r1);
-            progress(r1 - r0);
-            out
-        })
-        .collect();
+    let fit = WindowFit::new(values, geometry, spec, functionals)?;
+    let per_tile = fit.map_tiles(0..rows, |tile| {
+        progress(tile.rows());
+        tile.cells
+    });
     let mut cells = Vec::with_capacity(rows * cols);
     let mut power = Vec::with_capacity(rows * cols);
     for (q, p) in per_tile.into_iter().flatten().map(|c| c.unzip()) {
@@ -162,6 +157,90 @@ pub fn fit_quadrics_with_noise(
     }
     let power = Array2::from_shape_vec((rows, cols), power).expect("rows x cols cells");
     Ok((QuadricField { cols, rows, cells }, power))
+}
+
+/// The window fit of one grid, ready to fit any run of its rows: the one window mechanism
+/// every job streams through. Rows are fitted in fixed tiles (their height depends only on the
+/// window, never on the thread count) on rayon; every cell's sums run in a fixed order, so a
+/// cell's quadric is the same bits whichever run of rows it is fitted in.
+pub struct WindowFit<'a> {
+    fitter: Fitter<'a>,
+    tile_rows: usize,
+}
+
+/// The fitted cells of one tile: rows `first_row..first_row + cells.len() / cols`, row-major,
+/// each with its quadric and the noise power of the fit's functionals (see
+/// [`fit_quadrics_with_noise`]); `None` where the cell has no fit.
+pub struct FittedTile {
+    /// First grid row of the tile.
+    pub first_row: usize,
+    /// Columns of the grid.
+    pub cols: usize,
+    /// Row-major fitted cells.
+    pub cells: Vec<Option<(Quadric, f64)>>,
+}
+
+impl FittedTile {
+    /// Number of rows in the tile.
+    pub fn rows(&self) -> usize {
+        self.cells.len() / self.cols.max(1)
+    }
+}
+
+impl<'a> WindowFit<'a> {
+    /// Prepares the fit of `values` (`[row, col]`, NaN = null; z in CRS length units) over
+    /// `spec`'s window, with the noise power of `functionals` (rows over (a, b, c, d, e, f) in
+    /// map units; empty for none). Fails on a window the grid cannot take or a degenerate
+    /// geotransform.
+    pub fn new(
+        values: ArrayView2<'a, f64>,
+        geometry: &GridGeometry,
+        spec: &WindowSpec,
+        functionals: &[[f64; 6]],
+    ) -> Result<Self> {
+        let (rows, cols) = values.dim();
+        spec.validate(cols, rows)?;
+        let fitter = Fitter::new(values, geometry, spec, functionals)?;
+        Ok(Self {
+            fitter,
+            tile_rows: tile_rows(spec.half()),
+        })
+    }
+
+    /// Height of the fixed tiles; runs of rows given to [`WindowFit::map_tiles`] that start at
+    /// a multiple of it keep the tiling of a whole-grid fit.
+    pub fn tile_rows(&self) -> usize {
+        self.tile_rows
+    }
+
+    /// Fits the grid rows `rows` tile by tile in parallel and maps each tile's fitted cells
+    /// with `each`; the results come back in row order.
+    pub fn map_tiles<T: Send>(
+        &self,
+        rows: std::ops::Range<usize>,
+        each: impl Fn(FittedTile) -> T + Sync,
+    ) -> Vec<T> {
+        let end = rows.end.min(self.fitter.values.nrows());
+        let starts: Vec<usize> = (rows.start..end).step_by(self.tile_rows).collect();
+        starts
+            .par_iter()
+            .map(|&r0| {
+                let r1 = (r0 + self.tile_rows).min(end);
+                each(FittedTile {
+                    first_row: r0,
+                    cols: self.fitter.values.ncols(),
+                    cells: self.fitter.fit_tile(r0, r1),
+                })
+            })
+            .collect()
+    }
+}
+
+/// Tile height for a window of half width `half`: at least [`TILE_ROWS`], and at least four
+/// halves so the 2 x half halo rows of each tile's row pass add at most half the work for
+/// large windows.
+fn tile_rows(half: usize) -> usize {
+    TILE_ROWS.max(4 * half)
 }
 
 /// Fixed-window least-squares weights: entry `[k][(row, col)]` of the result is the weight of
@@ -343,12 +422,11 @@ impl<'a> Fitter<'a> {
             .collect();
         let full_inverse = full_window_inverse(half);
         let full_power = noise_power(&functionals, &full_inverse);
-        let valid: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
-        let z_shift = if valid.is_empty() {
-            0.0
-        } else {
-            valid.iter().sum::<f64>() / valid.len() as f64
-        };
+        let (sum, count) = values
+            .iter()
+            .filter(|v| v.is_finite())
+            .fold((0.0, 0usize), |(s, n), v| (s + v, n + 1));
+        let z_shift = if count == 0 { 0.0 } else { sum / count as f64 };
         let offsets: Vec<f64> = (-(half as isize)..=half as isize)
             .map(|u| u as f64 / half as f64)
             .collect();

@@ -5,22 +5,26 @@
 //! (or local) CRS in linear units; the declared nodata value, `--nodata` sentinels and every
 //! NaN/inf are nulls, and undeclared sentinels are searched for ([`nulls`]). Small text tables
 //! (surveys, stage tables, well lists) are read by [`table`].
-//! Writing: float32 (or float64) GeoTIFF, one band per attribute, DEFLATE with the
-//! floating-point predictor, tiled 256 x 256, declared nodata, band descriptions and unit
-//! types. Every output is written under a temporary name in the target folder, read back to
+//! Writing ([`geotiff`]): float32 (or float64) GeoTIFF, one band per attribute, written run of
+//! rows by run of rows, band-interleaved, tiled, ZSTD (or DEFLATE) with the floating-point
+//! predictor, declared nodata, band descriptions and unit types. Every output is written under a temporary name in the target folder, read back to
 //! check it, and renamed when complete ([`StagedFile`]), so an interrupted run never leaves a
 //! truncated file under a final name. GDAL's own messages are captured and reported as one
 //! line instead of printed.
 
+pub mod geotiff;
 pub mod nulls;
 pub mod points;
 pub mod table;
 
+use geotiff::{BandSpec, Layout};
+pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
+
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
-use gdal::raster::{Buffer, GdalType, RasterCreationOptions};
+use gdal::raster::GdalType;
 use gdal::spatial_ref::SpatialRef;
-use gdal::{Dataset, DriverManager, Metadata};
+use gdal::{Dataset, Metadata};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
 use std::sync::{Mutex, Once};
@@ -161,12 +165,12 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     for i in 1..=ds.raster_count() {
         let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
         let nodata = band.no_data_value();
-        let values = band
+        let mut values = band
             .read_as::<f64>((0, 0), size, size, None)
             .map_err(|e| FlexureError::read(path, e))?
             .to_array()
-            .map_err(|e| FlexureError::read(path, e))?
-            .mapv(|v| nulls::null_to_nan(v, nodata, &options.nodata));
+            .map_err(|e| FlexureError::read(path, e))?;
+        values.mapv_inplace(|v| nulls::null_to_nan(v, nodata, &options.nodata));
         if nodata.is_none() && options.find_sentinels {
             notes.extend(check_undeclared_nulls(&values, path, &format!("band {i}"))?);
         }
@@ -418,44 +422,58 @@ impl FloatSample for f64 {
     }
 }
 
-/// Writes a float32 (or float64) multi-band GeoTIFF on `geometry` atomically (temporary name, read-back
-/// check, rename). `metadata` is written as dataset-level items of the default domain.
+/// Writes a float32 (or float64) multi-band GeoTIFF on `geometry` atomically (temporary name,
+/// read-back check, rename) with the default [`TiffOptions`]. `metadata` is written as
+/// dataset-level items of the default domain.
 pub fn write_float_geotiff<T: FloatSample>(
     path: &Path,
     geometry: &GridGeometry,
     bands: &[BandOut<T>],
     metadata: &[(String, String)],
 ) -> Result<()> {
-    stage_float_geotiff(path, geometry, bands, metadata)?.commit()
+    stage_float_geotiff(path, geometry, bands, metadata, TiffOptions::default())?.commit()
 }
 
-/// Writes and checks the GeoTIFF of [`write_float_geotiff`] under a temporary name; the caller
-/// renames it into place with [`StagedFile::commit`] (with the other outputs of the same job).
+/// Writes and checks the GeoTIFF of [`write_float_geotiff`] under a temporary name, laid out
+/// and compressed as `options` say ([`geotiff`]); the caller renames it into place with
+/// [`StagedFile::commit`] (with the other outputs of the same job). Non-finite values are
+/// written as [`NODATA`].
 pub fn stage_float_geotiff<T: FloatSample>(
     path: &Path,
     geometry: &GridGeometry,
     bands: &[BandOut<T>],
     metadata: &[(String, String)],
+    options: TiffOptions,
 ) -> Result<StagedFile> {
     check_band_sizes(
         path,
         geometry,
         bands.iter().map(|b| (b.description, b.values.dim())),
     )?;
-    let tiff_bands = bands
+    let specs: Vec<BandSpec> = bands
         .iter()
-        .map(|b| TiffBand {
+        .map(|b| BandSpec {
             description: b.description,
             unit: b.unit,
             nodata: Some(NODATA as f64),
-            data: b
-                .values
-                .iter()
-                .map(|&v| if v.finite() { v } else { T::nodata() })
-                .collect(),
         })
         .collect();
-    stage_geotiff(path, geometry, &FLOAT_OPTIONS, tiff_bands, metadata)
+    let mut writer =
+        GeoTiffWriter::create::<T>(path, geometry, &specs, metadata, options, Layout::Float)?;
+    for (i, band) in bands.iter().enumerate() {
+        let values = band.values.iter().map(|&v| nodata_if_null(v)).collect();
+        writer.write_rows(i, 0, values)?;
+    }
+    writer.finish()
+}
+
+/// `v`, or [`NODATA`] when `v` is not finite.
+pub fn nodata_if_null<T: FloatSample>(v: T) -> T {
+    if v.finite() {
+        v
+    } else {
+        T::nodata()
+    }
 }
 
 /// Writes an 8-bit RGBA picture (`[red, green, blue, alpha]`, straight alpha, each
@@ -466,6 +484,7 @@ pub fn stage_rgba_geotiff(
     geometry: &GridGeometry,
     rgba: &[Array2<u8>; 4],
     metadata: &[(String, String)],
+    options: TiffOptions,
 ) -> Result<StagedFile> {
     let names = ["red", "green", "blue", "alpha"];
     check_band_sizes(
@@ -473,44 +492,20 @@ pub fn stage_rgba_geotiff(
         geometry,
         names.iter().zip(rgba).map(|(n, b)| (*n, b.dim())),
     )?;
-    let tiff_bands = names
+    let specs: Vec<BandSpec> = names
         .iter()
-        .zip(rgba)
-        .map(|(name, band)| TiffBand {
+        .map(|name| BandSpec {
             description: name,
             unit: "",
             nodata: None,
-            data: band.iter().copied().collect(),
         })
         .collect();
-    stage_geotiff(path, geometry, &RGBA_OPTIONS, tiff_bands, metadata)
-}
-
-const FLOAT_OPTIONS: [&str; 6] = [
-    "COMPRESS=DEFLATE",
-    "PREDICTOR=3",
-    "TILED=YES",
-    "BLOCKXSIZE=256",
-    "BLOCKYSIZE=256",
-    "BIGTIFF=IF_SAFER",
-];
-
-const RGBA_OPTIONS: [&str; 7] = [
-    "COMPRESS=DEFLATE",
-    "PREDICTOR=2",
-    "TILED=YES",
-    "BLOCKXSIZE=256",
-    "BLOCKYSIZE=256",
-    "PHOTOMETRIC=RGB",
-    "ALPHA=YES",
-];
-
-/// One band as GDAL gets it: row-major data with its description, unit and nodata.
-struct TiffBand<'a, T> {
-    description: &'a str,
-    unit: &'a str,
-    nodata: Option<f64>,
-    data: Vec<T>,
+    let mut writer =
+        GeoTiffWriter::create::<u8>(path, geometry, &specs, metadata, options, Layout::Rgba)?;
+    for (i, band) in rgba.iter().enumerate() {
+        writer.write_rows(i, 0, band.iter().copied().collect())?;
+    }
+    writer.finish()
 }
 
 fn check_band_sizes<'a>(
@@ -528,22 +523,6 @@ fn check_band_sizes<'a>(
         )),
         None => Ok(()),
     }
-}
-
-fn stage_geotiff<T: GdalType + Copy>(
-    path: &Path,
-    geometry: &GridGeometry,
-    options: &[&str],
-    bands: Vec<TiffBand<T>>,
-    metadata: &[(String, String)],
-) -> Result<StagedFile> {
-    capture_gdal_messages();
-    let staged = StagedFile::new(path);
-    let count = bands.len();
-    write_bands(&staged.temp, geometry, options, bands, metadata)
-        .and_then(|_| verify(&staged.temp, geometry, count))
-        .map_err(|reason| FlexureError::write(path, reason))?;
-    Ok(staged)
 }
 
 /// A complete output written under a temporary name beside its final path. [`commit`]
@@ -571,6 +550,11 @@ impl StagedFile {
     /// The temporary path to write to.
     pub fn temp(&self) -> &Path {
         &self.temp
+    }
+
+    /// The final path.
+    pub fn target(&self) -> &Path {
+        &self.target
     }
 
     /// Renames the temporary file to its final name.
@@ -615,55 +599,6 @@ pub(crate) fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
     format!("{context}: {}", messages.join("; "))
 }
 
-fn write_bands<T: GdalType + Copy>(
-    temp: &Path,
-    geometry: &GridGeometry,
-    options: &[&str],
-    bands: Vec<TiffBand<T>>,
-    metadata: &[(String, String)],
-) -> std::result::Result<(), String> {
-    take_gdal_messages();
-    let driver =
-        DriverManager::get_driver_by_name("GTiff").map_err(|e| gdal_failure("GTiff driver", e))?;
-    let options = RasterCreationOptions::from_iter(options.iter().copied());
-    let mut ds = driver
-        .create_with_band_type_with_options::<T, _>(
-            temp,
-            geometry.cols,
-            geometry.rows,
-            bands.len(),
-            &options,
-        )
-        .map_err(|e| gdal_failure("create", e))?;
-    ds.set_geo_transform(&geometry.geo_transform)
-        .map_err(|e| gdal_failure("geotransform", e))?;
-    let srs = SpatialRef::from_wkt(&geometry.crs_wkt).map_err(|e| gdal_failure("CRS", e))?;
-    ds.set_spatial_ref(&srs)
-        .map_err(|e| gdal_failure("CRS", e))?;
-    for (key, value) in metadata {
-        ds.set_metadata_item(key, value, "")
-            .map_err(|e| gdal_failure("metadata", e))?;
-    }
-    for (i, band) in bands.into_iter().enumerate() {
-        let mut rb = ds.rasterband(i + 1).map_err(|e| gdal_failure("band", e))?;
-        rb.set_description(band.description)
-            .map_err(|e| gdal_failure("band description", e))?;
-        if let Some(nodata) = band.nodata {
-            rb.set_no_data_value(Some(nodata))
-                .map_err(|e| gdal_failure("nodata", e))?;
-        }
-        if !band.unit.is_empty() {
-            set_unit(&rb, band.unit);
-        }
-        let mut buffer = Buffer::new((geometry.cols, geometry.rows), band.data);
-        rb.write((0, 0), (geometry.cols, geometry.rows), &mut buffer)
-            .map_err(|e| gdal_failure("write", e))?;
-    }
-    ds.flush_cache().map_err(|e| gdal_failure("flush", e))?;
-    drop(ds);
-    gdal_outcome()
-}
-
 /// `Ok` when GDAL reported no failure since the last take, else its messages on one line.
 pub(crate) fn gdal_outcome() -> std::result::Result<(), String> {
     let messages = take_gdal_messages();
@@ -672,26 +607,6 @@ pub(crate) fn gdal_outcome() -> std::result::Result<(), String> {
     } else {
         Err(messages.join("; "))
     }
-}
-
-/// Sets a band's unit type (GDALSetRasterUnitType; the gdal crate has no safe wrapper).
-fn set_unit(band: &gdal::raster::RasterBand, unit: &str) {
-    if let Ok(c_unit) = std::ffi::CString::new(unit) {
-        // SAFETY: the band handle is valid for the lifetime of `band`; GDAL copies the string.
-        unsafe {
-            gdal_sys::GDALSetRasterUnitType(band.c_rasterband(), c_unit.as_ptr());
-        }
-    }
-}
-
-/// Reopens a written file and checks its size and band count (GDAL < 3.7 reports no error on
-/// close, so a failed write shows only here).
-fn verify(temp: &Path, geometry: &GridGeometry, bands: usize) -> std::result::Result<(), String> {
-    let ds = Dataset::open(temp).map_err(|e| gdal_failure("read-back", e))?;
-    if ds.raster_size() != (geometry.cols, geometry.rows) || ds.raster_count() != bands {
-        return Err("read-back found a different size or band count than written".into());
-    }
-    Ok(())
 }
 
 /// Checks that `dir` exists (creating it if needed) and that files can be created in it.

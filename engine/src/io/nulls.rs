@@ -111,14 +111,16 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
         return None;
     }
     let median = crate::stats::median(&mut finite)?;
-    let mut deviations: Vec<f64> = finite.iter().map(|v| (v - median).abs()).collect();
-    let mad = crate::stats::median(&mut deviations)?;
+    // The copy becomes the deviations in place: one copy of the grid at a time.
+    finite.iter_mut().for_each(|v| *v = (*v - median).abs());
+    let mad = crate::stats::median(&mut finite)?;
     if mad <= 0.0 {
         return None;
     }
-    let found: Vec<f64> = finite
-        .into_iter()
-        .filter(|&v| (v - median).abs() > OUTLIER_MADS * mad)
+    let found: Vec<f64> = values
+        .iter()
+        .copied()
+        .filter(|&v| v.is_finite() && (v - median).abs() > OUTLIER_MADS * mad)
         .collect();
     (!found.is_empty()).then(|| Outliers {
         median,

@@ -13,7 +13,7 @@ use crate::horizon::DeclaredUnit;
 use crate::io::Raster;
 use crate::io::{
     commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut,
-    ReadOptions,
+    ReadOptions, TiffOptions,
 };
 use crate::provenance::Provenance;
 use crate::vectors::{
@@ -85,6 +85,8 @@ pub struct AnisotropyJob {
     pub vector_scale: Option<f64>,
     /// How to read the inputs (assumed CRS, null sentinels, point-list columns).
     pub read: ReadOptions,
+    /// How output GeoTIFFs are compressed and laid out.
+    pub tiff: TiffOptions,
 }
 
 impl AnisotropyJob {
@@ -103,6 +105,7 @@ impl AnisotropyJob {
             axis: VectorAxis::Fast,
             vector_scale: None,
             read: ReadOptions::default(),
+            tiff: TiffOptions::default(),
         }
     }
 
@@ -299,7 +302,8 @@ impl AnisotropyJob {
             .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
             .collect();
         let metadata = self.metadata(sectors, grid_azimuths, convergence, scale)?;
-        let raster = stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata)?;
+        let raster =
+            stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata, self.tiff)?;
         let mut staged = vec![raster];
         let layer = Layer {
             name: "anisotropy_vectors",

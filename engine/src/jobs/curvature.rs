@@ -2,17 +2,18 @@
 //! attributes and write one GeoTIFF per window, all committed together, each recording its
 //! provenance.
 
-use super::{value_range, Progress};
-use crate::curvature::{evaluate_field, AttributeDef, FlatTolerance, ATTRIBUTES};
+use super::{batch_rows, default_memory_budget, Progress};
+use crate::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::horizon::{Horizon, HorizonSource};
+use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::{
-    commit_all, prepare_output_dir, read_info, refuse_overwrite, stage_float_geotiff, BandOut,
-    ReadOptions, StagedFile,
+    commit_all, nodata_if_null, prepare_output_dir, read_info, refuse_overwrite, GeoTiffWriter,
+    ReadOptions, StagedFile, TiffOptions, NODATA,
 };
 use crate::provenance::Provenance;
-use crate::window::{fit_quadrics, WindowSpec};
+use crate::window::{FittedTile, WindowFit, WindowSpec};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -34,6 +35,11 @@ pub struct CurvatureJob {
     pub min_valid: f64,
     /// Replace existing outputs that hold other bands than this run writes.
     pub overwrite: bool,
+    /// Working memory in bytes beyond the input grid (row batches and GDAL's block cache);
+    /// [`default_memory_budget`] when `None`.
+    pub memory: Option<u64>,
+    /// How output GeoTIFFs are compressed and laid out.
+    pub tiff: TiffOptions,
 }
 
 impl CurvatureJob {
@@ -52,6 +58,8 @@ impl CurvatureJob {
             attributes: ATTRIBUTES.iter().collect(),
             min_valid: 0.75,
             overwrite: false,
+            memory: None,
+            tiff: TiffOptions::default(),
         }
     }
 
@@ -66,10 +74,15 @@ impl CurvatureJob {
         self.out_dir.join(format!("{stem}_w{n:02}.tif"))
     }
 
-    /// Runs the job and reports what it wrote. Every window's file is staged and the files are
-    /// committed together once all are written.
+    /// Runs the job and reports what it wrote. The grid is streamed through every window's
+    /// fit in batches of rows ([`WindowFit::map_tiles`]); each batch's attributes are written
+    /// before the next is fitted, so only the input and one batch are held. Every window's file
+    /// is staged and the files are committed together once all are written.
     pub fn run(&self, progress: &dyn Progress) -> Result<CurvatureReport> {
-        let prepared = self.prepare()?;
+        let mut prepared = self.prepare()?;
+        // Only the depth is fitted: the values as read are let go before the fit.
+        let input_null_share = prepared.horizon.grid.null_share();
+        prepared.horizon.grid.values = Array2::zeros((0, 0));
         for &n in &prepared.windows {
             let path = self.output_path(n);
             refuse_overwrite(&path, &self.horizon.inputs())?;
@@ -77,21 +90,109 @@ impl CurvatureJob {
         }
         let provenance = self.provenance(&prepared)?;
         let grid = &prepared.horizon.grid;
-        progress.begin((grid.geometry.rows * prepared.windows.len()) as u64);
-        let outcomes = prepared
+        let geometry = &grid.geometry;
+        let fits = prepared
             .windows
             .iter()
-            .map(|&n| self.run_window(&prepared, &provenance, n, progress))
-            .collect::<Result<Vec<_>>>();
+            .map(|&n| WindowFit::new(prepared.horizon.depth.view(), geometry, &self.spec(n), &[]))
+            .collect::<Result<Vec<_>>>()?;
+        let budget = self.memory.unwrap_or_else(default_memory_budget);
+        set_block_cache(budget / 4);
+        let batch_rows = batch_rows(budget / 2, geometry.cols, self.attributes.len());
+        let mut outputs = prepared
+            .windows
+            .iter()
+            .map(|&n| self.create_output(geometry, &provenance, n))
+            .collect::<Result<Vec<_>>>()?;
+        progress.begin((geometry.rows * fits.len()) as u64);
+        for first_row in (0..geometry.rows).step_by(batch_rows) {
+            let rows = first_row..(first_row + batch_rows).min(geometry.rows);
+            for (fit, output) in fits.iter().zip(&mut outputs) {
+                let tiles = fit.map_tiles(rows.clone(), |tile| {
+                    self.evaluate_tile(&tile, geometry.metres_per_unit, prepared.tolerance)
+                });
+                output.write(first_row, tiles)?;
+                progress.advance(rows.len() as u64);
+            }
+        }
         progress.finish();
-        let (reports, staged): (Vec<WindowReport>, Vec<StagedFile>) = outcomes?.into_iter().unzip();
+        let (reports, staged): (Vec<WindowReport>, Vec<StagedFile>) = outputs
+            .into_iter()
+            .map(|o| o.finish(geometry.cols * geometry.rows))
+            .collect::<Result<Vec<_>>>()?
+            .into_iter()
+            .unzip();
         commit_all(staged)?;
         Ok(CurvatureReport {
             input: self.horizon.path.clone(),
-            grid: grid.geometry.describe(),
-            input_null_share: grid.null_share(),
+            grid: geometry.describe(),
+            input_null_share,
             notes: prepared.horizon.notes.clone(),
             windows: reports,
+        })
+    }
+
+    fn spec(&self, n: usize) -> WindowSpec {
+        WindowSpec {
+            size: n,
+            min_valid: self.min_valid,
+        }
+    }
+
+    /// The attributes of one fitted tile, band by band, and its number of fitted cells.
+    fn evaluate_tile(
+        &self,
+        tile: &FittedTile,
+        metres_per_unit: f64,
+        tolerance: FlatTolerance,
+    ) -> TileValues {
+        let mut bands = vec![Vec::with_capacity(tile.cells.len()); self.attributes.len()];
+        let cells = tile.cells.iter().map(|c| c.as_ref().map(|(q, _)| q));
+        evaluate_cells(
+            cells,
+            &self.attributes,
+            metres_per_unit,
+            tolerance,
+            &mut bands,
+        );
+        TileValues {
+            bands,
+            fitted: tile.cells.iter().filter(|c| c.is_some()).count(),
+        }
+    }
+
+    /// Creates window `n`'s GeoTIFF, ready for rows.
+    fn create_output(
+        &self,
+        geometry: &GridGeometry,
+        provenance: &Provenance,
+        n: usize,
+    ) -> Result<WindowOutput> {
+        let specs: Vec<BandSpec> = self
+            .attributes
+            .iter()
+            .map(|a| BandSpec {
+                description: a.id,
+                unit: a.unit,
+                nodata: Some(NODATA as f64),
+            })
+            .collect();
+        let path = self.output_path(n);
+        let writer = GeoTiffWriter::create::<f32>(
+            &path,
+            geometry,
+            &specs,
+            &self.metadata(geometry, provenance, n),
+            self.tiff,
+            Layout::Float,
+        )?;
+        Ok(WindowOutput {
+            window: n,
+            path,
+            writer,
+            ids: self.attributes.iter().map(|a| a.id).collect(),
+            ranges: vec![None; self.attributes.len()],
+            fitted: 0,
         })
     }
 
@@ -190,60 +291,6 @@ impl CurvatureJob {
         ))
     }
 
-    fn run_window(
-        &self,
-        prepared: &Prepared,
-        provenance: &Provenance,
-        n: usize,
-        progress: &dyn Progress,
-    ) -> Result<(WindowReport, StagedFile)> {
-        let geometry = &prepared.horizon.grid.geometry;
-        let spec = WindowSpec {
-            size: n,
-            min_valid: self.min_valid,
-        };
-        let field = fit_quadrics(prepared.horizon.depth.view(), geometry, &spec, &|rows| {
-            progress.advance(rows as u64)
-        })?;
-        let values = evaluate_field(
-            &field,
-            &self.attributes,
-            geometry.metres_per_unit,
-            prepared.tolerance,
-        );
-        let ranges = self
-            .attributes
-            .iter()
-            .zip(&values)
-            .map(|(a, v)| (a.id, value_range(v)))
-            .collect();
-        let bands: Vec<BandOut> = self
-            .attributes
-            .iter()
-            .zip(values)
-            .map(|(a, values)| BandOut {
-                description: a.id,
-                unit: a.unit,
-                values,
-            })
-            .collect();
-        let path = self.output_path(n);
-        let staged = stage_float_geotiff(
-            &path,
-            geometry,
-            &bands,
-            &self.metadata(geometry, provenance, n),
-        )?;
-        let fitted = field.cells.iter().filter(|c| c.is_some()).count();
-        let report = WindowReport {
-            window: n,
-            path,
-            null_share: 1.0 - fitted as f64 / field.cells.len() as f64,
-            ranges,
-        };
-        Ok((report, staged))
-    }
-
     fn metadata(
         &self,
         geometry: &GridGeometry,
@@ -282,11 +329,63 @@ pub(crate) struct Prepared {
     pub(crate) tolerance: FlatTolerance,
 }
 
+/// One tile's attribute values, band by band (NaN nulls), and its number of fitted cells.
+struct TileValues {
+    bands: Vec<Vec<f32>>,
+    fitted: usize,
+}
+
+/// One window's output while rows stream in: its writer, running value ranges and fit count.
+struct WindowOutput {
+    window: usize,
+    path: PathBuf,
+    writer: GeoTiffWriter,
+    ids: Vec<&'static str>,
+    ranges: Vec<Option<(f32, f32)>>,
+    fitted: usize,
+}
+
+impl WindowOutput {
+    /// Writes the tiles of one batch (in row order, starting at `first_row`) band by band,
+    /// updating the ranges and the count of fitted cells.
+    fn write(&mut self, first_row: usize, tiles: Vec<TileValues>) -> Result<()> {
+        self.fitted += tiles.iter().map(|t| t.fitted).sum::<usize>();
+        for band in 0..self.ids.len() {
+            let values: Vec<f32> = tiles
+                .iter()
+                .flat_map(|t| t.bands[band].iter().copied())
+                .collect();
+            self.ranges[band] = values.iter().filter(|v| v.is_finite()).fold(
+                self.ranges[band],
+                |acc, &x| match acc {
+                    None => Some((x, x)),
+                    Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
+                },
+            );
+            let values = values.into_iter().map(nodata_if_null).collect();
+            self.writer.write_rows(band, first_row, values)?;
+        }
+        Ok(())
+    }
+
+    /// Finishes the file; its report and staged file. `cells` is the grid's cell count.
+    fn finish(self, cells: usize) -> Result<(WindowReport, StagedFile)> {
+        let staged = self.writer.finish()?;
+        let report = WindowReport {
+            window: self.window,
+            path: self.path,
+            null_share: 1.0 - self.fitted as f64 / cells as f64,
+            ranges: self.ids.into_iter().zip(self.ranges).collect(),
+        };
+        Ok((report, staged))
+    }
+}
+
 /// Largest |z - mean| over the valid cells.
 fn excursion(z: &Array2<f64>) -> f64 {
-    let valid: Vec<f64> = z.iter().copied().filter(|v| v.is_finite()).collect();
-    let mean = valid.iter().sum::<f64>() / valid.len().max(1) as f64;
-    valid.iter().map(|v| (v - mean).abs()).fold(0.0, f64::max)
+    let valid = || z.iter().copied().filter(|v| v.is_finite());
+    let mean = valid().sum::<f64>() / valid().count().max(1) as f64;
+    valid().map(|v| (v - mean).abs()).fold(0.0, f64::max)
 }
 
 /// What a curvature job wrote.
@@ -345,5 +444,61 @@ impl fmt::Display for CurvatureReport {
             }
         }
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::curvature::evaluate_field;
+    use crate::jobs::Silent;
+    use crate::window::fit_quadrics;
+
+    /// A 700-row grid streamed in 256-row batches (a 1 MB budget) with nulls and a gap across
+    /// two batch boundaries gives, bit for bit, the attributes of one whole-grid fit and
+    /// evaluation (the reference: `fit_quadrics` and `evaluate_field` on the whole grid, as the
+    /// job computed them before it streamed). Nulls are written as the declared nodata.
+    #[test]
+    fn streamed_batches_equal_the_whole_grid_fit() {
+        let dir = tempfile::tempdir().unwrap();
+        let geometry =
+            crate::demo::survey_geometry((500_000.0, 3_900_000.0), 30.0, (25.0, 12.5), (40, 700));
+        let mut values = Array2::from_shape_fn((700, 40), |(r, c)| {
+            (2000.0 + 30.0 * (r as f64 / 57.0).sin() * (c as f64 / 9.0).cos()) as f32
+        });
+        for r in 250..262 {
+            values[(r, 17)] = f32::NAN;
+        }
+        values[(511, 3)] = f32::NAN;
+        let input = dir.path().join("h.tif");
+        let band = crate::io::BandOut {
+            description: "depth",
+            unit: "metre",
+            values: values.clone(),
+        };
+        crate::io::write_float_geotiff(&input, &geometry, &[band], &[]).unwrap();
+        let mut job = CurvatureJob::new(&input, dir.path().join("out"), vec![3, 9]);
+        job.memory = Some(1 << 20);
+        job.run(&Silent).unwrap();
+        let depth = values.mapv(f64::from);
+        for n in [3, 9] {
+            let spec = WindowSpec {
+                size: n,
+                min_valid: job.min_valid,
+            };
+            let field = fit_quadrics(depth.view(), &geometry, &spec, &|_| {}).unwrap();
+            let tolerance =
+                FlatTolerance::for_grid(excursion(&depth), 12.5, geometry.metres_per_unit);
+            let expected = evaluate_field(&field, &job.attributes, 1.0, tolerance);
+            let written = crate::io::read_raster(&job.output_path(n), &ReadOptions::default())
+                .unwrap()
+                .bands;
+            for (e, w) in expected.iter().zip(&written) {
+                let same = e.iter().zip(w).all(|(&e, &w)| {
+                    (e.is_nan() && w.is_nan()) || e.to_bits() == (w as f32).to_bits()
+                });
+                assert!(same, "window {n}");
+            }
+        }
     }
 }

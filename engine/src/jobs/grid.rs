@@ -7,6 +7,7 @@
 use crate::error::Result;
 use crate::io::{
     prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut, ReadOptions,
+    TiffOptions,
 };
 use crate::provenance::Provenance;
 use std::fmt;
@@ -21,6 +22,8 @@ pub struct GridJob {
     pub read: ReadOptions,
     /// GeoTIFF to write.
     pub out: PathBuf,
+    /// How output GeoTIFFs are compressed and laid out.
+    pub tiff: TiffOptions,
 }
 
 impl GridJob {
@@ -30,6 +33,7 @@ impl GridJob {
             input: input.into(),
             read: ReadOptions::default(),
             out: out.into(),
+            tiff: TiffOptions::default(),
         }
     }
 
@@ -73,7 +77,14 @@ impl GridJob {
         for (k, note) in raster.notes.iter().enumerate() {
             provenance = provenance.with(&format!("read_note_{}", k + 1), note.clone());
         }
-        stage_float_geotiff(&self.out, &raster.geometry, &bands, provenance.items())?.commit()?;
+        stage_float_geotiff(
+            &self.out,
+            &raster.geometry,
+            &bands,
+            provenance.items(),
+            self.tiff,
+        )?
+        .commit()?;
         let cells = raster.bands.first().map_or(0, |b| b.len()).max(1);
         let nulls = raster
             .bands

@@ -42,14 +42,57 @@ impl Progress for Silent {
     fn finish(&self) {}
 }
 
-/// (min, max) of the finite values, if any.
-pub(crate) fn value_range(v: &ndarray::Array2<f32>) -> Option<(f32, f32)> {
-    v.iter()
-        .filter(|x| x.is_finite())
-        .fold(None, |acc, &x| match acc {
-            None => Some((x, x)),
-            Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
+/// The default working memory of a job beyond its input: a quarter of the machine's memory
+/// (Linux `/proc/meminfo`; 8 GiB assumed where it cannot be read), at most 1 GiB, at least
+/// 256 MiB.
+pub fn default_memory_budget() -> u64 {
+    const GIB: u64 = 1 << 30;
+    let total = std::fs::read_to_string("/proc/meminfo")
+        .ok()
+        .and_then(|text| {
+            let line = text.lines().find(|l| l.starts_with("MemTotal:"))?;
+            let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+            Some(kib * 1024)
         })
+        .unwrap_or(8 * GIB);
+    (total / 4).clamp(GIB / 4, GIB)
+}
+
+/// Parses a memory size: bytes, or a number with `K`, `M`, `G` (binary multiples, an optional
+/// `B` or `iB`), e.g. `512M`, `1.5G`; at least 64 MiB.
+pub fn parse_memory(text: &str) -> std::result::Result<u64, String> {
+    let t = text.trim().to_ascii_uppercase();
+    let t = t.trim_end_matches("IB").trim_end_matches('B');
+    let (number, scale) = match t.chars().last() {
+        Some('K') => (&t[..t.len() - 1], 1u64 << 10),
+        Some('M') => (&t[..t.len() - 1], 1 << 20),
+        Some('G') => (&t[..t.len() - 1], 1 << 30),
+        _ => (t, 1),
+    };
+    let bytes = number
+        .trim()
+        .parse::<f64>()
+        .ok()
+        .filter(|v| v.is_finite() && *v > 0.0)
+        .map(|v| (v * scale as f64) as u64)
+        .ok_or_else(|| format!("memory size '{text}' is not understood: give e.g. 512M or 2G"))?;
+    if bytes < 64 << 20 {
+        return Err(format!(
+            "memory size '{text}' is below 64M: give at least 64M"
+        ));
+    }
+    Ok(bytes)
+}
+
+/// Rows per batch for a streamed grid of `cols` columns with `bands` float32 output bands
+/// when the batches may hold `bytes`: a multiple of the GeoTIFF block height (so every block
+/// is written once), at least one block row. A row in flight holds each band twice (tile
+/// results and the joined band) plus the fit's row sums (64 bytes a cell).
+pub(crate) fn batch_rows(bytes: u64, cols: usize, bands: usize) -> usize {
+    let block = crate::io::geotiff::BLOCK_ROWS;
+    let per_row = (cols.max(1) * (8 * bands + 64)) as u64;
+    let rows = (bytes / per_row) as usize;
+    (rows / block).max(1) * block
 }
 
 /// `given`, or `given/anisotropy.tif` when `given` is a folder.
@@ -167,4 +210,32 @@ pub(crate) fn stage_figure(
         stage_bytes(&base.with_extension("svg"), fig.to_svg().as_bytes())?,
         stage_png(&base.with_extension("png"), &fig.to_pixmap())?,
     ])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn memory_sizes_in_binary_multiples() {
+        // K, M, G as powers of 1024 (IEC 80000-13 binary prefixes, the usual reading of
+        // memory sizes on the command line; common practice).
+        assert_eq!(parse_memory("512M"), Ok(512 << 20));
+        assert_eq!(parse_memory("2g"), Ok(2 << 30));
+        assert_eq!(parse_memory("1.5GiB"), Ok(3 << 29));
+        assert_eq!(parse_memory("100MB"), Ok(100 << 20));
+        assert!(parse_memory("10M").unwrap_err().contains("64M"));
+        assert!(parse_memory("lots").unwrap_err().contains("not understood"));
+        assert!(parse_memory("-1G").is_err());
+    }
+
+    #[test]
+    fn batches_are_whole_block_rows_within_the_budget() {
+        // 13 bands on 8192 columns: 8192 * (8 * 13 + 64) bytes a row.
+        let per_row = 8192 * (8 * 13 + 64);
+        assert_eq!(batch_rows(300 * per_row, 8192, 13), 256);
+        assert_eq!(batch_rows(600 * per_row, 8192, 13), 512);
+        // Never below one block row, however small the budget.
+        assert_eq!(batch_rows(1, 8192, 13), 256);
+    }
 }

@@ -10,7 +10,7 @@ use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::{
     commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_rgba_geotiff, Raster,
-    RasterInfo, ReadOptions, StagedFile,
+    RasterInfo, ReadOptions, StagedFile, TiffOptions,
 };
 use crate::provenance::Provenance;
 use crate::render::{
@@ -55,6 +55,8 @@ pub struct RenderJob {
     pub out: PathBuf,
     /// PNG quicklook to write, if any.
     pub png: Option<PathBuf>,
+    /// How output GeoTIFFs are compressed and laid out.
+    pub tiff: TiffOptions,
 }
 
 impl RenderJob {
@@ -74,6 +76,7 @@ impl RenderJob {
             vector_scale: None,
             out: out.into(),
             png: None,
+            tiff: TiffOptions::default(),
         }
     }
 
@@ -122,6 +125,7 @@ impl RenderJob {
             &geometry,
             &pixmap_bands(&map),
             &metadata,
+            self.tiff,
         )?];
         if let Some(png) = &self.png {
             let legend_parts = LegendParts {

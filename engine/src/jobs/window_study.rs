@@ -127,7 +127,7 @@ impl WindowStudyJob {
                 .with("step_thresholds", step_list(&s))
                 .items()
                 .to_vec();
-            staged.push(stage_float_geotiff(path, g, &bands, &meta)?);
+            staged.push(stage_float_geotiff(path, g, &bands, &meta, self.fit.tiff)?);
         }
         commit_all(staged)?;
         Ok(WindowStudyReport {
