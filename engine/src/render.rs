@@ -4,10 +4,12 @@
 //! north arrow and extent. Pure pixel work on `tiny-skia` pixmaps; files are written by the
 //! render job.
 //!
-//! Pixel geometry: a picture of a grid has `px.0` pixels per column and `px.1` per row, so the
-//! image is the grid's own layout (rows down, columns across); map points go to pixels through
-//! the inverse geotransform. With pixel counts proportional to the bin sizes the image keeps
-//! the map's shape (rotated with the grid; the north arrow shows where north is).
+//! Pixel geometry: a picture of a grid has `px.0` pixels per column and `px.1` per row (any
+//! positive scale: below one, each pixel shows the cell under its centre, so a large grid is
+//! drawn at a picture's size rather than one pixel per cell), so the image is the grid's own
+//! layout (rows down, columns across); map points go to pixels through the inverse
+//! geotransform. With pixel scales proportional to the bin sizes the image keeps the map's
+//! shape (rotated with the grid; the north arrow shows where north is).
 
 use crate::colour::{short, ColourScale};
 use crate::grid::GridGeometry;
@@ -114,22 +116,41 @@ pub fn colour_cells(
     })
 }
 
-/// A pixmap of `cells` with `px` = (pixels per column, pixels per row).
-pub fn cells_to_pixmap(cells: &Array2<[u8; 4]>, px: (u32, u32)) -> Pixmap {
+/// A pixmap of `cells` with `px` = (pixels per column, pixels per row), each pixel the colour
+/// of the cell under its centre (nearest neighbour: colours are never mixed).
+pub fn cells_to_pixmap(cells: &Array2<[u8; 4]>, px: (f64, f64)) -> Pixmap {
     let (rows, cols) = cells.dim();
-    let (w, h) = (cols as u32 * px.0, rows as u32 * px.1);
-    let mut pixmap = Pixmap::new(w.max(1), h.max(1)).expect("non-empty picture");
-    let width = pixmap.width() as usize;
+    let (w, h) = picture_size((cols, rows), px);
+    let mut pixmap = Pixmap::new(w, h).expect("non-empty picture");
+    let source = |pixel: u32, scale: f64, n: usize| {
+        (((pixel as f64 + 0.5) / scale) as usize).min(n.max(1) - 1)
+    };
+    let columns: Vec<usize> = (0..w).map(|x| source(x, px.0, cols)).collect();
+    let width = w as usize;
     let pixels = pixmap.pixels_mut();
-    for ((r, c), rgba) in cells.indexed_iter() {
-        let colour = premultiplied(*rgba);
-        for y in r * px.1 as usize..(r + 1) * px.1 as usize {
-            for x in c * px.0 as usize..(c + 1) * px.0 as usize {
-                pixels[y * width + x] = colour;
-            }
+    for y in 0..h {
+        let r = source(y, px.1, rows);
+        for (x, &c) in columns.iter().enumerate() {
+            pixels[y as usize * width + x] = premultiplied(cells[(r, c)]);
         }
     }
     pixmap
+}
+
+/// Pixels per (column, row) that draw `geometry`'s grid about `long_side` pixels along its
+/// longer side, each scale proportional to its bin size so the picture keeps the map's shape:
+/// below one pixel per cell on large grids, above it on small ones.
+pub fn picture_scale(geometry: &GridGeometry, long_side: f64) -> (f64, f64) {
+    let (sx, sy) = geometry.spacing();
+    let units_per_px = (geometry.cols as f64 * sx).max(geometry.rows as f64 * sy) / long_side;
+    (sx / units_per_px, sy / units_per_px)
+}
+
+/// Width and height in pixels of a picture of a `(cols, rows)` grid at `px` pixels per
+/// column and row (at least one each).
+pub fn picture_size((cols, rows): (usize, usize), px: (f64, f64)) -> (u32, u32) {
+    let size = |n: usize, scale: f64| ((n as f64 * scale).round() as u32).max(1);
+    (size(cols, px.0), size(rows, px.1))
 }
 
 fn premultiplied([r, g, b, a]: [u8; 4]) -> PremultipliedColorU8 {
@@ -162,9 +183,9 @@ pub struct MapSegment {
 }
 
 /// Pixel position of map point `p` in a picture of `geometry` with `px` pixels per cell.
-pub fn map_to_pixel(geometry: &GridGeometry, px: (u32, u32), p: (f64, f64)) -> (f32, f32) {
+pub fn map_to_pixel(geometry: &GridGeometry, px: (f64, f64), p: (f64, f64)) -> (f32, f32) {
     let (col, row) = geometry.map_to_grid(p.0, p.1);
-    ((col * px.0 as f64) as f32, (row * px.1 as f64) as f32)
+    ((col * px.0) as f32, (row * px.1) as f32)
 }
 
 /// Draws axial segments anti-aliased: a light halo one pixel wider on each side under a
@@ -172,7 +193,7 @@ pub fn map_to_pixel(geometry: &GridGeometry, px: (u32, u32), p: (f64, f64)) -> (
 pub fn draw_segments(
     pixmap: &mut Pixmap,
     geometry: &GridGeometry,
-    px: (u32, u32),
+    px: (f64, f64),
     segments: &[MapSegment],
     width: f32,
 ) {
@@ -526,5 +547,45 @@ mod tests {
             .filter(|&(x, y)| page.pixel(x, y).unwrap().red() < 100)
             .count();
         assert!(dark > 20, "{dark} dark title pixels");
+    }
+
+    #[test]
+    fn large_grids_are_drawn_at_picture_size_in_map_shape() {
+        // A 3000 x 1000 grid of 25 m x 12.5 m bins is 75 km by 12.5 km: at 300 px on the long
+        // side the picture is 300 x 50 px (the map's 6:1 shape, from the bin sizes), not one
+        // pixel per cell, and each pixel shows the cell under its centre.
+        let g = GridGeometry {
+            cols: 3000,
+            rows: 1000,
+            geo_transform: [0.0, 25.0, 0.0, 0.0, 0.0, -12.5],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        let px = picture_scale(&g, 300.0);
+        assert_eq!(picture_size((g.cols, g.rows), px), (300, 50));
+        let cells = Array2::from_shape_fn((1000, 3000), |(r, c)| {
+            [(c / 10 % 256) as u8, (r / 20 % 256) as u8, 0, 255]
+        });
+        let picture = cells_to_pixmap(&cells, px);
+        assert_eq!((picture.width(), picture.height()), (300, 50));
+        for (x, y) in [(0, 0), (7, 3), (299, 49), (150, 25)] {
+            // Pixel centre (x + 0.5) / 0.1 cells across, (y + 0.5) / 0.05 down.
+            let (c, r) = ((x as f64 + 0.5) / 0.1, (y as f64 + 0.5) / 0.05);
+            let p = picture.pixel(x, y).unwrap();
+            assert_eq!(
+                (p.red(), p.green()),
+                ((c as usize / 10 % 256) as u8, (r as usize / 20 % 256) as u8)
+            );
+        }
+        // Small grids are drawn larger than one pixel per cell, still in shape.
+        let small = GridGeometry {
+            cols: 30,
+            rows: 20,
+            ..g
+        };
+        assert_eq!(
+            picture_size((30, 20), picture_scale(&small, 300.0)),
+            (300, 100)
+        );
     }
 }

@@ -207,6 +207,11 @@ impl<'a> WindowFit<'a> {
         })
     }
 
+    /// (rows, columns) of the grid.
+    pub fn dim(&self) -> (usize, usize) {
+        self.fitter.values.dim()
+    }
+
     /// Height of the fixed tiles; runs of rows given to [`WindowFit::map_tiles`] that start at
     /// a multiple of it keep the tiling of a whole-grid fit.
     pub fn tile_rows(&self) -> usize {

@@ -42,13 +42,11 @@
 //! - Recommended window: the single window whose map is closest (RMS) to the adaptive map, the
 //!   best estimate of the attribute the study has.
 
-use crate::curvature::{evaluate_field, AttributeDef, DerivativeOrder, FlatTolerance};
+use crate::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::error::Result;
 use crate::grid::GridGeometry;
 use crate::synthetic::SeededNoise;
-use crate::window::{
-    fit_quadrics, fit_quadrics_with_noise, full_window_kernels, QuadricField, WindowSpec,
-};
+use crate::window::{full_window_kernels, Quadric, WindowFit, WindowSpec};
 use nalgebra::DMatrix;
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
@@ -100,13 +98,17 @@ pub fn estimate_noise(
         size: 3,
         min_valid: 1.0,
     };
-    let field = fit_quadrics(depth, geometry, &spec, &|_| {})?;
     let leverage = crate::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
-    let mut residuals: Vec<f64> = field
-        .cells
-        .iter()
-        .zip(depth.iter())
-        .filter_map(|(q, z)| q.map(|q| z - q.f))
+    let fit = WindowFit::new(depth, geometry, &spec, &[])?;
+    let mut residuals: Vec<f64> = fit
+        .map_tiles(0..depth.nrows(), |tile| {
+            let at = |i: usize| (tile.first_row + i / tile.cols, i % tile.cols);
+            (tile.cells.iter().enumerate())
+                .filter_map(|(i, c)| c.map(|(q, _)| depth[at(i)] - q.f))
+                .collect::<Vec<f64>>()
+        })
+        .into_iter()
+        .flatten()
         .collect();
     if residuals.is_empty() {
         return Ok(None);
@@ -201,33 +203,29 @@ pub fn study(
     } = noise_model(geometry, windows, attribute.order, noise.sigma)?;
     let mut rng = SeededNoise::new(NOISE_SEED);
     let noisy = Array2::from_shape_fn(depth.dim(), |at| depth[at] + noise.sigma * rng.gaussian());
-    let attribute_map = |field: &QuadricField| -> Array2<f64> {
-        evaluate_field(field, &[attribute], geometry.metres_per_unit, tolerance)
-            .remove(0)
-            .mapv(f64::from)
-    };
-    let (mut maps, mut noise_sds, mut ratios, mut fitted) =
-        (Vec::new(), Vec::new(), Vec::new(), Vec::new());
     let functionals = attribute.order.functionals();
+    let (mut maps, mut noise_sds) = (Vec::new(), Vec::new());
+    let mut choice = Choice::new(depth.dim());
     let mut previous: Option<(Vectors, Array2<f64>)> = None;
-    for &n in windows {
+    for (k, &n) in windows.iter().enumerate() {
         let spec = WindowSpec { size: n, min_valid };
-        let (clean, power) =
-            fit_quadrics_with_noise(depth, geometry, &spec, &functionals, &|_| {})?;
-        let perturbed = fit_quadrics(noisy.view(), geometry, &spec, &|_| {})?;
-        let map = attribute_map(&clean);
-        noise_sds.push(rms_difference(&map, &attribute_map(&perturbed)));
-        let current = derivative_vectors(&clean, attribute.order);
-        fitted.push(current[0].mapv(f64::is_finite));
-        if let Some((prev, prev_power)) = &previous {
-            let expected = (prev_power - &power) * noise.sigma.powi(2);
-            ratios.push(pooled_ratio(prev, &current, &expected));
-        }
-        previous = Some((current, power));
-        maps.push(map);
+        let fits = WindowFitPair {
+            clean: WindowFit::new(depth, geometry, &spec, &functionals)?,
+            perturbed: WindowFit::new(noisy.view(), geometry, &spec, &[])?,
+        };
+        let fitted = fits.evaluate(attribute, geometry.metres_per_unit, tolerance);
+        noise_sds.push(rms_difference(&fitted.map, &fitted.perturbed));
+        let ratio = previous.as_ref().map(|(prev, prev_power)| {
+            let expected = (prev_power - &fitted.power) * noise.sigma.powi(2);
+            pooled_ratio(prev, &fitted.vectors, &expected)
+        });
+        let step = k.checked_sub(1).map(|j| &steps[j]);
+        choice.step(k, &fitted.vectors[0], ratio.as_ref(), step);
+        previous = Some((fitted.vectors, fitted.power));
+        maps.push(fitted.map);
     }
-    let chosen_index =
-        Array2::from_shape_fn(depth.dim(), |at| chosen_at(at, &fitted, &ratios, &steps));
+    drop(previous);
+    let chosen_index = choice.chosen;
     let adaptive = Array2::from_shape_fn(depth.dim(), |at| {
         chosen_index[at].map_or(f64::NAN, |k| maps[k][at])
     });
@@ -303,20 +301,6 @@ fn window_figures(
 /// window has no fit.
 type Vectors = [Array2<f64>; 3];
 
-fn derivative_vectors(field: &QuadricField, order: DerivativeOrder) -> Vectors {
-    let mut out: Vectors =
-        std::array::from_fn(|_| Array2::from_elem((field.rows, field.cols), f64::NAN));
-    for (i, q) in field.cells.iter().enumerate() {
-        if let Some(q) = q {
-            let at = (i / field.cols, i % field.cols);
-            for (map, v) in out.iter_mut().zip(order.vector(q)) {
-                map[at] = v;
-            }
-        }
-    }
-    out
-}
-
 /// The pooled squared change between two windows' derivative vectors as a ratio to its pooled
 /// expectation under noise alone, `expected` per cell (NaN where either window has no fit).
 /// For nested least-squares fits the larger window is efficient, so the variance of the change
@@ -344,25 +328,154 @@ fn pooled_ratio(smaller: &Vectors, larger: &Vectors, expected: &Array2<f64>) -> 
         })
 }
 
-/// The window index chosen at cell `at`: from the smallest window with a fit, each next window
-/// is kept while it has a fit and its pooled ratio to the previous one is within the step's
-/// threshold. `ratios[k - 1]` compares windows k - 1 and k.
-fn chosen_at(
-    at: (usize, usize),
-    fitted: &[Array2<bool>],
-    ratios: &[Array2<f64>],
-    steps: &[StepTest],
-) -> Option<usize> {
-    let first = fitted.iter().position(|f| f[at])?;
-    let mut chosen = first;
-    for k in first + 1..fitted.len() {
-        let within = ratios[k - 1][at] <= steps[k - 1].threshold;
-        if !fitted[k][at] || !within {
-            break;
+/// The per-cell window choice, made one window at a time: from the smallest window with a fit,
+/// each next window is kept while it has a fit and its pooled ratio to the previous one is
+/// within the step's threshold; once a cell stops, it keeps its window.
+struct Choice {
+    /// Index of the window chosen so far (`None` before the first window with a fit).
+    chosen: Array2<Option<usize>>,
+    /// Whether the cell may still take a larger window.
+    open: Array2<bool>,
+}
+
+impl Choice {
+    fn new(dim: (usize, usize)) -> Self {
+        Self {
+            chosen: Array2::from_elem(dim, None),
+            open: Array2::from_elem(dim, true),
         }
-        chosen = k;
     }
-    Some(chosen)
+
+    /// Window `k`: `first` is any of its derivative maps (NaN where it has no fit), `ratio` the
+    /// pooled ratio from window k - 1 and `step` that step's test (both `None` for k = 0).
+    fn step(
+        &mut self,
+        k: usize,
+        first: &Array2<f64>,
+        ratio: Option<&Array2<f64>>,
+        step: Option<&StepTest>,
+    ) {
+        ndarray::Zip::indexed(&mut self.chosen)
+            .and(&mut self.open)
+            .for_each(|at, chosen, open| {
+                let fitted = first[at].is_finite();
+                match chosen {
+                    None if fitted => *chosen = Some(k),
+                    Some(_) if *open => {
+                        let within = match (ratio, step) {
+                            (Some(r), Some(s)) => r[at] <= s.threshold,
+                            _ => false,
+                        };
+                        if fitted && within {
+                            *chosen = Some(k);
+                        } else {
+                            *open = false;
+                        }
+                    }
+                    _ => {}
+                }
+            });
+    }
+}
+
+/// The clean and noise-perturbed fits of one window.
+struct WindowFitPair<'a> {
+    clean: WindowFit<'a>,
+    perturbed: WindowFit<'a>,
+}
+
+/// What the study keeps of one window: the attribute of the clean and perturbed horizons, the
+/// derivative vectors ([`DerivativeOrder::vector`]) and the noise power of the clean fit.
+struct FittedWindow {
+    map: Array2<f64>,
+    perturbed: Array2<f64>,
+    vectors: Vectors,
+    power: Array2<f64>,
+}
+
+impl WindowFitPair<'_> {
+    /// Streams both fits in batches of rows, keeping only the per-cell values the study
+    /// needs.
+    fn evaluate(
+        &self,
+        attribute: &AttributeDef,
+        metres_per_unit: f64,
+        tolerance: FlatTolerance,
+    ) -> FittedWindow {
+        let dim = self.clean.dim();
+        let nan = || Array2::from_elem(dim, f64::NAN);
+        let mut out = FittedWindow {
+            map: nan(),
+            perturbed: nan(),
+            vectors: [nan(), nan(), nan()],
+            power: nan(),
+        };
+        let value = |cells: &[Option<(Quadric, f64)>]| {
+            let mut band = vec![Vec::with_capacity(cells.len())];
+            let quadrics = cells.iter().map(|c| c.as_ref().map(|(q, _)| q));
+            evaluate_cells(
+                quadrics,
+                &[attribute],
+                metres_per_unit,
+                tolerance,
+                &mut band,
+            );
+            band.remove(0)
+        };
+        let batch = STUDY_BATCH_ROWS.max(self.clean.tile_rows());
+        for first_row in (0..dim.0).step_by(batch) {
+            let rows = first_row..(first_row + batch).min(dim.0);
+            let cells = |r: &std::ops::Range<usize>| r.start * dim.1..r.end * dim.1;
+            let clean = self.clean.map_tiles(rows.clone(), |tile| {
+                let rows = tile.first_row..tile.first_row + tile.rows();
+                (rows, value(&tile.cells), tile.cells)
+            });
+            for (rows, values, fitted) in clean {
+                let range = cells(&rows);
+                fill(
+                    &mut out.map,
+                    range.clone(),
+                    values.iter().map(|&v| f64::from(v)),
+                );
+                let power = fitted.iter().map(|c| c.map_or(f64::NAN, |(_, p)| p));
+                fill(&mut out.power, range.clone(), power);
+                for (j, vector) in out.vectors.iter_mut().enumerate() {
+                    let v = fitted.iter().map(|c| {
+                        c.as_ref()
+                            .map_or(f64::NAN, |(q, _)| attribute.order.vector(q)[j])
+                    });
+                    fill(vector, range.clone(), v);
+                }
+            }
+            let perturbed = self.perturbed.map_tiles(rows.clone(), |tile| {
+                let rows = tile.first_row..tile.first_row + tile.rows();
+                (rows, value(&tile.cells))
+            });
+            for (rows, values) in perturbed {
+                fill(
+                    &mut out.perturbed,
+                    cells(&rows),
+                    values.iter().map(|&v| f64::from(v)),
+                );
+            }
+        }
+        out
+    }
+}
+
+/// Rows per batch of the study's streamed fits.
+const STUDY_BATCH_ROWS: usize = 256;
+
+/// Writes `values` into the row-major cells `range` of `target`.
+fn fill(
+    target: &mut Array2<f64>,
+    range: std::ops::Range<usize>,
+    values: impl Iterator<Item = f64>,
+) {
+    let slice = target.as_slice_mut().expect("standard-layout array");
+    for (cell, v) in slice[range].iter_mut().zip(values) {
+        *cell = v;
+    }
 }
 
 /// The noise model of a study: the tests between consecutive windows and each window's exact
@@ -618,6 +731,22 @@ fn robust_spread(values: &[f64]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::window::{fit_quadrics_with_noise, QuadricField};
+
+    /// The derivative vectors of a whole quadric field (NaN where the window has no fit).
+    fn derivative_vectors(field: &QuadricField, order: DerivativeOrder) -> Vectors {
+        let mut out: Vectors =
+            std::array::from_fn(|_| Array2::from_elem((field.rows, field.cols), f64::NAN));
+        for (i, q) in field.cells.iter().enumerate() {
+            if let Some(q) = q {
+                let at = (i / field.cols, i % field.cols);
+                for (map, v) in out.iter_mut().zip(order.vector(q)) {
+                    map[at] = v;
+                }
+            }
+        }
+        out
+    }
     use crate::curvature::{attribute_by_id, LocalSurface};
     use crate::demo::survey_geometry;
     use crate::synthetic::{Shape, Surface};

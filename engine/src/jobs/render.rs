@@ -14,8 +14,8 @@ use crate::io::{
 };
 use crate::provenance::Provenance;
 use crate::render::{
-    cells_to_pixmap, colour_cells, draw_segments, hillshade, pixmap_bands, quicklook, Legend,
-    MapSegment,
+    cells_to_pixmap, colour_cells, draw_segments, hillshade, picture_scale, pixmap_bands,
+    quicklook, Legend, MapSegment,
 };
 use ndarray::Array2;
 use std::fmt;
@@ -112,8 +112,8 @@ impl RenderJob {
         }
         let cells = colour_cells(values, &scale, shade.as_ref());
         let segments = vectors.as_ref().map_or(&[][..], |v| &v.segments[..]);
-        let mut map = cells_to_pixmap(&cells, (1, 1));
-        draw_segments(&mut map, &geometry, (1, 1), segments, 1.0);
+        let mut map = cells_to_pixmap(&cells, (1.0, 1.0));
+        draw_segments(&mut map, &geometry, (1.0, 1.0), segments, 1.0);
         let sources: Vec<PathBuf> = std::iter::once(self.attribute.clone())
             .chain(self.shade.clone())
             .chain(self.anisotropy.as_deref().map(anisotropy_file))
@@ -327,7 +327,7 @@ impl RenderJob {
         stage_png(path, &quicklook(&map, &legend))
     }
 
-    fn legend(&self, geometry: &GridGeometry, px: (u32, u32), parts: &LegendParts) -> Legend {
+    fn legend(&self, geometry: &GridGeometry, px: (f64, f64), parts: &LegendParts) -> Legend {
         let unit = parts
             .info
             .units
@@ -348,7 +348,7 @@ impl RenderJob {
         );
         let vectors = parts.vectors.map(|v| {
             let bar_ms = one_digit(v.typical_ms.max(1e-6));
-            let metres_per_px = geometry.spacing().0 * geometry.metres_per_unit / px.0 as f64;
+            let metres_per_px = geometry.spacing().0 * geometry.metres_per_unit / px.0;
             let bar_px = (bar_ms * v.scale / metres_per_px) as f32;
             let note = format!(
                 "bar = {} ms; {} azimuth vectors on every {} x {} anisotropy bins with SNR >= {}; {} m per ms. HTI reading: fast = fracture strike; not a stress measurement.",
@@ -359,7 +359,7 @@ impl RenderJob {
         let (x, y) = geometry.centre();
         let (c0, r0) = geometry.map_to_grid(x, y);
         let (c1, r1) = geometry.map_to_grid(x, y + 1.0);
-        let (dx, dy) = ((c1 - c0) * px.0 as f64, (r1 - r0) * px.1 as f64);
+        let (dx, dy) = ((c1 - c0) * px.0, (r1 - r0) * px.1);
         let corner = |c: usize, r: usize| {
             let g = &geometry.geo_transform;
             let (i, j) = (c as f64, r as f64);
@@ -405,11 +405,8 @@ struct LegendParts<'a> {
 
 /// Pixels per (column, row) for a quicklook about [`QUICKLOOK_SIZE`] pixels on its long side,
 /// proportional to the bin sizes so the picture keeps the map's shape.
-fn quicklook_pixels(geometry: &GridGeometry) -> (u32, u32) {
-    let (sx, sy) = geometry.spacing();
-    let metres_per_px = (geometry.cols as f64 * sx).max(geometry.rows as f64 * sy) / QUICKLOOK_SIZE;
-    let px = |s: f64| ((s / metres_per_px).round() as u32).max(1);
-    (px(sx), px(sy))
+fn quicklook_pixels(geometry: &GridGeometry) -> (f64, f64) {
+    picture_scale(geometry, QUICKLOOK_SIZE)
 }
 
 /// `v` rounded to one significant digit.

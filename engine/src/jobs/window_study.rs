@@ -12,7 +12,10 @@ use crate::error::{FlexureError, Result};
 use crate::figure::{Anchor, Figure, Mark};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
 use crate::provenance::Provenance;
-use crate::render::{cells_to_pixmap, colour_cells, panel};
+use crate::render::{cells_to_pixmap, colour_cells, panel, picture_scale};
+
+/// Long side in pixels of each map of the window-study panel.
+const PANEL_MAP_SIZE: f64 = 300.0;
 use crate::window_study::{
     study, Study, WindowFigures, NOISE_BAND, NOISE_ESTIMATOR, POOL_RADIUS, PROPAGATION_ALPHA,
     WINDOW_RULE,
@@ -219,12 +222,7 @@ impl WindowStudyJob {
                     "the attribute is null everywhere at the recommended window",
                 )
             })?;
-        let (sx, sy) = g.spacing();
-        let mpp = (g.cols as f64 * sx).max(g.rows as f64 * sy) / 300.0;
-        let px = (
-            ((sx / mpp).round() as u32).max(1),
-            ((sy / mpp).round() as u32).max(1),
-        );
+        let px = picture_scale(g, PANEL_MAP_SIZE);
         let tile = |m: &ndarray::Array2<f64>| cells_to_pixmap(&colour_cells(m, &scale, None), px);
         let mut maps: Vec<(String, tiny_skia::Pixmap)> = s
             .windows
