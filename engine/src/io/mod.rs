@@ -76,6 +76,9 @@ pub struct ReadOptions {
     /// Search bands without a declared nodata for undeclared sentinels ([`nulls`]); off for
     /// grids where 0 or 999 are plain values (sector weights such as fold).
     pub find_sentinels: bool,
+    /// Read only this band (0-based; `Raster::bands` then holds it alone, while
+    /// `Raster::info` still describes every band); every band when `None`.
+    pub only_band: Option<usize>,
 }
 
 impl Default for ReadOptions {
@@ -87,6 +90,7 @@ impl Default for ReadOptions {
             columns: points.columns,
             lattice_tolerance: points.lattice_tolerance,
             find_sentinels: true,
+            only_band: None,
         }
     }
 }
@@ -162,7 +166,9 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     let size = (geometry.cols, geometry.rows);
     let mut notes = Vec::new();
     let mut bands = Vec::new();
-    for i in 1..=ds.raster_count() {
+    let count = ds.raster_count();
+    let wanted = |i: usize| options.only_band.is_none_or(|b| b + 1 == i);
+    for i in (1..=count).filter(|&i| wanted(i)) {
         let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
         let nodata = band.no_data_value();
         let mut values = band
@@ -176,6 +182,7 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
         }
         bands.push(values);
     }
+    check_only_band(path, options, count)?;
     let info = raster_info(&ds, path)?;
     take_gdal_messages();
     Ok(Raster {
@@ -184,6 +191,17 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
         info,
         notes,
     })
+}
+
+/// Refuses `options.only_band` beyond a raster's `count` bands.
+fn check_only_band(path: &Path, options: &ReadOptions, count: usize) -> Result<()> {
+    match options.only_band {
+        Some(b) if b >= count => Err(FlexureError::input(
+            path,
+            format!("has {count} band(s), no band {}", b + 1),
+        )),
+        _ => Ok(()),
+    }
 }
 
 /// A point list on its exact lattice as a raster: bands named after the value columns, units
@@ -219,9 +237,14 @@ fn read_point_list(path: &Path, options: &ReadOptions) -> Result<Raster> {
             .collect(),
         metadata: Vec::new(),
     };
+    check_only_band(path, options, grid.bands.len())?;
+    let mut bands = grid.bands;
+    if let Some(b) = options.only_band {
+        bands = vec![bands.swap_remove(b)];
+    }
     Ok(Raster {
         geometry,
-        bands: grid.bands,
+        bands,
         info,
         notes,
     })
@@ -721,5 +744,31 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(err.contains("geographic"), "{err}");
+    }
+
+    #[test]
+    fn one_band_of_a_stack_reads_as_in_the_whole_read() {
+        // Reference: the same band in a read of every band; GDAL's band numbering is 1-based
+        // (GDAL raster data model), ours 0-based.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("stack.tif");
+        let bands: Vec<BandOut> = (0..3)
+            .map(|k| BandOut {
+                description: ["a", "b", "c"][k],
+                unit: "",
+                values: Array2::from_shape_fn((4, 5), |(r, c)| (100 * k + 10 * r + c) as f32),
+            })
+            .collect();
+        write_float_geotiff(&path, &geometry(), &bands, &[]).unwrap();
+        let whole = read_raster(&path, &ReadOptions::default()).unwrap();
+        let only = |b| ReadOptions {
+            only_band: Some(b),
+            ..ReadOptions::default()
+        };
+        let one = read_raster(&path, &only(1)).unwrap();
+        assert_eq!(one.bands, vec![whole.bands[1].clone()]);
+        assert_eq!(one.info.names, vec!["a", "b", "c"]);
+        let err = read_raster(&path, &only(3)).unwrap_err().to_string();
+        assert!(err.contains("has 3 band(s), no band 4"), "{err}");
     }
 }

@@ -9,8 +9,8 @@ use crate::colour::{short, Clip, ColourScale};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::{
-    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_rgba_geotiff, Raster,
-    RasterInfo, ReadOptions, StagedFile, TiffOptions,
+    commit_all, prepare_output_dir, read_info, read_raster, refuse_overwrite, stage_rgba_geotiff,
+    Raster, RasterInfo, ReadOptions, StagedFile, TiffOptions,
 };
 use crate::provenance::Provenance;
 use crate::render::{
@@ -83,10 +83,20 @@ impl RenderJob {
     /// Runs the job and reports what it drew.
     pub fn run(&self) -> Result<RenderReport> {
         self.check_parameters()?;
-        let raster = read_raster(&self.attribute, &ReadOptions::default())?;
+        // Only the band drawn is read (a raster's band list comes from its header; a point
+        // list is read whole).
+        let only_band = match read_info(&self.attribute) {
+            Ok(info) => Some(self.band_index(&info)?),
+            Err(_) => None,
+        };
+        let options = ReadOptions {
+            only_band,
+            ..ReadOptions::default()
+        };
+        let raster = read_raster(&self.attribute, &options)?;
         let (geometry, bands, info) = (raster.geometry, raster.bands, raster.info);
         let index = self.band_index(&info)?;
-        let values = &bands[index];
+        let values = &bands[if only_band.is_some() { 0 } else { index }];
         let id = band_id(&info, index);
         let scale = ColourScale::for_band(&id, values, self.clip).ok_or_else(|| {
             FlexureError::input(
