@@ -169,7 +169,7 @@ fn results_do_not_depend_on_thread_count() {
 #[test]
 fn shipped_demo_data_matches_its_generator() {
     let dir = tempfile::tempdir().unwrap();
-    let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_horizons");
+    let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("../demo_horizons");
     for fresh in write_demo_data(dir.path()).unwrap() {
         let name = fresh.file_name().unwrap();
         let old = shipped.join(name);
