@@ -385,7 +385,7 @@ pub fn segment(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::synthetic::SeededNoise;
+    use crate::stats::SeededNoise;
     use approx::assert_relative_eq;
 
     #[test]

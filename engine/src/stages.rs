@@ -203,7 +203,6 @@ pub fn perpendicularity_score(bins: &[BinSample], azimuth: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::demo::survey_geometry;
     use crate::wells::corridor;
 
     fn uniform(n: usize, fast: f64) -> Vec<BinSample> {
@@ -230,7 +229,13 @@ mod tests {
     fn corridor_bin_count_matches_the_analytic_area() {
         // 30 m bins, a 300 m stage with 150 m half-width: 300 x 300 m / 900 m^2 = 100 bins,
         // within one row of bins (10) (the common-practice check; elementary area).
-        let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (30.0, 30.0), (100, 100));
+        let g = GridGeometry::survey(
+            (500_000.0, 3_900_000.0),
+            90.0,
+            (30.0, 30.0),
+            (100, 100),
+            String::new(),
+        );
         for (az, start) in [
             (90.0f64, (501_000.0, 3_898_500.0)),
             (37.0, (501_100.0, 3_898_400.0)),
@@ -282,7 +287,13 @@ mod tests {
     fn bilinear_reproduces_a_plane() {
         // A plane z = 1000 + 0.1 x - 0.05 y sampled at cell centres is reproduced exactly
         // between them (bilinear interpolation is exact on planes; elementary).
-        let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (10, 8));
+        let g = GridGeometry::survey(
+            (500_000.0, 3_900_000.0),
+            90.0,
+            (25.0, 25.0),
+            (10, 8),
+            String::new(),
+        );
         let plane = |x: f64, y: f64| 1000.0 + 0.1 * (x - 500_000.0) - 0.05 * (y - 3_900_000.0);
         let v = Array2::from_shape_fn((8, 10), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);

@@ -45,7 +45,7 @@
 use crate::curvature::{evaluate_field, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::synthetic::SeededNoise;
+use crate::stats::SeededNoise;
 use crate::window::{
     fit_quadrics, fit_quadrics_with_noise, full_window_kernels, QuadricField, WindowSpec,
 };
@@ -619,13 +619,10 @@ fn robust_spread(values: &[f64]) -> f64 {
 mod tests {
     use super::*;
     use crate::curvature::{attribute_by_id, LocalSurface};
-    use crate::demo::survey_geometry;
     use crate::synthetic::{Shape, Surface};
 
     fn grid(n: usize) -> GridGeometry {
-        let mut g = survey_geometry((0.0, 10_000.0), 90.0, (25.0, 25.0), (n, n));
-        g.crs_wkt = String::new();
-        g
+        GridGeometry::survey((0.0, 10_000.0), 90.0, (25.0, 25.0), (n, n), String::new())
     }
 
     /// A fold of Gaussian section `width` m across its axis at `azimuth` degrees through `origin`
@@ -806,7 +803,7 @@ mod tests {
         // var(smaller - larger) = var(smaller) - var(larger). For full windows on a rotated,
         // non-square grid: the kernels' squared difference against the fits' noise powers, and
         // those powers against the kernels' own squares.
-        let g = survey_geometry((0.0, 0.0), 25.0, (25.0, 12.5), (40, 40));
+        let g = GridGeometry::survey((0.0, 0.0), 25.0, (25.0, 12.5), (40, 40), String::new());
         for order in [DerivativeOrder::First, DerivativeOrder::Second] {
             let power = |n: usize| {
                 let spec = WindowSpec {
