@@ -20,6 +20,7 @@
 //!   `G^T W G` above [`SECTOR_CONDITION_LIMIT`]. With exactly three sectors the fit is exact and
 //!   the residual variance, standard errors and bias correction are undefined (NaN).
 
+use crate::stats::{quantile, Quantile};
 use nalgebra::{Matrix3, Vector3};
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -353,17 +354,13 @@ pub fn vector_bins<T: Copy>(
         .collect()
 }
 
-/// Default vector scale in metres per ms: the 95th-percentile of `magnitudes` draws 0.9 of
+/// Default vector scale in metres per ms: the 95th percentile ([`Quantile::Nearest`]) of
+/// `magnitudes` draws 0.9 of
 /// the distance between neighbouring vectors (`spacing_m`), so they rarely overlap. 0 when no
 /// magnitude is positive.
 pub fn default_vector_scale(magnitudes: impl Iterator<Item = f64>, spacing_m: f64) -> f64 {
     let mut m: Vec<f64> = magnitudes.filter(|v| v.is_finite() && *v > 0.0).collect();
-    if m.is_empty() {
-        return 0.0;
-    }
-    m.sort_by(f64::total_cmp);
-    let p95 = m[((m.len() - 1) as f64 * 0.95).round() as usize];
-    0.9 * spacing_m / p95
+    quantile(&mut m, 0.95, Quantile::Nearest).map_or(0.0, |p95| 0.9 * spacing_m / p95)
 }
 
 /// End points (CRS units) of a segment of `length_m` metres centred on `centre` along

@@ -11,6 +11,7 @@
 //!
 //! Values beyond the clip are drawn in the end colours; NaN has no colour (transparent).
 
+use crate::stats::{quantile, quantiles, Quantile};
 use ndarray::Array2;
 
 /// How values map onto colours.
@@ -110,7 +111,9 @@ impl ColourScale {
             ScaleKind::ShapeIndex => (-1.0, 1.0, "full range -1 (bowl) .. +1 (dome)".into()),
             ScaleKind::Diverging => {
                 let mut magnitudes: Vec<f64> = finite.iter().map(|v| v.abs()).collect();
-                let c = positive_or_one(percentile(&mut magnitudes, 0.98));
+                let c = positive_or_one(
+                    quantile(&mut magnitudes, 0.98, Quantile::Nearest).unwrap_or(f64::NAN),
+                );
                 (
                     -c,
                     c,
@@ -118,8 +121,8 @@ impl ColourScale {
                 )
             }
             ScaleKind::Sequential => {
-                let lo = percentile(&mut finite, 0.02);
-                let mut hi = percentile(&mut finite, 0.98);
+                let [lo, mut hi] = quantiles(&mut finite, [0.02, 0.98], Quantile::Nearest)
+                    .unwrap_or([f64::NAN; 2]);
                 if hi <= lo {
                     hi = lo + positive_or_one(lo.abs() * 1e-3);
                 }
@@ -203,12 +206,6 @@ fn brewer_linear(gradient: colorous::Gradient, t: f64) -> [u8; 3] {
 
 fn rgb(c: colorous::Color) -> [u8; 3] {
     [c.r, c.g, c.b]
-}
-
-/// The `q` quantile of `v` (sorted in place), nearest rank.
-fn percentile(v: &mut [f64], q: f64) -> f64 {
-    v.sort_by(f64::total_cmp);
-    v[((v.len() - 1) as f64 * q).round() as usize]
 }
 
 /// `v` with about four significant digits, for legends.

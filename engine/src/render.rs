@@ -11,6 +11,7 @@
 
 use crate::colour::{short, ColourScale};
 use crate::grid::GridGeometry;
+use crate::stats::{quantile, Quantile};
 use ab_glyph::{Font, FontRef, PxScale, ScaleFont};
 use ndarray::Array2;
 use tiny_skia::{
@@ -44,9 +45,7 @@ pub fn hillshade(
             .filter_map(|g| g.map(|(gx, gy)| gx.hypot(gy)))
             .filter(|s| *s > 0.0)
             .collect();
-        slopes.sort_by(f64::total_cmp);
-        slopes
-            .get(((slopes.len().max(1) - 1) as f64 * 0.95).round() as usize)
+        quantile(&mut slopes, 0.95, Quantile::Nearest)
             .map_or(1.0, |p95| 30f64.to_radians().tan() / p95)
     }) * sign;
     let (az, alt) = (SUN_AZIMUTH.to_radians(), SUN_ALTITUDE.to_radians());

@@ -11,6 +11,7 @@
 
 use crate::circular::{axial_angle, summarise};
 use crate::grid::GridGeometry;
+use crate::stats::{quantiles, Quantile};
 use crate::wells::inside;
 use ndarray::Array2;
 
@@ -114,25 +115,21 @@ pub fn corridor_stats(bins: &[BinSample], well_azimuth: f64) -> CorridorStats {
     }
 }
 
-/// (mean, p10, p50, p90) of the finite `values` (nearest rank); NaN when there are none.
+/// (mean, p10, p50, p90) of the finite `values` (percentiles [`Quantile::Nearest`], values
+/// of the sample); NaN when there are none.
 pub fn percentiles(values: &[f64]) -> (f64, f64, f64, f64) {
     let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
-    if v.is_empty() {
+    let Some([p10, p50, p90]) = quantiles(&mut v, [0.1, 0.5, 0.9], Quantile::Nearest) else {
         return (f64::NAN, f64::NAN, f64::NAN, f64::NAN);
-    }
-    v.sort_by(f64::total_cmp);
-    let at = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    (
-        v.iter().sum::<f64>() / v.len() as f64,
-        at(0.1),
-        at(0.5),
-        at(0.9),
-    )
+    };
+    // Summed in ascending order (`quantiles` sorted `v`).
+    let mean = v.iter().sum::<f64>() / v.len() as f64;
+    (mean, p10, p50, p90)
 }
 
 /// (circular mean, p10, p50, p90) of the finite `angles` (degrees) on a circle of `period`
 /// degrees (360 for directions such as dip azimuth, 180 for axes): the mean direction of
-/// [`summarise`] (equal weights), and nearest-rank percentiles of the signed deviations from
+/// [`summarise`] (equal weights), and the [`percentiles`] of the signed deviations from
 /// it (in `-period/2 .. period/2`) added back modulo `period`. All NaN when there is no angle
 /// or the angles cancel (no mean direction).
 pub fn circular_percentiles(angles: &[f64], period: f64) -> (f64, f64, f64, f64) {

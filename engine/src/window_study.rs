@@ -45,7 +45,7 @@
 use crate::curvature::{evaluate_field, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::stats::SeededNoise;
+use crate::stats::{median_and_mad, quantiles, Quantile, SeededNoise};
 use crate::window::{
     fit_quadrics, fit_quadrics_with_noise, full_window_kernels, QuadricField, WindowSpec,
 };
@@ -111,9 +111,7 @@ pub fn estimate_noise(
     if residuals.is_empty() {
         return Ok(None);
     }
-    let median = crate::stats::median(&mut residuals).unwrap_or(f64::NAN);
-    let mut deviations: Vec<f64> = residuals.iter().map(|r| (r - median).abs()).collect();
-    let mad = crate::stats::median(&mut deviations).unwrap_or(f64::NAN);
+    let (_, mad) = median_and_mad(&mut residuals).unwrap_or((f64::NAN, f64::NAN));
     Ok(Some(NoiseEstimate {
         sigma: 1.4826 * mad / (1.0 - leverage).sqrt(),
         n: residuals.len(),
@@ -606,13 +604,8 @@ fn rms_of(v: impl Iterator<Item = f64>) -> f64 {
 }
 
 fn robust_spread(values: &[f64]) -> f64 {
-    if values.is_empty() {
-        return f64::NAN;
-    }
-    let mut v = values.to_vec();
-    v.sort_by(f64::total_cmp);
-    let at = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    (at(0.75) - at(0.25)) / 1.349
+    quantiles(&mut values.to_vec(), [0.25, 0.75], Quantile::Nearest)
+        .map_or(f64::NAN, |[q1, q3]| (q3 - q1) / 1.349)
 }
 
 #[cfg(test)]

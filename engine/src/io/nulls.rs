@@ -110,9 +110,7 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
     if finite.len() < 3 {
         return None;
     }
-    let median = crate::stats::median(&mut finite)?;
-    let mut deviations: Vec<f64> = finite.iter().map(|v| (v - median).abs()).collect();
-    let mad = crate::stats::median(&mut deviations)?;
+    let (median, mad) = crate::stats::median_and_mad(&mut finite)?;
     if mad <= 0.0 {
         return None;
     }
