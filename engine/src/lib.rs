@@ -18,6 +18,7 @@
 //! benches.
 
 pub mod anisotropy;
+pub mod bands;
 pub mod circular;
 pub mod colour;
 pub mod curvature;

@@ -360,7 +360,7 @@ fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f3
 
 /// The value at ramp position `t` (inverse of [`ColourScale::position`] on the clipped range).
 fn value_at(scale: &ColourScale, t: f64) -> f64 {
-    if scale.kind == crate::colour::ScaleKind::Diverging && scale.lo < 0.0 && scale.hi > 0.0 {
+    if scale.kind == crate::bands::ScaleKind::Diverging && scale.lo < 0.0 && scale.hi > 0.0 {
         if t < 0.5 {
             -scale.lo * (2.0 * t - 1.0)
         } else {
