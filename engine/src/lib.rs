@@ -7,6 +7,8 @@
 //! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
 //! together for the command line. [`anisotropy`] fits the cos 2phi model of
 //! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
+//! [`bands`] reads what the two band tables say about a band (unit, colour-scale kind, vector
+//! role) for every band, also one read back from a file by its name.
 //! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade; [`figure`]
 //! draws roses and charts as SVG and PNG. [`wells`], [`circular`] and [`stages`] give stage
 //! corridors and their statistics; [`window_study`] measures noise against detail. [`stats`]
