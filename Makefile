@@ -31,4 +31,4 @@ test: lint
 
 ## Criterion throughput benchmarks (not part of the tests).
 bench: deps
-	$(CARGO) bench --bench throughput
+	$(CARGO) bench -p flexure-engine --bench throughput

@@ -2,9 +2,9 @@
 //! options, runs the job and prints its report; errors are one line on stderr with exit code 1.
 
 use clap::{Parser, Subcommand, ValueEnum};
+use flexure_cli::demo::{run_demo, write_demo_data};
 use flexure_engine::colour::Clip;
 use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
-use flexure_engine::demo::{run_demo, write_demo_data};
 use flexure_engine::error::FlexureError;
 use flexure_engine::horizon::{
     DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,

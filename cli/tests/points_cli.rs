@@ -4,8 +4,7 @@
 
 mod common;
 
-use common::{fails, flexure, write_bands_in};
-use flexure_engine::demo::survey_geometry;
+use common::{fails, flexure, survey_geometry, write_bands_in};
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::synthetic::{Shape, Surface};
 use ndarray::Array2;
@@ -178,7 +177,7 @@ fn run_grid(input: &Path, out: &Path, extra: &[&str]) {
 
 #[test]
 fn rotated_exports_read_back_to_the_identical_grid() {
-    // GDAL data model (cell centre at i + 0.5, j + 0.5) and demo::survey_geometry's rotated
+    // GDAL data model (cell centre at i + 0.5, j + 0.5) and common::survey_geometry's rotated
     // lattice; GDAL's own reader checks the written GeoTIFF.
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();

@@ -5,9 +5,8 @@
 
 mod common;
 
-use common::{fails, flexure};
+use common::{fails, flexure, survey_geometry};
 use flexure_engine::anisotropy::FIT_BANDS;
-use flexure_engine::demo::survey_geometry;
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};

@@ -5,7 +5,7 @@
 mod common;
 
 use common::{fails, flexure, north_up, write_bands};
-use flexure_engine::synthetic::SeededNoise;
+use flexure_engine::stats::SeededNoise;
 use gdal::Metadata;
 use ndarray::Array2;
 

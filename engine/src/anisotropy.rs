@@ -20,6 +20,8 @@
 //!   `G^T W G` above [`SECTOR_CONDITION_LIMIT`]. With exactly three sectors the fit is exact and
 //!   the residual variance, standard errors and bias correction are undefined (NaN).
 
+use crate::bands::{BandInfo, ScaleKind, VectorRole};
+use crate::stats::{quantile, Quantile};
 use nalgebra::{Matrix3, Vector3};
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -212,8 +214,9 @@ impl SectorFit {
     }
 }
 
-/// One output band of a per-bin fit: identifier (the band description), unit, meaning, and
-/// how it is read from a [`SectorFit`].
+/// One output band of a per-bin fit: identifier (the band description), unit, meaning,
+/// colour-scale kind, what the map vectors read it for, and how it is read from a
+/// [`SectorFit`].
 pub struct FitBand {
     /// Band description.
     pub id: &'static str,
@@ -221,8 +224,25 @@ pub struct FitBand {
     pub unit: &'static str,
     /// What the value is.
     pub description: &'static str,
+    /// The colour-scale family of its values (cyclic ones are averaged as angles).
+    pub scale: ScaleKind,
+    /// What the map vectors read it for, if anything.
+    pub vector: Option<VectorRole>,
     /// The value of one bin.
     pub value: fn(&SectorFit) -> f64,
+}
+
+impl FitBand {
+    /// The band's row as a [`BandInfo`].
+    pub fn info(&self) -> BandInfo {
+        BandInfo {
+            id: self.id,
+            unit: self.unit,
+            description: self.description,
+            scale: self.scale,
+            vector: self.vector,
+        }
+    }
 }
 
 /// The bands of the anisotropy raster, in band order.
@@ -231,60 +251,80 @@ pub const FIT_BANDS: [FitBand; 10] = [
         id: "magnitude",
         unit: "ms",
         description: "B = sqrt(a1^2 + a2^2), half the peak-to-peak time variation",
+        scale: ScaleKind::Sequential,
+        vector: Some(VectorRole::Length),
         value: |f| f.magnitude,
     },
     FitBand {
         id: "magnitude_unbiased",
         unit: "ms",
         description: "B with the Rice bias removed (Wardle & Kronberg 1974)",
+        scale: ScaleKind::Sequential,
+        vector: None,
         value: |f| f.magnitude_unbiased,
     },
     FitBand {
         id: "azimuth_slow",
         unit: "degree",
         description: "azimuth of maximum time, degrees from grid north, 0..180",
+        scale: ScaleKind::Cyclic { period: 180.0 },
+        vector: Some(VectorRole::Azimuth(VectorAxis::Slow)),
         value: |f| f.azimuth_slow,
     },
     FitBand {
         id: "azimuth_fast",
         unit: "degree",
         description: "slow azimuth + 90, degrees from grid north, 0..180",
+        scale: ScaleKind::Cyclic { period: 180.0 },
+        vector: Some(VectorRole::Azimuth(VectorAxis::Fast)),
         value: |f| f.azimuth_fast,
     },
     FitBand {
         id: "isotropic",
         unit: "ms",
         description: "azimuth-independent term A",
+        scale: ScaleKind::Sequential,
+        vector: None,
         value: |f| f.isotropic,
     },
     FitBand {
         id: "r2",
         unit: "1",
         description: "weighted coefficient of determination",
+        scale: ScaleKind::Sequential,
+        vector: None,
         value: |f| f.r2,
     },
     FitBand {
         id: "residual_rms",
         unit: "ms",
         description: "weighted RMS residual of the fit",
+        scale: ScaleKind::Sequential,
+        vector: None,
         value: |f| f.residual_rms,
     },
     FitBand {
         id: "magnitude_stderr",
         unit: "ms",
         description: "standard error of B from the least-squares covariance",
+        scale: ScaleKind::Sequential,
+        vector: Some(VectorRole::LengthStderr),
         value: |f| f.magnitude_stderr,
     },
     FitBand {
         id: "azimuth_stderr",
         unit: "degree",
         description: "standard error of the azimuths from the least-squares covariance",
+        scale: ScaleKind::Sequential,
+        vector: Some(VectorRole::AzimuthStderr),
         value: |f| f.azimuth_stderr,
     },
     FitBand {
         id: "n_sectors",
         unit: "count",
         description: "sectors used in the bin",
+        scale: ScaleKind::Sequential,
+        vector: Some(VectorRole::Sectors),
         value: |f| f.n_sectors as f64,
     },
 ];
@@ -353,17 +393,13 @@ pub fn vector_bins<T: Copy>(
         .collect()
 }
 
-/// Default vector scale in metres per ms: the 95th-percentile of `magnitudes` draws 0.9 of
+/// Default vector scale in metres per ms: the 95th percentile ([`Quantile::Nearest`]) of
+/// `magnitudes` draws 0.9 of
 /// the distance between neighbouring vectors (`spacing_m`), so they rarely overlap. 0 when no
 /// magnitude is positive.
 pub fn default_vector_scale(magnitudes: impl Iterator<Item = f64>, spacing_m: f64) -> f64 {
     let mut m: Vec<f64> = magnitudes.filter(|v| v.is_finite() && *v > 0.0).collect();
-    if m.is_empty() {
-        return 0.0;
-    }
-    m.sort_by(f64::total_cmp);
-    let p95 = m[((m.len() - 1) as f64 * 0.95).round() as usize];
-    0.9 * spacing_m / p95
+    quantile(&mut m, 0.95, Quantile::Nearest).map_or(0.0, |p95| 0.9 * spacing_m / p95)
 }
 
 /// End points (CRS units) of a segment of `length_m` metres centred on `centre` along
@@ -385,7 +421,7 @@ pub fn segment(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::synthetic::SeededNoise;
+    use crate::stats::SeededNoise;
     use approx::assert_relative_eq;
 
     #[test]

@@ -1,30 +1,23 @@
-//! Colour scales for maps, chosen by what a band measures, from published open colour families
-//! through the `colorous` crate (Apache-2.0; its colours are those of ColorBrewer, Brewer 2002,
-//! Apache-2.0, and of matplotlib's viridis, van der Walt & Smith 2015, CC0):
-//! - signed curvature (`k_*`): ColorBrewer RdBu, diverging and symmetric about zero, antiforms
+//! Colour scales for maps, chosen by what a band measures (its [`ScaleKind`] in the band tables,
+//! looked up by name with [`band_info`]), from published open colour families through the
+//! `colorous` crate (Apache-2.0; its colours are those of ColorBrewer, Brewer 2002, Apache-2.0,
+//! and of matplotlib's viridis, van der Walt & Smith 2015, CC0):
+//! - diverging (signed curvatures): ColorBrewer RdBu, symmetric about zero, antiforms
 //!   (positive) red, synforms blue; the 11 published classes interpolated linearly (as
 //!   matplotlib's RdBu), so zero is exactly the published centre colour #f7f7f7;
 //! - shape index: ColorBrewer Spectral over -1..1 the same way, domes red, bowls purple-blue;
-//! - azimuths: sinebow, cyclic (0 and 180 or 360 degrees meet), 0..180 for the axial
-//!   anisotropy azimuths and 0..360 for dip azimuth;
-//! - everything else (magnitudes, curvedness, dip, errors): viridis, sequential.
+//! - cyclic (azimuths): sinebow, 0 and the period meet (0..180 for the axial anisotropy
+//!   azimuths, 0..360 for dip azimuth);
+//! - sequential (magnitudes, curvedness, dip, errors, counts): viridis.
+//!
+//! A band the tables do not know (read from another program's file) is diverging when its
+//! values take both signs and sequential otherwise.
 //!
 //! Values beyond the clip are drawn in the end colours; NaN has no colour (transparent).
 
+use crate::bands::{band_info, ScaleKind};
+use crate::stats::{quantile, quantiles, Quantile};
 use ndarray::Array2;
-
-/// How values map onto colours.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ScaleKind {
-    /// Signed values, zero at the centre colour.
-    Diverging,
-    /// Magnitudes, low to high.
-    Sequential,
-    /// Angles on a circle of period `hi - lo`.
-    Cyclic,
-    /// Shape index, -1 (bowl) to +1 (dome).
-    ShapeIndex,
-}
 
 /// How to clip the colour range.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -49,39 +42,18 @@ pub struct ColourScale {
     pub clip_note: String,
 }
 
-/// Period in degrees of a band holding angles (360 for `dip_azimuth`, 180 for the axial
-/// anisotropy azimuths `azimuth_fast` and `azimuth_slow`); `None` for any other band. Such
-/// bands are drawn on cyclic scales and averaged as angles.
-pub fn cyclic_period(id: &str) -> Option<f64> {
-    match id {
-        "dip_azimuth" => Some(360.0),
-        "azimuth_slow" | "azimuth_fast" => Some(180.0),
-        _ => None,
-    }
-}
-
-/// The scale kind of a band from its identifier (`curvature::ATTRIBUTES`,
-/// `anisotropy::FIT_BANDS`); an unknown band is diverging if its values take both signs.
+/// The scale kind of a band: its row's in the band tables ([`band_info`]); a band they do not
+/// know is diverging if its values take both signs and sequential otherwise.
 pub fn scale_kind(id: &str, values: &Array2<f64>) -> ScaleKind {
-    if cyclic_period(id).is_some() {
-        return ScaleKind::Cyclic;
+    if let Some(band) = band_info(id) {
+        return band.scale;
     }
-    match id {
-        "shape_index" => ScaleKind::ShapeIndex,
-        _ if id.starts_with("k_") => ScaleKind::Diverging,
-        "curvedness" | "dip" | "isotropic" | "r2" | "residual_rms" | "n_sectors" => {
-            ScaleKind::Sequential
-        }
-        _ if id.starts_with("magnitude") || id.ends_with("_stderr") => ScaleKind::Sequential,
-        _ => {
-            let finite = || values.iter().copied().filter(|v| v.is_finite());
-            let signed = finite().any(|v| v < 0.0) && finite().any(|v| v > 0.0);
-            if signed {
-                ScaleKind::Diverging
-            } else {
-                ScaleKind::Sequential
-            }
-        }
+    let finite = || values.iter().copied().filter(|v| v.is_finite());
+    let signed = finite().any(|v| v < 0.0) && finite().any(|v| v > 0.0);
+    if signed {
+        ScaleKind::Diverging
+    } else {
+        ScaleKind::Sequential
     }
 }
 
@@ -103,14 +75,13 @@ impl ColourScale {
             });
         }
         let (lo, hi, clip_note) = match kind {
-            ScaleKind::Cyclic => {
-                let period = cyclic_period(id).unwrap_or(360.0);
-                (0.0, period, format!("cyclic, 0 .. {period} degrees"))
-            }
+            ScaleKind::Cyclic { period } => (0.0, period, format!("cyclic, 0 .. {period} degrees")),
             ScaleKind::ShapeIndex => (-1.0, 1.0, "full range -1 (bowl) .. +1 (dome)".into()),
             ScaleKind::Diverging => {
                 let mut magnitudes: Vec<f64> = finite.iter().map(|v| v.abs()).collect();
-                let c = positive_or_one(percentile(&mut magnitudes, 0.98));
+                let c = positive_or_one(
+                    quantile(&mut magnitudes, 0.98, Quantile::Nearest).unwrap_or(f64::NAN),
+                );
                 (
                     -c,
                     c,
@@ -118,8 +89,8 @@ impl ColourScale {
                 )
             }
             ScaleKind::Sequential => {
-                let lo = percentile(&mut finite, 0.02);
-                let mut hi = percentile(&mut finite, 0.98);
+                let [lo, mut hi] = quantiles(&mut finite, [0.02, 0.98], Quantile::Nearest)
+                    .unwrap_or([f64::NAN; 2]);
                 if hi <= lo {
                     hi = lo + positive_or_one(lo.abs() * 1e-3);
                 }
@@ -147,7 +118,7 @@ impl ColourScale {
     pub fn position(&self, v: f64) -> f64 {
         let span = self.hi - self.lo;
         match self.kind {
-            ScaleKind::Cyclic => ((v - self.lo) / span).rem_euclid(1.0),
+            ScaleKind::Cyclic { .. } => ((v - self.lo) / span).rem_euclid(1.0),
             ScaleKind::Diverging if self.lo < 0.0 && self.hi > 0.0 => {
                 let t = if v < 0.0 {
                     0.5 - 0.5 * v / self.lo
@@ -171,7 +142,7 @@ impl ColourScale {
             ScaleKind::Diverging => brewer_linear(colorous::RED_BLUE, 1.0 - t),
             ScaleKind::ShapeIndex => brewer_linear(colorous::SPECTRAL, 1.0 - t),
             ScaleKind::Sequential => rgb(colorous::VIRIDIS.eval_continuous(t)),
-            ScaleKind::Cyclic => rgb(colorous::SINEBOW.eval_continuous(t)),
+            ScaleKind::Cyclic { .. } => rgb(colorous::SINEBOW.eval_continuous(t)),
         })
     }
 
@@ -181,7 +152,7 @@ impl ColourScale {
             ScaleKind::Diverging => "ColorBrewer RdBu (diverging; positive red)",
             ScaleKind::ShapeIndex => "ColorBrewer Spectral (dome red, bowl blue)",
             ScaleKind::Sequential => "viridis (sequential)",
-            ScaleKind::Cyclic => "sinebow (cyclic)",
+            ScaleKind::Cyclic { .. } => "sinebow (cyclic)",
         }
     }
 }
@@ -203,12 +174,6 @@ fn brewer_linear(gradient: colorous::Gradient, t: f64) -> [u8; 3] {
 
 fn rgb(c: colorous::Color) -> [u8; 3] {
     [c.r, c.g, c.b]
-}
-
-/// The `q` quantile of `v` (sorted in place), nearest rank.
-fn percentile(v: &mut [f64], q: f64) -> f64 {
-    v.sort_by(f64::total_cmp);
-    v[((v.len() - 1) as f64 * q).round() as usize]
 }
 
 /// `v` with about four significant digits, for legends.
@@ -276,6 +241,28 @@ mod tests {
         // other; domes (+1) red.
         assert_eq!(si.colour(1.0), Some([0x9e, 0x01, 0x42]));
         assert_eq!(si.colour(-1.0), Some([0x5e, 0x4f, 0xa2]));
+    }
+
+    #[test]
+    fn kinds_come_from_the_band_tables_and_unknown_bands_from_their_signs() {
+        let one_sided = values(&[0.5, 2.0]);
+        assert_eq!(scale_kind("k_gauss", &one_sided), ScaleKind::Diverging);
+        assert_eq!(
+            scale_kind("n_sectors", &values(&[-1.0, 1.0])),
+            ScaleKind::Sequential
+        );
+        assert_eq!(
+            scale_kind("azimuth_slow", &one_sided),
+            ScaleKind::Cyclic { period: 180.0 }
+        );
+        assert_eq!(
+            scale_kind("chosen_window", &one_sided),
+            ScaleKind::Sequential
+        );
+        assert_eq!(
+            scale_kind("Depth", &values(&[-3.0, 2.0])),
+            ScaleKind::Diverging
+        );
     }
 
     #[test]

@@ -13,11 +13,12 @@
 //!
 //! A new attribute is one formula function and one row of [`ATTRIBUTES`].
 
+use crate::bands::{BandInfo, ScaleKind};
 use crate::window::{Quadric, QuadricField};
 use ndarray::Array2;
 use rayon::prelude::*;
 
-/// One attribute: its band id, unit, description and formula.
+/// One attribute: its band id, unit, description, colour-scale kind and formula.
 pub struct AttributeDef {
     /// Band description written to the GeoTIFF (stable id).
     pub id: &'static str,
@@ -25,6 +26,8 @@ pub struct AttributeDef {
     pub unit: &'static str,
     /// What it is, in a few words.
     pub description: &'static str,
+    /// The colour-scale family of its values (cyclic ones are averaged as angles).
+    pub scale: ScaleKind,
     /// The fitted derivatives it is mainly made of (the window study compares these between
     /// windows).
     pub order: DerivativeOrder,
@@ -80,6 +83,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_mean",
         unit: "1/km",
         description: "mean curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_mean * KM),
     },
@@ -87,6 +91,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_gauss",
         unit: "1/km^2",
         description: "Gaussian curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_gauss * KM * KM),
     },
@@ -94,6 +99,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_max",
         unit: "1/km",
         description: "maximum principal curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_max * KM),
     },
@@ -101,6 +107,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_min",
         unit: "1/km",
         description: "minimum principal curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_min * KM),
     },
@@ -108,6 +115,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_pos",
         unit: "1/km",
         description: "most-positive curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_pos() * KM),
     },
@@ -115,6 +123,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_neg",
         unit: "1/km",
         description: "most-negative curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.k_neg() * KM),
     },
@@ -122,6 +131,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_dip",
         unit: "1/km",
         description: "dip curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| s.k_dip().map(|k| k * KM),
     },
@@ -129,6 +139,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_strike",
         unit: "1/km",
         description: "strike curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| s.k_strike().map(|k| k * KM),
     },
@@ -136,6 +147,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "k_contour",
         unit: "1/km",
         description: "contour curvature",
+        scale: ScaleKind::Diverging,
         order: DerivativeOrder::Second,
         formula: |s| s.k_contour().map(|k| k * KM),
     },
@@ -143,6 +155,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "curvedness",
         unit: "1/km",
         description: "curvedness",
+        scale: ScaleKind::Sequential,
         order: DerivativeOrder::Second,
         formula: |s| Some(s.curvedness() * KM),
     },
@@ -150,6 +163,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "shape_index",
         unit: "1",
         description: "shape index (dome +1, bowl -1)",
+        scale: ScaleKind::ShapeIndex,
         order: DerivativeOrder::Second,
         formula: LocalSurface::shape_index,
     },
@@ -157,6 +171,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "dip",
         unit: "degree",
         description: "dip angle",
+        scale: ScaleKind::Sequential,
         order: DerivativeOrder::First,
         formula: |s| Some(s.dip_degrees()),
     },
@@ -164,6 +179,7 @@ pub const ATTRIBUTES: [AttributeDef; 13] = [
         id: "dip_azimuth",
         unit: "degree",
         description: "down-dip azimuth from grid north",
+        scale: ScaleKind::Cyclic { period: 360.0 },
         order: DerivativeOrder::First,
         formula: LocalSurface::dip_azimuth,
     },
@@ -187,6 +203,17 @@ impl std::fmt::Debug for AttributeDef {
 }
 
 impl AttributeDef {
+    /// The attribute's row as a [`BandInfo`] (no vector role).
+    pub fn info(&self) -> BandInfo {
+        BandInfo {
+            id: self.id,
+            unit: self.unit,
+            description: self.description,
+            scale: self.scale,
+            vector: None,
+        }
+    }
+
     /// Evaluates the attribute at a cell, in its output unit.
     pub fn evaluate(&self, surface: &LocalSurface) -> Option<f64> {
         (self.formula)(surface).filter(|v| v.is_finite())

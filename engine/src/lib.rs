@@ -5,18 +5,25 @@
 //! Data flows one way: [`io`] reads a raster into a [`grid::Grid`], [`horizon`] turns it into
 //! positive-down depth in CRS length units, [`window`] fits a local quadric at every cell,
 //! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
-//! together for the command line; [`synthetic`] holds analytic surfaces with exact derivatives
-//! that build the demo data and the tests. [`anisotropy`] fits the cos 2phi model of
+//! together for the command line. [`anisotropy`] fits the cos 2phi model of
 //! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
+//! [`bands`] reads what the two band tables say about a band (unit, colour-scale kind, vector
+//! role) for every band, also one read back from a file by its name.
 //! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade; [`figure`]
 //! draws roses and charts as SVG and PNG. [`wells`], [`circular`] and [`stages`] give stage
-//! corridors and their statistics; [`window_study`] measures noise against detail.
+//! corridors and their statistics; [`window_study`] measures noise against detail. [`stats`]
+//! holds the shared order statistics and the seeded noise source.
+//!
+//! The library holds no demo: the invented demo scenario lives in the command line's crate
+//! (`flexure-cli`). With the cargo feature `synthetic` (off by default), `synthetic` gives
+//! analytic surfaces with exact derivatives, the ground truth of the demo data, tests and
+//! benches.
 
 pub mod anisotropy;
+pub mod bands;
 pub mod circular;
 pub mod colour;
 pub mod curvature;
-pub mod demo;
 pub mod error;
 pub mod figure;
 pub mod grid;
@@ -27,6 +34,7 @@ pub mod provenance;
 pub mod render;
 pub mod stages;
 pub mod stats;
+#[cfg(feature = "synthetic")]
 pub mod synthetic;
 pub mod vectors;
 pub mod wells;

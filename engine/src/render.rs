@@ -13,6 +13,7 @@
 
 use crate::colour::{short, ColourScale};
 use crate::grid::GridGeometry;
+use crate::stats::{quantile, Quantile};
 use ab_glyph::{Font, FontRef, PxScale, ScaleFont};
 use ndarray::Array2;
 use tiny_skia::{
@@ -46,9 +47,7 @@ pub fn hillshade(
             .filter_map(|g| g.map(|(gx, gy)| gx.hypot(gy)))
             .filter(|s| *s > 0.0)
             .collect();
-        slopes.sort_by(f64::total_cmp);
-        slopes
-            .get(((slopes.len().max(1) - 1) as f64 * 0.95).round() as usize)
+        quantile(&mut slopes, 0.95, Quantile::Nearest)
             .map_or(1.0, |p95| 30f64.to_radians().tan() / p95)
     }) * sign;
     let (az, alt) = (SUN_AZIMUTH.to_radians(), SUN_ALTITUDE.to_radians());
@@ -382,7 +381,7 @@ fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f3
 
 /// The value at ramp position `t` (inverse of [`ColourScale::position`] on the clipped range).
 fn value_at(scale: &ColourScale, t: f64) -> f64 {
-    if scale.kind == crate::colour::ScaleKind::Diverging && scale.lo < 0.0 && scale.hi > 0.0 {
+    if scale.kind == crate::bands::ScaleKind::Diverging && scale.lo < 0.0 && scale.hi > 0.0 {
         if t < 0.5 {
             -scale.lo * (2.0 * t - 1.0)
         } else {

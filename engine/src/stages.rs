@@ -11,6 +11,7 @@
 
 use crate::circular::{axial_angle, summarise};
 use crate::grid::GridGeometry;
+use crate::stats::{quantiles, Quantile};
 use crate::wells::inside;
 use ndarray::Array2;
 
@@ -114,25 +115,21 @@ pub fn corridor_stats(bins: &[BinSample], well_azimuth: f64) -> CorridorStats {
     }
 }
 
-/// (mean, p10, p50, p90) of the finite `values` (nearest rank); NaN when there are none.
+/// (mean, p10, p50, p90) of the finite `values` (percentiles [`Quantile::Nearest`], values
+/// of the sample); NaN when there are none.
 pub fn percentiles(values: &[f64]) -> (f64, f64, f64, f64) {
     let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
-    if v.is_empty() {
+    let Some([p10, p50, p90]) = quantiles(&mut v, [0.1, 0.5, 0.9], Quantile::Nearest) else {
         return (f64::NAN, f64::NAN, f64::NAN, f64::NAN);
-    }
-    v.sort_by(f64::total_cmp);
-    let at = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    (
-        v.iter().sum::<f64>() / v.len() as f64,
-        at(0.1),
-        at(0.5),
-        at(0.9),
-    )
+    };
+    // Summed in ascending order (`quantiles` sorted `v`).
+    let mean = v.iter().sum::<f64>() / v.len() as f64;
+    (mean, p10, p50, p90)
 }
 
 /// (circular mean, p10, p50, p90) of the finite `angles` (degrees) on a circle of `period`
 /// degrees (360 for directions such as dip azimuth, 180 for axes): the mean direction of
-/// [`summarise`] (equal weights), and nearest-rank percentiles of the signed deviations from
+/// [`summarise`] (equal weights), and the [`percentiles`] of the signed deviations from
 /// it (in `-period/2 .. period/2`) added back modulo `period`. All NaN when there is no angle
 /// or the angles cancel (no mean direction).
 pub fn circular_percentiles(angles: &[f64], period: f64) -> (f64, f64, f64, f64) {
@@ -203,7 +200,6 @@ pub fn perpendicularity_score(bins: &[BinSample], azimuth: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::demo::survey_geometry;
     use crate::wells::corridor;
 
     fn uniform(n: usize, fast: f64) -> Vec<BinSample> {
@@ -230,7 +226,13 @@ mod tests {
     fn corridor_bin_count_matches_the_analytic_area() {
         // 30 m bins, a 300 m stage with 150 m half-width: 300 x 300 m / 900 m^2 = 100 bins,
         // within one row of bins (10) (the common-practice check; elementary area).
-        let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (30.0, 30.0), (100, 100));
+        let g = GridGeometry::survey(
+            (500_000.0, 3_900_000.0),
+            90.0,
+            (30.0, 30.0),
+            (100, 100),
+            String::new(),
+        );
         for (az, start) in [
             (90.0f64, (501_000.0, 3_898_500.0)),
             (37.0, (501_100.0, 3_898_400.0)),
@@ -282,7 +284,13 @@ mod tests {
     fn bilinear_reproduces_a_plane() {
         // A plane z = 1000 + 0.1 x - 0.05 y sampled at cell centres is reproduced exactly
         // between them (bilinear interpolation is exact on planes; elementary).
-        let g = survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (10, 8));
+        let g = GridGeometry::survey(
+            (500_000.0, 3_900_000.0),
+            90.0,
+            (25.0, 25.0),
+            (10, 8),
+            String::new(),
+        );
         let plane = |x: f64, y: f64| 1000.0 + 0.1 * (x - 500_000.0) - 0.05 * (y - 3_900_000.0);
         let v = Array2::from_shape_fn((8, 10), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);

@@ -1,5 +1,7 @@
-//! Analytic horizon surfaces with exact first and second derivatives, and a seeded noise
-//! source. They build the demo data and give the tests their ground truth.
+//! Analytic horizon surfaces with exact first and second derivatives. They build the demo
+//! data and give the tests and benches their ground truth; compiled with the `synthetic`
+//! feature only (the seeded noise source they are usually paired with is
+//! [`crate::stats::SeededNoise`]).
 //!
 //! All surfaces are positive down (depth-like): a surface that is shallower at its centre is an
 //! antiform. Coordinates are map x (east) and y (north) in CRS units.
@@ -12,11 +14,17 @@ use ndarray::Array2;
 /// Value and exact derivatives of a surface at a point.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Derivatives {
+    /// Value (positive down, CRS units or the stored unit).
     pub z: f64,
+    /// dz/dx.
     pub zx: f64,
+    /// dz/dy.
     pub zy: f64,
+    /// d2z/dx2.
     pub zxx: f64,
+    /// d2z/dxdy.
     pub zxy: f64,
+    /// d2z/dy2.
     pub zyy: f64,
 }
 
@@ -229,41 +237,6 @@ impl Surface {
     }
 }
 
-/// Seeded pseudo-random numbers (SplitMix64, Steele, Lea & Flood 2014, OOPSLA), so demo data
-/// and tests are reproducible on every platform without depending on a crate's stream.
-#[derive(Clone, Debug)]
-pub struct SeededNoise {
-    state: u64,
-}
-
-impl SeededNoise {
-    /// A generator started from `seed`.
-    pub fn new(seed: u64) -> Self {
-        Self { state: seed }
-    }
-
-    /// Next 64 random bits.
-    pub fn next_u64(&mut self) -> u64 {
-        self.state = self.state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.state;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-
-    /// Uniform in [0, 1).
-    pub fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
-    }
-
-    /// Standard normal deviate (Box & Muller 1958).
-    pub fn gaussian(&mut self) -> f64 {
-        let u1 = 1.0 - self.uniform();
-        let u2 = self.uniform();
-        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -334,18 +307,5 @@ mod tests {
         assert_eq!(s.eval(10.0, 0.0).z, 40.0);
         assert_eq!(s.eval(-10.0, 0.0).z, 0.0);
         assert_eq!(s.fault_distance(-10.0, 5.0), Some(10.0));
-    }
-
-    #[test]
-    fn noise_is_standard_normal() {
-        // Sample mean and variance of 200 000 deviates: standard errors 0.0022 and 0.0032.
-        let mut n = SeededNoise::new(7);
-        let xs: Vec<f64> = (0..200_000).map(|_| n.gaussian()).collect();
-        let mean = xs.iter().sum::<f64>() / xs.len() as f64;
-        let var = xs.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / xs.len() as f64;
-        assert!(
-            mean.abs() < 0.01 && (var - 1.0).abs() < 0.015,
-            "{mean} {var}"
-        );
     }
 }

@@ -691,7 +691,7 @@ mod tests {
             rows: n,
             ..square(h)
         };
-        let mut rng = crate::synthetic::SeededNoise::new(17);
+        let mut rng = crate::stats::SeededNoise::new(17);
         let z = Array2::from_shape_fn((n, n), |_| sigma * rng.gaussian());
         for (size, zxx, zx) in [
             (3, 2.0, 1.0 / 6.0),

@@ -45,7 +45,7 @@
 use crate::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::synthetic::SeededNoise;
+use crate::stats::{median_and_mad, quantiles, Quantile, SeededNoise};
 use crate::window::{full_window_kernels, Quadric, WindowFit, WindowSpec};
 use nalgebra::DMatrix;
 use ndarray::{Array2, ArrayView2};
@@ -113,9 +113,7 @@ pub fn estimate_noise(
     if residuals.is_empty() {
         return Ok(None);
     }
-    let median = crate::stats::median(&mut residuals).unwrap_or(f64::NAN);
-    let mut deviations: Vec<f64> = residuals.iter().map(|r| (r - median).abs()).collect();
-    let mad = crate::stats::median(&mut deviations).unwrap_or(f64::NAN);
+    let (_, mad) = median_and_mad(&mut residuals).unwrap_or((f64::NAN, f64::NAN));
     Ok(Some(NoiseEstimate {
         sigma: 1.4826 * mad / (1.0 - leverage).sqrt(),
         n: residuals.len(),
@@ -719,13 +717,8 @@ fn rms_of(v: impl Iterator<Item = f64>) -> f64 {
 }
 
 fn robust_spread(values: &[f64]) -> f64 {
-    if values.is_empty() {
-        return f64::NAN;
-    }
-    let mut v = values.to_vec();
-    v.sort_by(f64::total_cmp);
-    let at = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    (at(0.75) - at(0.25)) / 1.349
+    quantiles(&mut values.to_vec(), [0.25, 0.75], Quantile::Nearest)
+        .map_or(f64::NAN, |[q1, q3]| (q3 - q1) / 1.349)
 }
 
 #[cfg(test)]
@@ -748,13 +741,10 @@ mod tests {
         out
     }
     use crate::curvature::{attribute_by_id, LocalSurface};
-    use crate::demo::survey_geometry;
     use crate::synthetic::{Shape, Surface};
 
     fn grid(n: usize) -> GridGeometry {
-        let mut g = survey_geometry((0.0, 10_000.0), 90.0, (25.0, 25.0), (n, n));
-        g.crs_wkt = String::new();
-        g
+        GridGeometry::survey((0.0, 10_000.0), 90.0, (25.0, 25.0), (n, n), String::new())
     }
 
     /// A fold of Gaussian section `width` m across its axis at `azimuth` degrees through `origin`
@@ -935,7 +925,7 @@ mod tests {
         // var(smaller - larger) = var(smaller) - var(larger). For full windows on a rotated,
         // non-square grid: the kernels' squared difference against the fits' noise powers, and
         // those powers against the kernels' own squares.
-        let g = survey_geometry((0.0, 0.0), 25.0, (25.0, 12.5), (40, 40));
+        let g = GridGeometry::survey((0.0, 0.0), 25.0, (25.0, 12.5), (40, 40), String::new());
         for order in [DerivativeOrder::First, DerivativeOrder::Second] {
             let power = |n: usize| {
                 let spec = WindowSpec {

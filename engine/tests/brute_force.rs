@@ -4,7 +4,7 @@
 
 use flexure_engine::curvature::DerivativeOrder;
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::synthetic::SeededNoise;
+use flexure_engine::stats::SeededNoise;
 use flexure_engine::window::{fit_quadrics, fit_quadrics_with_noise, Quadric, WindowSpec};
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Inverse, LeastSquaresSvd};

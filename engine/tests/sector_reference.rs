@@ -5,7 +5,7 @@
 //! unevenly spaced and missing sectors (the general case of REFERENCES.md section 5 [D]).
 
 use flexure_engine::anisotropy::{fit_sectors, DEFAULT_MIN_SECTORS};
-use flexure_engine::synthetic::SeededNoise;
+use flexure_engine::stats::SeededNoise;
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Inverse, LeastSquaresSvd};
 

@@ -4,7 +4,7 @@
 // Each test binary includes this module and uses a subset of it.
 #![allow(dead_code)]
 
-use flexure_engine::demo::survey_geometry;
+use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
@@ -18,8 +18,19 @@ pub fn flexure(args: &[&str]) -> Output {
         .unwrap()
 }
 
+/// A survey grid ([`GridGeometry::survey`]) in WGS 84 / UTM zone 25N (EPSG:32625).
+pub fn survey_geometry(
+    origin: (f64, f64),
+    column_azimuth: f64,
+    bins: (f64, f64),
+    size: (usize, usize),
+) -> GridGeometry {
+    let crs = gdal::spatial_ref::SpatialRef::from_epsg(32625).unwrap();
+    GridGeometry::survey(origin, column_azimuth, bins, size, crs.to_wkt().unwrap())
+}
+
 /// A north-up EPSG:32625 grid of 25 m bins with the size of `values`.
-pub fn north_up(cols: usize, rows: usize) -> flexure_engine::grid::GridGeometry {
+pub fn north_up(cols: usize, rows: usize) -> GridGeometry {
     survey_geometry((500_000.0, 3_900_000.0), 90.0, (25.0, 25.0), (cols, rows))
 }
 
@@ -27,7 +38,7 @@ pub fn north_up(cols: usize, rows: usize) -> flexure_engine::grid::GridGeometry 
 pub fn write_bands(
     dir: &Path,
     name: &str,
-    geometry: &flexure_engine::grid::GridGeometry,
+    geometry: &GridGeometry,
     bands: Vec<Array2<f32>>,
 ) -> PathBuf {
     write_bands_in(dir, name, geometry, bands, "")
@@ -37,7 +48,7 @@ pub fn write_bands(
 pub fn write_bands_in(
     dir: &Path,
     name: &str,
-    geometry: &flexure_engine::grid::GridGeometry,
+    geometry: &GridGeometry,
     bands: Vec<Array2<f32>>,
     unit: &str,
 ) -> PathBuf {

@@ -110,10 +110,7 @@ pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
     if finite.len() < 3 {
         return None;
     }
-    let median = crate::stats::median(&mut finite)?;
-    // The copy becomes the deviations in place: one copy of the grid at a time.
-    finite.iter_mut().for_each(|v| *v = (*v - median).abs());
-    let mad = crate::stats::median(&mut finite)?;
+    let (median, mad) = crate::stats::median_and_mad(&mut finite)?;
     if mad <= 0.0 {
         return None;
     }

@@ -1979,7 +1979,6 @@ fn fill(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::demo::survey_geometry;
 
     /// Deterministic pseudo-random numbers in [0, 1) (SplitMix64, common practice).
     fn unit(seed: u64) -> f64 {
@@ -2168,7 +2167,13 @@ mod tests {
             (91.0, (20.0, 20.0), (35, 35)),
         ];
         for (azimuth, bins, (cols, rows)) in cases {
-            let g = survey_geometry((483_117.0, 6_702_345.0), azimuth, bins, (cols, rows));
+            let g = GridGeometry::survey(
+                (483_117.0, 6_702_345.0),
+                azimuth,
+                bins,
+                (cols, rows),
+                String::new(),
+            );
             let mut e = Export::new(g.geo_transform, cols, rows);
             e.decimals = Some(2);
             for numbering in [None, Some((1200, 1, 3000, 2))] {
@@ -2191,7 +2196,13 @@ mod tests {
         // and a checkerboard with a full patch. Coordinates rounded to 0.01 m; node centres
         // within 1e-4 of a bin (measured: 2e-5, 8e-6 and 8e-5; the checkerboard's rounding
         // errors are correlated, and with 0.001 m they fall to 6e-7).
-        let g = survey_geometry((512_000.0, 7_010_000.0), 63.0, (25.0, 12.5), (48, 37));
+        let g = GridGeometry::survey(
+            (512_000.0, 7_010_000.0),
+            63.0,
+            (25.0, 12.5),
+            (48, 37),
+            String::new(),
+        );
         type Keep = fn(usize, usize) -> bool;
         let patterns: [(&str, Keep); 3] = [
             ("every 2nd row", |c, r| {
@@ -2256,7 +2267,13 @@ mod tests {
         // Both exports of one survey (coordinates to 0.01 m) read to the same lattice, node
         // centres within 1e-5 of a bin of each other (measured: under 2e-6), and to the same
         // values bit for bit; from x, y alone and from the numbering.
-        let g = survey_geometry((402_500.0, 6_450_000.0), 104.0, (12.5, 25.0), (70, 52));
+        let g = GridGeometry::survey(
+            (402_500.0, 6_450_000.0),
+            104.0,
+            (12.5, 25.0),
+            (70, 52),
+            String::new(),
+        );
         let fault = |c: usize, r: usize| {
             (c as f64 - 0.6 * r as f64 - 20.0).abs() < 1.5 && (6..45).contains(&r)
         };
@@ -2295,7 +2312,13 @@ mod tests {
         // Hand-checkable: a regular export in which one line is mistyped. The typo is named by
         // its line, with the node its coordinates belong to, however far it is (1012 -> 9012
         // or 1112); it neither stretches the lattice nor tilts its fit.
-        let g = survey_geometry((480_000.0, 3_900_000.0), 30.0, (25.0, 12.5), (40, 30));
+        let g = GridGeometry::survey(
+            (480_000.0, 3_900_000.0),
+            30.0,
+            (25.0, 12.5),
+            (40, 30),
+            String::new(),
+        );
         let mut e = Export::new(g.geo_transform, 40, 30);
         e.numbering = Some((1000, 1, 2000, 2));
         e.decimals = Some(2);
@@ -2567,12 +2590,18 @@ mod tests {
     #[test]
     fn survey_grids_come_back_identical() {
         // Canonical orientation of this module: the column axis is the lattice direction
-        // closest to east and rows run 90 deg clockwise from it, as demo::survey_geometry
+        // closest to east and rows run 90 deg clockwise from it, as GridGeometry::survey
         // builds survey grids; so any column azimuth strictly between 45 and 135 comes back
         // with the generating geotransform (elementary geometry). 115 and 65 are grids rotated
         // 25 deg from north-up, with 25 m x 12.5 m bins.
         for azimuth in [46.0, 65.0, 90.0, 115.0, 134.0] {
-            let g = survey_geometry((483_000.5, 3_902_000.25), azimuth, (25.0, 12.5), (17, 11));
+            let g = GridGeometry::survey(
+                (483_000.5, 3_902_000.25),
+                azimuth,
+                (25.0, 12.5),
+                (17, 11),
+                String::new(),
+            );
             let e = Export::new(g.geo_transform, 17, 11);
             let grid = parse(&e.full(",", Some("x,y,z")), &PointOptions::default()).unwrap();
             assert_eq!((grid.cols, grid.rows), (17, 11), "azimuth {azimuth}");
@@ -2654,7 +2683,13 @@ mod tests {
     fn gaps_sentinels_and_nan_text_are_nulls() {
         // Brief: nodes without a point, values equal to a nodata sentinel and `nan` text are
         // nulls; the lattice keeps its full extent (corner nodes present).
-        let g = survey_geometry((350_000.0, 6_200_000.0), 72.0, (12.5, 25.0), (15, 12));
+        let g = GridGeometry::survey(
+            (350_000.0, 6_200_000.0),
+            72.0,
+            (12.5, 25.0),
+            (15, 12),
+            String::new(),
+        );
         let field = |c: usize, r: usize, b: usize| match (c * 7 + r * 3) % 11 {
             _ if (c, r) == (0, 0) || (c, r) == (14, 11) => Some(value(c, r, b).to_string()),
             0 => None,
@@ -2702,7 +2737,13 @@ mod tests {
     fn sector_files_give_one_band_per_value_column() {
         // Brief: with x, y (and inline, crossline) recognised, every other header column is a
         // value column, named as given.
-        let g = survey_geometry((720_000.0, 3_100_000.0), 100.0, (20.0, 20.0), (9, 8));
+        let g = GridGeometry::survey(
+            (720_000.0, 3_100_000.0),
+            100.0,
+            (20.0, 20.0),
+            (9, 8),
+            String::new(),
+        );
         let mut e = Export::new(g.geo_transform, 9, 8);
         e.numbering = Some((300, 1, 1200, 1));
         e.bands = 4;
@@ -2729,7 +2770,13 @@ mod tests {
     fn every_delimiter_and_unit_suffix_reads_the_same_grid() {
         // Brief: whitespace, comma, semicolon and tab separation; a unit suffix in () or []
         // is the value column's unit, lower-cased.
-        let g = survey_geometry((500_100.0, 4_000_050.0), 80.0, (25.0, 25.0), (8, 7));
+        let g = GridGeometry::survey(
+            (500_100.0, 4_000_050.0),
+            80.0,
+            (25.0, 25.0),
+            (8, 7),
+            String::new(),
+        );
         let e = Export::new(g.geo_transform, 8, 7);
         let cases = [
             (" ", Some("X Y Depth (ft)"), "Depth", Some("ft")),
@@ -3009,7 +3056,13 @@ mod tests {
         // Brief: a point more than lattice_tolerance of the smaller bin off its node is
         // refused naming its line; within the tolerance it is read onto its node. Jitter here
         // is at most 0.02 of the 12.5 m bin, one point 0.045 (read) or 0.08 (refused).
-        let g = survey_geometry((431_000.0, 7_001_000.0), 58.0, (25.0, 12.5), (20, 16));
+        let g = GridGeometry::survey(
+            (431_000.0, 7_001_000.0),
+            58.0,
+            (25.0, 12.5),
+            (20, 16),
+            String::new(),
+        );
         let e = Export::new(g.geo_transform, 20, 16);
         let text = |outlier: f64| {
             let mut lines = Vec::new();
@@ -3193,7 +3246,7 @@ mod tests {
     fn unusual_lattices_are_found_from_coordinates() {
         // Elementary geometry: very unequal bins (100 m x 6.25 m), a thin strip (3 columns),
         // and a large rotated grid with a third of its nodes missing come back on their
-        // generating lattice (survey_geometry orientation, column azimuth in 45..135).
+        // generating lattice (GridGeometry::survey orientation, column azimuth in 45..135).
         let cases = [
             (78.0, (100.0, 6.25), (9, 60), 0.0),
             (120.0, (6.25, 100.0), (60, 9), 0.0),
@@ -3202,7 +3255,13 @@ mod tests {
             (105.0, (25.0, 12.5), (150, 120), 0.33),
         ];
         for (k, (azimuth, bins, (cols, rows), holes)) in cases.into_iter().enumerate() {
-            let g = survey_geometry((620_000.0, 5_100_000.0), azimuth, bins, (cols, rows));
+            let g = GridGeometry::survey(
+                (620_000.0, 5_100_000.0),
+                azimuth,
+                bins,
+                (cols, rows),
+                String::new(),
+            );
             let e = Export::new(g.geo_transform, cols, rows);
             let keep = |c: usize, r: usize| {
                 let corner = (c == 0 || c == cols - 1) && (r == 0 || r == rows - 1);

@@ -16,6 +16,7 @@ use crate::io::{
     ReadOptions, TiffOptions,
 };
 use crate::provenance::Provenance;
+use crate::stats::{self, Quantile};
 use crate::vectors::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
 };
@@ -652,15 +653,10 @@ fn join_numbers(v: &[f64]) -> String {
         .join(", ")
 }
 
-/// (median, 95th percentile) of the finite values, if any.
+/// (median, 95th percentile) of the finite values ([`Quantile::Nearest`]), if any.
 fn quantiles(values: impl Iterator<Item = f64>) -> Option<(f64, f64)> {
     let mut v: Vec<f64> = values.filter(|x| x.is_finite()).collect();
-    if v.is_empty() {
-        return None;
-    }
-    v.sort_by(f64::total_cmp);
-    let at = |q: f64| v[((v.len() - 1) as f64 * q).round() as usize];
-    Some((at(0.5), at(0.95)))
+    stats::quantiles(&mut v, [0.5, 0.95], Quantile::Nearest).map(|[p50, p95]| (p50, p95))
 }
 
 /// What an anisotropy job wrote.

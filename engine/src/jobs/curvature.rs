@@ -454,6 +454,13 @@ mod tests {
     use crate::jobs::Silent;
     use crate::window::fit_quadrics;
 
+    fn utm25() -> String {
+        gdal::spatial_ref::SpatialRef::from_epsg(32625)
+            .unwrap()
+            .to_wkt()
+            .unwrap()
+    }
+
     /// A 700-row grid streamed in 256-row batches (a 1 MB budget) with nulls and a gap across
     /// two batch boundaries gives, bit for bit, the attributes of one whole-grid fit and
     /// evaluation (the reference: `fit_quadrics` and `evaluate_field` on the whole grid, as the
@@ -461,8 +468,13 @@ mod tests {
     #[test]
     fn streamed_batches_equal_the_whole_grid_fit() {
         let dir = tempfile::tempdir().unwrap();
-        let geometry =
-            crate::demo::survey_geometry((500_000.0, 3_900_000.0), 30.0, (25.0, 12.5), (40, 700));
+        let geometry = GridGeometry::survey(
+            (500_000.0, 3_900_000.0),
+            30.0,
+            (25.0, 12.5),
+            (40, 700),
+            utm25(),
+        );
         let mut values = Array2::from_shape_fn((700, 40), |(r, c)| {
             (2000.0 + 30.0 * (r as f64 / 57.0).sin() * (c as f64 / 9.0).cos()) as f32
         });

@@ -10,6 +10,7 @@ mod well_inputs;
 mod window_study;
 
 pub use crate::anisotropy::VectorAxis;
+use crate::bands::{vector_band, VectorRole};
 pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
 };
@@ -138,7 +139,9 @@ impl AnisotropyRaster {
                     )
                 })
         };
-        let n_sectors = take("n_sectors").ok().map(|n| {
+        // The bands the vectors read, found by their role in the anisotropy table.
+        let role = |r: VectorRole| vector_band(r).map_or("", |b| b.id);
+        let n_sectors = take(role(VectorRole::Sectors)).ok().map(|n| {
             let max = n
                 .iter()
                 .copied()
@@ -148,11 +151,11 @@ impl AnisotropyRaster {
         });
         Ok(Self {
             n_sectors,
-            magnitude: take("magnitude")?,
-            azimuth_fast: take("azimuth_fast")?,
-            azimuth_slow: take("azimuth_slow")?,
-            magnitude_stderr: take("magnitude_stderr")?,
-            azimuth_stderr: take("azimuth_stderr")?,
+            magnitude: take(role(VectorRole::Length))?,
+            azimuth_fast: take(role(VectorRole::Azimuth(VectorAxis::Fast)))?,
+            azimuth_slow: take(role(VectorRole::Azimuth(VectorAxis::Slow)))?,
+            magnitude_stderr: take(role(VectorRole::LengthStderr))?,
+            azimuth_stderr: take(role(VectorRole::AzimuthStderr))?,
             geometry: raster.geometry,
             path,
         })

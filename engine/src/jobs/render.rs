@@ -17,6 +17,7 @@ use crate::render::{
     cells_to_pixmap, colour_cells, draw_segments, hillshade, picture_scale, pixmap_bands,
     quicklook, Legend, MapSegment,
 };
+use crate::stats::{quantile, Quantile};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -275,15 +276,11 @@ impl RenderJob {
             })
             .collect();
         let mut m: Vec<f64> = kept.iter().map(|k| k.2.magnitude).collect();
-        m.sort_by(f64::total_cmp);
         Ok(Some(Vectors {
             segments,
             every,
             scale,
-            typical_ms: m
-                .get((m.len().max(1) - 1) * 19 / 20)
-                .copied()
-                .unwrap_or(0.0),
+            typical_ms: quantile(&mut m, 0.95, Quantile::Lower).unwrap_or(0.0),
         }))
     }
 

@@ -6,8 +6,8 @@
 
 use super::anisotropy::AzimuthReference;
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
+use crate::bands::band_info;
 use crate::circular::axial_angle;
-use crate::colour::cyclic_period;
 use crate::error::{FlexureError, Result};
 use crate::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::grid::GridGeometry;
@@ -138,8 +138,9 @@ impl Attributes {
         })
     }
 
-    /// (attribute, (mean, p10, p50, p90)) inside `ring`; bands holding angles (see
-    /// [`cyclic_period`]) get the circular mean and percentiles of the deviations from it.
+    /// (attribute, (mean, p10, p50, p90)) inside `ring`; bands holding angles (a cyclic scale
+    /// in the band tables, see [`band_info`]) get the circular mean and percentiles of the
+    /// deviations from it.
     fn summarise(&self, ring: &[(f64, f64)]) -> Vec<(String, (f64, f64, f64, f64))> {
         let (cells, _) = cells_inside(&self.geometry, ring);
         self.names
@@ -151,7 +152,7 @@ impl Attributes {
                     .map(|&at| band[at])
                     .filter(|v| v.is_finite())
                     .collect();
-                let summary = match cyclic_period(name) {
+                let summary = match band_info(name).and_then(|b| b.scale.period()) {
                     Some(period) => circular_percentiles(&values, period),
                     None => percentiles(&values),
                 };

@@ -5,9 +5,9 @@
 //! no demo value is used as a check value. The demo sector picks are checked the same way
 //! against the anisotropy field the generator put in.
 
+use flexure_cli::demo::{demo_horizons, demo_sectors};
 use flexure_engine::anisotropy::{fit_sector_grids, SectorWeight, DEFAULT_MIN_SECTORS};
 use flexure_engine::curvature::{FlatTolerance, LocalSurface};
-use flexure_engine::demo::{demo_horizons, demo_sectors};
 use flexure_engine::grid::Grid;
 use flexure_engine::horizon::{positive_down_depth, Velocity, ZUnit};
 use flexure_engine::window::{fit_quadrics, WindowSpec};

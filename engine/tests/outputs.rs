@@ -1,10 +1,10 @@
 //! What the curvature, anisotropy and render jobs write, checked by GDAL reading it back (`gdalinfo
-//! -json` and `ogrinfo` from gdal-bin, and the gdal crate), bit-identical results for 1 and 2
-//! threads, and the shipped demo data matching its generator.
+//! -json` and `ogrinfo` from gdal-bin, and the gdal crate), and bit-identical results for 1 and
+//! 2 threads. (The shipped demo data is checked against its generator in `cli/tests/`.)
 
 use flexure_engine::anisotropy::FIT_BANDS;
 use flexure_engine::curvature::ATTRIBUTES;
-use flexure_engine::demo::{survey_geometry, write_demo_data};
+use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::{read_grid, read_raster, write_float_geotiff, BandOut};
 use flexure_engine::jobs::{AnisotropyJob, CurvatureJob, Silent};
 use flexure_engine::synthetic::{Shape, Surface};
@@ -12,6 +12,17 @@ use gdal::vector::LayerAccess;
 use gdal::Dataset;
 use std::path::{Path, PathBuf};
 use std::process::Command;
+
+/// A survey grid ([`GridGeometry::survey`]) in WGS 84 / UTM zone 25N (EPSG:32625).
+fn survey_geometry(
+    origin: (f64, f64),
+    column_azimuth: f64,
+    bins: (f64, f64),
+    size: (usize, usize),
+) -> GridGeometry {
+    let crs = gdal::spatial_ref::SpatialRef::from_epsg(32625).unwrap();
+    GridGeometry::survey(origin, column_azimuth, bins, size, crs.to_wkt().unwrap())
+}
 
 /// A sphere-dome depth horizon (R = 2000 m) on a rotated survey grid, written as GeoTIFF.
 fn write_input(dir: &Path) -> PathBuf {
@@ -168,26 +179,6 @@ fn results_do_not_depend_on_thread_count() {
     }
 }
 
-#[test]
-fn shipped_demo_data_matches_its_generator() {
-    let dir = tempfile::tempdir().unwrap();
-    let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_horizons");
-    for fresh in write_demo_data(dir.path()).unwrap() {
-        let name = fresh.file_name().unwrap();
-        let old = shipped.join(name);
-        if fresh.extension().is_some_and(|e| e == "tif") {
-            assert_eq!(
-                band_bits(&fresh),
-                band_bits(&old),
-                "{name:?}: run `make demo-data`"
-            );
-        } else {
-            let same = std::fs::read(&fresh).ok() == std::fs::read(&old).ok();
-            assert!(same, "{name:?}: run `make demo-data`");
-        }
-    }
-}
-
 /// Symmetry-axis azimuth (slow direction) of the synthetic HTI field at map point (x, y).
 fn hti_beta(x: f64, y: f64) -> f64 {
     (20.0 + 0.02 * (x - 500_000.0) + 0.01 * (y - 3_900_000.0)).rem_euclid(180.0)
@@ -305,7 +296,7 @@ fn anisotropy_does_not_depend_on_thread_count() {
 }
 
 /// A north-up EPSG:32625 grid of `cell` m bins.
-fn north_up(cols: usize, rows: usize, cell: f64) -> flexure_engine::grid::GridGeometry {
+fn north_up(cols: usize, rows: usize, cell: f64) -> GridGeometry {
     survey_geometry((500_000.0, 3_900_000.0), 90.0, (cell, cell), (cols, rows))
 }
 

@@ -7,7 +7,8 @@
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use flexure_engine::curvature::{attribute_by_id, evaluate_field, FlatTolerance, ATTRIBUTES};
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::synthetic::{SeededNoise, Shape, Surface};
+use flexure_engine::stats::SeededNoise;
+use flexure_engine::synthetic::{Shape, Surface};
 use flexure_engine::window::{fit_quadrics, WindowSpec};
 use flexure_engine::window_study::study;
 use ndarray::Array2;

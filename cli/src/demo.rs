@@ -1,5 +1,7 @@
 //! The demo scenario: the invented Tessary Basin, with two interpreted horizons built from
-//! analytic surfaces ([`crate::synthetic`]) so their true curvature is known exactly.
+//! analytic surfaces ([`flexure_engine::synthetic`]) so their true curvature is known exactly.
+//! It lives in the command line's crate, beside `flexure demo` and `flexure demo-data`, and
+//! uses only the engine's public API.
 //!
 //! Everything here is invented: the basin, horizon names and structures. Coordinates are in
 //! WGS 84 / UTM zone 25N (EPSG:32625) and placed over open ocean so no real place is depicted.
@@ -15,15 +17,18 @@
 //!   sector, two sectors missing along the low-fold south-west edge and only three sectors in
 //!   one corner.
 
-use crate::error::{FlexureError, Result};
-use crate::grid::GridGeometry;
-use crate::horizon::{Domain, VelocitySource};
-use crate::io::{write_float_geotiff, BandOut};
-use crate::jobs::{
+use flexure_engine::curvature::attribute_by_id;
+use flexure_engine::error::{FlexureError, Result};
+use flexure_engine::grid::GridGeometry;
+use flexure_engine::horizon::{Domain, VelocitySource};
+use flexure_engine::io::{write_float_geotiff, BandOut};
+use flexure_engine::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
     RenderJob, RenderReport, StagesJob, StagesReport, WellInput, WindowStudyJob, WindowStudyReport,
 };
-use crate::synthetic::{SeededNoise, Shape, Surface};
+use flexure_engine::stats::SeededNoise;
+use flexure_engine::synthetic::{Shape, Surface};
+use flexure_engine::wells::MdUnit;
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
@@ -59,32 +64,17 @@ pub struct DemoHorizon {
     pub seed: u64,
 }
 
-/// A grid whose columns run at `column_azimuth` degrees from north, rows 90 degrees clockwise
-/// from that, with bins `dx` along columns and `dy` along rows, top-left corner `origin`.
-pub fn survey_geometry(
+/// A survey grid of the demo ([`GridGeometry::survey`]) in the demo CRS ([`DEMO_EPSG`]).
+pub fn demo_grid(
     origin: (f64, f64),
     column_azimuth: f64,
-    (dx, dy): (f64, f64),
-    (cols, rows): (usize, usize),
+    bins: (f64, f64),
+    size: (usize, usize),
 ) -> GridGeometry {
-    // Sines and cosines of multiples of 90 degrees snapped to exact 0 and +-1, so north-up
-    // grids get a geotransform without round-off rotation terms.
-    let snap = |v: f64| if v.abs() < 1e-12 { 0.0 } else { v };
-    let trig = |deg: f64| {
-        let (s, c) = deg.to_radians().sin_cos();
-        (snap(s), snap(c))
-    };
-    let (sc, cc) = trig(column_azimuth);
-    let (sr, cr) = trig(column_azimuth + 90.0);
-    GridGeometry {
-        cols,
-        rows,
-        geo_transform: [origin.0, dx * sc, dy * sr, origin.1, dx * cc, dy * cr],
-        crs_wkt: SpatialRef::from_epsg(DEMO_EPSG)
-            .and_then(|s| s.to_wkt())
-            .unwrap_or_default(),
-        metres_per_unit: 1.0,
-    }
+    let crs_wkt = SpatialRef::from_epsg(DEMO_EPSG)
+        .and_then(|s| s.to_wkt())
+        .unwrap_or_default();
+    GridGeometry::survey(origin, column_azimuth, bins, size, crs_wkt)
 }
 
 /// The demo horizons of the Tessary Basin.
@@ -134,7 +124,7 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             file: "orrimund_shale_top_depth.tif",
             name: "Orrimund Shale top",
             domain: Domain::Depth,
-            geometry: survey_geometry((480_000.0, 3_905_000.0), 90.0, (25.0, 25.0), (240, 200)),
+            geometry: demo_grid((480_000.0, 3_905_000.0), 90.0, (25.0, 25.0), (240, 200)),
             surface: Surface {
                 datum: 2450.0,
                 shapes: upper,
@@ -149,7 +139,7 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             file: "kelvane_marl_twt.tif",
             name: "Kelvane Marl",
             domain: Domain::Time,
-            geometry: survey_geometry((480_300.0, 3_903_800.0), 115.0, (25.0, 12.5), (180, 300)),
+            geometry: demo_grid((480_300.0, 3_903_800.0), 115.0, (25.0, 12.5), (180, 300)),
             surface: Surface {
                 datum: 3150.0,
                 shapes: lower,
@@ -212,7 +202,7 @@ pub fn demo_sectors() -> DemoSectors {
     let horizon = demo_horizons().remove(1);
     DemoSectors {
         file: "kelvane_marl_sectors.tif",
-        geometry: survey_geometry((480_300.0, 3_903_800.0), 115.0, (50.0, 25.0), (90, 150)),
+        geometry: demo_grid((480_300.0, 3_903_800.0), 115.0, (50.0, 25.0), (90, 150)),
         horizon,
         azimuths: (0..8).map(|k| 11.25 + 22.5 * k as f64).collect(),
         noise_sd: 0.3,
@@ -592,7 +582,7 @@ pub fn demo_stages_job(data_dir: &Path, out_dir: &Path) -> StagesJob {
         .collect();
     let mut job = StagesJob::new(out_dir.join("anisotropy"), wells, out_dir.join("stages"));
     job.curvature = Some(kelvane_curvature(data_dir, out_dir));
-    job.md_unit = Some(crate::wells::MdUnit::Metre);
+    job.md_unit = Some(MdUnit::Metre);
     job.horizon = Some(demo_curvature_job(&demo_sectors().horizon, data_dir, out_dir).horizon);
     job
 }
@@ -624,7 +614,7 @@ pub fn demo_window_study_job(data_dir: &Path, out_dir: &Path) -> WindowStudyJob 
     fit.out_dir = out_dir.join("window_study");
     WindowStudyJob {
         fit,
-        attribute: crate::curvature::attribute_by_id("k_pos").expect("k_pos is an attribute"),
+        attribute: attribute_by_id("k_pos").expect("k_pos is an attribute"),
         adaptive: true,
     }
 }

@@ -1,1 +1,0 @@
-//! Root package of the flexure workspace: integration tests and benches live here.
