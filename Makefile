@@ -29,6 +29,10 @@ test: lint
 	$(CARGO) test --workspace
 	$(CARGO) bench --workspace --no-run
 
-## Criterion throughput benchmarks (not part of the tests).
-bench: deps
-	$(CARGO) bench -p flexure-engine --bench throughput
+## Criterion benchmarks (not part of the tests): throughput, and flexure side by side with the
+## numpy/scipy peer on a 2048 x 2048 grid; then peak memory and file sizes up to 8192 x 8192.
+bench:
+	bash scripts/install-system-deps.sh --bench
+	$(CARGO) bench -p flexure-engine --bench throughput --bench side_by_side
+	$(CARGO) build --release -p flexure-cli
+	bash scripts/bench/memory.sh

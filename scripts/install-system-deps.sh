@@ -2,8 +2,12 @@
 # Installs the Debian/Ubuntu packages flexure builds and tests against, when missing.
 # Needed: libgdal-dev (GDAL C library and headers), gdal-bin (gdalinfo, ogrinfo and gdal2xyz.py used by tests),
 # libopenblas-dev (LAPACK for the least-squares reference), pkg-config.
+# With --bench also python3-numpy and python3-scipy, for the numpy/scipy peer of the benchmarks.
 set -euo pipefail
 packages=(libgdal-dev gdal-bin libopenblas-dev pkg-config)
+if [ "${1:-}" = "--bench" ]; then
+  packages+=(python3-numpy python3-scipy python3-gdal)
+fi
 missing=()
 for p in "${packages[@]}"; do
   if ! dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed"; then

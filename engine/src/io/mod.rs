@@ -164,10 +164,10 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     };
     let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
     let size = (geometry.cols, geometry.rows);
-    let mut notes = Vec::new();
-    let mut bands = Vec::new();
     let count = ds.raster_count();
+    check_only_band(path, options, count)?;
     let wanted = |i: usize| options.only_band.is_none_or(|b| b + 1 == i);
+    let mut read = Vec::new();
     for i in (1..=count).filter(|&i| wanted(i)) {
         let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
         let nodata = band.no_data_value();
@@ -177,14 +177,20 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
             .to_array()
             .map_err(|e| FlexureError::read(path, e))?;
         values.mapv_inplace(|v| nulls::null_to_nan(v, nodata, &options.nodata));
+        read.push((i, nodata, values));
+    }
+    let info = raster_info(&ds, path)?;
+    // Closing the file frees its blocks from GDAL's cache before the null search copies values.
+    drop(ds);
+    take_gdal_messages();
+    let mut notes = Vec::new();
+    let mut bands = Vec::new();
+    for (i, nodata, values) in read {
         if nodata.is_none() && options.find_sentinels {
             notes.extend(check_undeclared_nulls(&values, path, &format!("band {i}"))?);
         }
         bands.push(values);
     }
-    check_only_band(path, options, count)?;
-    let info = raster_info(&ds, path)?;
-    take_gdal_messages();
     Ok(Raster {
         geometry,
         bands,

@@ -38,9 +38,13 @@ pub fn looks_like_sentinel(v: f64) -> bool {
         return true;
     }
     let whole = a.trunc();
-    let fraction = a - whole;
-    let nines = format!("{whole:.0}");
-    nines.len() >= 3 && nines.bytes().all(|b| b == b'9') && [0.0, 0.25, 0.5].contains(&fraction)
+    if ![0.0, 0.25, 0.5].contains(&(a - whole)) {
+        return false;
+    }
+    // 999, 9999, ...: one less than a power of ten from 1e3 (exact in f64 below 1e10).
+    std::iter::successors(Some(1e3), |p| Some(p * 10.0))
+        .take_while(|&p| p <= 1e10)
+        .any(|p| whole == p - 1.0)
 }
 
 /// Values far outside the rest of a grid.
@@ -142,10 +146,14 @@ mod tests {
             1e30,
             f32::MAX as f64,
             0.0,
+            999.5,
+            -9_999_999.0,
         ] {
             assert!(looks_like_sentinel(v), "{v}");
         }
-        for v in [2450.0, -998.0, 9999.1, 1234.5, 99.0, 3e9] {
+        for v in [
+            2450.0, -998.0, 9999.1, 1234.5, 99.0, 3e9, 999.75, 9990.0, 1000.0,
+        ] {
             assert!(!looks_like_sentinel(v), "{v}");
         }
     }

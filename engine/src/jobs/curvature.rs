@@ -79,6 +79,8 @@ impl CurvatureJob {
     /// before the next is fitted, so only the input and one batch are held. Every window's file
     /// is staged and the files are committed together once all are written.
     pub fn run(&self, progress: &dyn Progress) -> Result<CurvatureReport> {
+        let budget = self.memory.unwrap_or_else(default_memory_budget);
+        set_block_cache(budget / 4);
         let mut prepared = self.prepare()?;
         // Only the depth is fitted: the values as read are let go before the fit.
         let input_null_share = prepared.horizon.grid.null_share();
@@ -96,8 +98,6 @@ impl CurvatureJob {
             .iter()
             .map(|&n| WindowFit::new(prepared.horizon.depth.view(), geometry, &self.spec(n), &[]))
             .collect::<Result<Vec<_>>>()?;
-        let budget = self.memory.unwrap_or_else(default_memory_budget);
-        set_block_cache(budget / 4);
         let batch_rows = batch_rows(budget / 2, geometry.cols, self.attributes.len());
         let mut outputs = prepared
             .windows
