@@ -111,7 +111,7 @@ impl CurvatureJob {
                 let tiles = fit.map_tiles(rows.clone(), |tile| {
                     self.evaluate_tile(&tile, geometry.metres_per_unit, prepared.tolerance)
                 });
-                output.write(first_row, tiles)?;
+                output.write(tiles)?;
                 progress.advance(rows.len() as u64);
             }
         }
@@ -139,7 +139,9 @@ impl CurvatureJob {
         }
     }
 
-    /// The attributes of one fitted tile, band by band, and its number of fitted cells.
+    /// The attributes of one fitted tile, band by band and ready to write (nulls as the
+    /// nodata value), with each band's range and the tile's number of fitted cells: one pass
+    /// over the tile's values.
     fn evaluate_tile(
         &self,
         tile: &FittedTile,
@@ -155,8 +157,20 @@ impl CurvatureJob {
             tolerance,
             &mut bands,
         );
+        let ranges = bands
+            .iter_mut()
+            .map(|band| {
+                band.iter_mut().fold(None, |range, v| {
+                    let x = *v;
+                    *v = nodata_if_null(x);
+                    widen(range, x)
+                })
+            })
+            .collect();
         TileValues {
+            first_row: tile.first_row,
             bands,
+            ranges,
             fitted: tile.cells.iter().filter(|c| c.is_some()).count(),
         }
     }
@@ -329,10 +343,21 @@ pub(crate) struct Prepared {
     pub(crate) tolerance: FlatTolerance,
 }
 
-/// One tile's attribute values, band by band (NaN nulls), and its number of fitted cells.
+/// One tile's attribute values, band by band (nulls as the nodata value), each band's range of
+/// values, and its number of fitted cells.
 struct TileValues {
+    first_row: usize,
     bands: Vec<Vec<f32>>,
+    ranges: Vec<Option<(f32, f32)>>,
     fitted: usize,
+}
+
+/// `range` widened to hold `x` when `x` is finite.
+fn widen(range: Option<(f32, f32)>, x: f32) -> Option<(f32, f32)> {
+    if !x.is_finite() {
+        return range;
+    }
+    Some(range.map_or((x, x), |(lo, hi)| (lo.min(x), hi.max(x))))
 }
 
 /// One window's output while rows stream in: its writer, running value ranges and fit count.
@@ -346,24 +371,18 @@ struct WindowOutput {
 }
 
 impl WindowOutput {
-    /// Writes the tiles of one batch (in row order, starting at `first_row`) band by band,
-    /// updating the ranges and the count of fitted cells.
-    fn write(&mut self, first_row: usize, tiles: Vec<TileValues>) -> Result<()> {
-        self.fitted += tiles.iter().map(|t| t.fitted).sum::<usize>();
-        for band in 0..self.ids.len() {
-            let values: Vec<f32> = tiles
-                .iter()
-                .flat_map(|t| t.bands[band].iter().copied())
-                .collect();
-            self.ranges[band] = values.iter().filter(|v| v.is_finite()).fold(
-                self.ranges[band],
-                |acc, &x| match acc {
-                    None => Some((x, x)),
-                    Some((lo, hi)) => Some((lo.min(x), hi.max(x))),
-                },
-            );
-            let values = values.into_iter().map(nodata_if_null).collect();
-            self.writer.write_rows(band, first_row, values)?;
+    /// Writes the tiles of one batch band by band, updating the ranges and the count of
+    /// fitted cells.
+    fn write(&mut self, tiles: Vec<TileValues>) -> Result<()> {
+        for tile in tiles {
+            self.fitted += tile.fitted;
+            for (band, (values, range)) in tile.bands.into_iter().zip(tile.ranges).enumerate() {
+                self.ranges[band] = [range.map(|r| r.0), range.map(|r| r.1)]
+                    .into_iter()
+                    .flatten()
+                    .fold(self.ranges[band], widen);
+                self.writer.write_rows(band, tile.first_row, values)?;
+            }
         }
         Ok(())
     }
