@@ -288,7 +288,11 @@ fn hold_folders(dir: &Path) -> std::io::Result<Vec<Arc<CreatedFolder>>> {
     let mut registry = CREATED_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
     registry.retain(|w| w.strong_count() > 0);
     let mut missing = Vec::new();
-    let mut existing = dir;
+    let mut existing = if dir.as_os_str().is_empty() {
+        Path::new(".")
+    } else {
+        dir
+    };
     while std::fs::symlink_metadata(existing).is_err() {
         missing.push(existing);
         match existing.parent() {
