@@ -398,6 +398,11 @@ fn render_bad_inputs_fail_cleanly() {
             vec!["render", "--attribute", a, "--clip", "1,-1", "--out", m],
             "--clip",
         ),
+        // Our rule (one owner per file name in a commit): the quicklook named like the map.
+        (
+            vec!["render", "--attribute", a, "--out", m, "--png", m],
+            "two outputs of this run have this file name: the map (--out) and the quicklook (--png)",
+        ),
     ];
     for (args, expect) in cases {
         let msg = fails(&args, &out);
@@ -405,6 +410,7 @@ fn render_bad_inputs_fail_cleanly() {
             msg.contains(expect),
             "{args:?}: expected '{expect}' in {msg}"
         );
+        assert!(!out.exists(), "{args:?}: the output folder was left");
     }
     assert!(attr.is_file());
 }

@@ -202,6 +202,7 @@ fn bad_inputs_fail_cleanly() {
             msg.contains(expect),
             "{args:?}: expected '{expect}' in {msg}"
         );
+        assert!(!target.exists(), "{args:?}: the output folder was left");
     }
     // The clashing velocity grid is untouched.
     assert!(clash.is_file());

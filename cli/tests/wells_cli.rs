@@ -5,7 +5,7 @@
 
 mod common;
 
-use common::{fails, flexure, survey_geometry};
+use common::{fails, fails_leaving_unchanged, flexure, survey_geometry, tree};
 use flexure_engine::anisotropy::FIT_BANDS;
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use ndarray::Array2;
@@ -917,4 +917,130 @@ fn corridor_half_widths_are_metres_on_a_grid_in_feet() {
             .all(|r| r["flag"].contains("fewer than 40")),
         "{rows:?}"
     );
+}
+
+#[test]
+fn two_outputs_with_one_file_name_are_refused_and_nothing_is_written() {
+    // Our rule, checked by the one commit of every job: well 'A_1' stage '2' and well 'A'
+    // stage '1_2' both make the rose file name A_1_2, which neither the well-name nor the
+    // stage-name check sees. Refused naming the file and both; a fresh folder is not created
+    // and a previous run's folder is left byte for byte.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "ew.csv", EAST_WEST);
+    let st1 = write(d, "st1.csv", "stage,md_top,md_base\n2,3000,3300\n");
+    let st2 = write(d, "st2.csv", "stage,md_top,md_base\n1_2,3300,3600\n");
+    let (w1, w2) = (format!("A_1={}", s(&well)), format!("A={}", s(&well)));
+    let (s1, s2) = (format!("A_1={}", s(&st1)), format!("A={}", s(&st2)));
+    let args = [
+        "--well", &w1, "--well", &w2, "--stages", &s1, "--stages", &s2,
+    ];
+    let msg = stages_fail(&a, &d.join("fresh"), &args);
+    assert!(
+        msg.contains("A_1_2.svg: two outputs of this run have this file name: the rose of well 'A_1' stage '2' and the rose of well 'A' stage '1_2'; rename one"),
+        "{msg}"
+    );
+    let out = d.join("out");
+    stages_ok(&a, &out, &["--well", &w1, "--stages", &s1]);
+    let mut all = vec!["stages", "--anisotropy", s(&a), "--out", s(&out)];
+    all.extend(args);
+    let msg = fails_leaving_unchanged(&all, &out);
+    assert!(
+        msg.contains("two outputs of this run have this file name"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn a_commit_that_fails_part_way_leaves_the_previous_run_and_a_rerun_replaces_it() {
+    // Common practice for all-or-nothing outputs (POSIX rename(2) cannot put a file over a
+    // directory): a folder in the place of the last output the stages job commits
+    // (stage_corridors.geojson) fails its commit after every other output was renamed in;
+    // they are taken back, so the previous run's files are byte-identical and no new file,
+    // folder or hidden temporary or backup remains. Once the folder is gone, the same run
+    // replaces the previous files and leaves no hidden file.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "ew.csv", EAST_WEST);
+    let stages = write(d, "ew_st.csv", STAGES);
+    let second = write(
+        d,
+        "n2.csv",
+        "md,x,y\n0,501000,3898000\n1200,501000,3896800\n",
+    );
+    let second_stages = write(
+        d,
+        "n2_st.csv",
+        "stage,md_top,md_base\n1,100,400\n2,400,700\n",
+    );
+    let out = d.join("out");
+    stages_ok(&a, &out, &["--well", s(&well), "--stages", s(&stages)]);
+    let previous = tree(&out);
+    let blocker = out.join("stage_corridors.geojson");
+    std::fs::remove_file(&blocker).unwrap();
+    std::fs::create_dir(&blocker).unwrap();
+    std::fs::write(blocker.join("keep.txt"), "not ours").unwrap();
+    let rerun = [
+        "stages",
+        "--anisotropy",
+        s(&a),
+        "--out",
+        s(&out),
+        "--well",
+        s(&well),
+        "--well",
+        s(&second),
+        "--stages",
+        s(&stages),
+        "--stages",
+        s(&second_stages),
+        "--half-width",
+        "100",
+    ];
+    let msg = fails_leaving_unchanged(&rerun, &out);
+    assert!(
+        msg.contains("stage_corridors.geojson: Is a directory")
+            && msg.contains("a folder has this output's name")
+            && msg.contains("no output was written and the folder is as it was"),
+        "{msg}"
+    );
+    let left = tree(&out);
+    for (path, bytes) in &previous {
+        if !path.starts_with("stage_corridors.geojson") {
+            assert_eq!(left.get(path), Some(bytes), "{}", path.display());
+        }
+    }
+    // The re-run, with the folder moved away, replaces the files.
+    std::fs::remove_dir_all(&blocker).unwrap();
+    let o = flexure(&rerun);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let now = tree(&out);
+    let hidden: Vec<_> = now
+        .keys()
+        .filter(|p| p.iter().any(|c| c.to_string_lossy().starts_with('.')))
+        .collect();
+    assert!(hidden.is_empty(), "{hidden:?}");
+    assert_ne!(
+        now[Path::new("stages.csv")],
+        previous[Path::new("stages.csv")]
+    );
+    assert!(now.contains_key(Path::new("wells/n2_path.csv")));
+    assert!(now.contains_key(Path::new("stage_corridors.geojson")));
+    // What the re-run wrote is what the same run writes into an empty folder.
+    let fresh = d.join("fresh");
+    let mut args = rerun.to_vec();
+    args[4] = s(&fresh);
+    let o = flexure(&args);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let fresh = tree(&fresh);
+    for name in [
+        "stages.csv",
+        "wells/ew_path.csv",
+        "roses/ew_1.svg",
+        "n2_sheet.svg",
+    ] {
+        assert_eq!(now[Path::new(name)], fresh[Path::new(name)], "{name}");
+    }
 }

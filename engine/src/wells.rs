@@ -419,6 +419,11 @@ pub fn inside(p: (f64, f64), poly: &[(f64, f64)]) -> bool {
     inside
 }
 
+/// Longest measured depth read, metres: 100 km, several times the longest wells drilled
+/// (about 15 km). Wells are traced in steps of metres, so a typo of a few orders of magnitude
+/// would otherwise ask for memory the machine does not have.
+pub const MAX_MD_M: f64 = 100_000.0;
+
 /// A tie-in point: where the first station of a survey that does not start at measured depth
 /// 0 lies. Lengths in the well's measured-depth unit except x and y (CRS units).
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -547,6 +552,18 @@ pub fn read_well(name: &str, table: &Table, setting: &WellSetting) -> Result<Wel
     )?;
     let crs_per_md = md_unit.metres() / setting.metres_per_unit;
     let md = table.numbers(md_col)?;
+    let limit = MAX_MD_M / md_unit.metres();
+    if let Some(k) = (0..md.len()).find(|&k| md[k].abs() > limit) {
+        return Err(table.error(
+            table.line(k),
+            format!(
+                "md {} {} is beyond {} km along the hole: check the md column and its unit",
+                md[k],
+                md_unit.name(),
+                MAX_MD_M / 1000.0
+            ),
+        ));
+    }
     for k in 1..md.len() {
         if md[k] <= md[k - 1] {
             return Err(table.error(
@@ -1163,6 +1180,33 @@ mod tests {
         assert!(e.contains("no column 'md_base'"), "{e}");
         let ok = st("Stage No,Top Perf MD (m),Bottom Perf MD (m)\n1,100,200\n").unwrap();
         assert_eq!((ok[0].md_top, ok[0].md_base), (100.0, 200.0));
+    }
+
+    #[test]
+    fn measured_depths_beyond_a_hundred_kilometres_are_refused() {
+        // Found by the reader audit: md 1e12 read fine, and tracing the well every 10 m then
+        // asked for 1e11 points (an allocation failure aborts the process). Our limit,
+        // MAX_MD_M; hand-checkable: 100 km is 328083.99 ft.
+        let setting = WellSetting {
+            wellhead: Some((0.0, 0.0)),
+            kb: 0.0,
+            tie_in: None,
+            md_unit: None,
+            azimuth_offset: 0.0,
+            metres_per_unit: 1.0,
+        };
+        let e = read_well("w", &table("md,inc,azi\n0,0,0\n1e12,0,0\n"), &setting)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("w.csv: line 3: md 1000000000000 m is beyond 100 km along the hole"),
+            "{e}"
+        );
+        let e = read_well("w", &table("md (ft),x,y\n0,0,0\n328084,0,1\n"), &setting)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("line 3: md 328084 ft is beyond 100 km"), "{e}");
+        assert!(read_well("w", &table("md (ft),x,y\n0,0,0\n328083,0,1\n"), &setting).is_ok());
     }
 
     #[test]

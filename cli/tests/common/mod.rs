@@ -94,6 +94,28 @@ pub fn outputs_in(dir: &Path) -> Vec<String> {
 /// Runs a failing command and checks the failure is clean (exit 1, one line, no panic, no
 /// output in `out`); returns the message.
 pub fn fails(args: &[&str], out: &Path) -> String {
+    let stderr = refusal(args);
+    assert!(
+        outputs_in(out).is_empty(),
+        "outputs left: {:?}",
+        outputs_in(out)
+    );
+    stderr
+}
+
+/// Runs a failing command into an output folder that already holds files (a previous run)
+/// and checks the failure is clean and left the folder exactly as it was: the same files and
+/// folders, hidden ones included, with the same bytes; returns the message.
+pub fn fails_leaving_unchanged(args: &[&str], out: &Path) -> String {
+    let before = tree(out);
+    let stderr = refusal(args);
+    assert_eq!(tree(out), before, "the folder changed: {stderr}");
+    stderr
+}
+
+/// Runs a command that must fail cleanly (exit 1, one line starting `flexure: error: `, no
+/// panic) and returns its message.
+fn refusal(args: &[&str]) -> String {
     let o = flexure(args);
     let stderr = String::from_utf8_lossy(&o.stderr).to_string();
     assert_eq!(o.status.code(), Some(1), "args {args:?}: stderr {stderr}");
@@ -104,10 +126,28 @@ pub fn fails(args: &[&str], out: &Path) -> String {
         "one line expected: {stderr}"
     );
     assert!(stderr.starts_with("flexure: error: "), "{stderr}");
-    assert!(
-        outputs_in(out).is_empty(),
-        "outputs left: {:?}",
-        outputs_in(out)
-    );
     stderr
+}
+
+/// Every file and folder under `dir` (hidden ones included) by relative path, with the bytes
+/// of the files (`None` for folders); empty when `dir` does not exist.
+pub fn tree(dir: &Path) -> std::collections::BTreeMap<PathBuf, Option<Vec<u8>>> {
+    let mut out = std::collections::BTreeMap::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        let Ok(entries) = std::fs::read_dir(&d) else {
+            continue;
+        };
+        for e in entries {
+            let p = e.unwrap().path();
+            let rel = p.strip_prefix(dir).unwrap().to_path_buf();
+            if p.is_dir() {
+                out.insert(rel, None);
+                stack.push(p);
+            } else {
+                out.insert(rel, Some(std::fs::read(&p).unwrap()));
+            }
+        }
+    }
+    out
 }

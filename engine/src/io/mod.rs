@@ -7,18 +7,22 @@
 //! (surveys, stage tables, well lists) are read by [`table`].
 //! Writing ([`geotiff`]): float32 (or float64) GeoTIFF, one band per attribute, written run of
 //! rows by run of rows, band-interleaved, tiled, ZSTD (or DEFLATE) with the floating-point
-//! predictor, declared nodata, band descriptions and unit types. Every output is written under a temporary name in the target folder, read back to
-//! check it, and renamed when complete ([`StagedFile`]), so an interrupted run never leaves a
-//! truncated file under a final name. GDAL's own messages are captured and reported as one
-//! line instead of printed.
+//! predictor, declared nodata, band descriptions and unit types. Every output is written under
+//! a temporary name in the target folder, read back to check it, and renamed when complete
+//! ([`StagedFile`]); a job commits all its outputs at the end as one transaction
+//! ([`commit_all`]), so a failed or interrupted run never leaves a truncated file under a final
+//! name, nor some outputs new and others old. GDAL's own messages are captured and reported as
+//! one line instead of printed.
 
 pub mod geotiff;
 pub mod nulls;
 pub mod points;
+mod staged;
 pub mod table;
 
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
+pub use staged::{commit_all, prepare_output_dir, temporary_path, StagedFile};
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
@@ -26,7 +30,7 @@ use gdal::raster::GdalType;
 use gdal::spatial_ref::SpatialRef;
 use gdal::{Dataset, Metadata};
 use ndarray::Array2;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::sync::{Mutex, Once};
 
 /// Nodata value declared in float outputs.
@@ -554,74 +558,6 @@ fn check_band_sizes<'a>(
     }
 }
 
-/// A complete output written under a temporary name beside its final path. [`commit`]
-/// renames it into place; dropped uncommitted (an error elsewhere in the job), the temporary
-/// file is removed, so a failed run leaves neither a partial nor a final file.
-///
-/// [`commit`]: StagedFile::commit
-#[derive(Debug)]
-pub struct StagedFile {
-    temp: PathBuf,
-    target: PathBuf,
-    committed: bool,
-}
-
-impl StagedFile {
-    /// Reserves the temporary name of `target` (see [`temporary_path`]); nothing is created.
-    pub fn new(target: &Path) -> Self {
-        Self {
-            temp: temporary_path(target),
-            target: target.to_path_buf(),
-            committed: false,
-        }
-    }
-
-    /// The temporary path to write to.
-    pub fn temp(&self) -> &Path {
-        &self.temp
-    }
-
-    /// The final path.
-    pub fn target(&self) -> &Path {
-        &self.target
-    }
-
-    /// Renames the temporary file to its final name.
-    pub fn commit(mut self) -> Result<()> {
-        std::fs::rename(&self.temp, &self.target)
-            .map_err(|e| FlexureError::write(&self.target, e))?;
-        self.committed = true;
-        Ok(())
-    }
-}
-
-impl Drop for StagedFile {
-    fn drop(&mut self) {
-        if !self.committed {
-            let _ = std::fs::remove_file(&self.temp);
-        }
-    }
-}
-
-/// Commits every staged file, in order.
-pub fn commit_all(files: Vec<StagedFile>) -> Result<()> {
-    files.into_iter().try_for_each(StagedFile::commit)
-}
-
-/// `DIR/.NAME.partial-PID.EXT`: a hidden sibling of the final path with the same extension
-/// (some GDAL drivers check it).
-pub fn temporary_path(path: &Path) -> PathBuf {
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().to_string())
-        .unwrap_or_default();
-    let ext = path
-        .extension()
-        .map(|e| e.to_string_lossy().to_string())
-        .unwrap_or_else(|| "tmp".into());
-    path.with_file_name(format!(".{name}.partial-{}.{ext}", std::process::id()))
-}
-
 pub(crate) fn gdal_failure(context: &str, e: impl std::fmt::Display) -> String {
     let mut messages = take_gdal_messages();
     messages.push(e.to_string());
@@ -636,17 +572,6 @@ pub(crate) fn gdal_outcome() -> std::result::Result<(), String> {
     } else {
         Err(messages.join("; "))
     }
-}
-
-/// Checks that `dir` exists (creating it if needed) and that files can be created in it.
-pub fn prepare_output_dir(dir: &Path) -> Result<()> {
-    std::fs::create_dir_all(dir)
-        .map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
-    let probe = dir.join(format!(".flexure-write-test-{}", std::process::id()));
-    std::fs::write(&probe, b"")
-        .map_err(|e| FlexureError::write(dir, format!("{e}; choose a writable output folder")))?;
-    let _ = std::fs::remove_file(&probe);
-    Ok(())
 }
 
 /// Refuses an output path that is one of the inputs.
@@ -711,7 +636,10 @@ mod tests {
     #[test]
     fn unwritable_target_leaves_nothing() {
         let dir = tempfile::tempdir().unwrap();
-        let path = dir.path().join("missing_sub").join("a.tif");
+        // A file where the target's folder should be: the folder cannot be made.
+        let blocker = dir.path().join("a_file");
+        std::fs::write(&blocker, b"").unwrap();
+        let path = blocker.join("a.tif");
         let values = Array2::<f32>::zeros((4, 5));
         let err = write_float_geotiff(
             &path,

@@ -322,7 +322,7 @@ fn sniff_text(path: &Path) -> Option<String> {
     }
     let mut text = String::from_utf8_lossy(&bytes).into_owned();
     if bytes.len() == SNIFF_BYTES {
-        text.truncate(text.rfind('\n').unwrap_or(0));
+        text.truncate(text.rfind(['\n', '\r']).unwrap_or(0));
     }
     let first = content_lines(&text)
         .next()
@@ -1033,15 +1033,13 @@ impl Buckets {
         if !size.is_finite() || size <= 0.0 {
             return None;
         }
-        let (mut nx, mut ny);
-        loop {
-            nx = (w / size).floor() as i64 + 1;
-            ny = (h / size).floor() as i64 + 1;
-            if (nx as f64) * (ny as f64) <= 4.0 * n as f64 + 64.0 {
-                break;
-            }
+        // Counted in f64 until they fit: extents of wildly different size (2e6 by 2e-300)
+        // would ask for more buckets across than an i64 holds.
+        let across = |extent: f64, size: f64| (extent / size).floor() + 1.0;
+        while across(w, size) * across(h, size) > 4.0 * n as f64 + 64.0 {
             size *= 1.5;
         }
+        let (nx, ny) = (across(w, size) as i64, across(h, size) as i64);
         let mut b = Buckets {
             u0,
             v0,
@@ -1384,7 +1382,10 @@ fn finer_basis(
             let (base_c, base_r) = ((c - dc).round(), (r - dr).round());
             let at_offset = lattice.at(base_c + dc, base_r + dr);
             let near = squared_distance((u[k], v[k]), at_offset) <= (tolerance * bin / q).powi(2);
-            if (dc, dr) != (0.0, 0.0) && near {
+            // (Nodes beyond 1e15 steps cannot be resolved to a fraction of a step anyway;
+            // kept out, their neighbours' indices below cannot overflow.)
+            let resolvable = base_c.abs() < 1e15 && base_r.abs() < 1e15;
+            if (dc, dr) != (0.0, 0.0) && near && resolvable {
                 members.push(((twelfths(dc), twelfths(dr)), base_c as i64, base_r as i64));
                 break;
             }
@@ -1553,10 +1554,11 @@ fn fit_affine(n: usize, sample: impl Fn(usize) -> Option<(f64, f64, f64, f64)>) 
 /// Names a node in messages (indices may lie outside the lattice).
 fn node_name(numbering: &Option<Numbering>, c: i64, r: i64) -> String {
     match numbering {
+        // In i128: numbers below 1e15 times indices below 1e15 stay far inside it.
         Some(n) => format!(
             "inline {}, crossline {}",
-            n.inline_first + r * n.inline_step,
-            n.crossline_first + c * n.crossline_step
+            n.inline_first as i128 + r as i128 * n.inline_step as i128,
+            n.crossline_first as i128 + c as i128 * n.crossline_step as i128
         ),
         None => format!("column {c}, row {r}"),
     }
@@ -3131,6 +3133,50 @@ mod tests {
                 "--lattice-tolerance",
             ],
         );
+    }
+
+    #[test]
+    fn a_far_node_of_widely_numbered_inlines_is_named_without_overflow() {
+        // Found by the reader audit: inlines numbered 1e14 apart and a point whose x, y are those of a
+        // node a million rows away; naming that node multiplies the two (1e20, beyond i64).
+        // Hand-checkable: the node is inline 0 + 1e6 * 1e14 = 1e20, crossline 0.
+        let mut text = String::from("il xl x y z\n");
+        for r in 0..4i64 {
+            for c in 0..4i64 {
+                let y = if (r, c) == (0, 0) {
+                    1000.0 - 10.0 * 1e6
+                } else {
+                    1000.0 - 10.0 * r as f64
+                };
+                text += &format!("{} {c} {} {y} 5\n", r * 100_000_000_000_000, 1000 + 10 * c);
+            }
+        }
+        let err = refused(
+            &text,
+            &PointOptions::default(),
+            &["line 2:", "inline 0, crossline 0"],
+        );
+        assert!(
+            err.contains("inline 100000000000000000000, crossline 0"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn points_spread_over_wildly_different_extents_are_refused_without_overflow() {
+        // Found by the reader audit: 2e6 units wide and 2e-300 high, the bucket grid of the
+        // lattice search asked for 3e153 buckets across (beyond i64). Such points are not a
+        // two-dimensional survey; the refusal says so.
+        let mut text = String::from("x y z\n");
+        for r in 0..3 {
+            for c in 0..3 {
+                text += &format!("{} {} 5\n", 1e6 * c as f64, 1e-300 * r as f64);
+            }
+        }
+        let e = parse(&text, &PointOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("the points lie on no regular lattice"), "{e}");
     }
 
     #[test]

@@ -2,8 +2,9 @@
 //! well and stage tables and well lists here) and the reader of small tables.
 //!
 //! Shared by every text reader:
-//! - content lines: blank lines and `#` comment lines are skipped, a byte-order mark dropped,
-//!   and every line keeps its 1-based number for messages ([`content_lines`]);
+//! - content lines: lines end at `\n`, `\r\n` or a lone `\r`; blank lines and `#` comment
+//!   lines are skipped, a byte-order mark dropped, and every line keeps its 1-based number for
+//!   messages ([`content_lines`]);
 //! - the delimiter, detected from one line ([`Delimiter::detect`]): semicolon, else tab, else
 //!   comma (outside double quotes), else runs of spaces;
 //! - fields split by the csv crate's parser (`csv-core`: quoted fields, doubled quotes), one
@@ -36,10 +37,13 @@ pub fn is_content(line: &str) -> bool {
 }
 
 /// The content lines of `text` (see [`is_content`]) with their 1-based line numbers; a
-/// leading byte-order mark is dropped.
+/// leading byte-order mark is dropped. Lines end at `\n`, `\r\n` or a lone `\r` (universal
+/// newlines, as text editors count them).
 pub fn content_lines(text: &str) -> impl Iterator<Item = (usize, &str)> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-    text.lines()
+    let text = text.strip_suffix('\n').unwrap_or(text);
+    text.split('\n')
+        .flat_map(|l| l.strip_suffix('\r').unwrap_or(l).split('\r'))
         .enumerate()
         .map(|(i, l)| (i + 1, l))
         .filter(|(_, l)| is_content(l))
@@ -118,8 +122,11 @@ impl Splitter {
     pub fn new(delimiter: Delimiter) -> Self {
         Self {
             delimiter,
+            // Only `\n` ends a record: a line never holds one, so a record is always the
+            // whole line (by default a lone `\r` would end it and drop the fields after it).
             reader: csv_core::ReaderBuilder::new()
                 .delimiter(delimiter.byte())
+                .terminator(csv_core::Terminator::Any(b'\n'))
                 .build(),
             prepared: String::new(),
             out: Vec::new(),
@@ -578,6 +585,25 @@ mod tests {
         }
         let t = parse("# survey\n\nMD;Inc\n100;1.5\n\n# note\n200;2.5\n");
         assert_eq!((t.header_line, t.line(0), t.line(1)), (3, 4, 7));
+    }
+
+    #[test]
+    fn lone_carriage_returns_end_lines_instead_of_dropping_fields() {
+        // Found by the reader audit: csv-core ends a record at a lone \r, so the fields after
+        // it were silently dropped ("200,2\r5" read as 200, 2). Common practice (universal
+        // newlines, as text editors and Python's str.splitlines): \n, \r\n and a lone \r
+        // each end a line, so files saved with old Mac line endings read too.
+        for text in [
+            "md,inc\n100,1\r200,2\r\n300,3\n",
+            "md,inc\r100,1\r200,2\r300,3\r",
+        ] {
+            let t = parse(text);
+            assert_eq!(t.numbers(0).unwrap(), vec![100.0, 200.0, 300.0], "{text:?}");
+            assert_eq!((t.line(0), t.line(1), t.line(2)), (2, 3, 4), "{text:?}");
+        }
+        // Given a line that still holds one, the splitter keeps it inside the field.
+        let mut s = Splitter::new(Delimiter::Comma);
+        assert_eq!(s.split("1,2\r5").iter().collect::<Vec<_>>(), ["1", "2\r5"]);
     }
 
     #[test]

@@ -21,7 +21,9 @@ pub use stages::{
     PlanJob, PlanReport, StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS,
     MIN_FITTED_SHARE, SAMPLE_STEP_M, WELL_CAUTION,
 };
-pub use well_inputs::{parse_numbers, read_well_list, Named, WellBindings, WellInput};
+pub use well_inputs::{
+    parse_numbers, parse_well_list, read_well_list, Named, WellBindings, WellInput,
+};
 pub use window_study::{WindowStudyJob, WindowStudyReport};
 
 /// Progress of a long job, in units of grid rows fitted.

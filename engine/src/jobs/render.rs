@@ -131,13 +131,14 @@ impl RenderJob {
             .collect();
         let sources: Vec<&Path> = sources.iter().map(PathBuf::as_path).collect();
         let metadata = self.metadata(&id, &scale, vectors.as_ref(), &sources)?;
-        let mut staged = vec![stage_rgba_geotiff(
+        let map_file = stage_rgba_geotiff(
             &self.out,
             &geometry,
             &pixmap_bands(&map),
             &metadata,
             self.tiff,
-        )?];
+        )?;
+        let mut staged = vec![map_file.with_source("the map (--out)")];
         if let Some(png) = &self.png {
             let legend_parts = LegendParts {
                 info: &info,
@@ -146,7 +147,10 @@ impl RenderJob {
                 scale: &scale,
                 vectors: vectors.as_ref(),
             };
-            staged.push(self.stage_png(png, &geometry, &cells, segments, &legend_parts)?);
+            staged.push(
+                self.stage_png(png, &geometry, &cells, segments, &legend_parts)?
+                    .with_source("the quicklook (--png)"),
+            );
         }
         commit_all(staged)?;
         Ok(RenderReport {

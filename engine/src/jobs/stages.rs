@@ -2,7 +2,8 @@
 //! computed well paths, rose diagrams and a sheet per well, and the stand-off from a horizon)
 //! and `PlanJob` (a drilling-azimuth scan from a pad). Both evaluate corridors the same way
 //! ([`Corridor`]); every input is read and checked before any folder is created, and all
-//! outputs are staged and committed together.
+//! outputs are staged and committed together (file-name collisions between wells and stages
+//! are refused early by name, and any left by the one check of the commit).
 
 use super::anisotropy::AzimuthReference;
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
@@ -449,11 +450,21 @@ impl StagesJob {
         for r in &rows {
             let fig = stage_rose_figure(&format!("{} {}", r.well, r.stage), &r.corridor);
             let base = format!("{}_{}", file_name_part(&r.well), file_name_part(&r.stage));
-            staged.extend(stage_figure(&self.out_dir.join("roses").join(base), &fig)?);
+            let source = format!("the rose of well '{}' stage '{}'", r.well, r.stage);
+            staged.extend(
+                stage_figure(&self.out_dir.join("roses").join(base), &fig)?
+                    .into_iter()
+                    .map(|f| f.with_source(source.clone())),
+            );
         }
         for (name, fig) in &sheets {
             let base = self.out_dir.join(format!("{}_sheet", file_name_part(name)));
-            staged.extend(stage_figure(&base, fig)?);
+            let source = format!("the sheet of well '{name}'");
+            staged.extend(
+                stage_figure(&base, fig)?
+                    .into_iter()
+                    .map(|f| f.with_source(source.clone())),
+            );
         }
         let wells: Vec<&Well> = loaded.iter().map(|l| &l.well).collect();
         staged.extend(stage_paths(&self.out_dir, g, &wells)?);
@@ -620,7 +631,10 @@ fn stage_paths(dir: &Path, g: &GridGeometry, wells: &[&Well]) -> Result<Vec<Stag
         let path = dir
             .join("wells")
             .join(format!("{}_path.csv", file_name_part(&well.name)));
-        staged.push(stage_bytes(&path, text.as_bytes())?);
+        staged.push(
+            stage_bytes(&path, text.as_bytes())?
+                .with_source(format!("the path of well '{}'", well.name)),
+        );
         features.push(VectorFeature {
             points: points.iter().map(|p| (p.x, p.y)).collect(),
             values: vec![

@@ -99,13 +99,20 @@ pub fn read_well_list(path: &Path) -> Result<Vec<WellInput>> {
             format!("cannot read the well list ({e}): check the name"),
         )
     })?;
+    parse_well_list(&text, path)
+}
+
+/// Parses the well list `text` read from `path` (see [`read_well_list`]; `path` decides TOML
+/// or CSV, names the list in messages and is the base of relative paths). Pure.
+pub fn parse_well_list(text: &str, path: &Path) -> Result<Vec<WellInput>> {
     let is_toml = path
         .extension()
         .is_some_and(|e| e.eq_ignore_ascii_case("toml"));
     let entries: Vec<(String, WellEntry)> = if is_toml {
-        let list: WellListFile = toml::from_str(&text).map_err(|e| {
+        let list: WellListFile = toml::from_str(text).map_err(|e| {
             let line = e.span().map_or(1, |s| {
-                text[..s.start.min(text.len())].matches('\n').count() + 1
+                let before = &text.as_bytes()[..s.start.min(text.len())];
+                before.iter().filter(|&&b| b == b'\n').count() + 1
             });
             let message: Vec<&str> = e.message().split_whitespace().collect();
             FlexureError::input(path, format!("line {line}: {}", message.join(" ")))
@@ -116,7 +123,7 @@ pub fn read_well_list(path: &Path) -> Result<Vec<WellInput>> {
             .map(|(k, e)| (format!("[[well]] number {}", k + 1), e))
             .collect()
     } else {
-        csv_entries(&Table::parse(&text, path)?)?
+        csv_entries(&Table::parse(text, path)?)?
     };
     if entries.is_empty() {
         return Err(FlexureError::input(
@@ -193,6 +200,27 @@ fn csv_entries(table: &Table) -> Result<Vec<(String, WellEntry)>> {
 
 /// The input of one entry, paths resolved against `base`; the error says what is missing.
 fn entry_input(e: WellEntry, base: &Path) -> std::result::Result<WellInput, String> {
+    let numbers = [
+        ("wellhead_x", e.wellhead_x),
+        ("wellhead_y", e.wellhead_y),
+        ("kb", e.kb),
+        ("tie_in_md", e.tie_in_md),
+        ("tie_in_x", e.tie_in_x),
+        ("tie_in_y", e.tie_in_y),
+        ("tie_in_tvd", e.tie_in_tvd),
+    ];
+    // TOML has nan and inf; a CSV list's numbers are checked finite as they are read.
+    if let Some((key, Some(v))) = numbers
+        .iter()
+        .find(|(_, v)| v.is_some_and(|v| !v.is_finite()))
+    {
+        return Err(format!("{key} = {v} is not a finite number: give a number"));
+    }
+    if e.name.as_deref().is_some_and(|n| n.trim().is_empty()) {
+        return Err(
+            "the name is empty: give the well a name, or leave name out to use its file's".into(),
+        );
+    }
     let well = e
         .well_file
         .ok_or("no well_file: give the well's survey or path table")?;
@@ -575,5 +603,36 @@ mod tests {
             e.contains("line 2: give both wellhead_x and wellhead_y"),
             "{e}"
         );
+    }
+
+    #[test]
+    fn toml_lists_refuse_nan_infinity_and_empty_names() {
+        // Found by the reader audit: TOML floats include nan and inf (TOML 1.0, "Float"),
+        // which a CSV list refuses and which would put a well at no position.
+        let list = |body: &str| {
+            parse_well_list(
+                &format!("[[well]]\nwell_file = \"a.csv\"\nstage_file = \"b.csv\"\n{body}"),
+                Path::new("w.toml"),
+            )
+        };
+        for (body, says) in [
+            (
+                "kb = nan\n",
+                "w.toml: [[well]] number 1: kb = NaN is not a finite number",
+            ),
+            (
+                "wellhead_x = inf\nwellhead_y = 1\n",
+                "wellhead_x = inf is not a finite number",
+            ),
+            (
+                "tie_in_tvd = -inf\n",
+                "tie_in_tvd = -inf is not a finite number",
+            ),
+            ("name = \" \"\n", "the name is empty"),
+        ] {
+            let e = list(body).unwrap_err().to_string();
+            assert!(e.contains(says), "{body:?}: {e}");
+        }
+        assert_eq!(list("kb = 12\n").unwrap()[0].kb, Some(12.0));
     }
 }

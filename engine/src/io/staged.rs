@@ -1,0 +1,549 @@
+//! Staged outputs and the one commit of a job: every output is written complete under a hidden
+//! temporary name beside its final path ([`StagedFile`]), and a job renames all of them into
+//! place at the end, together, as one transaction ([`commit_all`]): its outputs appear
+//! together or not at all.
+//!
+//! The transaction (common practice for atomic replacement on one file system; each step is a
+//! POSIX `rename(2)`, which replaces its target atomically):
+//! 1. refuse two outputs with the same target (file names compared ignoring case, as on some
+//!    file systems), naming the file and both sources, before anything is renamed;
+//! 2. move every existing target file aside to a hidden backup (`.NAME.backup-PID.EXT`);
+//! 3. rename every staged file to its target;
+//! 4. on success remove the backups; on any failure remove what step 3 renamed in, restore the
+//!    backups and return the first error, so the folder is as it was.
+//!
+//! Folders created for outputs (the output folder itself, `roses/`, `wells/`, ...) are created
+//! when the first file is staged in them and removed again, when empty, once no staged file in
+//! them is left uncommitted: a failed job leaves no new folder behind. [`prepare_output_dir`]
+//! checks early that a folder can be written, and leaves it as it found it.
+//!
+//! Interrupted hard (power loss, `kill -9`) between steps 2 and 4, a folder may keep hidden
+//! `.NAME.partial-PID.EXT` or `.NAME.backup-PID.EXT` files: the backups are the previous
+//! versions of `NAME`.
+
+use crate::error::{FlexureError, Result};
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::{Arc, Mutex, Weak};
+
+/// A complete output written under a temporary name beside its final path. [`commit`] (or
+/// [`commit_all`] with the job's other outputs) renames it into place; dropped uncommitted (an
+/// error elsewhere in the job), the temporary file and the folders made for it (when empty)
+/// are removed, so a failed run leaves neither a partial nor a final file.
+///
+/// [`commit`]: StagedFile::commit
+#[derive(Debug)]
+pub struct StagedFile {
+    pub(super) temp: PathBuf,
+    target: PathBuf,
+    source: Option<String>,
+    /// Folders created for outputs that hold this file's target, deepest first.
+    folders: Vec<Arc<CreatedFolder>>,
+    committed: bool,
+}
+
+impl StagedFile {
+    /// Reserves the temporary name of `target` (see [`temporary_path`]) and creates the
+    /// target's missing folders (removed again if the file is never committed). A folder that
+    /// cannot be created is reported by the write to [`StagedFile::temp`] that follows.
+    pub fn new(target: &Path) -> Self {
+        Self {
+            temp: temporary_path(target),
+            target: target.to_path_buf(),
+            source: None,
+            folders: hold_folders(parent_of(target)).unwrap_or_default(),
+            committed: false,
+        }
+    }
+
+    /// Names what this output is (e.g. "rose of well A stage 3"), for the message when two
+    /// outputs of a job would have the same file name.
+    pub fn with_source(mut self, source: impl Into<String>) -> Self {
+        self.source = Some(source.into());
+        self
+    }
+
+    /// The temporary path to write to.
+    pub fn temp(&self) -> &Path {
+        &self.temp
+    }
+
+    /// The final path.
+    pub fn target(&self) -> &Path {
+        &self.target
+    }
+
+    /// Renames the temporary file to its final name (a transaction of one file, see
+    /// [`commit_all`]).
+    pub fn commit(self) -> Result<()> {
+        commit_all(vec![self])
+    }
+}
+
+impl Drop for StagedFile {
+    fn drop(&mut self) {
+        if !self.committed {
+            let _ = std::fs::remove_file(&self.temp);
+        }
+        // Files GDAL may leave beside a dataset it wrote (SQLite journals of a GeoPackage,
+        // auxiliary metadata); they never belong to the final file.
+        for suffix in ["-journal", "-wal", "-shm", ".aux.xml"] {
+            let mut side = self.temp.clone().into_os_string();
+            side.push(suffix);
+            let _ = std::fs::remove_file(PathBuf::from(side));
+        }
+        // `folders` drops after this: each folder is removed, when empty, by its last holder.
+    }
+}
+
+/// Commits the staged outputs of one job together (see the module notes): refuses two outputs
+/// with the same target before anything is renamed, moves existing targets aside, renames
+/// every staged file into place, and on any failure puts everything back as it was before
+/// returning the error. On success the backups are removed.
+pub fn commit_all(files: Vec<StagedFile>) -> Result<()> {
+    commit_with(files, &mut |from, to| std::fs::rename(from, to))
+}
+
+/// [`commit_all`] with the rename to use (tests inject failures through it).
+fn commit_with(
+    mut files: Vec<StagedFile>,
+    rename: &mut dyn FnMut(&Path, &Path) -> std::io::Result<()>,
+) -> Result<()> {
+    refuse_collisions(&files)?;
+    // (target, backup) of every existing target moved aside, and the targets renamed in.
+    let mut backups: Vec<(PathBuf, PathBuf)> = Vec::new();
+    let mut placed: Vec<PathBuf> = Vec::new();
+    let mut step = || -> std::result::Result<(), (PathBuf, std::io::Error)> {
+        for f in &files {
+            // A folder in a target's place is left there: the rename below fails on it.
+            let is_file = std::fs::symlink_metadata(&f.target).is_ok_and(|m| !m.is_dir());
+            if is_file {
+                let backup = backup_path(&f.target);
+                rename(&f.target, &backup).map_err(|e| (f.target.clone(), e))?;
+                backups.push((f.target.clone(), backup));
+            }
+        }
+        for f in files.iter_mut() {
+            rename(&f.temp, &f.target).map_err(|e| (f.target.clone(), e))?;
+            f.committed = true;
+            placed.push(f.target.clone());
+        }
+        Ok(())
+    };
+    let outcome = step();
+    match outcome {
+        Ok(()) => {
+            for (_, backup) in &backups {
+                let _ = std::fs::remove_file(backup);
+            }
+            for f in &files {
+                for folder in &f.folders {
+                    folder.kept.store(true, Ordering::SeqCst);
+                }
+            }
+            Ok(())
+        }
+        Err((path, e)) => {
+            let mut unrestored = Vec::new();
+            for target in placed.iter().rev() {
+                if std::fs::remove_file(target).is_err() {
+                    unrestored.push(format!("{} (remove it)", target.display()));
+                }
+            }
+            for (target, backup) in backups.iter().rev() {
+                if rename(backup, target).is_err() {
+                    unrestored.push(format!(
+                        "{} (its previous version is {})",
+                        target.display(),
+                        backup.display()
+                    ));
+                }
+            }
+            let hint = if path.is_dir() {
+                " (a folder has this output's name: move it away or choose another --out)"
+            } else {
+                ""
+            };
+            let outcome = if unrestored.is_empty() {
+                "no output was written and the folder is as it was".to_string()
+            } else {
+                format!("could not restore {}", unrestored.join(", "))
+            };
+            drop(files); // temporary files and new folders go
+            Err(FlexureError::write(&path, format!("{e}{hint}; {outcome}")))
+        }
+    }
+}
+
+/// Refuses two staged files with the same target: same folder and file names equal ignoring
+/// case (as on some file systems), naming the file and both sources.
+fn refuse_collisions(files: &[StagedFile]) -> Result<()> {
+    let mut seen: std::collections::HashMap<(PathBuf, String), usize> =
+        std::collections::HashMap::new();
+    for (k, f) in files.iter().enumerate() {
+        let folder = parent_of(&f.target);
+        let folder = std::fs::canonicalize(folder).unwrap_or_else(|_| folder.to_path_buf());
+        let name = f
+            .target
+            .file_name()
+            .unwrap_or_default()
+            .to_string_lossy()
+            .to_lowercase();
+        if let Some(&j) = seen.get(&(folder.clone(), name.clone())) {
+            let first = &files[j];
+            let what = match (&first.source, &f.source) {
+                (Some(a), Some(b)) => format!(": {a} and {b}"),
+                (Some(a), None) | (None, Some(a)) => format!(": {a} and another output"),
+                (None, None) => String::new(),
+            };
+            let same = if first.target == f.target {
+                String::new()
+            } else {
+                format!(
+                    " (and {}; case ignored, as on some file systems)",
+                    first.target.display()
+                )
+            };
+            return Err(FlexureError::write(
+                &f.target,
+                format!(
+                    "two outputs of this run have this file name{same}{what}; rename one so that their file names differ (nothing was written)"
+                ),
+            ));
+        }
+        seen.insert((folder, name), k);
+    }
+    Ok(())
+}
+
+/// `DIR/.NAME.partial-PID.EXT`: a hidden sibling of the final path with the same extension
+/// (some GDAL drivers check it).
+pub fn temporary_path(path: &Path) -> PathBuf {
+    hidden_sibling(path, "partial")
+}
+
+/// `DIR/.NAME.backup-PID.EXT`: where an existing target waits while a commit runs.
+fn backup_path(path: &Path) -> PathBuf {
+    hidden_sibling(path, "backup")
+}
+
+fn hidden_sibling(path: &Path, tag: &str) -> PathBuf {
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_default();
+    let ext = path
+        .extension()
+        .map(|e| e.to_string_lossy().to_string())
+        .unwrap_or_else(|| "tmp".into());
+    path.with_file_name(format!(".{name}.{tag}-{}.{ext}", std::process::id()))
+}
+
+/// The folder of `path` (`.` for a bare file name).
+fn parent_of(path: &Path) -> &Path {
+    path.parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."))
+}
+
+/// Checks that files can be created in `dir`, creating it (and its missing parents) for the
+/// check only: folders it created are removed again, and the job's first staged file creates
+/// them for good ([`StagedFile::new`]), so a job that fails later leaves no new folder.
+pub fn prepare_output_dir(dir: &Path) -> Result<()> {
+    let unwritable = |e: std::io::Error| {
+        FlexureError::write(dir, format!("{e}; choose a writable output folder"))
+    };
+    let held = hold_folders(dir).map_err(unwritable)?;
+    let probe = dir.join(format!(".flexure-write-test-{}", std::process::id()));
+    let written = std::fs::write(&probe, b"").map_err(unwritable);
+    let _ = std::fs::remove_file(&probe);
+    drop(held);
+    written
+}
+
+/// A folder created for outputs: removed when its last holder goes unless a commit kept it
+/// (and only when empty).
+#[derive(Debug)]
+struct CreatedFolder {
+    path: PathBuf,
+    kept: AtomicBool,
+}
+
+impl Drop for CreatedFolder {
+    fn drop(&mut self) {
+        if !self.kept.load(Ordering::SeqCst) {
+            let _ = std::fs::remove_dir(&self.path);
+        }
+    }
+}
+
+/// Folders created for outputs that are still held by a staged file, so that a file staged in
+/// a folder another staged file created holds it too.
+static CREATED_FOLDERS: Mutex<Vec<Weak<CreatedFolder>>> = Mutex::new(Vec::new());
+
+/// Creates the missing folders of `dir` and returns every folder created for outputs that
+/// holds it (new or still held by another staged file), deepest first, so that dropping them
+/// in order removes inner folders before outer ones.
+fn hold_folders(dir: &Path) -> std::io::Result<Vec<Arc<CreatedFolder>>> {
+    let mut registry = CREATED_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
+    registry.retain(|w| w.strong_count() > 0);
+    let mut missing = Vec::new();
+    let mut existing = if dir.as_os_str().is_empty() {
+        Path::new(".")
+    } else {
+        dir
+    };
+    while std::fs::symlink_metadata(existing).is_err() {
+        missing.push(existing);
+        match existing.parent() {
+            Some(p) if !p.as_os_str().is_empty() => existing = p,
+            _ => {
+                existing = Path::new(".");
+                break;
+            }
+        }
+    }
+    let mut held: Vec<Arc<CreatedFolder>> = Vec::new();
+    if let Ok(canonical) = std::fs::canonicalize(existing) {
+        for ancestor in canonical.ancestors() {
+            held.extend(
+                registry
+                    .iter()
+                    .filter_map(Weak::upgrade)
+                    .filter(|f| f.path == ancestor),
+            );
+        }
+    }
+    for folder in missing.iter().rev() {
+        match std::fs::create_dir(folder) {
+            Ok(()) => {
+                let path = std::fs::canonicalize(folder).unwrap_or_else(|_| folder.to_path_buf());
+                let created = Arc::new(CreatedFolder {
+                    path,
+                    kept: AtomicBool::new(false),
+                });
+                registry.push(Arc::downgrade(&created));
+                held.push(created);
+            }
+            Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists && folder.is_dir() => {}
+            Err(e) => {
+                drop(registry);
+                held.sort_by_key(|f| std::cmp::Reverse(f.path.components().count()));
+                return Err(e);
+            }
+        }
+    }
+    held.sort_by_key(|f| std::cmp::Reverse(f.path.components().count()));
+    Ok(held)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeMap;
+
+    /// Every file and folder under `dir` (hidden ones included), with the bytes of the files.
+    fn snapshot(dir: &Path) -> BTreeMap<PathBuf, Option<Vec<u8>>> {
+        let mut out = BTreeMap::new();
+        let mut stack = vec![dir.to_path_buf()];
+        while let Some(d) = stack.pop() {
+            for e in std::fs::read_dir(&d).unwrap() {
+                let p = e.unwrap().path();
+                let rel = p.strip_prefix(dir).unwrap().to_path_buf();
+                if p.is_dir() {
+                    out.insert(rel, None);
+                    stack.push(p);
+                } else {
+                    out.insert(rel, Some(std::fs::read(&p).unwrap()));
+                }
+            }
+        }
+        out
+    }
+
+    fn staged(target: &Path, bytes: &[u8]) -> StagedFile {
+        let f = StagedFile::new(target);
+        std::fs::write(f.temp(), bytes).unwrap();
+        f
+    }
+
+    /// A previous run's `a.txt` and `b.txt`, and a new run of `a.txt`, `b.txt`, `new/c.txt`
+    /// and `d.txt` staged over them.
+    fn rerun(dir: &Path) -> Vec<StagedFile> {
+        std::fs::write(dir.join("a.txt"), b"old a").unwrap();
+        std::fs::write(dir.join("b.txt"), b"old b").unwrap();
+        vec![
+            staged(&dir.join("a.txt"), b"new a"),
+            staged(&dir.join("b.txt"), b"new b"),
+            staged(&dir.join("new").join("c.txt"), b"new c"),
+            staged(&dir.join("d.txt"), b"new d"),
+        ]
+    }
+
+    #[test]
+    fn a_rerun_replaces_every_file_and_leaves_no_backup() {
+        // Common practice (POSIX rename(2) replaces its target): existing outputs are
+        // replaced, new ones appear, nothing hidden is left.
+        let dir = tempfile::tempdir().unwrap();
+        commit_all(rerun(dir.path())).unwrap();
+        let want: BTreeMap<PathBuf, Option<Vec<u8>>> = [
+            ("a.txt", Some(&b"new a"[..])),
+            ("b.txt", Some(b"new b")),
+            ("new", None),
+            ("new/c.txt", Some(b"new c")),
+            ("d.txt", Some(b"new d")),
+        ]
+        .into_iter()
+        .map(|(p, b)| (PathBuf::from(p), b.map(<[u8]>::to_vec)))
+        .collect();
+        assert_eq!(snapshot(dir.path()), want);
+    }
+
+    #[test]
+    fn a_failure_at_any_rename_leaves_the_folder_as_it_was() {
+        // Common practice for all-or-nothing commits (backups, then renames, rolled back on
+        // failure): whichever rename fails, the previous run's files are byte-identical and no
+        // new file, folder, temporary or backup remains.
+        let renames = {
+            let dir = tempfile::tempdir().unwrap();
+            let mut count = 0;
+            commit_with(rerun(dir.path()), &mut |a, b| {
+                count += 1;
+                std::fs::rename(a, b)
+            })
+            .unwrap();
+            count
+        };
+        assert_eq!(renames, 2 + 4, "two backups, four renames in");
+        for fail_at in 0..renames {
+            let dir = tempfile::tempdir().unwrap();
+            let files = rerun(dir.path());
+            let before: BTreeMap<_, _> = snapshot(dir.path())
+                .into_iter()
+                .filter(|(p, _)| !p.to_string_lossy().contains("partial") && !p.starts_with("new"))
+                .collect();
+            let mut calls = 0;
+            let err = commit_with(files, &mut |a, b| {
+                calls += 1;
+                if calls == fail_at + 1 {
+                    Err(std::io::Error::other("injected failure"))
+                } else {
+                    std::fs::rename(a, b)
+                }
+            })
+            .unwrap_err()
+            .to_string();
+            assert!(
+                err.contains("injected failure; no output was written and the folder is as it was"),
+                "{err}"
+            );
+            assert_eq!(snapshot(dir.path()), before, "failure at rename {fail_at}");
+        }
+    }
+
+    #[test]
+    fn a_folder_in_a_target_place_fails_the_commit_and_it_rolls_back() {
+        // POSIX rename(2): a file cannot replace a directory (EISDIR); the outputs renamed
+        // before it are taken back.
+        let dir = tempfile::tempdir().unwrap();
+        let files = rerun(dir.path());
+        std::fs::create_dir(dir.path().join("d.txt")).unwrap();
+        std::fs::write(dir.path().join("d.txt").join("keep"), b"k").unwrap();
+        let before: BTreeMap<_, _> = snapshot(dir.path())
+            .into_iter()
+            .filter(|(p, _)| !p.to_string_lossy().contains("partial") && !p.starts_with("new"))
+            .collect();
+        let err = commit_all(files).unwrap_err().to_string();
+        assert!(err.starts_with("cannot write "), "{err}");
+        assert!(err.contains("d.txt: "), "{err}");
+        assert!(err.contains("a folder has this output's name"), "{err}");
+        assert_eq!(err.lines().count(), 1);
+        assert_eq!(snapshot(dir.path()), before);
+    }
+
+    #[test]
+    fn two_outputs_with_one_file_name_are_refused_before_anything_is_renamed() {
+        // Common practice: one commit, one owner per file name; case is ignored because some
+        // file systems ignore it.
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::write(dir.path().join("a.txt"), b"old a").unwrap();
+        let before = snapshot(dir.path());
+        let files = vec![
+            staged(&dir.path().join("a.txt"), b"new a"),
+            staged(&dir.path().join("sub").join("W_1_2.png"), b"1")
+                .with_source("rose of well W_1 stage 2"),
+            staged(&dir.path().join("sub").join("w_1_2.png"), b"2")
+                .with_source("rose of well w stage 1_2"),
+        ];
+        let err = commit_all(files).unwrap_err().to_string();
+        assert!(
+            err.contains("w_1_2.png: two outputs of this run have this file name"),
+            "{err}"
+        );
+        assert!(err.contains("W_1_2.png; case ignored"), "{err}");
+        assert!(
+            err.contains(": rose of well W_1 stage 2 and rose of well w stage 1_2; rename one"),
+            "{err}"
+        );
+        assert_eq!(snapshot(dir.path()), before);
+        // The same path twice (the second staging overwrote the first's temporary file).
+        let files = vec![
+            staged(&dir.path().join("x.tif"), b"1"),
+            staged(&dir.path().join("x.tif"), b"2"),
+        ];
+        let err = commit_all(files).unwrap_err().to_string();
+        assert!(
+            err.contains("x.tif: two outputs of this run have this file name; rename"),
+            "{err}"
+        );
+        assert_eq!(snapshot(dir.path()), before);
+    }
+
+    #[test]
+    fn folders_made_for_outputs_go_with_a_failed_job_and_stay_with_a_commit() {
+        // Our rule: a failed job leaves no new folder; a folder that held something before, or
+        // that holds something else, stays.
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path().join("out");
+        let files = vec![
+            staged(&out.join("roses").join("a.png"), b"a"),
+            staged(&out.join("roses").join("b.png"), b"b"),
+            staged(&out.join("wells").join("p.csv"), b"p"),
+            staged(&out.join("stages.csv"), b"s"),
+        ];
+        assert!(out.join("roses").is_dir() && out.join("wells").is_dir());
+        drop(files); // the job failed before its commit
+        assert!(!out.exists(), "{:?}", snapshot(dir.path()));
+        // A folder that holds a file of someone else's stays.
+        let files = vec![staged(&out.join("roses").join("a.png"), b"a")];
+        std::fs::write(out.join("roses").join("mine.txt"), b"m").unwrap();
+        drop(files);
+        assert_eq!(
+            snapshot(dir.path()).keys().cloned().collect::<Vec<_>>(),
+            ["out", "out/roses", "out/roses/mine.txt"].map(PathBuf::from)
+        );
+        // Committed, the folders stay.
+        let other = dir.path().join("other");
+        commit_all(vec![staged(&other.join("deep").join("x.txt"), b"x")]).unwrap();
+        assert_eq!(
+            std::fs::read(other.join("deep").join("x.txt")).unwrap(),
+            b"x"
+        );
+    }
+
+    #[test]
+    fn preparing_an_output_folder_checks_it_and_leaves_it_as_it_was() {
+        // Our rule: the early check of an output folder creates nothing that stays.
+        let dir = tempfile::tempdir().unwrap();
+        let out = dir.path().join("a").join("b");
+        prepare_output_dir(&out).unwrap();
+        assert!(snapshot(dir.path()).is_empty());
+        let file = dir.path().join("f");
+        std::fs::write(&file, b"").unwrap();
+        let err = prepare_output_dir(&file.join("sub"))
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("choose a writable output folder"), "{err}");
+        assert_eq!(snapshot(dir.path()).len(), 1);
+    }
+}
