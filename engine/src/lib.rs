@@ -21,22 +21,14 @@
 
 pub mod anisotropy;
 pub mod bands;
-pub mod circular;
-pub mod colour;
-pub mod curvature;
+pub mod draw;
 pub mod error;
-pub mod figure;
 pub mod grid;
-pub mod horizon;
 pub mod io;
 pub mod jobs;
 pub mod provenance;
-pub mod render;
-pub mod stages;
 pub mod stats;
+pub mod surface;
 #[cfg(feature = "synthetic")]
 pub mod synthetic;
-pub mod vectors;
 pub mod wells;
-pub mod window;
-pub mod window_study;

@@ -9,7 +9,9 @@ use crate::anisotropy::{
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
-use crate::horizon::DeclaredUnit;
+use crate::io::vector::{
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
+};
 use crate::io::Raster;
 use crate::io::{
     commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut,
@@ -17,9 +19,7 @@ use crate::io::{
 };
 use crate::provenance::Provenance;
 use crate::stats::{self, Quantile};
-use crate::vectors::{
-    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
-};
+use crate::surface::horizon::DeclaredUnit;
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};

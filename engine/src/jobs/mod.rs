@@ -209,7 +209,7 @@ pub(crate) fn stage_png(
 /// `BASE.svg` and `BASE.png` of a figure.
 pub(crate) fn stage_figure(
     base: &std::path::Path,
-    fig: &crate::figure::Figure,
+    fig: &crate::draw::figure::Figure,
 ) -> crate::error::Result<Vec<crate::io::StagedFile>> {
     Ok(vec![
         stage_bytes(&base.with_extension("svg"), fig.to_svg().as_bytes())?,

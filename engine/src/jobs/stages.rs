@@ -8,19 +8,21 @@
 use super::anisotropy::AzimuthReference;
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
 use crate::bands::band_info;
-use crate::circular::axial_angle;
+use crate::draw::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::error::{FlexureError, Result};
-use crate::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::grid::GridGeometry;
-use crate::horizon::{Horizon, HorizonSource};
 use crate::io::table::Table;
+use crate::io::vector::{
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
+};
 use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
-use crate::stages::{
+use crate::stats::circular::axial_angle;
+use crate::surface::horizon::{Horizon, HorizonSource};
+use crate::wells::corridor::{
     bilinear, cells_inside, circular_percentiles, corridor_stats, percentiles,
     perpendicularity_score, BinSample, CorridorStats,
 };
-use crate::vectors::{stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature};
-use crate::wells::{
+use crate::wells::trajectory::{
     check_stages, corridor, file_name_part, path_azimuth, read_stages, read_well, MdUnit, Stage,
     Station, Well, WellSetting, LATERAL,
 };
@@ -925,7 +927,7 @@ fn bar_strip(fig: &mut Figure, top: f32, label: &str, max: f64, values: impl Ite
         left - 8.0,
         top + 34.0,
         10.0,
-        crate::colour::short(max),
+        crate::draw::colour::short(max),
         Anchor::Middle,
     );
     let step = width / values.len().max(1) as f32;

@@ -42,11 +42,11 @@
 //! - Recommended window: the single window whose map is closest (RMS) to the adaptive map, the
 //!   best estimate of the attribute the study has.
 
-use crate::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::error::Result;
 use crate::grid::GridGeometry;
 use crate::stats::{median_and_mad, quantiles, Quantile, SeededNoise};
-use crate::window::{full_window_kernels, Quadric, WindowFit, WindowSpec};
+use crate::surface::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
+use crate::surface::window::{full_window_kernels, Quadric, WindowFit, WindowSpec};
 use nalgebra::DMatrix;
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
@@ -98,7 +98,7 @@ pub fn estimate_noise(
         size: 3,
         min_valid: 1.0,
     };
-    let leverage = crate::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
+    let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
     let fit = WindowFit::new(depth, geometry, &spec, &[])?;
     let mut residuals: Vec<f64> = fit
         .map_tiles(0..depth.nrows(), |tile| {
@@ -724,7 +724,7 @@ fn robust_spread(values: &[f64]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::window::{fit_quadrics_with_noise, QuadricField};
+    use crate::surface::window::{fit_quadrics_with_noise, QuadricField};
 
     /// The derivative vectors of a whole quadric field (NaN where the window has no fit).
     fn derivative_vectors(field: &QuadricField, order: DerivativeOrder) -> Vectors {
@@ -740,7 +740,7 @@ mod tests {
         }
         out
     }
-    use crate::curvature::{attribute_by_id, LocalSurface};
+    use crate::surface::curvature::{attribute_by_id, LocalSurface};
     use crate::synthetic::{Shape, Surface};
 
     fn grid(n: usize) -> GridGeometry {
@@ -844,7 +844,7 @@ mod tests {
         let z = Array2::from_shape_fn((150, 150), |_| 1000.0 + 0.5 * rng.gaussian());
         let s = run(&z, &g, &[3, 5], "k_mean");
         for (f, n) in s.windows.iter().zip([3, 5]) {
-            let k = crate::window::full_window_kernels(&g, n).unwrap();
+            let k = crate::surface::window::full_window_kernels(&g, n).unwrap();
             let gain: f64 = k[0]
                 .iter()
                 .zip(k[1].iter())
