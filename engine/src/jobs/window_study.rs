@@ -16,10 +16,10 @@ use crate::surface::curvature::{AttributeDef, DerivativeOrder};
 
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
-use crate::surface::study::{
-    study, Study, WindowFigures, NOISE_BAND, NOISE_ESTIMATOR, POOL_RADIUS, PROPAGATION_ALPHA,
-    WINDOW_RULE,
-};
+use crate::surface::study::choice::POOL_RADIUS;
+use crate::surface::study::noise::NOISE_ESTIMATOR;
+use crate::surface::study::thresholds::PROPAGATION_ALPHA;
+use crate::surface::study::{study, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
