@@ -4,7 +4,8 @@
 //! for ([`VectorRole`]). Colours, circular statistics and vectors are derived from these rows;
 //! a band read from a file is found by its name with [`band_info`].
 
-use crate::anisotropy::{VectorAxis, FIT_BANDS};
+use crate::anisotropy::vectors::VectorAxis;
+use crate::anisotropy::FIT_BANDS;
 use crate::surface::curvature::ATTRIBUTES;
 
 /// What a band's values are, as far as drawing and averaging them goes: the family of colour

@@ -3,9 +3,11 @@
 //! write `anisotropy.tif` and the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and
 //! committed together.
 
+use crate::anisotropy::vectors::{
+    default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
+};
 use crate::anisotropy::{
-    default_vector_scale, fit_sector_grids, segment, vector_bins, SectorFit, SectorWeight,
-    VectorAxis, VectorSample, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
+    fit_sector_grids, SectorFit, SectorWeight, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;

@@ -9,7 +9,7 @@ mod stages;
 mod well_inputs;
 mod window_study;
 
-pub use crate::anisotropy::VectorAxis;
+pub use crate::anisotropy::vectors::VectorAxis;
 use crate::bands::{vector_band, VectorRole};
 pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
@@ -173,9 +173,13 @@ impl AnisotropyRaster {
     }
 
     /// The vector sample of bin (`row`, `col`), if fitted.
-    pub(crate) fn sample(&self, row: usize, col: usize) -> Option<crate::anisotropy::VectorSample> {
+    pub(crate) fn sample(
+        &self,
+        row: usize,
+        col: usize,
+    ) -> Option<crate::anisotropy::vectors::VectorSample> {
         let at = (row, col);
-        let s = crate::anisotropy::VectorSample {
+        let s = crate::anisotropy::vectors::VectorSample {
             magnitude: self.magnitude[at],
             azimuth_fast: self.azimuth_fast[at],
             azimuth_slow: self.azimuth_slow[at],

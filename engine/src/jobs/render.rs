@@ -4,7 +4,9 @@
 
 use super::anisotropy::HTI_CAUTION;
 use super::{anisotropy_file, stage_png, AnisotropyRaster};
-use crate::anisotropy::{default_vector_scale, segment, vector_bins, VectorAxis, VectorSample};
+use crate::anisotropy::vectors::{
+    default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
+};
 use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::map::{
     cells_to_pixmap, colour_cells, draw_segments, hillshade, picture_scale, pixmap_bands,
