@@ -4,6 +4,7 @@
 mod anisotropy;
 mod curvature;
 mod grid;
+mod plan;
 mod render;
 mod stages;
 mod well_inputs;
@@ -16,10 +17,11 @@ pub use anisotropy::{
 };
 pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
+pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use stages::{
-    PlanJob, PlanReport, StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS,
-    MIN_FITTED_SHARE, SAMPLE_STEP_M, WELL_CAUTION,
+    StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS, MIN_FITTED_SHARE,
+    SAMPLE_STEP_M, WELL_CAUTION,
 };
 pub use well_inputs::{
     parse_numbers, parse_well_list, read_well_list, Named, WellBindings, WellInput,
