@@ -27,8 +27,8 @@
 //! - Expected change per cell: for nested least-squares fits the larger window is efficient, so
 //!   the variance of the change is the difference of the two windows' variances (Hausman 1978,
 //!   Econometrica 46:1251; from memory), taken from each cell's own fit
-//!   ([`fit_quadrics_with_noise`]); windows thinned by nulls near gaps and grid edges are so
-//!   judged by their own, larger noise.
+//!   ([`fit_quadrics_with_noise`](crate::surface::window::fit_quadrics_with_noise)); windows
+//!   thinned by nulls near gaps and grid edges are so judged by their own, larger noise.
 //! - Step thresholds: under white noise the pooled squared change is a Gaussian quadratic form
 //!   whose cumulants follow from the window kernels' cross-correlations; its tail is modelled
 //!   by Pearson's three-moment chi-square (Pearson 1959, Biometrika 46:364; as used by Imhof
