@@ -17,18 +17,18 @@
 //!   sector, two sectors missing along the low-fold south-west edge and only three sectors in
 //!   one corner.
 
-use flexure_engine::curvature::attribute_by_id;
 use flexure_engine::error::{FlexureError, Result};
 use flexure_engine::grid::GridGeometry;
-use flexure_engine::horizon::{Domain, VelocitySource};
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use flexure_engine::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
     RenderJob, RenderReport, StagesJob, StagesReport, WellInput, WindowStudyJob, WindowStudyReport,
 };
 use flexure_engine::stats::SeededNoise;
+use flexure_engine::surface::curvature::attribute_by_id;
+use flexure_engine::surface::horizon::{Domain, VelocitySource};
 use flexure_engine::synthetic::{Shape, Surface};
-use flexure_engine::wells::MdUnit;
+use flexure_engine::wells::trajectory::MdUnit;
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
 use std::path::{Path, PathBuf};

@@ -3,18 +3,18 @@
 
 use clap::{Parser, Subcommand, ValueEnum};
 use flexure_cli::demo::{run_demo, write_demo_data};
-use flexure_engine::colour::Clip;
-use flexure_engine::curvature::{attribute_by_id, ATTRIBUTES};
+use flexure_engine::draw::colour::Clip;
 use flexure_engine::error::FlexureError;
-use flexure_engine::horizon::{
-    DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
-};
 use flexure_engine::io::points::ColumnRole;
 use flexure_engine::io::{Compression, ReadOptions, TiffOptions};
 use flexure_engine::jobs::{
     parse_memory, parse_numbers, read_well_list, AnisotropyJob, AzimuthReference, CurvatureJob,
     GridJob, Named, PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource,
     WellBindings, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
+};
+use flexure_engine::surface::curvature::{attribute_by_id, ATTRIBUTES};
+use flexure_engine::surface::horizon::{
+    DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
 };
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::{IsTerminal, Write};

@@ -7,10 +7,10 @@
 
 use flexure_cli::demo::{demo_horizons, demo_sectors};
 use flexure_engine::anisotropy::{fit_sector_grids, SectorWeight, DEFAULT_MIN_SECTORS};
-use flexure_engine::curvature::{FlatTolerance, LocalSurface};
 use flexure_engine::grid::Grid;
-use flexure_engine::horizon::{positive_down_depth, Velocity, ZUnit};
-use flexure_engine::window::{fit_quadrics, WindowSpec};
+use flexure_engine::surface::curvature::{FlatTolerance, LocalSurface};
+use flexure_engine::surface::horizon::{positive_down_depth, Velocity, ZUnit};
+use flexure_engine::surface::window::{fit_quadrics, WindowSpec};
 use std::path::Path;
 
 #[test]

@@ -5,12 +5,14 @@
 //!   tests, per-cell choice) on a noisy 1024 x 1024 dome at windows 3, 5, 9 and 17.
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
-use flexure_engine::curvature::{attribute_by_id, evaluate_field, FlatTolerance, ATTRIBUTES};
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::stats::SeededNoise;
+use flexure_engine::surface::curvature::{
+    attribute_by_id, evaluate_field, FlatTolerance, ATTRIBUTES,
+};
+use flexure_engine::surface::study::study;
+use flexure_engine::surface::window::{fit_quadrics, WindowSpec};
 use flexure_engine::synthetic::{Shape, Surface};
-use flexure_engine::window::{fit_quadrics, WindowSpec};
-use flexure_engine::window_study::study;
 use ndarray::Array2;
 use std::hint::black_box;
 

@@ -1,11 +1,12 @@
 //! What the engine knows about each band it writes, read from the two band tables
-//! ([`crate::curvature::ATTRIBUTES`] and [`crate::anisotropy::FIT_BANDS`]): unit, description,
+//! ([`crate::surface::curvature::ATTRIBUTES`] and [`crate::anisotropy::FIT_BANDS`]): unit, description,
 //! the kind of colour scale its values take ([`ScaleKind`]) and what the map vectors read it
 //! for ([`VectorRole`]). Colours, circular statistics and vectors are derived from these rows;
 //! a band read from a file is found by its name with [`band_info`].
 
-use crate::anisotropy::{VectorAxis, FIT_BANDS};
-use crate::curvature::ATTRIBUTES;
+use crate::anisotropy::vectors::VectorAxis;
+use crate::anisotropy::FIT_BANDS;
+use crate::surface::curvature::ATTRIBUTES;
 
 /// What a band's values are, as far as drawing and averaging them goes: the family of colour
 /// scale they are drawn on.

@@ -2,17 +2,20 @@
 //! azimuthal anisotropy from sector grids, co-rendered maps, well and stage analysis, and a
 //! window-size study.
 //!
-//! Data flows one way: [`io`] reads a raster into a [`grid::Grid`], [`horizon`] turns it into
-//! positive-down depth in CRS length units, [`window`] fits a local quadric at every cell,
-//! [`curvature`] evaluates the attributes, and [`io`] writes them. [`jobs`] strings these
-//! together for the command line. [`anisotropy`] fits the cos 2phi model of
-//! azimuth-sector traveltimes in every bin; [`vectors`] writes its map vectors through OGR.
+//! Data flows one way, and the folders follow it: [`io`] reads a raster into a [`grid::Grid`];
+//! [`surface`] turns it into positive-down depth in CRS length units
+//! ([`surface::horizon`]), fits a local quadric at every cell ([`surface::window`]) and
+//! evaluates the attributes ([`surface::curvature`]); [`io`] writes them. [`jobs`] strings
+//! these together for the command line. [`anisotropy`] fits the cos 2phi model of
+//! azimuth-sector traveltimes in every bin; its map vectors ([`anisotropy::vectors`]) are
+//! written through OGR by [`io::vector`].
 //! [`bands`] reads what the two band tables say about a band (unit, colour-scale kind, vector
 //! role) for every band, also one read back from a file by its name.
-//! [`colour`] and [`render`] draw maps of any band with vectors and a hillshade; [`figure`]
-//! draws roses and charts as SVG and PNG. [`wells`], [`circular`] and [`stages`] give stage
-//! corridors and their statistics; [`window_study`] measures noise against detail. [`stats`]
-//! holds the shared order statistics and the seeded noise source.
+//! [`draw`] draws maps of any band with vectors and a hillshade ([`draw::colour`],
+//! [`draw::map`]) and roses and charts as SVG and PNG ([`draw::figure`]). [`wells`]
+//! ([`wells::trajectory`], [`wells::corridor`]) and [`stats::circular`] give stage corridors
+//! and their statistics; [`surface::study`] measures noise against detail. [`stats`] holds the
+//! shared order statistics and the seeded noise source.
 //!
 //! The library holds no demo: the invented demo scenario lives in the command line's crate
 //! (`flexure-cli`). With the cargo feature `synthetic` (off by default), `synthetic` gives
@@ -21,22 +24,14 @@
 
 pub mod anisotropy;
 pub mod bands;
-pub mod circular;
-pub mod colour;
-pub mod curvature;
+pub mod draw;
 pub mod error;
-pub mod figure;
 pub mod grid;
-pub mod horizon;
 pub mod io;
 pub mod jobs;
 pub mod provenance;
-pub mod render;
-pub mod stages;
 pub mod stats;
+pub mod surface;
 #[cfg(feature = "synthetic")]
 pub mod synthetic;
-pub mod vectors;
 pub mod wells;
-pub mod window;
-pub mod window_study;

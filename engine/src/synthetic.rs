@@ -8,7 +8,7 @@
 //! Derivatives follow from elementary calculus on each closed form.
 
 use crate::grid::GridGeometry;
-use crate::window::Quadric;
+use crate::surface::window::Quadric;
 use ndarray::Array2;
 
 /// Value and exact derivatives of a surface at a point.

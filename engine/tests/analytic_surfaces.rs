@@ -4,12 +4,12 @@
 //! Geology, 2nd ed.) and the check values of REFERENCES.md section 4 (derived there, [D]).
 
 use approx::assert_relative_eq;
-use flexure_engine::curvature::{FlatTolerance, LocalSurface};
 use flexure_engine::grid::{Grid, GridGeometry};
-use flexure_engine::horizon::{positive_down_depth, Domain, Velocity, ZUnit};
 use flexure_engine::stats::SeededNoise;
+use flexure_engine::surface::curvature::{FlatTolerance, LocalSurface};
+use flexure_engine::surface::horizon::{positive_down_depth, Domain, Velocity, ZUnit};
+use flexure_engine::surface::window::{fit_quadrics, Quadric, WindowSpec};
 use flexure_engine::synthetic::{Shape, Surface};
-use flexure_engine::window::{fit_quadrics, Quadric, WindowSpec};
 use ndarray::Array2;
 use std::path::Path;
 

@@ -2,10 +2,10 @@
 //! `gelsd` through ndarray-linalg, an independent general-purpose reference): random surfaces,
 //! random nulls, non-square and rotated grids, several windows. Agreement to 1e-9 relative.
 
-use flexure_engine::curvature::DerivativeOrder;
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::stats::SeededNoise;
-use flexure_engine::window::{fit_quadrics, fit_quadrics_with_noise, Quadric, WindowSpec};
+use flexure_engine::surface::curvature::DerivativeOrder;
+use flexure_engine::surface::window::{fit_quadrics, fit_quadrics_with_noise, Quadric, WindowSpec};
 use ndarray::{Array1, Array2};
 use ndarray_linalg::{Inverse, LeastSquaresSvd};
 

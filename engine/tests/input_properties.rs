@@ -12,7 +12,7 @@ use flexure_engine::grid::{GridGeometry, SAME_NODE_SHARE};
 use flexure_engine::io::points::{parse_points, ColumnRole, PointOptions};
 use flexure_engine::io::table::Table;
 use flexure_engine::jobs::{parse_numbers, parse_well_list, Named};
-use flexure_engine::wells::{
+use flexure_engine::wells::trajectory::{
     check_stages, read_stages, read_well, MdUnit, TieIn, WellSetting, AZI, INC, MD, MD_BASE,
     MD_TOP, STAGE, TVD, TVDSS, X, Y,
 };

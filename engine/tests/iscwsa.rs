@@ -5,7 +5,7 @@
 //! `tests/data/iscwsa/midpoints.csv`, made by `scripts/reference/well_midpoints.py`).
 
 use flexure_engine::io::table::Table;
-use flexure_engine::wells::{read_well, TieIn, Well, WellSetting};
+use flexure_engine::wells::trajectory::{read_well, TieIn, Well, WellSetting};
 use std::path::{Path, PathBuf};
 
 fn data(name: &str) -> PathBuf {

@@ -3,10 +3,10 @@
 //! 2 threads. (The shipped demo data is checked against its generator in `cli/tests/`.)
 
 use flexure_engine::anisotropy::FIT_BANDS;
-use flexure_engine::curvature::ATTRIBUTES;
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::{read_grid, read_raster, write_float_geotiff, BandOut};
 use flexure_engine::jobs::{AnisotropyJob, CurvatureJob, Silent};
+use flexure_engine::surface::curvature::ATTRIBUTES;
 use flexure_engine::synthetic::{Shape, Surface};
 use gdal::vector::LayerAccess;
 use gdal::Dataset;
@@ -476,7 +476,7 @@ fn hillshade_matches_gdaldem() {
         .expect("gdaldem from gdal-bin");
     assert!(status.success());
     let reference = read_bands_as::<u8>(&shaded).remove(0);
-    let ours = flexure_engine::render::hillshade(&z.mapv(f64::from), &g, false, Some(1.0));
+    let ours = flexure_engine::draw::map::hillshade(&z.mapv(f64::from), &g, false, Some(1.0));
     let mut compared = 0;
     for r in 1..rows - 1 {
         for c in 1..cols - 1 {

@@ -4,10 +4,10 @@
 //! curvedness and turns the dip azimuth by 180; turning the grid 90 degrees clockwise keeps
 //! every curvature and turns azimuths by 90; scaling all axes by L scales curvature by 1/L.
 
-use flexure_engine::curvature::{FlatTolerance, LocalSurface};
 use flexure_engine::grid::GridGeometry;
+use flexure_engine::surface::curvature::{FlatTolerance, LocalSurface};
+use flexure_engine::surface::window::{fit_quadrics, WindowSpec};
 use flexure_engine::synthetic::{Shape, Surface};
-use flexure_engine::window::{fit_quadrics, WindowSpec};
 use ndarray::Array2;
 use proptest::prelude::*;
 

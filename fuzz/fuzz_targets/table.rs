@@ -2,7 +2,7 @@
 #![no_main]
 
 use flexure_engine::io::table::Table;
-use flexure_engine::wells::{AZI, INC, MD, MD_BASE, MD_TOP, STAGE, TVD, TVDSS, X, Y};
+use flexure_engine::wells::trajectory::{AZI, INC, MD, MD_BASE, MD_TOP, STAGE, TVD, TVDSS, X, Y};
 use libfuzzer_sys::fuzz_target;
 use std::path::Path;
 

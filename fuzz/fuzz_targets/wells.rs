@@ -3,7 +3,7 @@
 #![no_main]
 
 use flexure_engine::io::table::Table;
-use flexure_engine::wells::{check_stages, read_stages, read_well, MdUnit, TieIn, WellSetting};
+use flexure_engine::wells::trajectory::{check_stages, read_stages, read_well, MdUnit, TieIn, WellSetting};
 use libfuzzer_sys::fuzz_target;
 use std::path::Path;
 

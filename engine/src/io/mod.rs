@@ -13,12 +13,15 @@
 //! ([`commit_all`]), so a failed or interrupted run never leaves a truncated file under a final
 //! name, nor some outputs new and others old. GDAL's own messages are captured and reported as
 //! one line instead of printed.
+//! Vector layers (map vectors, well paths, stage corridors) are written through OGR by
+//! [`vector`].
 
 pub mod geotiff;
 pub mod nulls;
 pub mod points;
 mod staged;
 pub mod table;
+pub mod vector;
 
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};

@@ -3,13 +3,17 @@
 //! write `anisotropy.tif` and the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and
 //! committed together.
 
+use crate::anisotropy::vectors::{
+    default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
+};
 use crate::anisotropy::{
-    default_vector_scale, fit_sector_grids, segment, vector_bins, SectorFit, SectorWeight,
-    VectorAxis, VectorSample, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
+    fit_sector_grids, SectorFit, SectorWeight, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
-use crate::horizon::DeclaredUnit;
+use crate::io::vector::{
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
+};
 use crate::io::Raster;
 use crate::io::{
     commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut,
@@ -17,9 +21,7 @@ use crate::io::{
 };
 use crate::provenance::Provenance;
 use crate::stats::{self, Quantile};
-use crate::vectors::{
-    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
-};
+use crate::surface::horizon::DeclaredUnit;
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};

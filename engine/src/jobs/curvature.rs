@@ -3,17 +3,17 @@
 //! provenance.
 
 use super::{batch_rows, default_memory_budget, Progress};
-use crate::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
-use crate::horizon::{Horizon, HorizonSource};
 use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::{
     commit_all, nodata_if_null, prepare_output_dir, read_info, refuse_overwrite, GeoTiffWriter,
     ReadOptions, StagedFile, TiffOptions, NODATA,
 };
 use crate::provenance::Provenance;
-use crate::window::{FittedTile, WindowFit, WindowSpec};
+use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
+use crate::surface::horizon::{Horizon, HorizonSource};
+use crate::surface::window::{FittedTile, WindowFit, WindowSpec};
 use ndarray::Array2;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -469,9 +469,9 @@ impl fmt::Display for CurvatureReport {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::curvature::evaluate_field;
     use crate::jobs::Silent;
-    use crate::window::fit_quadrics;
+    use crate::surface::curvature::evaluate_field;
+    use crate::surface::window::fit_quadrics;
 
     fn utm25() -> String {
         gdal::spatial_ref::SpatialRef::from_epsg(32625)

@@ -4,22 +4,24 @@
 mod anisotropy;
 mod curvature;
 mod grid;
+mod plan;
 mod render;
 mod stages;
 mod well_inputs;
 mod window_study;
 
-pub use crate::anisotropy::VectorAxis;
+pub use crate::anisotropy::vectors::VectorAxis;
 use crate::bands::{vector_band, VectorRole};
 pub use anisotropy::{
     AnisotropyJob, AnisotropyReport, AzimuthReference, WeightSource, HTI_CAUTION,
 };
 pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
+pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use stages::{
-    PlanJob, PlanReport, StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS,
-    MIN_FITTED_SHARE, SAMPLE_STEP_M, WELL_CAUTION,
+    StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS, MIN_FITTED_SHARE,
+    SAMPLE_STEP_M, WELL_CAUTION,
 };
 pub use well_inputs::{
     parse_numbers, parse_well_list, read_well_list, Named, WellBindings, WellInput,
@@ -173,9 +175,13 @@ impl AnisotropyRaster {
     }
 
     /// The vector sample of bin (`row`, `col`), if fitted.
-    pub(crate) fn sample(&self, row: usize, col: usize) -> Option<crate::anisotropy::VectorSample> {
+    pub(crate) fn sample(
+        &self,
+        row: usize,
+        col: usize,
+    ) -> Option<crate::anisotropy::vectors::VectorSample> {
         let at = (row, col);
-        let s = crate::anisotropy::VectorSample {
+        let s = crate::anisotropy::vectors::VectorSample {
             magnitude: self.magnitude[at],
             azimuth_fast: self.azimuth_fast[at],
             azimuth_slow: self.azimuth_slow[at],
@@ -209,7 +215,7 @@ pub(crate) fn stage_png(
 /// `BASE.svg` and `BASE.png` of a figure.
 pub(crate) fn stage_figure(
     base: &std::path::Path,
-    fig: &crate::figure::Figure,
+    fig: &crate::draw::figure::Figure,
 ) -> crate::error::Result<Vec<crate::io::StagedFile>> {
     Ok(vec![
         stage_bytes(&base.with_extension("svg"), fig.to_svg().as_bytes())?,

@@ -4,8 +4,14 @@
 
 use super::anisotropy::HTI_CAUTION;
 use super::{anisotropy_file, stage_png, AnisotropyRaster};
-use crate::anisotropy::{default_vector_scale, segment, vector_bins, VectorAxis, VectorSample};
-use crate::colour::{short, Clip, ColourScale};
+use crate::anisotropy::vectors::{
+    default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
+};
+use crate::draw::colour::{short, Clip, ColourScale};
+use crate::draw::map::{
+    cells_to_pixmap, colour_cells, draw_segments, hillshade, picture_scale, pixmap_bands,
+    quicklook, Legend, MapSegment,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::{
@@ -13,10 +19,6 @@ use crate::io::{
     Raster, RasterInfo, ReadOptions, StagedFile, TiffOptions,
 };
 use crate::provenance::Provenance;
-use crate::render::{
-    cells_to_pixmap, colour_cells, draw_segments, hillshade, picture_scale, pixmap_bands,
-    quicklook, Legend, MapSegment,
-};
 use crate::stats::{quantile, Quantile};
 use ndarray::Array2;
 use std::fmt;

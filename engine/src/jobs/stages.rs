@@ -1,26 +1,27 @@
 //! The well jobs: `StagesJob` (per-stage corridor statistics, stage table, corridor polygons,
 //! computed well paths, rose diagrams and a sheet per well, and the stand-off from a horizon)
-//! and `PlanJob` (a drilling-azimuth scan from a pad). Both evaluate corridors the same way
-//! ([`Corridor`]); every input is read and checked before any folder is created, and all
+//! here, and `PlanJob` (a drilling-azimuth scan from a pad) in [`super::plan`]. Both evaluate
+//! corridors the same way ([`Corridor`], shared from here); every input is read and checked before any folder is created, and all
 //! outputs are staged and committed together (file-name collisions between wells and stages
 //! are refused early by name, and any left by the one check of the commit).
 
 use super::anisotropy::AzimuthReference;
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
 use crate::bands::band_info;
-use crate::circular::axial_angle;
+use crate::draw::figure::{rose, Anchor, Figure, Mark};
 use crate::error::{FlexureError, Result};
-use crate::figure::{polar, rose, Anchor, Figure, Mark};
 use crate::grid::GridGeometry;
-use crate::horizon::{Horizon, HorizonSource};
 use crate::io::table::Table;
-use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
-use crate::stages::{
-    bilinear, cells_inside, circular_percentiles, corridor_stats, percentiles,
-    perpendicularity_score, BinSample, CorridorStats,
+use crate::io::vector::{
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
 };
-use crate::vectors::{stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature};
-use crate::wells::{
+use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
+use crate::surface::horizon::{Horizon, HorizonSource};
+use crate::wells::corridor::{
+    bilinear, cells_inside, circular_percentiles, corridor_stats, percentiles, BinSample,
+    CorridorStats,
+};
+use crate::wells::trajectory::{
     check_stages, corridor, file_name_part, path_azimuth, read_stages, read_well, MdUnit, Stage,
     Station, Well, WellSetting, LATERAL,
 };
@@ -50,14 +51,14 @@ pub const MIN_BINS: usize = 10;
 /// How corridors are drawn and judged: half width in CRS units and the fewest fitted bins
 /// without a flag.
 #[derive(Clone, Copy, Debug)]
-struct CorridorRule {
+pub(super) struct CorridorRule {
     half_width: f64,
     min_bins: usize,
 }
 
 impl CorridorRule {
     /// The rule for a half width in metres (checked), in metres.
-    fn new(half_width_m: f64, min_bins: usize) -> Result<Self> {
+    pub(super) fn new(half_width_m: f64, min_bins: usize) -> Result<Self> {
         if !(half_width_m.is_finite() && half_width_m > 0.0) {
             return Err(FlexureError::Parameter(format!(
                 "--half-width {half_width_m} must be a positive distance in metres"
@@ -70,7 +71,7 @@ impl CorridorRule {
     }
 
     /// The same rule in the units of a grid of `metres_per_unit`.
-    fn on_grid(self, metres_per_unit: f64) -> Self {
+    pub(super) fn on_grid(self, metres_per_unit: f64) -> Self {
         Self {
             half_width: self.half_width / metres_per_unit,
             ..self
@@ -86,7 +87,7 @@ pub const MIN_FITTED_SHARE: f64 = 0.5;
 const ROSE_PETALS: usize = 18;
 
 /// A curvature raster to summarise in corridors.
-struct Attributes {
+pub(super) struct Attributes {
     geometry: GridGeometry,
     names: Vec<String>,
     bands: Vec<Array2<f64>>,
@@ -95,7 +96,7 @@ struct Attributes {
 impl Attributes {
     /// Reads `given`: a raster, or a folder of curvature outputs with `window` choosing
     /// `*_wNN.tif`.
-    fn read(given: &Path, window: Option<usize>) -> Result<Self> {
+    pub(super) fn read(given: &Path, window: Option<usize>) -> Result<Self> {
         let path = if given.is_dir() {
             let window = window.ok_or_else(|| {
                 FlexureError::Parameter(format!(
@@ -165,17 +166,17 @@ impl Attributes {
 
 /// One evaluated corridor.
 #[derive(Clone)]
-struct Corridor {
+pub(super) struct Corridor {
     ring: Vec<(f64, f64)>,
-    stats: CorridorStats,
-    bins: Vec<BinSample>,
+    pub(super) stats: CorridorStats,
+    pub(super) bins: Vec<BinSample>,
     curvature: Vec<(String, (f64, f64, f64, f64))>,
     flags: Vec<String>,
 }
 
 impl Corridor {
     /// Evaluates the corridor of `rule` around the plan path `points`.
-    fn evaluate(
+    pub(super) fn evaluate(
         points: &[(f64, f64)],
         rule: CorridorRule,
         anisotropy: &AnisotropyRaster,
@@ -720,7 +721,7 @@ fn stage_table(rows: &[StageRow]) -> String {
 
 /// A CSV of corridors: the `lead` columns, the statistics, the flag and the curvature columns
 /// (named after the first corridor).
-fn corridor_table<'a>(
+pub(super) fn corridor_table<'a>(
     lead: &[&str],
     rows: impl Iterator<Item = (Vec<String>, &'a Corridor)>,
 ) -> String {
@@ -744,7 +745,7 @@ fn corridor_table<'a>(
 
 /// A CSV number: integers (to 1e-9 relative) as such, tiny magnitudes (p-values) in
 /// exponent form, others with six decimals; empty for NaN.
-fn number(v: f64) -> String {
+pub(super) fn number(v: f64) -> String {
     if !v.is_finite() {
         String::new()
     } else if (v - v.round()).abs() <= 1e-9 * v.abs().max(1.0) && v.abs() < 1e15 {
@@ -925,7 +926,7 @@ fn bar_strip(fig: &mut Figure, top: f32, label: &str, max: f64, values: impl Ite
         left - 8.0,
         top + 34.0,
         10.0,
-        crate::colour::short(max),
+        crate::draw::colour::short(max),
         Anchor::Middle,
     );
     let step = width / values.len().max(1) as f32;
@@ -992,352 +993,5 @@ impl fmt::Display for StagesReport {
         }
         writeln!(f, "wrote stages.csv, stage_corridors.gpkg/.geojson, wells/<well>_path.csv, well_paths.gpkg/.geojson, roses/ and one sheet per well in {}", self.out_dir.display())?;
         writeln!(f, "{WELL_CAUTION}")
-    }
-}
-
-/// Options of the drilling-azimuth scan.
-#[derive(Clone, Debug)]
-pub struct PlanJob {
-    /// `anisotropy.tif` or its folder.
-    pub anisotropy: PathBuf,
-    /// Curvature raster, or its folder with `window`.
-    pub curvature: Option<PathBuf>,
-    /// Window choosing the curvature file in a folder.
-    pub window: Option<usize>,
-    /// Pad (heel) position, CRS units.
-    pub pad: (f64, f64),
-    /// Lateral length, CRS units.
-    pub lateral: f64,
-    /// Azimuth step, degrees (candidates 0 to < 180).
-    pub step: f64,
-    /// Corridor half width each side of the lateral, metres.
-    pub half_width: f64,
-    /// Fewest fitted bins in a corridor without a flag.
-    pub min_bins: usize,
-    /// Output folder.
-    pub out_dir: PathBuf,
-}
-
-/// Share of the best score that still counts as a good azimuth.
-const GOOD_SHARE: f64 = 0.9;
-
-impl PlanJob {
-    /// A scan with 5-degree steps and a 150 m half width.
-    pub fn new(
-        anisotropy: impl Into<PathBuf>,
-        pad: (f64, f64),
-        lateral: f64,
-        out_dir: impl Into<PathBuf>,
-    ) -> Self {
-        Self {
-            anisotropy: anisotropy.into(),
-            curvature: None,
-            window: None,
-            pad,
-            lateral,
-            step: 5.0,
-            half_width: DEFAULT_HALF_WIDTH,
-            min_bins: MIN_BINS,
-            out_dir: out_dir.into(),
-        }
-    }
-
-    /// Runs the scan.
-    pub fn run(&self) -> Result<PlanReport> {
-        let rule = CorridorRule::new(self.half_width, self.min_bins)?;
-        if !(self.lateral.is_finite() && self.lateral > 0.0) {
-            return Err(FlexureError::Parameter(format!(
-                "--lateral {} must be a positive length",
-                self.lateral
-            )));
-        }
-        if !(self.step.is_finite() && self.step > 0.0 && self.step <= 90.0) {
-            return Err(FlexureError::Parameter(format!(
-                "--step {} must be between 0 and 90 degrees",
-                self.step
-            )));
-        }
-        let anisotropy = AnisotropyRaster::read(&self.anisotropy)?;
-        let rule = rule.on_grid(anisotropy.geometry.metres_per_unit);
-        let attributes = self
-            .curvature
-            .as_deref()
-            .map(|p| Attributes::read(p, self.window))
-            .transpose()?;
-        let n = (180.0 / self.step).round() as usize;
-        let candidates: Vec<Candidate> = (0..n)
-            .map(|k| {
-                let azimuth = k as f64 * self.step;
-                let line = self.lateral_line(azimuth);
-                let c = Corridor::evaluate(&line, rule, &anisotropy, attributes.as_ref());
-                Candidate {
-                    azimuth,
-                    score: perpendicularity_score(&c.bins, azimuth),
-                    line,
-                    corridor: c,
-                }
-            })
-            .collect();
-        if candidates.iter().all(|c| c.corridor.bins.is_empty()) {
-            return Err(FlexureError::input(
-                &anisotropy.path,
-                "no candidate lateral from the pad crosses a fitted bin: check --pad and --lateral",
-            ));
-        }
-        let scored = |c: &&Candidate| c.score.is_finite();
-        let by_score = |a: &&Candidate, b: &&Candidate| a.score.total_cmp(&b.score);
-        let (Some(best), Some(worst)) = (
-            candidates.iter().filter(scored).max_by(by_score),
-            candidates.iter().filter(scored).min_by(by_score),
-        ) else {
-            return Err(FlexureError::input(
-                &anisotropy.path,
-                "every bin the candidate laterals cross has zero magnitude (no anisotropy to score against): check the anisotropy grid or move --pad",
-            ));
-        };
-        let good: Vec<f64> = candidates
-            .iter()
-            .filter(|c| c.score >= GOOD_SHARE * best.score)
-            .map(|c| c.azimuth)
-            .collect();
-        prepare_output_dir(&self.out_dir)?;
-        let mut staged = vec![stage_bytes(
-            &self.out_dir.join("plan.csv"),
-            plan_table(&candidates).as_bytes(),
-        )?];
-        staged.extend(stage_figure(
-            &self.out_dir.join("plan_scores"),
-            &polar_chart(&candidates, best),
-        )?);
-        staged.extend(stage_candidates(
-            &self.out_dir,
-            &anisotropy.geometry,
-            &[("best", best), ("worst", worst)],
-        )?);
-        commit_all(staged)?;
-        Ok(PlanReport {
-            best_azimuth: best.azimuth,
-            best_score: best.score,
-            fast_azimuth: best.corridor.stats.fast_azimuth,
-            good_range: axial_range(&good, self.step),
-            worst_azimuth: worst.azimuth,
-            out_dir: self.out_dir.clone(),
-        })
-    }
-
-    fn lateral_line(&self, azimuth: f64) -> Vec<(f64, f64)> {
-        let (s, c) = azimuth.to_radians().sin_cos();
-        vec![
-            self.pad,
-            (self.pad.0 + self.lateral * s, self.pad.1 + self.lateral * c),
-        ]
-    }
-}
-
-struct Candidate {
-    azimuth: f64,
-    score: f64,
-    line: Vec<(f64, f64)>,
-    corridor: Corridor,
-}
-
-fn plan_table(candidates: &[Candidate]) -> String {
-    corridor_table(
-        &["azimuth", "score"],
-        candidates
-            .iter()
-            .map(|c| (vec![number(c.azimuth), number(c.score)], &c.corridor)),
-    )
-}
-
-/// Best and worst candidate laterals as lines, GeoPackage and GeoJSON.
-fn stage_candidates(
-    dir: &Path,
-    g: &GridGeometry,
-    picks: &[(&str, &Candidate)],
-) -> Result<Vec<StagedFile>> {
-    let fields = [
-        ("pick", FieldKind::Text),
-        ("azimuth", FieldKind::Real),
-        ("score", FieldKind::Real),
-        ("fast_azimuth", FieldKind::Real),
-        ("angle_to_well", FieldKind::Real),
-        ("n_bins", FieldKind::Integer),
-    ];
-    let features: Vec<VectorFeature> = picks
-        .iter()
-        .map(|(pick, c)| VectorFeature {
-            points: c.line.clone(),
-            values: vec![
-                Property::Text(pick.to_string()),
-                Property::Number(c.azimuth),
-                Property::Number(c.score),
-                Property::Number(c.corridor.stats.fast_azimuth),
-                Property::Number(c.corridor.stats.angle_to_well),
-                Property::Number(c.corridor.stats.n_bins as f64),
-            ],
-        })
-        .collect();
-    let layer = Layer {
-        name: "plan_candidates",
-        kind: GeometryKind::Line,
-        fields: &fields,
-        features: &features,
-    };
-    stage_both_formats(dir, &g.crs_wkt, &layer)
-}
-
-/// Scores on a polar chart: radius = score (0..1) at each azimuth and its opposite.
-fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
-    let mut fig = Figure::new(480, 560);
-    let (cx, cy, r) = (240.0f32, 250.0f32, 180.0f32);
-    fig.text(
-        cx,
-        28.0,
-        16.0,
-        "Drilling-azimuth score (1 = perpendicular to fast)",
-        Anchor::Middle,
-    );
-    for ring in [0.5f32, 1.0] {
-        fig.line(
-            (0..=72)
-                .map(|k| polar(cx, cy, r * ring, 5.0 * k as f64))
-                .collect(),
-            [0xbb, 0xbb, 0xbb],
-            1.0,
-        );
-    }
-    for (az, label) in [(0.0, "N"), (90.0, "E"), (180.0, "S"), (270.0, "W")] {
-        let (x, y) = polar(cx, cy, r + 16.0, az);
-        fig.text(x, y + 5.0, 12.0, label, Anchor::Middle);
-    }
-    let mut points: Vec<(f32, f32)> = Vec::new();
-    for offset in [0.0, 180.0] {
-        for c in candidates {
-            let s = if c.score.is_finite() { c.score } else { 0.0 };
-            points.push(polar(cx, cy, r * s as f32, c.azimuth + offset));
-        }
-    }
-    fig.marks.push(Mark::Polygon {
-        points,
-        fill: [0xc6, 0xdb, 0xef],
-        stroke: Some([0x21, 0x71, 0xb5]),
-    });
-    let fast = best.corridor.stats.fast_azimuth;
-    fig.line(
-        vec![
-            polar(cx, cy, r, best.azimuth),
-            polar(cx, cy, r, best.azimuth + 180.0),
-        ],
-        [0x20, 0x20, 0x20],
-        2.5,
-    );
-    if fast.is_finite() {
-        fig.line(
-            vec![polar(cx, cy, r, fast), polar(cx, cy, r, fast + 180.0)],
-            [0xd9, 0x5f, 0x02],
-            2.0,
-        );
-    }
-    fig.text(
-        20.0,
-        470.0,
-        12.0,
-        format!(
-            "best {:.0} deg (score {:.2}); mean fast azimuth {:.1} deg (orange)",
-            best.azimuth, best.score, fast
-        ),
-        Anchor::Start,
-    );
-    fig.text(
-        20.0,
-        492.0,
-        11.0,
-        "Anisotropy is a proxy for stress and fractures, not a measurement of them.",
-        Anchor::Start,
-    );
-    fig.text(
-        20.0,
-        510.0,
-        11.0,
-        "Decisions belong to licensed engineers and geoscientists under local regulations.",
-        Anchor::Start,
-    );
-    fig
-}
-
-/// Smallest axial interval (from, to) holding every azimuth of `good` (sampled every `step`).
-fn axial_range(good: &[f64], step: f64) -> (f64, f64) {
-    let mut sorted = good.to_vec();
-    sorted.sort_by(f64::total_cmp);
-    let Some(&first) = sorted.first() else {
-        return (f64::NAN, f64::NAN);
-    };
-    // The largest gap between neighbours (cyclically) is outside the range.
-    let mut best_gap = (
-        sorted[0] + 180.0 - sorted[sorted.len() - 1],
-        sorted.len() - 1,
-    );
-    for k in 1..sorted.len() {
-        let gap = sorted[k] - sorted[k - 1];
-        if gap > best_gap.0 {
-            best_gap = (gap, k - 1);
-        }
-    }
-    if best_gap.0 <= step * 1.5 && sorted.len() > 1 {
-        return (0.0, 180.0);
-    }
-    let end = sorted[best_gap.1];
-    let start = sorted[(best_gap.1 + 1) % sorted.len()];
-    if sorted.len() == 1 {
-        (first, first)
-    } else {
-        (start, end)
-    }
-}
-
-/// What the drilling-azimuth scan found.
-#[derive(Clone, Debug)]
-pub struct PlanReport {
-    /// Best candidate azimuth, degrees from grid north.
-    pub best_azimuth: f64,
-    /// Its score, 0..1.
-    pub best_score: f64,
-    /// Mean fast azimuth along the best candidate.
-    pub fast_azimuth: f64,
-    /// Azimuths within 10% of the best score, (from, to) clockwise (may wrap through 0).
-    pub good_range: (f64, f64),
-    /// Worst candidate azimuth.
-    pub worst_azimuth: f64,
-    /// Output folder.
-    pub out_dir: PathBuf,
-}
-
-impl fmt::Display for PlanReport {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        writeln!(f, "best lateral azimuth {:.1} deg from grid north (score {:.3}; mean fast azimuth {:.1}, angle {:.1} deg)", self.best_azimuth, self.best_score, self.fast_azimuth, axial_angle(self.best_azimuth, self.fast_azimuth))?;
-        writeln!(
-            f,
-            "azimuths within 10% of the best score: {:.0} .. {:.0} deg; worst {:.0} deg",
-            self.good_range.0, self.good_range.1, self.worst_azimuth
-        )?;
-        writeln!(
-            f,
-            "wrote plan.csv, plan_scores.svg/png and plan_candidates.gpkg/geojson in {}",
-            self.out_dir.display()
-        )?;
-        writeln!(f, "{WELL_CAUTION}")
-    }
-}
-
-#[cfg(test)]
-mod tests {
-    use super::axial_range;
-
-    #[test]
-    fn axial_range_wraps_through_north() {
-        assert_eq!(axial_range(&[170.0, 175.0, 0.0, 5.0], 5.0), (170.0, 5.0));
-        assert_eq!(axial_range(&[90.0, 95.0, 100.0], 5.0), (90.0, 100.0));
-        assert_eq!(axial_range(&[90.0], 5.0), (90.0, 90.0));
     }
 }

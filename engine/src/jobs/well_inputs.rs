@@ -8,7 +8,7 @@
 
 use crate::error::{FlexureError, Result};
 use crate::io::table::{ColumnSpec, Table};
-use crate::wells::TieIn;
+use crate::wells::trajectory::TieIn;
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
 

@@ -1,25 +1,25 @@
 //! The window-study job: the horizon read as for `curvature`, the study of one attribute over
-//! the windows ([`crate::window_study`]), and its outputs: `window_study.json`,
+//! the windows ([`crate::surface::study`]), and its outputs: `window_study.json`,
 //! `window_study.csv`, a chart (SVG and PNG) of noise and detail against window size, a panel
 //! PNG of the maps at every window on one colour scale and, with `adaptive`, the adaptive map
 //! and the chosen-window grid as a GeoTIFF. Outputs are staged and committed together.
 
 use super::curvature::{CurvatureJob, Prepared};
 use super::{stage_bytes, stage_figure, stage_png};
-use crate::colour::{short, Clip, ColourScale};
-use crate::curvature::{AttributeDef, DerivativeOrder};
+use crate::draw::colour::{short, Clip, ColourScale};
+use crate::draw::figure::{Anchor, Figure, Mark};
+use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale};
 use crate::error::{FlexureError, Result};
-use crate::figure::{Anchor, Figure, Mark};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
 use crate::provenance::Provenance;
-use crate::render::{cells_to_pixmap, colour_cells, panel, picture_scale};
+use crate::surface::curvature::{AttributeDef, DerivativeOrder};
 
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
-use crate::window_study::{
-    study, Study, WindowFigures, NOISE_BAND, NOISE_ESTIMATOR, POOL_RADIUS, PROPAGATION_ALPHA,
-    WINDOW_RULE,
-};
+use crate::surface::study::choice::POOL_RADIUS;
+use crate::surface::study::noise::NOISE_ESTIMATOR;
+use crate::surface::study::thresholds::PROPAGATION_ALPHA;
+use crate::surface::study::{study, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
 use std::fmt;
 use std::path::{Path, PathBuf};
 

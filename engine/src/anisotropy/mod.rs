@@ -19,12 +19,17 @@
 //!   (e.g. sectors at 0/90/180/270 only, where sin 2phi = 0): the 1-norm condition number of
 //!   `G^T W G` above [`SECTOR_CONDITION_LIMIT`]. With exactly three sectors the fit is exact and
 //!   the residual variance, standard errors and bias correction are undefined (NaN).
+//!
+//! Map vectors (what a vector reads from a bin, which bins get one, default length and segment
+//! geometry) are in [`vectors`].
+
+pub mod vectors;
 
 use crate::bands::{BandInfo, ScaleKind, VectorRole};
-use crate::stats::{quantile, Quantile};
 use nalgebra::{Matrix3, Vector3};
 use ndarray::Array2;
 use rayon::prelude::*;
+use vectors::VectorAxis;
 
 /// Largest accepted 1-norm condition number of the 3 x 3 normal matrix.
 pub const SECTOR_CONDITION_LIMIT: f64 = 1e8;
@@ -328,95 +333,6 @@ pub const FIT_BANDS: [FitBand; 10] = [
         value: |f| f.n_sectors as f64,
     },
 ];
-
-/// Which azimuth the map vectors follow.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum VectorAxis {
-    /// The fast azimuth (fracture strike under the HTI reading).
-    Fast,
-    /// The slow azimuth (fracture normal under the HTI reading).
-    Slow,
-}
-
-/// What a map vector needs from one bin: magnitude (ms), both azimuths (degrees from grid
-/// north) and the magnitude's signal-to-noise ratio.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub struct VectorSample {
-    /// Magnitude B (ms).
-    pub magnitude: f64,
-    /// Fast azimuth, degrees from grid north.
-    pub azimuth_fast: f64,
-    /// Slow azimuth, degrees from grid north.
-    pub azimuth_slow: f64,
-    /// B / magnitude_stderr (NaN when unknown).
-    pub snr: f64,
-}
-
-impl VectorSample {
-    /// The azimuth along `axis`.
-    pub fn azimuth(&self, axis: VectorAxis) -> f64 {
-        match axis {
-            VectorAxis::Fast => self.azimuth_fast,
-            VectorAxis::Slow => self.azimuth_slow,
-        }
-    }
-}
-
-impl From<&SectorFit> for VectorSample {
-    fn from(f: &SectorFit) -> Self {
-        Self {
-            magnitude: f.magnitude,
-            azimuth_fast: f.azimuth_fast,
-            azimuth_slow: f.azimuth_slow,
-            snr: f.snr(),
-        }
-    }
-}
-
-/// Bins kept for map vectors, row-major `(row, col, sample)`: every `every.0`-th column and
-/// `every.1`-th row (the middle bin of each block) whose SNR is at least `min_snr`
-/// (`min_snr = 0` keeps every bin with a sample, including 3-sector bins of unknown SNR).
-pub fn vector_bins<T: Copy>(
-    samples: &[Option<T>],
-    cols: usize,
-    every: (usize, usize),
-    min_snr: f64,
-    snr: impl Fn(&T) -> f64,
-) -> Vec<(usize, usize, T)> {
-    let (ec, er) = (every.0.max(1), every.1.max(1));
-    samples
-        .iter()
-        .enumerate()
-        .filter_map(|(i, s)| s.map(|s| (i / cols, i % cols, s)))
-        .filter(|&(r, c, _)| r % er == er / 2 && c % ec == ec / 2)
-        .filter(|(_, _, s)| min_snr <= 0.0 || snr(s) >= min_snr)
-        .collect()
-}
-
-/// Default vector scale in metres per ms: the 95th percentile ([`Quantile::Nearest`]) of
-/// `magnitudes` draws 0.9 of
-/// the distance between neighbouring vectors (`spacing_m`), so they rarely overlap. 0 when no
-/// magnitude is positive.
-pub fn default_vector_scale(magnitudes: impl Iterator<Item = f64>, spacing_m: f64) -> f64 {
-    let mut m: Vec<f64> = magnitudes.filter(|v| v.is_finite() && *v > 0.0).collect();
-    quantile(&mut m, 0.95, Quantile::Nearest).map_or(0.0, |p95| 0.9 * spacing_m / p95)
-}
-
-/// End points (CRS units) of a segment of `length_m` metres centred on `centre` along
-/// `azimuth_deg` (clockwise from grid north).
-pub fn segment(
-    centre: (f64, f64),
-    azimuth_deg: f64,
-    length_m: f64,
-    metres_per_unit: f64,
-) -> ((f64, f64), (f64, f64)) {
-    let (s, c) = azimuth_deg.to_radians().sin_cos();
-    let half = 0.5 * length_m / metres_per_unit;
-    (
-        (centre.0 - half * s, centre.1 - half * c),
-        (centre.0 + half * s, centre.1 + half * c),
-    )
-}
 
 #[cfg(test)]
 mod tests {

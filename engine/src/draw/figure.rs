@@ -5,7 +5,7 @@
 //! orientation is counted at theta and theta + 180, and petal radius is proportional to the
 //! square root of the weighted count so petal area reads as frequency.
 
-use crate::render::Text;
+use crate::draw::map::Text;
 use tiny_skia::{Color, FillRule, LineCap, Paint, PathBuilder, Pixmap, Stroke, Transform};
 
 /// Horizontal placement of a text mark.

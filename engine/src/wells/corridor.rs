@@ -1,5 +1,5 @@
 //! Statistics of map bins inside a stage corridor: which bins fall inside, the axial
-//! statistics of their fast azimuths weighted by magnitude (see [`crate::circular`]), the angle
+//! statistics of their fast azimuths weighted by magnitude (see [`crate::stats::circular`]), the angle
 //! between the well and the mean fast azimuth (REFERENCES.md section 7), percentiles of other
 //! attributes (angles as angles: circular mean and percentiles of the deviations from it),
 //! horizon depths under the well (bilinear on cell centres) and the drilling-azimuth score.
@@ -9,10 +9,10 @@
 //! stress (Hubbert & Willis 1957), so laterals are commonly drilled near-perpendicular to the
 //! fast azimuth when it is read as the maximum horizontal stress. That reading is a proxy.
 
-use crate::circular::{axial_angle, summarise};
 use crate::grid::GridGeometry;
+use crate::stats::circular::{axial_angle, summarise};
 use crate::stats::{quantiles, Quantile};
-use crate::wells::inside;
+use crate::wells::trajectory::inside;
 use ndarray::Array2;
 
 /// One anisotropy bin inside a corridor.
@@ -200,7 +200,7 @@ pub fn perpendicularity_score(bins: &[BinSample], azimuth: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::wells::corridor;
+    use crate::wells::trajectory::corridor;
 
     fn uniform(n: usize, fast: f64) -> Vec<BinSample> {
         vec![

@@ -1,4 +1,4 @@
-//! Map pictures: attribute colours (see [`crate::colour`]) optionally multiplied by a hillshade
+//! Map pictures: attribute colours (see [`crate::draw::colour`]) optionally multiplied by a hillshade
 //! of the horizon, anisotropy vectors drawn anti-aliased on top (dark core, light halo, so they
 //! read on every colour), and for quicklooks a frame with title, colour bar, vector scale,
 //! north arrow and extent. Pure pixel work on `tiny-skia` pixmaps; files are written by the
@@ -11,7 +11,7 @@
 //! geotransform. With pixel scales proportional to the bin sizes the image keeps the map's
 //! shape (rotated with the grid; the north arrow shows where north is).
 
-use crate::colour::{short, ColourScale};
+use crate::draw::colour::{short, ColourScale};
 use crate::grid::GridGeometry;
 use crate::stats::{quantile, Quantile};
 use ab_glyph::{Font, FontRef, PxScale, ScaleFont};
@@ -21,7 +21,7 @@ use tiny_skia::{
 };
 
 /// DejaVu Sans (Bitstream Vera licence, shipped in `engine/assets/fonts`).
-const FONT: &[u8] = include_bytes!("../assets/fonts/DejaVuSans.ttf");
+const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
 
 /// Sun azimuth of the hillshade, degrees from grid north (common practice: north-west light).
 pub const SUN_AZIMUTH: f64 = 315.0;
@@ -527,7 +527,7 @@ mod tests {
         let scale = ColourScale::for_band(
             "k_pos",
             &Array2::from_shape_fn((4, 4), |(r, c)| r as f64 - c as f64),
-            crate::colour::Clip::Auto,
+            crate::draw::colour::Clip::Auto,
         )
         .unwrap();
         let map = Pixmap::new(200, 150).unwrap();

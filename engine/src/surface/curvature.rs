@@ -14,7 +14,7 @@
 //! A new attribute is one formula function and one row of [`ATTRIBUTES`].
 
 use crate::bands::{BandInfo, ScaleKind};
-use crate::window::{Quadric, QuadricField};
+use crate::surface::window::{Quadric, QuadricField};
 use ndarray::Array2;
 use rayon::prelude::*;
 

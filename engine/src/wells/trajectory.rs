@@ -18,7 +18,7 @@ use crate::io::table::{ColumnSpec, Table};
 
 /// Unit of measured depths, TVDs and KB: metre, international foot (0.3048 m) or US survey
 /// foot (1200/3937 m). The same three lengths as horizon z units.
-pub type MdUnit = crate::horizon::ZUnit;
+pub type MdUnit = crate::surface::horizon::ZUnit;
 
 /// Measured depth: `MD`, `Measured Depth`, `meas depth`, `depth md`.
 pub const MD: ColumnSpec = ColumnSpec {

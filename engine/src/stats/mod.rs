@@ -9,6 +9,10 @@
 //! `h = (n - 1) q`. [`Quantile`] says whether it is interpolated there or taken from the
 //! nearest or the lower order statistic. Sorting is by IEEE total order, so a NaN (positive)
 //! sorts last: callers pass finite values.
+//!
+//! Directional and axial statistics are in [`circular`].
+
+pub mod circular;
 
 /// How a quantile is read at the Hyndman & Fan type-7 position `h = (n - 1) q` of the
 /// ascending sample `x`.
