@@ -371,9 +371,13 @@ struct WindowOutput {
 }
 
 impl WindowOutput {
-    /// Writes the tiles of one batch band by band, updating the ranges and the count of
-    /// fitted cells.
+    /// Writes the tiles of one batch (in row order) band by band, updating the ranges and the
+    /// count of fitted cells.
     fn write(&mut self, tiles: Vec<TileValues>) -> Result<()> {
+        let Some(first_row) = tiles.first().map(|t| t.first_row) else {
+            return Ok(());
+        };
+        let mut bands: Vec<Vec<f32>> = vec![Vec::new(); self.ids.len()];
         for tile in tiles {
             self.fitted += tile.fitted;
             for (band, (values, range)) in tile.bands.into_iter().zip(tile.ranges).enumerate() {
@@ -381,8 +385,13 @@ impl WindowOutput {
                     .into_iter()
                     .flatten()
                     .fold(self.ranges[band], widen);
-                self.writer.write_rows(band, tile.first_row, values)?;
+                bands[band].extend(values);
             }
+        }
+        // One write per band of whole rows of blocks (batches start at multiples of the block
+        // height), so no block is ever written part-filled and rewritten later.
+        for (band, values) in bands.into_iter().enumerate() {
+            self.writer.write_rows(band, first_row, values)?;
         }
         Ok(())
     }
@@ -511,6 +520,16 @@ mod tests {
         let mut job = CurvatureJob::new(&input, dir.path().join("out"), vec![3, 9]);
         job.memory = Some(1 << 20);
         job.run(&Silent).unwrap();
+        // Every block is written once: the file is the size of one written in a single batch
+        // with a cache holding everything (a block rewritten after a partial write would leave
+        // its first copy as dead space in the file; TIFF 6.0 appends rewritten strips/tiles).
+        let mut roomy = CurvatureJob::new(&input, dir.path().join("roomy"), vec![3, 9]);
+        roomy.memory = Some(1 << 30);
+        roomy.run(&Silent).unwrap();
+        for n in [3, 9] {
+            let size = |j: &CurvatureJob| std::fs::metadata(j.output_path(n)).unwrap().len();
+            assert_eq!(size(&job), size(&roomy), "window {n}");
+        }
         let depth = values.mapv(f64::from);
         for n in [3, 9] {
             let spec = WindowSpec {
