@@ -881,8 +881,20 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
     Ok(())
 }
 
+/// Exit code of a run ended by Ctrl-C, SIGTERM or SIGHUP (128 + SIGINT, the shell's usage).
+const INTERRUPTED: i32 = 130;
+
 fn main() -> ExitCode {
     flexure_engine::provenance::set_command_line(command_line());
+    // An interrupted job leaves the output folder as it was: its temporary files go.
+    let handler = ctrlc::set_handler(|| {
+        flexure_engine::io::discard_uncommitted();
+        eprintln!("flexure: interrupted: the job's temporary files were removed");
+        std::process::exit(INTERRUPTED);
+    });
+    if let Err(e) = handler {
+        eprintln!("flexure: warning: cannot catch Ctrl-C ({e}); an interrupted run may leave hidden .partial files");
+    }
     match run(Cli::parse()) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {

@@ -332,3 +332,65 @@ fn compression_and_cloud_optimized_layout_keep_every_value() {
     );
     assert!(!out.exists());
 }
+
+#[test]
+fn an_interrupted_job_leaves_no_temporary_file() {
+    // SIGINT sent with kill(1) (POSIX) once the job has begun writing its outputs: the run ends
+    // with 130 (128 + SIGINT, the shell's convention; common practice) and takes its hidden
+    // temporary files and the output folder it created with it.
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "h.tif", bowl(1500, 1500), 32625);
+    let out = dir.path().join("out");
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_flexure"))
+        .args(["curvature", input.to_str().unwrap(), "--out"])
+        .arg(&out)
+        .args(["--windows", "3,5,9,17,33", "--quiet"])
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let started = std::time::Instant::now();
+    while !outputs_in(&out).iter().any(|f| f.contains(".partial-")) {
+        assert!(
+            child.try_wait().unwrap().is_none(),
+            "the job ended before it could be interrupted: make the grid larger"
+        );
+        assert!(
+            started.elapsed().as_secs() < 120,
+            "no temporary file appeared"
+        );
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    let kill = std::process::Command::new("kill")
+        .args(["-INT", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(kill.success());
+    let output = child.wait_with_output().unwrap();
+    let stderr = String::from_utf8_lossy(&output.stderr);
+    assert_eq!(output.status.code(), Some(130), "{stderr}");
+    assert!(stderr.contains("interrupted"), "{stderr}");
+    assert!(!out.exists(), "left: {:?}", outputs_in(&out));
+}
+
+#[test]
+fn a_folder_in_an_outputs_place_is_named() {
+    // A folder with an output's file name is refused in one line that says so, and the output
+    // folder keeps only what it held.
+    let dir = tempfile::tempdir().unwrap();
+    let input = write(dir.path(), "h.tif", bowl(30, 25), 32625);
+    let out = dir.path().join("out");
+    std::fs::create_dir_all(out.join("h_w03.tif")).unwrap();
+    let o = flexure(&[
+        "curvature",
+        input.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--windows",
+        "3,5",
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{stderr}");
+    assert_eq!(stderr.trim_end().lines().count(), 1, "{stderr}");
+    assert!(stderr.contains("is a folder where this output goes"), "{stderr}");
+    assert_eq!(outputs_in(&out), vec!["h_w03.tif"]);
+}

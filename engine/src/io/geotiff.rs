@@ -15,6 +15,7 @@
 //! driver (CreateCopy, as GDAL 3.6 requires) with overviews resampled by nearest neighbour, so
 //! no overview averages an azimuth as a linear value.
 
+use super::staged::{track_temporary, untrack_temporary};
 use super::{capture_gdal_messages, gdal_failure, gdal_outcome, take_gdal_messages, StagedFile};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -210,9 +211,11 @@ impl GeoTiffWriter {
         }
         let temp = self.staged.temp();
         let plain = temp.with_extension("plain.tif");
+        track_temporary(&plain);
         std::fs::rename(temp, &plain).map_err(|e| e.to_string())?;
         let copied = write_cog(&plain, temp, self.options.compression);
         let _ = std::fs::remove_file(&plain);
+        untrack_temporary(&plain);
         copied
     }
 }

@@ -25,7 +25,7 @@ pub mod vector;
 
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
-pub use staged::{commit_all, prepare_output_dir, temporary_path, StagedFile};
+pub use staged::{commit_all, discard_uncommitted, prepare_output_dir, temporary_path, StagedFile};
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};
@@ -588,7 +588,7 @@ pub fn refuse_overwrite(output: &Path, inputs: &[&Path]) -> Result<()> {
             if *o == i {
                 return Err(FlexureError::input(
                     output,
-                    "output would overwrite an input: choose another --out folder",
+                    "output would overwrite an input: choose another output path",
                 ));
             }
         }

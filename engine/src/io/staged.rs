@@ -17,7 +17,9 @@
 //! them is left uncommitted: a failed job leaves no new folder behind. [`prepare_output_dir`]
 //! checks early that a folder can be written, and leaves it as it found it.
 //!
-//! Interrupted hard (power loss, `kill -9`) between steps 2 and 4, a folder may keep hidden
+//! Interrupted by a signal the command line handles (Ctrl-C, SIGTERM, SIGHUP), a job leaves no
+//! temporary file: the handler calls [`discard_uncommitted`] before the process exits.
+//! Interrupted hard (power loss, `kill -9`), or by a signal between steps 2 and 4, a folder may keep hidden
 //! `.NAME.partial-PID.EXT` or `.NAME.backup-PID.EXT` files: the backups are the previous
 //! versions of `NAME`.
 
@@ -47,8 +49,10 @@ impl StagedFile {
     /// target's missing folders (removed again if the file is never committed). A folder that
     /// cannot be created is reported by the write to [`StagedFile::temp`] that follows.
     pub fn new(target: &Path) -> Self {
+        let temp = temporary_path(target);
+        track_temporary(&temp);
         Self {
-            temp: temporary_path(target),
+            temp,
             target: target.to_path_buf(),
             source: None,
             folders: hold_folders(parent_of(target)).unwrap_or_default(),
@@ -85,6 +89,7 @@ impl Drop for StagedFile {
         if !self.committed {
             let _ = std::fs::remove_file(&self.temp);
         }
+        untrack_temporary(&self.temp);
         // Files GDAL may leave beside a dataset it wrote (SQLite journals of a GeoPackage,
         // auxiliary metadata); they never belong to the final file.
         for suffix in ["-journal", "-wal", "-shm", ".aux.xml"] {
@@ -274,6 +279,44 @@ impl Drop for CreatedFolder {
         if !self.kept.load(Ordering::SeqCst) {
             let _ = std::fs::remove_dir(&self.path);
         }
+    }
+}
+
+/// Temporary files of this process that may exist and belong to no final output yet.
+static LIVE_TEMPORARIES: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+
+/// Records `path` as a temporary file of this process (see [`discard_uncommitted`]).
+pub(crate) fn track_temporary(path: &Path) {
+    let mut live = LIVE_TEMPORARIES.lock().unwrap_or_else(|e| e.into_inner());
+    live.push(path.to_path_buf());
+}
+
+/// Forgets `path` (once removed or renamed into place).
+pub(crate) fn untrack_temporary(path: &Path) {
+    let mut live = LIVE_TEMPORARIES.lock().unwrap_or_else(|e| e.into_inner());
+    if let Some(i) = live.iter().position(|p| p == path) {
+        live.swap_remove(i);
+    }
+}
+
+/// Removes every temporary file this process has staged and not committed, with the folders
+/// created for outputs that are then empty: for a signal handler (Ctrl-C, SIGTERM) about to end
+/// the process, which must exit right after (a job still running would find its files gone).
+pub fn discard_uncommitted() {
+    let temps = std::mem::take(&mut *LIVE_TEMPORARIES.lock().unwrap_or_else(|e| e.into_inner()));
+    for temp in temps {
+        let _ = std::fs::remove_file(&temp);
+    }
+    let registry = CREATED_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
+    let mut folders: Vec<PathBuf> = registry
+        .iter()
+        .filter_map(Weak::upgrade)
+        .filter(|f| !f.kept.load(Ordering::SeqCst))
+        .map(|f| f.path.clone())
+        .collect();
+    folders.sort_by_key(|p| std::cmp::Reverse(p.components().count()));
+    for folder in folders {
+        let _ = std::fs::remove_dir(folder);
     }
 }
 

@@ -91,6 +91,11 @@ impl CurvatureJob {
             self.refuse_replacing_other_bands(&path)?;
         }
         let provenance = self.provenance(&prepared)?;
+        if prepared.windows != self.windows {
+            let windows = join_windows(&prepared.windows);
+            let note = format!("windows sorted and duplicates removed: {windows}");
+            prepared.horizon.notes.push(note);
+        }
         let grid = &prepared.horizon.grid;
         let geometry = &grid.geometry;
         let fits = prepared
@@ -287,6 +292,12 @@ impl CurvatureJob {
     /// Refuses to replace an existing output that holds other bands than this run writes
     /// (e.g. a run with fewer `--attributes` into the same folder), unless `overwrite`.
     fn refuse_replacing_other_bands(&self, path: &Path) -> Result<()> {
+        if path.is_dir() {
+            return Err(FlexureError::input(
+                path,
+                "is a folder where this output goes: move it away or choose another --out folder",
+            ));
+        }
         if self.overwrite || !path.exists() {
             return Ok(());
         }

@@ -52,15 +52,16 @@ impl Progress for Silent {
 /// 256 MiB.
 pub fn default_memory_budget() -> u64 {
     const GIB: u64 = 1 << 30;
-    let total = std::fs::read_to_string("/proc/meminfo")
-        .ok()
-        .and_then(|text| {
-            let line = text.lines().find(|l| l.starts_with("MemTotal:"))?;
-            let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
-            Some(kib * 1024)
-        })
-        .unwrap_or(8 * GIB);
+    let total = machine_memory().unwrap_or(8 * GIB);
     (total / 4).clamp(GIB / 4, GIB)
+}
+
+/// The machine's memory in bytes (Linux `/proc/meminfo`), if it can be read.
+fn machine_memory() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemTotal:"))?;
+    let kib: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kib * 1024)
 }
 
 /// Parses a memory size: bytes, or a number with `K`, `M`, `G` (binary multiples, an optional
@@ -78,7 +79,7 @@ pub fn parse_memory(text: &str) -> std::result::Result<u64, String> {
         .trim()
         .parse::<f64>()
         .ok()
-        .filter(|v| v.is_finite() && *v > 0.0)
+        .filter(|v| v.is_finite() && *v >= 0.0)
         .map(|v| (v * scale as f64) as u64)
         .ok_or_else(|| format!("memory size '{text}' is not understood: give e.g. 512M or 2G"))?;
     if bytes < 64 << 20 {
@@ -86,7 +87,13 @@ pub fn parse_memory(text: &str) -> std::result::Result<u64, String> {
             "memory size '{text}' is below 64M: give at least 64M"
         ));
     }
-    Ok(bytes)
+    match machine_memory() {
+        Some(total) if bytes > total => Err(format!(
+            "memory size '{text}' is more than this machine's {:.1}G: give less",
+            total as f64 / (1u64 << 30) as f64
+        )),
+        _ => Ok(bytes),
+    }
 }
 
 /// Rows per batch for a streamed grid of `cols` columns with `bands` float32 output bands
@@ -238,6 +245,9 @@ mod tests {
         assert!(parse_memory("10M").unwrap_err().contains("64M"));
         assert!(parse_memory("lots").unwrap_err().contains("not understood"));
         assert!(parse_memory("-1G").is_err());
+        assert!(parse_memory("0").unwrap_err().contains("64M"));
+        // More than any machine of this project has (2^20 GiB).
+        assert!(parse_memory("1048576G").unwrap_err().contains("machine"));
     }
 
     #[test]
