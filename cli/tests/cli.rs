@@ -391,6 +391,9 @@ fn a_folder_in_an_outputs_place_is_named() {
     let stderr = String::from_utf8_lossy(&o.stderr);
     assert_eq!(o.status.code(), Some(1), "{stderr}");
     assert_eq!(stderr.trim_end().lines().count(), 1, "{stderr}");
-    assert!(stderr.contains("is a folder where this output goes"), "{stderr}");
+    assert!(
+        stderr.contains("is a folder where this output goes"),
+        "{stderr}"
+    );
     assert_eq!(outputs_in(&out), vec!["h_w03.tif"]);
 }
