@@ -888,9 +888,11 @@ fn main() -> ExitCode {
     flexure_engine::provenance::set_command_line(command_line());
     // An interrupted job leaves the output folder as it was: its temporary files go.
     let handler = ctrlc::set_handler(|| {
-        flexure_engine::io::discard_uncommitted();
+        let _held = flexure_engine::io::discard_uncommitted();
         eprintln!("flexure: interrupted: the job's temporary files were removed");
-        std::process::exit(INTERRUPTED);
+        // SAFETY: _exit ends the process at once, without exit handlers or destructors, so no
+        // library state (GDAL's) is torn down under the threads still running.
+        unsafe { libc::_exit(INTERRUPTED) }
     });
     if let Err(e) = handler {
         eprintln!("flexure: warning: cannot catch Ctrl-C ({e}); an interrupted run may leave hidden .partial files");

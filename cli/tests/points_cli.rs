@@ -609,3 +609,41 @@ fn centimetre_exports_share_the_grid_of_their_geotiff() {
         "--quiet",
     ]);
 }
+
+#[test]
+fn render_draws_a_named_column_of_a_point_list() {
+    // A point list with two value columns, depth and twt: `render --band twt` draws the twt
+    // column on the list's own lattice (30 x 20 nodes), read with the shared --crs; GDAL's
+    // reading of the RGBA map gives the size (gdal crate).
+    let dir = tempfile::tempdir().unwrap();
+    let mut text = String::from("x,y,depth,twt\n");
+    for r in 0..20 {
+        for c in 0..30 {
+            let (x, y) = (500_000 + 25 * c, 3_900_000 - 25 * r);
+            let depth = 2000.0 + 0.5 * ((r - 10) * (r - 10) + (c - 12) * (c - 12)) as f64;
+            writeln!(text, "{x},{y},{depth},{}", 1500.0 + 0.3 * r as f64).unwrap();
+        }
+    }
+    let input = dir.path().join("pl.csv");
+    std::fs::write(&input, text).unwrap();
+    let map = dir.path().join("map.tif");
+    let o = flexure(&[
+        "render",
+        "--attribute",
+        input.to_str().unwrap(),
+        "--band",
+        "twt",
+        "--crs",
+        "EPSG:32625",
+        "--out",
+        map.to_str().unwrap(),
+    ]);
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(
+        stdout.contains("twt") && stdout.contains("1500"),
+        "{stdout}"
+    );
+    let ds = gdal::Dataset::open(&map).unwrap();
+    assert_eq!((ds.raster_size(), ds.raster_count()), ((30, 20), 4));
+}

@@ -95,7 +95,9 @@ pub struct TiffOptions {
 pub(crate) enum Layout {
     /// Float32/float64 bands, band-interleaved.
     Float,
-    /// 8-bit red, green, blue and (unassociated) alpha, pixel-interleaved as pictures are.
+    /// 8-bit red, green, blue and (unassociated) alpha, band-interleaved too (written a whole
+    /// band at a time, pixel-interleaved blocks would be rewritten when GDAL's cache cannot
+    /// hold the picture).
     Rgba,
 }
 
@@ -279,7 +281,11 @@ fn creation_options(options: TiffOptions, layout: Layout) -> Vec<String> {
             list.extend(options.compression.options(3));
         }
         Layout::Rgba => {
-            list.extend(["PHOTOMETRIC=RGB".to_string(), "ALPHA=YES".into()]);
+            list.extend([
+                "PHOTOMETRIC=RGB".to_string(),
+                "ALPHA=YES".into(),
+                "INTERLEAVE=BAND".into(),
+            ]);
             list.extend(options.compression.options(2));
         }
     }

@@ -25,7 +25,9 @@ pub mod vector;
 
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
-pub use staged::{commit_all, discard_uncommitted, prepare_output_dir, temporary_path, StagedFile};
+pub use staged::{
+    commit_all, discard_uncommitted, prepare_output_dir, temporary_path, Discarded, StagedFile,
+};
 
 use crate::error::{FlexureError, Result};
 use crate::grid::{Grid, GridGeometry};

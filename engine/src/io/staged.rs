@@ -18,8 +18,9 @@
 //! checks early that a folder can be written, and leaves it as it found it.
 //!
 //! Interrupted by a signal the command line handles (Ctrl-C, SIGTERM, SIGHUP), a job leaves no
-//! temporary file: the handler calls [`discard_uncommitted`] before the process exits.
-//! Interrupted hard (power loss, `kill -9`), or by a signal between steps 2 and 4, a folder may keep hidden
+//! temporary file: the handler calls [`discard_uncommitted`], which lets a commit under way
+//! finish first, before the process exits. Interrupted hard (power loss, `kill -9`) between
+//! steps 2 and 4, a folder may keep hidden
 //! `.NAME.partial-PID.EXT` or `.NAME.backup-PID.EXT` files: the backups are the previous
 //! versions of `NAME`.
 
@@ -90,13 +91,7 @@ impl Drop for StagedFile {
             let _ = std::fs::remove_file(&self.temp);
         }
         untrack_temporary(&self.temp);
-        // Files GDAL may leave beside a dataset it wrote (SQLite journals of a GeoPackage,
-        // auxiliary metadata); they never belong to the final file.
-        for suffix in ["-journal", "-wal", "-shm", ".aux.xml"] {
-            let mut side = self.temp.clone().into_os_string();
-            side.push(suffix);
-            let _ = std::fs::remove_file(PathBuf::from(side));
-        }
+        remove_side_files(&self.temp);
         // `folders` drops after this: each folder is removed, when empty, by its last holder.
     }
 }
@@ -114,6 +109,8 @@ fn commit_with(
     mut files: Vec<StagedFile>,
     rename: &mut dyn FnMut(&Path, &Path) -> std::io::Result<()>,
 ) -> Result<()> {
+    // A signal handler's discard waits for a commit (or its rollback) to finish.
+    let _committing = COMMIT.lock().unwrap_or_else(|e| e.into_inner());
     refuse_collisions(&files)?;
     // (target, backup) of every existing target moved aside, and the targets renamed in.
     let mut backups: Vec<(PathBuf, PathBuf)> = Vec::new();
@@ -299,14 +296,44 @@ pub(crate) fn untrack_temporary(path: &Path) {
     }
 }
 
-/// Removes every temporary file this process has staged and not committed, with the folders
-/// created for outputs that are then empty: for a signal handler (Ctrl-C, SIGTERM) about to end
-/// the process, which must exit right after (a job still running would find its files gone).
-pub fn discard_uncommitted() {
-    let temps = std::mem::take(&mut *LIVE_TEMPORARIES.lock().unwrap_or_else(|e| e.into_inner()));
-    for temp in temps {
-        let _ = std::fs::remove_file(&temp);
+/// Held while a job commits its outputs, and by [`discard_uncommitted`].
+static COMMIT: Mutex<()> = Mutex::new(());
+
+/// Files GDAL may leave beside a dataset it wrote (SQLite journals of a GeoPackage, auxiliary
+/// metadata); they never belong to a final file.
+fn remove_side_files(temp: &Path) {
+    for suffix in ["-journal", "-wal", "-shm", ".aux.xml"] {
+        let mut side = temp.to_path_buf().into_os_string();
+        side.push(suffix);
+        let _ = std::fs::remove_file(PathBuf::from(side));
     }
+}
+
+/// What [`discard_uncommitted`] holds: while it lives, no output can be staged or committed
+/// (the threads that try wait), so the process must end before dropping it, without running
+/// exit handlers (`_exit`).
+pub struct Discarded {
+    _commit: std::sync::MutexGuard<'static, ()>,
+    _live: std::sync::MutexGuard<'static, Vec<PathBuf>>,
+}
+
+/// For a signal handler (Ctrl-C, SIGTERM) about to end the process: waits for a commit under
+/// way to finish (or roll back), then removes every temporary file this process has staged and
+/// not committed (with GDAL's side files), twice, a moment apart, to catch a file whose name
+/// was reserved just before, and the folders created for outputs that are then empty. The
+/// returned guard stops any further staging or commit until the process ends.
+pub fn discard_uncommitted() -> Discarded {
+    let commit = COMMIT.lock().unwrap_or_else(|e| e.into_inner());
+    let live = LIVE_TEMPORARIES.lock().unwrap_or_else(|e| e.into_inner());
+    let remove_all = || {
+        for temp in live.iter() {
+            let _ = std::fs::remove_file(temp);
+            remove_side_files(temp);
+        }
+    };
+    remove_all();
+    std::thread::sleep(std::time::Duration::from_millis(100));
+    remove_all();
     let registry = CREATED_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
     let mut folders: Vec<PathBuf> = registry
         .iter()
@@ -317,6 +344,11 @@ pub fn discard_uncommitted() {
     folders.sort_by_key(|p| std::cmp::Reverse(p.components().count()));
     for folder in folders {
         let _ = std::fs::remove_dir(folder);
+    }
+    drop(registry);
+    Discarded {
+        _commit: commit,
+        _live: live,
     }
 }
 

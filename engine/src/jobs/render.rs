@@ -14,6 +14,7 @@ use crate::draw::map::{
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
+use crate::io::points::is_point_list;
 use crate::io::{
     commit_all, prepare_output_dir, read_info, read_raster, refuse_overwrite, stage_rgba_geotiff,
     Raster, RasterInfo, ReadOptions, StagedFile, TiffOptions,
@@ -42,7 +43,8 @@ pub struct RenderJob {
     pub shade: Option<PathBuf>,
     /// The shade horizon's values increase upwards (elevation) rather than downwards.
     pub shade_positive_up: bool,
-    /// How to read the shade horizon (assumed CRS, null sentinels, point-list columns).
+    /// How to read the attribute and shade grids (assumed CRS, null sentinels, point-list
+    /// columns).
     pub read: ReadOptions,
     /// Colour clipping.
     pub clip: Clip,
@@ -88,13 +90,14 @@ impl RenderJob {
         self.check_parameters()?;
         // Only the band drawn is read (a raster's band list comes from its header; a point
         // list is read whole).
-        let only_band = match read_info(&self.attribute) {
-            Ok(info) => Some(self.band_index(&info)?),
-            Err(_) => None,
+        let only_band = if is_point_list(&self.attribute) {
+            None
+        } else {
+            Some(self.band_index(&read_info(&self.attribute)?)?)
         };
         let options = ReadOptions {
             only_band,
-            ..ReadOptions::default()
+            ..self.read.clone()
         };
         let raster = read_raster(&self.attribute, &options)?;
         let (geometry, bands, info) = (raster.geometry, raster.bands, raster.info);

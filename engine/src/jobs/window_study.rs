@@ -13,15 +13,15 @@ use crate::error::{FlexureError, Result};
 use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
 use crate::provenance::Provenance;
 use crate::surface::curvature::{AttributeDef, DerivativeOrder};
-
-/// Long side in pixels of each map of the window-study panel.
-const PANEL_MAP_SIZE: f64 = 300.0;
 use crate::surface::study::choice::POOL_RADIUS;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::PROPAGATION_ALPHA;
 use crate::surface::study::{study, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
 use std::fmt;
 use std::path::{Path, PathBuf};
+
+/// Long side in pixels of each map of the window-study panel.
+const PANEL_MAP_SIZE: f64 = 300.0;
 
 /// Options of the window study: the horizon and windows as for `curvature` (its `attributes`
 /// are not used), the attribute studied and whether to write the adaptive map.
