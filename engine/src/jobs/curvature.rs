@@ -103,7 +103,8 @@ impl CurvatureJob {
             .iter()
             .map(|&n| WindowFit::new(prepared.horizon.depth.view(), geometry, &self.spec(n), &[]))
             .collect::<Result<Vec<_>>>()?;
-        let batch_rows = batch_rows(budget / 2, geometry.cols, self.attributes.len());
+        let fit_rows = fits.iter().map(WindowFit::working_rows).max().unwrap_or(0);
+        let batch_rows = batch_rows(budget / 2, geometry.cols, self.attributes.len(), fit_rows);
         let mut outputs = prepared
             .windows
             .iter()

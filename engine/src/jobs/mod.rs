@@ -97,13 +97,18 @@ pub fn parse_memory(text: &str) -> std::result::Result<u64, String> {
 }
 
 /// Rows per batch for a streamed grid of `cols` columns with `bands` float32 output bands
-/// when the batches may hold `bytes`: a multiple of the GeoTIFF block height (so every block
-/// is written once), at least one block row. A row in flight holds each band twice (tile
-/// results and the joined band) plus the fit's row sums (64 bytes a cell).
-pub(crate) fn batch_rows(bytes: u64, cols: usize, bands: usize) -> usize {
+/// when the batches and the fit may hold `bytes`: a multiple of the GeoTIFF block height (so
+/// every block is written once), at least one block row. Each worker thread's fit holds
+/// `fit_rows` rows of 64 bytes a cell ([`WindowFit::working_rows`]); a batch row holds each
+/// band twice (tile results and the joined band).
+///
+/// [`WindowFit::working_rows`]: crate::surface::window::WindowFit::working_rows
+pub(crate) fn batch_rows(bytes: u64, cols: usize, bands: usize, fit_rows: usize) -> usize {
     let block = crate::io::geotiff::BLOCK_ROWS;
-    let per_row = (cols.max(1) * (8 * bands + 64)) as u64;
-    let rows = (bytes / per_row) as usize;
+    let cols = cols.max(1);
+    let fit = (rayon::current_num_threads() * fit_rows * cols * 64) as u64;
+    let per_row = (cols * 8 * bands.max(1)) as u64;
+    let rows = (bytes.saturating_sub(fit) / per_row) as usize;
     (rows / block).max(1) * block
 }
 
@@ -252,11 +257,15 @@ mod tests {
 
     #[test]
     fn batches_are_whole_block_rows_within_the_budget() {
-        // 13 bands on 8192 columns: 8192 * (8 * 13 + 64) bytes a row.
-        let per_row = 8192 * (8 * 13 + 64);
-        assert_eq!(batch_rows(300 * per_row, 8192, 13), 256);
-        assert_eq!(batch_rows(600 * per_row, 8192, 13), 512);
+        // 13 bands on 8192 columns: 8192 * 8 * 13 bytes a batch row; the fit's rows (64 bytes
+        // a cell) on every worker thread come off the budget first.
+        let per_row = 8192 * 8 * 13;
+        assert_eq!(batch_rows(300 * per_row, 8192, 13, 0), 256);
+        assert_eq!(batch_rows(600 * per_row, 8192, 13, 0), 512);
+        let fit = rayon::current_num_threads() as u64 * 100 * 8192 * 64;
+        assert_eq!(batch_rows(fit + 600 * per_row, 8192, 13, 100), 512);
+        assert_eq!(batch_rows(fit, 8192, 13, 100), 256);
         // Never below one block row, however small the budget.
-        assert_eq!(batch_rows(1, 8192, 13), 256);
+        assert_eq!(batch_rows(1, 8192, 13, 0), 256);
     }
 }

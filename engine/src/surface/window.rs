@@ -207,6 +207,12 @@ impl<'a> WindowFit<'a> {
         })
     }
 
+    /// Grid rows one worker thread holds while it fits a tile: the row sums of the tile and
+    /// its halo and the tile's fitted cells, each about 64 bytes a cell.
+    pub fn working_rows(&self) -> usize {
+        2 * self.tile_rows + 2 * self.fitter.half
+    }
+
     /// (rows, columns) of the grid.
     pub fn dim(&self) -> (usize, usize) {
         self.fitter.values.dim()
@@ -241,11 +247,12 @@ impl<'a> WindowFit<'a> {
     }
 }
 
-/// Tile height for a window of half width `half`: at least [`TILE_ROWS`], and at least four
-/// halves so the 2 x half halo rows of each tile's row pass add at most half the work for
-/// large windows.
+/// Tile height for a window of half width `half`: the smallest power of two that is at least
+/// [`TILE_ROWS`] and four halves, so the 2 x half halo rows of each tile's row pass add at most
+/// half the work for large windows, and runs of rows that start and end at multiples of 256
+/// (the GeoTIFF block height) split into whole tiles for every window up to 101.
 fn tile_rows(half: usize) -> usize {
-    TILE_ROWS.max(4 * half)
+    TILE_ROWS.max(4 * half).next_power_of_two()
 }
 
 /// Fixed-window least-squares weights: entry `[k][(row, col)]` of the result is the weight of
