@@ -4,7 +4,7 @@
 
 mod common;
 
-use common::{fails, flexure, north_up, outputs_in, write_bands};
+use common::{band_bits, fails, flexure, north_up, outputs_in, write_bands};
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
 use std::path::{Path, PathBuf};
@@ -254,19 +254,6 @@ fn gdalinfo(path: &Path) -> serde_json::Value {
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     serde_json::from_slice(&o.stdout).unwrap()
-}
-
-/// Every band's values as bits, read by the gdal crate.
-fn band_bits(path: &Path) -> Vec<Vec<u32>> {
-    let ds = gdal::Dataset::open(path).unwrap();
-    (1..=ds.raster_count())
-        .map(|i| {
-            let b = ds.rasterband(i).unwrap();
-            let size = ds.raster_size();
-            let buf = b.read_as::<f32>((0, 0), size, size, None).unwrap();
-            buf.data().iter().map(|v| v.to_bits()).collect()
-        })
-        .collect()
 }
 
 #[test]

@@ -2,24 +2,11 @@
 //! every raster, every text file byte for byte (common practice for generated fixtures; the
 //! generator is `flexure_cli::demo`, run by `make demo-data`).
 
+mod common;
+
+use common::band_bits;
 use flexure_cli::demo::write_demo_data;
 use std::path::Path;
-
-/// Every band of a raster as the bits of its float32 values, row-major.
-fn band_bits(path: &Path) -> Vec<Vec<u32>> {
-    let ds = gdal::Dataset::open(path).unwrap();
-    let (cols, rows) = ds.raster_size();
-    (1..=ds.raster_count())
-        .map(|b| {
-            let buf = ds
-                .rasterband(b)
-                .unwrap()
-                .read_as::<f32>((0, 0), (cols, rows), (cols, rows), None)
-                .unwrap();
-            buf.data().iter().map(|v| v.to_bits()).collect()
-        })
-        .collect()
-}
 
 #[test]
 fn shipped_demo_data_matches_its_generator() {

@@ -151,3 +151,19 @@ pub fn tree(dir: &Path) -> std::collections::BTreeMap<PathBuf, Option<Vec<u8>>> 
     }
     out
 }
+
+/// Every band of a raster as the bits of its float32 values, row-major.
+pub fn band_bits(path: &Path) -> Vec<Vec<u32>> {
+    let ds = gdal::Dataset::open(path).unwrap();
+    let (cols, rows) = ds.raster_size();
+    (1..=ds.raster_count())
+        .map(|b| {
+            let buf = ds
+                .rasterband(b)
+                .unwrap()
+                .read_as::<f32>((0, 0), (cols, rows), (cols, rows), None)
+                .unwrap();
+            buf.data().iter().map(|v| v.to_bits()).collect()
+        })
+        .collect()
+}
