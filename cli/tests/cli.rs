@@ -362,7 +362,8 @@ fn an_interrupted_job_leaves_no_temporary_file() {
 #[test]
 fn a_folder_in_an_outputs_place_is_named() {
     // A folder with an output's file name is refused in one line that says so, and the output
-    // folder keeps only what it held.
+    // folder keeps only what it held (rename(2) cannot replace a non-empty folder with a file,
+    // POSIX; naming the cause is common practice).
     let dir = tempfile::tempdir().unwrap();
     let input = write(dir.path(), "h.tif", bowl(30, 25), 32625);
     let out = dir.path().join("out");

@@ -16,7 +16,9 @@
 //! no overview averages an azimuth as a linear value.
 
 use super::staged::{track_temporary, untrack_temporary};
-use super::{capture_gdal_messages, gdal_failure, gdal_outcome, take_gdal_messages, StagedFile};
+use super::{
+    capture_gdal_messages, gdal_failure, gdal_outcome, take_gdal_messages, StagedFile, NODATA,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use gdal::raster::{Buffer, GdalType, RasterCreationOptions};
@@ -90,7 +92,8 @@ pub struct TiffOptions {
     pub cog: bool,
 }
 
-/// What a band holds: floating-point values with a nodata value, or picture bytes.
+/// What a band holds: floating-point values with the nodata value [`NODATA`], or picture
+/// bytes (no nodata; the alpha band marks holes).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub(crate) enum Layout {
     /// Float32/float64 bands, band-interleaved.
@@ -101,14 +104,12 @@ pub(crate) enum Layout {
     Rgba,
 }
 
-/// Description, unit and nodata value of one output band.
+/// Description and unit of one output band.
 pub struct BandSpec<'a> {
     /// Band description (attribute id).
     pub description: &'a str,
     /// Unit type of the values (empty for none).
     pub unit: &'a str,
-    /// Declared nodata value, if any.
-    pub nodata: Option<f64>,
 }
 
 /// A GeoTIFF being written under its temporary name (see the module notes). Dropped without
@@ -255,8 +256,8 @@ fn create_dataset<T: GdalType>(
         let mut rb = ds.rasterband(i + 1).map_err(|e| gdal_failure("band", e))?;
         rb.set_description(spec.description)
             .map_err(|e| gdal_failure("band description", e))?;
-        if let Some(nodata) = spec.nodata {
-            rb.set_no_data_value(Some(nodata))
+        if layout == Layout::Float {
+            rb.set_no_data_value(Some(NODATA as f64))
                 .map_err(|e| gdal_failure("nodata", e))?;
         }
         if !spec.unit.is_empty() {

@@ -493,7 +493,6 @@ pub fn stage_float_geotiff<T: FloatSample>(
         .map(|b| BandSpec {
             description: b.description,
             unit: b.unit,
-            nodata: Some(NODATA as f64),
         })
         .collect();
     let mut writer =
@@ -535,7 +534,6 @@ pub fn stage_rgba_geotiff(
         .map(|name| BandSpec {
             description: name,
             unit: "",
-            nodata: None,
         })
         .collect();
     let mut writer =

@@ -8,7 +8,7 @@ use crate::grid::GridGeometry;
 use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::{
     commit_all, nodata_if_null, prepare_output_dir, read_info, refuse_overwrite, GeoTiffWriter,
-    ReadOptions, StagedFile, TiffOptions, NODATA,
+    ReadOptions, StagedFile, TiffOptions,
 };
 use crate::provenance::Provenance;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
@@ -194,7 +194,6 @@ impl CurvatureJob {
             .map(|a| BandSpec {
                 description: a.id,
                 unit: a.unit,
-                nodata: Some(NODATA as f64),
             })
             .collect();
         let path = self.output_path(n);
@@ -229,11 +228,8 @@ impl CurvatureJob {
             ));
         }
         for &n in &windows {
-            WindowSpec {
-                size: n,
-                min_valid: self.min_valid,
-            }
-            .validate(grid.geometry.cols, grid.geometry.rows)?;
+            self.spec(n)
+                .validate(grid.geometry.cols, grid.geometry.rows)?;
         }
         if !horizon.depth.iter().any(|v| v.is_finite()) {
             return Err(FlexureError::input(
@@ -281,11 +277,7 @@ impl CurvatureJob {
         w.sort_unstable();
         w.dedup();
         for &n in &w {
-            WindowSpec {
-                size: n,
-                min_valid: self.min_valid,
-            }
-            .validate(usize::MAX, usize::MAX)?;
+            self.spec(n).validate(usize::MAX, usize::MAX)?;
         }
         Ok(w)
     }
@@ -393,10 +385,9 @@ impl WindowOutput {
         for tile in tiles {
             self.fitted += tile.fitted;
             for (band, (values, range)) in tile.bands.into_iter().zip(tile.ranges).enumerate() {
-                self.ranges[band] = [range.map(|r| r.0), range.map(|r| r.1)]
-                    .into_iter()
-                    .flatten()
-                    .fold(self.ranges[band], widen);
+                self.ranges[band] = range.map_or(self.ranges[band], |(lo, hi)| {
+                    widen(widen(self.ranges[band], lo), hi)
+                });
                 bands[band].extend(values);
             }
         }

@@ -257,8 +257,9 @@ mod tests {
 
     #[test]
     fn batches_are_whole_block_rows_within_the_budget() {
-        // 13 bands on 8192 columns: 8192 * 8 * 13 bytes a batch row; the fit's rows (64 bytes
-        // a cell) on every worker thread come off the budget first.
+        // By hand: 13 bands on 8192 columns are 8192 * 8 * 13 bytes a batch row; the fit's rows
+        // (64 bytes a cell) on every worker thread come off the budget first; batches are whole
+        // 256-row GeoTIFF blocks.
         let per_row = 8192 * 8 * 13;
         assert_eq!(batch_rows(300 * per_row, 8192, 13, 0), 256);
         assert_eq!(batch_rows(600 * per_row, 8192, 13, 0), 512);
