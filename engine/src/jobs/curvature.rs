@@ -165,13 +165,7 @@ impl CurvatureJob {
         );
         let ranges = bands
             .iter_mut()
-            .map(|band| {
-                band.iter_mut().fold(None, |range, v| {
-                    let x = *v;
-                    *v = nodata_if_null(x);
-                    widen(range, x)
-                })
-            })
+            .map(|band| nodata_and_range(band))
             .collect();
         TileValues {
             first_row: tile.first_row,
@@ -356,6 +350,20 @@ struct TileValues {
     fitted: usize,
 }
 
+/// Replaces the nulls of `band` by the nodata value and gives the range of its finite values
+/// (one branch-free pass).
+fn nodata_and_range(band: &mut [f32]) -> Option<(f32, f32)> {
+    let (mut lo, mut hi) = (f32::INFINITY, f32::NEG_INFINITY);
+    for v in band.iter_mut() {
+        let x = *v;
+        let finite = x.is_finite();
+        lo = if finite { lo.min(x) } else { lo };
+        hi = if finite { hi.max(x) } else { hi };
+        *v = nodata_if_null(x);
+    }
+    (lo <= hi).then_some((lo, hi))
+}
+
 /// `range` widened to hold `x` when `x` is finite.
 fn widen(range: Option<(f32, f32)>, x: f32) -> Option<(f32, f32)> {
     if !x.is_finite() {
@@ -381,7 +389,11 @@ impl WindowOutput {
         let Some(first_row) = tiles.first().map(|t| t.first_row) else {
             return Ok(());
         };
-        let mut bands: Vec<Vec<f32>> = vec![Vec::new(); self.ids.len()];
+        let cells = tiles
+            .iter()
+            .map(|t| t.bands.first().map_or(0, Vec::len))
+            .sum();
+        let mut bands: Vec<Vec<f32>> = vec![Vec::with_capacity(cells); self.ids.len()];
         for tile in tiles {
             self.fitted += tile.fitted;
             for (band, (values, range)) in tile.bands.into_iter().zip(tile.ranges).enumerate() {

@@ -280,7 +280,7 @@ impl LocalSurface {
         let (a, b, c, d, e) = (q.a * s, q.b * s, q.c * s, q.d, q.e);
         let g2 = d * d + e * e;
         let qq = 1.0 + g2;
-        let k_mean = (a * (1.0 + e * e) - c * d * e + b * (1.0 + d * d)) / qq.powf(1.5);
+        let k_mean = (a * (1.0 + e * e) - c * d * e + b * (1.0 + d * d)) / (qq * qq.sqrt());
         let k_gauss = (4.0 * a * b - c * c) / (qq * qq);
         let root = (k_mean * k_mean - k_gauss).max(0.0).sqrt();
         Self {
@@ -317,7 +317,7 @@ impl LocalSurface {
     pub fn k_dip(&self) -> Option<f64> {
         let (a, b, c, d, e) = (self.a, self.b, self.c, self.d, self.e);
         self.sloping()
-            .then(|| 2.0 * (a * d * d + b * e * e + c * d * e) / (self.g2 * self.q.powf(1.5)))
+            .then(|| 2.0 * (a * d * d + b * e * e + c * d * e) / (self.g2 * self.q * self.q.sqrt()))
     }
 
     /// Normal curvature along strike (1/m); undefined where flat.
