@@ -30,6 +30,7 @@ pub mod grid;
 pub mod io;
 pub mod jobs;
 pub mod provenance;
+pub mod seismic;
 pub mod stats;
 pub mod surface;
 #[cfg(feature = "synthetic")]

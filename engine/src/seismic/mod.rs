@@ -1,0 +1,6 @@
+//! Seismic traces: measurements made on the samples of azimuth-sectored volumes.
+//!
+//! [`shift`] measures the time shift of one trace against a reference inside a tapered window
+//! around a horizon, with its correlation quality.
+
+pub mod shift;
