@@ -237,6 +237,33 @@ impl Surface {
     }
 }
 
+/// Ricker wavelet (Ricker 1953; REFERENCES.md section 8) of peak frequency `peak_hz` at `t_ms`
+/// milliseconds from its centre: `(1 - 2 pi^2 f^2 t^2) exp(-pi^2 f^2 t^2)`, 1 at the centre.
+pub fn ricker(peak_hz: f64, t_ms: f64) -> f64 {
+    let a = (std::f64::consts::PI * peak_hz * t_ms / 1000.0).powi(2);
+    (1.0 - 2.0 * a) * (-a).exp()
+}
+
+/// Samples `first..first + count` (sample `j` at time `j dt_ms`) of a trace holding Ricker
+/// wavelets of peak frequency `peak_hz` at the given `(time_ms, amplitude)` events.
+pub fn ricker_samples(
+    first: isize,
+    count: usize,
+    dt_ms: f64,
+    peak_hz: f64,
+    events: &[(f64, f64)],
+) -> Vec<f32> {
+    (first..first + count as isize)
+        .map(|j| {
+            let t = j as f64 * dt_ms;
+            events
+                .iter()
+                .map(|&(at, amplitude)| amplitude * ricker(peak_hz, t - at))
+                .sum::<f64>() as f32
+        })
+        .collect()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

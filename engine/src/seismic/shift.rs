@@ -210,21 +210,15 @@ fn fine_peak(correlation: impl Fn(f64) -> f64, best: isize) -> (f64, f64) {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
 
-    /// Ricker wavelet (Ricker 1953; REFERENCES.md section 8) of peak frequency `f` Hz at `t` ms.
-    fn ricker(f: f64, t_ms: f64) -> f64 {
-        let a = (std::f64::consts::PI * f * t_ms / 1000.0).powi(2);
-        (1.0 - 2.0 * a) * (-a).exp()
-    }
+    use crate::synthetic::ricker_samples;
 
-    /// Samples `needed` of a Ricker event at `event_ms` on a trace sampled every `dt` ms from 0.
-    fn trace(needed: &Range<isize>, dt: f64, f: f64, event_ms: f64) -> Vec<f32> {
-        needed
-            .clone()
-            .map(|j| ricker(f, j as f64 * dt - event_ms) as f32)
-            .collect()
+    /// Samples `needed` of a 1-amplitude Ricker event at `event_ms`, sampled every `dt` ms.
+    pub(crate) fn trace(needed: &Range<isize>, dt: f64, f: f64, event_ms: f64) -> Vec<f32> {
+        let count = (needed.end - needed.start) as usize;
+        ricker_samples(needed.start, count, dt, f, &[(event_ms, 1.0)])
     }
 
     #[test]
@@ -287,34 +281,6 @@ mod tests {
             "parabola {parabola} vs sinc {}",
             s.ms
         );
-    }
-
-    #[test]
-    fn mean_reference_recovers_a_cos_2phi_law() {
-        // HTI traveltime form (Tsvankin 1997, from memory): t(phi) = t0 + B cos 2(phi - phi_s).
-        // Over sectors equally spaced in 2 phi the shifts come in +- pairs, so the mean trace is
-        // centred on t0 and each sector's shift against it is B cos 2(phi - phi_s).
-        let (dt, f, b, slow) = (2.0, 30.0, 3.0, 35.0f64);
-        let m = ShiftMeasure::new(dt, 40.0, 12.0).unwrap();
-        let horizon = 1500.0;
-        let centre = horizon / dt;
-        let needed = m.samples_needed(centre);
-        let azimuths: Vec<f64> = (0..8).map(|k| 11.25 + 22.5 * k as f64).collect();
-        let expected: Vec<f64> = azimuths
-            .iter()
-            .map(|a| b * (2.0 * (a - slow).to_radians()).cos())
-            .collect();
-        let traces: Vec<Vec<f32>> = expected
-            .iter()
-            .map(|d| trace(&needed, dt, f, horizon + d))
-            .collect();
-        let mean: Vec<f32> = (0..traces[0].len())
-            .map(|i| traces.iter().map(|t| t[i]).sum::<f32>() / traces.len() as f32)
-            .collect();
-        for (t, d) in traces.iter().zip(&expected) {
-            let s = m.measure(centre, &mean, t).unwrap();
-            assert!((s.ms - d).abs() < 0.05, "expected {d}, measured {}", s.ms);
-        }
     }
 
     #[test]
