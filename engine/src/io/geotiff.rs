@@ -188,6 +188,21 @@ impl GeoTiffWriter {
             .map_err(|e| FlexureError::write(&target, gdal_failure("write", e)))
     }
 
+    /// Sets metadata item `key` = `value` (default domain) on band `band` (0-based), e.g. the
+    /// azimuth of a sector band; kept through the COG copy.
+    pub fn set_band_metadata(&mut self, band: usize, key: &str, value: &str) -> Result<()> {
+        let target = self.staged.target().to_path_buf();
+        let dataset = self
+            .dataset
+            .as_ref()
+            .ok_or_else(|| FlexureError::write(&target, "internal: written after finishing"))?;
+        let mut rb = dataset
+            .rasterband(band + 1)
+            .map_err(|e| FlexureError::write(&target, gdal_failure("band", e)))?;
+        rb.set_metadata_item(key, value, "")
+            .map_err(|e| FlexureError::write(&target, gdal_failure("band metadata", e)))
+    }
+
     /// Flushes and closes the file, converts it to a Cloud Optimized GeoTIFF when asked, reads
     /// it back to check its size and band count, and hands it over for the job's commit.
     pub fn finish(mut self) -> Result<StagedFile> {
