@@ -10,8 +10,9 @@
 //! 3505-3506), then traces of a 240-byte header and their samples.
 //! - Binary header: sample interval (µs) 3217-3218, samples per trace 3221-3222 (in rev 2
 //!   overridden by the 4-byte count at 3269-3272 when that is non-zero), sample format code
-//!   3225-3226, byte-order constant 16909060 at 3297-3300 (rev 2), revision 3501 (major) and
-//!   3502 (minor), fixed-length flag 3503-3504.
+//!   3225-3226, byte-order constant 16909060 at 3297-3300 (rev 2), revision 3501-3502 (a
+//!   16-bit field in the file's byte order, major in its high byte, as segyio reads it; a
+//!   field of 0x00nn is read as revision n), fixed-length flag 3503-3504.
 //! - Byte order: from the rev 2 constant when it reads 0x01020304 (big-endian) or 0x04030201
 //!   (little-endian); otherwise big-endian unless only the little-endian reading of the format
 //!   code is a SEG-Y format code.
@@ -270,7 +271,8 @@ pub enum TextEncoding {
 /// The file-level facts of a SEG-Y volume.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SegyInfo {
-    /// SEG-Y revision (major, minor) from bytes 3501 and 3502 ((0, 0) in files before rev 1).
+    /// SEG-Y revision (major, minor) from bytes 3501-3502 ((0, 0) in files before rev 1; see
+    /// the module documentation).
     pub revision: (u8, u8),
     /// Byte order of the headers and samples.
     pub byte_order: ByteOrder,
@@ -727,7 +729,7 @@ impl FileHeader {
                 format_name(code).unwrap_or("not a SEG-Y format")
             )
         })?;
-        let revision = (head[bin::REVISION], head[bin::REVISION + 1]);
+        let revision = revision(order.u16(head, bin::REVISION));
         if revision.0 > 2 {
             return Err(format!(
                 "declares SEG-Y revision {}.{} (binary header bytes 3501-3502), which flexure does not know: it reads revisions 0, 1 and 2",
@@ -784,6 +786,18 @@ impl FileHeader {
             return Err("gives no sample interval (binary header bytes 3217-3218 and bytes 117-118 of the first trace header are 0)".into());
         }
         Ok((samples as usize, interval as u32))
+    }
+}
+
+/// The revision (major, minor) of the 16-bit revision field (bytes 3501-3502) read in the
+/// file's byte order: major in the high byte, minor in the low one (rev 1 stores 1.0 as
+/// 0x0100; segyio 1.9.14 reads and writes it so in either byte order). A field reading
+/// 0x00nn (n > 0), revision 0.n, which does not exist, is read as revision n.0: written as a
+/// plain integer, or as two bytes without regard to the byte order.
+fn revision(field: u16) -> (u8, u8) {
+    match field.to_be_bytes() {
+        [0, minor] if minor > 0 => (minor, 0),
+        [major, minor] => (major, minor),
     }
 }
 
@@ -1044,8 +1058,10 @@ fn decode_text(bytes: &[u8]) -> (TextEncoding, String) {
 /// How [`write_segy`] lays out a file.
 #[derive(Clone, Debug, PartialEq)]
 pub struct SegyWriteSpec {
-    /// SEG-Y revision: 1 or 2. Rev 2 files carry the byte-order constant (bytes 3297-3300)
-    /// and the 4-byte sample count (3269-3272).
+    /// SEG-Y revision: 1 or 2. Rev 2 files carry the byte-order constant (bytes 3297-3300);
+    /// the 4-byte extended sample count (3269-3272) is left 0, as the standard allows for
+    /// counts the 2-byte field holds (segyio 1.9.14 reads it big-endian in little-endian files
+    /// and then refuses them, measured).
     pub revision: u8,
     /// Byte order of headers and samples; little-endian is standard only in rev 2 (a rev 1
     /// little-endian file is read by plausibility of its format code).
@@ -1200,9 +1216,8 @@ fn file_header(spec: &SegyWriteSpec) -> std::result::Result<Vec<u8>, String> {
     order.put_u16(binary, at(bin::FORMAT), spec.format.code());
     if spec.revision == 2 {
         order.put_u32(binary, at(bin::BYTE_ORDER), BYTE_ORDER_CONSTANT);
-        order.put_u32(binary, at(bin::EXT_SAMPLES), samples as u32);
     }
-    binary[at(bin::REVISION)] = spec.revision;
+    order.put_u16(binary, at(bin::REVISION), (spec.revision as u16) << 8);
     order.put_u16(binary, at(bin::FIXED_LENGTH), 1);
     Ok(head)
 }
