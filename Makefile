@@ -4,7 +4,7 @@
 CARGO ?= cargo
 export OPENBLAS_NUM_THREADS = 1
 
-.PHONY: deps build demo demo-data test lint bench
+.PHONY: deps build demo demo-data test lint bench segy-fixtures
 
 deps:
 	bash scripts/install-system-deps.sh
@@ -36,3 +36,12 @@ bench:
 	$(CARGO) bench -p flexure-engine --bench throughput --bench side_by_side
 	$(CARGO) build --release -p flexure-cli
 	bash scripts/bench/memory.sh
+
+## Regenerate the SEG-Y fixtures and segyio's readings of them (engine/tests/data/segy/): flexure
+## writes its own files, then scripts/fixtures/segy_fixtures.py writes segyio's and reads all.
+SEGY_VENV = target/segy-venv
+segy-fixtures:
+	python3 -m venv $(SEGY_VENV)
+	$(SEGY_VENV)/bin/pip install --quiet segyio==1.9.14 numpy
+	$(CARGO) test -p flexure-engine --test segy_reference -- --ignored --exact write_writer_fixtures
+	$(SEGY_VENV)/bin/python scripts/fixtures/segy_fixtures.py engine/tests/data/segy

@@ -209,6 +209,76 @@ impl GridGeometry {
             .then_some((kc as usize, kr as usize))
     }
 
+    /// Where the cells of `self` lie on `other` when both are one lattice: same CRS, the
+    /// same bins up to the order and direction of the axes (so a grid whose rows run south
+    /// matches one whose rows run north), and every cell centre of `self` within
+    /// [`SAME_NODE_SHARE`] of a bin of a cell centre of `other`'s lattice (checked at the four
+    /// corner cells: the mapping is affine). The grids may cover different areas, overlapping
+    /// or not. Otherwise why not, in words (another CRS, other bins, or nodes off the lattice
+    /// by how much).
+    pub fn cell_map(&self, other: &GridGeometry) -> std::result::Result<CellMap, String> {
+        if self.crs_wkt != other.crs_wkt {
+            return Err("another CRS".into());
+        }
+        let [[a, b], [c, d]] = other.jacobian();
+        let det = a * d - b * c;
+        let [[p, q], [r, s]] = self.jacobian();
+        // Other's cells per cell of self: inverse(other's Jacobian) x self's Jacobian.
+        let j = [
+            [(d * p - b * r) / det, (d * q - b * s) / det],
+            [(a * r - c * p) / det, (a * s - c * q) / det],
+        ];
+        let m = j.map(|row| row.map(|v| v.round()));
+        let unit = |v: f64| v == 0.0 || v.abs() == 1.0;
+        let permutation = m.iter().flatten().all(|&v| unit(v))
+            && (m[0][0] * m[1][1] - m[0][1] * m[1][0]).abs() == 1.0
+            && m.iter().flatten().filter(|&&v| v != 0.0).count() == 2;
+        let (sx, sy) = self.spacing();
+        let (ox, oy) = other.spacing();
+        if !(det.is_finite() && det != 0.0 && permutation) {
+            return Err(format!(
+                "other bins: {sx:.4} x {sy:.4} CRS units with the column axis at {:.3} deg against {ox:.4} x {oy:.4} at {:.3} deg",
+                self.column_axis_azimuth(),
+                other.column_axis_azimuth()
+            ));
+        }
+        let (fc, fr) = {
+            let (x, y) = self.cell_centre(0, 0);
+            let (fc, fr) = other.map_to_grid(x, y);
+            (fc - 0.5, fr - 0.5)
+        };
+        if !(fc.abs() < 1e15 && fr.abs() < 1e15) {
+            return Err("nodes too far apart to compare".into());
+        }
+        let axes = m.map(|row| row.map(|v| v as i64));
+        let offset = (fc.round() as i64, fr.round() as i64);
+        let map = CellMap {
+            axes,
+            offset,
+            size: (other.cols, other.rows),
+        };
+        let g = &other.geo_transform;
+        let (last_c, last_r) = (self.cols.max(1) - 1, self.rows.max(1) - 1);
+        let worst = [(0, 0), (last_c, 0), (0, last_r), (last_c, last_r)]
+            .iter()
+            .map(|&(col, row)| {
+                let (i, j) = map.index(col, row);
+                let (i, j) = (i as f64 + 0.5, j as f64 + 0.5);
+                let there = (g[0] + i * g[1] + j * g[2], g[3] + i * g[4] + j * g[5]);
+                let here = self.cell_centre(col, row);
+                (here.0 - there.0).hypot(here.1 - there.1)
+            })
+            .fold(0.0, f64::max);
+        let bin = ox.min(oy);
+        if worst.is_nan() || worst > SAME_NODE_SHARE * bin {
+            return Err(format!(
+                "cell centres up to {worst:.6} CRS units ({:.4} of a bin) off the other grid's nodes (more than {SAME_NODE_SHARE} of a bin)",
+                worst / bin
+            ));
+        }
+        Ok(map)
+    }
+
     /// One-line description: size, spacing and rotation.
     pub fn describe(&self) -> String {
         let (sx, sy) = self.spacing();
@@ -220,6 +290,36 @@ impl GridGeometry {
             sy,
             self.column_axis_azimuth()
         )
+    }
+}
+
+/// Where the cells of one grid lie on another grid of the same lattice
+/// ([`GridGeometry::cell_map`]): cell (col, row) is the other grid's cell
+/// `axes (col, row) + offset`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct CellMap {
+    /// A signed permutation matrix `[[di/dcol, di/drow], [dj/dcol, dj/drow]]`: the other
+    /// grid's (column i, row j) per cell of this grid.
+    pub axes: [[i64; 2]; 2],
+    /// The other grid's (column, row) of this grid's cell (0, 0); may lie outside it.
+    pub offset: (i64, i64),
+    /// The other grid's (columns, rows).
+    pub size: (usize, usize),
+}
+
+impl CellMap {
+    /// The other grid's (column, row) of cell (`col`, `row`), possibly outside it.
+    fn index(&self, col: usize, row: usize) -> (i64, i64) {
+        let (c, r) = (col as i64, row as i64);
+        let [[a, b], [d, e]] = self.axes;
+        (a * c + b * r + self.offset.0, d * c + e * r + self.offset.1)
+    }
+
+    /// The other grid's (column, row) of cell (`col`, `row`); `None` outside it.
+    pub fn cell(&self, col: usize, row: usize) -> Option<(usize, usize)> {
+        let (i, j) = self.index(col, row);
+        let inside = |v: i64, n: usize| usize::try_from(v).ok().filter(|&v| v < n);
+        Some((inside(i, self.size.0)?, inside(j, self.size.1)?))
     }
 }
 

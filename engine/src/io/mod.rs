@@ -14,11 +14,13 @@
 //! name, nor some outputs new and others old. GDAL's own messages are captured and reported as
 //! one line instead of printed.
 //! Vector layers (map vectors, well paths, stage corridors) are written through OGR by
-//! [`vector`].
+//! [`vector`]. SEG-Y volumes (azimuth-sector seismic) are read trace by trace, window by
+//! window, and written for fixtures and demo data by [`segy`].
 
 pub mod geotiff;
 pub mod nulls;
 pub mod points;
+pub mod segy;
 mod staged;
 pub mod table;
 pub mod vector;

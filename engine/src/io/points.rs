@@ -1589,6 +1589,7 @@ struct Placed<'p> {
     p: &'p Points,
     index: Vec<(usize, usize)>,
     numbering: Option<Numbering>,
+    naming: Naming,
 }
 
 impl Placed<'_> {
@@ -1635,14 +1636,21 @@ impl Placed<'_> {
         let (n, bin) = (self.len(), map.min_bin());
         let (worst, k) = off[0];
         let line = self.p.lines[k];
+        let Naming {
+            record,
+            points,
+            check,
+            remedy,
+            ..
+        } = self.naming;
         if off.len() * 10 > n {
             return match &self.numbering {
                 Some(_) => format!(
-                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({} of {n} points are more than {tolerance} of a bin off, worst line {line} by {worst:.3} CRS units); check the columns (--columns) and the export",
+                    "the x, y coordinates do not follow the inline/crossline numbering on one regular lattice ({} of {n} {points} are more than {tolerance} of a bin off, worst {record} {line} by {worst:.3} CRS units); check {check}",
                     off.len()
                 ),
                 None => format!(
-                    "the points lie on no regular lattice ({} of {n} are more than {tolerance} of a bin off the best one, worst line {line} by {worst:.3} CRS units); {GRID_FIRST}",
+                    "the {points} lie on no regular lattice ({} of {n} are more than {tolerance} of a bin off the best one, worst {record} {line} by {worst:.3} CRS units); {remedy}",
                     off.len()
                 ),
             };
@@ -1650,7 +1658,7 @@ impl Placed<'_> {
         let others = match off.len() {
             1 => String::new(),
             m => format!(
-                " (points that far off: {m} of {n}, worst on lines {})",
+                " ({points} that far off: {m} of {n}, worst on {record}s {})",
                 off.iter()
                     .take(3)
                     .map(|o| self.p.lines[o.1].to_string())
@@ -1668,12 +1676,12 @@ impl Placed<'_> {
         });
         match landing {
             Some(node) if self.numbering.is_some() && node != (c, r) => format!(
-                "line {line}: {} is off the numbering/coordinates of the others: its x, y are those of {}, {worst:.3} CRS units from where the others put it; check it{others}",
+                "{record} {line}: {} is off the numbering/coordinates of the others: its x, y are those of {}, {worst:.3} CRS units from where the others put it; check it{others}",
                 self.node(c, r),
                 self.node(node.0, node.1)
             ),
             _ => format!(
-                "line {line} lies {worst:.3} CRS units ({:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those lines, or raise --lattice-tolerance (to {:.2}) if the export rounds coordinates coarsely",
+                "{record} {line} lies {worst:.3} CRS units ({:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those {record}s, or raise --lattice-tolerance (to {:.2}) if the export rounds coordinates coarsely",
                 worst / bin,
                 self.node(c, r),
                 (worst / bin * 100.0).ceil() / 100.0
@@ -1720,7 +1728,9 @@ impl Placed<'_> {
             .unwrap_or(0);
         let (c, r) = self.index[k];
         format!(
-            "the point farthest from the others is on line {} ({})",
+            "the {} farthest from the others is on {} {} ({})",
+            self.naming.point(),
+            self.naming.record,
             self.p.lines[k],
             self.node(c as i64, r as i64)
         )
@@ -1730,11 +1740,12 @@ impl Placed<'_> {
     /// sparse for its points ([`NODES_PER_POINT`]).
     fn check_extent(&self, cols: u64, rows: u64) -> std::result::Result<(), String> {
         let (n, bands) = (self.len(), self.p.bands);
+        let Naming { points, remedy, .. } = self.naming;
         let nodes = cols as u128 * rows as u128;
         let values = nodes * bands as u128;
         if values > MAX_VALUES {
             return Err(format!(
-                "the lattice would be {cols} x {rows} nodes x {bands} band(s) ({:.0} million values, {:.1} GB), more than flexure reads from a point list ({} million): from {n} points that more likely comes from a typo in a line number or coordinate than from the survey; {}: check it, or give a raster",
+                "the lattice would be {cols} x {rows} nodes x {bands} band(s) ({:.0} million values, {:.1} GB), more than flexure reads from a point list ({} million): from {n} {points} that more likely comes from a typo in a line number or coordinate than from the survey; {}: check it, or give a raster",
                 values as f64 / 1e6,
                 values as f64 * 8.0 / 1e9,
                 MAX_VALUES / 1_000_000,
@@ -1747,7 +1758,8 @@ impl Placed<'_> {
                 None => "the lattice they seem to lie on spans",
             };
             return Err(format!(
-                "{what} {cols} x {rows} nodes but only {n} points: fewer than 1 node in {NODES_PER_POINT} holds a point, so they look scattered ({}: check it if a typo stretches the lattice); else {GRID_FIRST}",
+                "{what} {cols} x {rows} nodes but only {n} {points}: fewer than 1 node in {NODES_PER_POINT} holds a {}, so they look scattered ({}: check it if a typo stretches the lattice); else {remedy}",
+                self.naming.point(),
                 self.farthest()
             ));
         }
@@ -1797,17 +1809,33 @@ fn median_step(
     Some((median(&mut su)?, median(&mut sv)?))
 }
 
-/// Places the points on their lattice after the checks: at least 3 x 3 nodes spanned, no
-/// point off the lattice ([`Placed::check_outliers`]), a lattice neither too large nor too
-/// sparse, the least-squares fit within the tolerance, no node given twice with different
-/// values, at least 3 x 3 distinct nodes.
-fn place(
-    p: Points,
+/// The lattice of a set of points after the checks: its size, the points' nodes and the
+/// least-squares map from nodes to coordinates.
+struct Fitted {
+    cols: usize,
+    rows: usize,
+    /// (column, row) of each point.
+    index: Vec<(usize, usize)>,
+    /// Node (c, r) lies at `fit.at(c, r)` relative to the first point.
+    fit: Affine,
+    column_bin: f64,
+    row_bin: f64,
+    worst_misfit: f64,
+    /// The point farthest from its node.
+    worst: usize,
+}
+
+/// Fits the lattice of points `p` at lattice indices (`cols_in`, `rows_in`): at least 3 x 3
+/// nodes spanned, no point off the lattice ([`Placed::check_outliers`]), a lattice neither too
+/// large nor too sparse, the least-squares fit within the tolerance and of non-zero bin area.
+fn fit_lattice(
+    p: &Points,
     (cols_in, rows_in): Indices,
-    reading: Reading,
-) -> std::result::Result<PointGrid, String> {
+    numbering: Option<Numbering>,
+    tolerance: f64,
+    naming: Naming,
+) -> std::result::Result<Fitted, String> {
     let n = p.len();
-    let tolerance = reading.tolerance;
     let span = |a: &[i64]| {
         let lo = a.iter().copied().min().unwrap_or(0);
         let hi = a.iter().copied().max().unwrap_or(0);
@@ -1816,45 +1844,113 @@ fn place(
     let ((c0, cols), (r0, rows)) = (span(&cols_in), span(&rows_in));
     if cols < 3 || rows < 3 {
         return Err(format!(
-            "the points span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3"
+            "the {} span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3",
+            naming.points
         ));
     }
     let placed = Placed {
-        p: &p,
+        p,
         index: cols_in
             .iter()
             .zip(&rows_in)
             .map(|(&c, &r)| (c.abs_diff(c0) as usize, r.abs_diff(r0) as usize))
             .collect(),
-        numbering: reading.numbering,
+        numbering,
+        naming,
     };
     drop((cols_in, rows_in));
     placed.check_outliers(tolerance)?;
     placed.check_extent(cols, rows)?;
-    let (cols, rows) = (cols as usize, rows as usize);
     let fit = fit_affine(n, |k| Some(placed.at(k))).ok_or_else(|| {
-        "the points lie along one line of their lattice; a horizon needs a two-dimensional grid"
-            .to_string()
+        format!(
+            "the {} lie along one line of their lattice; a horizon needs a two-dimensional grid",
+            naming.points
+        )
     })?;
     let (column_bin, row_bin) = (fit.col.0.hypot(fit.col.1), fit.row.0.hypot(fit.row.1));
     let cross = fit.col.0 * fit.row.1 - fit.col.1 * fit.row.0;
     if !cross.is_finite() || cross.abs() <= 1e-6 * column_bin * row_bin {
-        return Err(
-            "the coordinates do not change across the lattice (bins of no area); check that the x and y columns hold map coordinates (--columns)"
-                .to_string(),
-        );
+        return Err(format!(
+            "the coordinates do not change across the lattice (bins of no area); check that the x and y {} hold map coordinates",
+            naming.coordinates
+        ));
     }
-    let bin = fit.min_bin();
-    let off = placed.off(&fit, tolerance * bin);
+    let off = placed.off(&fit, tolerance * fit.min_bin());
     if !off.is_empty() {
         return Err(placed.off_lattice(&fit, &off, tolerance));
     }
-    let (worst2, worst_k) = (0..n)
+    let (worst2, worst) = (0..n)
         .map(|k| (placed.miss2(&fit, k), k))
         .fold((0.0, 0), |a, b| if b.0 > a.0 { b } else { a });
-    let worst_misfit = f64::sqrt(worst2);
-    let numbering = placed.numbering;
-    let nodes = fill(&p, &placed.index, (cols, rows), &numbering)?;
+    Ok(Fitted {
+        cols: cols as usize,
+        rows: rows as usize,
+        index: placed.index,
+        fit,
+        column_bin,
+        row_bin,
+        worst_misfit: worst2.sqrt(),
+        worst,
+    })
+}
+
+impl Fitted {
+    /// The GDAL geotransform of the lattice of points `p`: node (0, 0) is the centre of cell
+    /// (0, 0); rotation terms below 1e-12 of their bin are snapped to zero.
+    fn geo_transform(&self, p: &Points) -> [f64; 6] {
+        let (fit, x0, y0) = (&self.fit, p.x[0], p.y[0]);
+        let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
+        let (g1, g4) = (snap(fit.col.0, self.column_bin), snap(fit.col.1, self.column_bin));
+        let (g2, g5) = (snap(fit.row.0, self.row_bin), snap(fit.row.1, self.row_bin));
+        [
+            x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
+            g1,
+            g2,
+            y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
+            g4,
+            g5,
+        ]
+    }
+
+    /// The report on the lattice of points `p` with geotransform `gt`, filled as `nodes` say.
+    fn report(
+        &self,
+        p: &Points,
+        gt: &[f64; 6],
+        numbering: Option<Numbering>,
+        nodes: &Nodes,
+        preamble: Option<(usize, usize)>,
+    ) -> LatticeReport {
+        LatticeReport {
+            points: p.len(),
+            numbering,
+            column_azimuth: azimuth((gt[1], gt[4])),
+            row_azimuth: azimuth((gt[2], gt[5])),
+            column_bin: self.column_bin,
+            row_bin: self.row_bin,
+            worst_misfit: self.worst_misfit,
+            worst_misfit_share: self.worst_misfit / self.fit.min_bin(),
+            worst_misfit_line: p.lines[self.worst],
+            empty_nodes: nodes.empty,
+            null_nodes: nodes.null,
+            repeated: nodes.repeated,
+            preamble,
+        }
+    }
+}
+
+/// Places the points on their lattice ([`fit_lattice`]) and fills it: no node given twice
+/// with different values, at least 3 x 3 distinct nodes.
+fn place(
+    p: Points,
+    indices: Indices,
+    reading: Reading,
+) -> std::result::Result<PointGrid, String> {
+    let n = p.len();
+    let numbering = reading.numbering;
+    let fitted = fit_lattice(&p, indices, numbering, reading.tolerance, POINT_LIST)?;
+    let (cols, rows) = (fitted.cols, fitted.rows);
+    let nodes = fill(&p, &fitted.index, (cols, rows), &numbering, POINT_LIST)?;
     let occupied = cols * rows - nodes.empty;
     if occupied < n {
         enough(
@@ -1862,41 +1958,151 @@ fn place(
             &format!("distinct nodes ({n} points, repeats read once)"),
         )?;
     }
-
-    // Geotransform: node (0, 0) is the centre of cell (0, 0).
-    let (x0, y0) = (p.x[0], p.y[0]);
-    let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
-    let (g1, g4) = (snap(fit.col.0, column_bin), snap(fit.col.1, column_bin));
-    let (g2, g5) = (snap(fit.row.0, row_bin), snap(fit.row.1, row_bin));
-    let geo_transform = [
-        x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
-        g1,
-        g2,
-        y0 + fit.origin.1 - 0.5 * g4 - 0.5 * g5,
-        g4,
-        g5,
-    ];
+    let geo_transform = fitted.geo_transform(&p);
+    let lattice = fitted.report(&p, &geo_transform, numbering, &nodes, reading.preamble);
     Ok(PointGrid {
         cols,
         rows,
         geo_transform,
         bands: nodes.bands,
         value_columns: reading.value_columns,
-        lattice: LatticeReport {
-            points: n,
-            numbering,
-            column_azimuth: azimuth((g1, g4)),
-            row_azimuth: azimuth((g2, g5)),
-            column_bin,
-            row_bin,
-            worst_misfit,
-            worst_misfit_share: worst_misfit / bin,
-            worst_misfit_line: p.lines[worst_k],
-            empty_nodes: nodes.empty,
-            null_nodes: nodes.null,
-            repeated: nodes.repeated,
-            preamble: reading.preamble,
-        },
+        lattice,
+    })
+}
+
+/// Nodes numbered by inline and crossline with their map coordinates (CRS units), one entry
+/// per node in the caller's order (e.g. the traces of a SEG-Y file): the input of
+/// [`place_numbered`].
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct NumberedNodes {
+    /// Inline number of each node.
+    pub inline: Vec<i64>,
+    /// Crossline number of each node.
+    pub crossline: Vec<i64>,
+    /// Map x (grid east) of each node, CRS units.
+    pub x: Vec<f64>,
+    /// Map y (grid north) of each node, CRS units.
+    pub y: Vec<f64>,
+}
+
+/// How messages about placed points name them and what they tell the user to check.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Naming {
+    /// What a point's 1-based number counts, as in "trace 17" or "line 17".
+    pub record: &'static str,
+    /// The points, plural: "points", "traces".
+    pub points: &'static str,
+    /// Where x and y come from, as in "check that the x and y {coordinates} hold map
+    /// coordinates": "columns (--columns)", "trace header fields".
+    pub coordinates: &'static str,
+    /// What to check when the numbering and the coordinates disagree.
+    pub check: &'static str,
+    /// What to do when the points lie on no lattice or look scattered.
+    pub remedy: &'static str,
+}
+
+impl Naming {
+    /// One point, singular: the plural without its final `s`.
+    fn point(&self) -> &'static str {
+        self.points.strip_suffix('s').unwrap_or(self.points)
+    }
+}
+
+/// The naming of point-list messages (a point is a file line).
+const POINT_LIST: Naming = Naming {
+    record: "line",
+    points: "points",
+    coordinates: "columns (--columns)",
+    check: "the columns (--columns) and the export",
+    remedy: GRID_FIRST,
+};
+
+/// Numbered nodes on their lattice ([`place_numbered`]).
+#[derive(Clone, Debug)]
+pub struct NodePlacement {
+    /// Number of columns (crosslines, increasing).
+    pub cols: usize,
+    /// Number of rows (inlines, increasing).
+    pub rows: usize,
+    /// GDAL geotransform `[x0, dx/dcol, dx/drow, y0, dy/dcol, dy/drow]`, CRS units, as in
+    /// [`PointGrid::geo_transform`].
+    pub geo_transform: [f64; 6],
+    /// (column, row) of each node, in the order given.
+    pub index: Vec<(usize, usize)>,
+    /// How the lattice was found and how well the nodes fit it; `worst_misfit_line` is the
+    /// 1-based number of the worst node in the order given, `null_nodes` equals
+    /// `empty_nodes` (lattice nodes without a given node), `repeated` and `preamble` are
+    /// unused (0, `None`).
+    pub lattice: LatticeReport,
+}
+
+impl NodePlacement {
+    /// The placement with the CRS the caller attaches, as [`PointGrid::geometry`].
+    pub fn geometry(&self, crs_wkt: String, metres_per_unit: f64) -> GridGeometry {
+        GridGeometry {
+            cols: self.cols,
+            rows: self.rows,
+            geo_transform: self.geo_transform,
+            crs_wkt,
+            metres_per_unit,
+        }
+    }
+}
+
+/// Places nodes numbered by inline and crossline onto their exact bin lattice, as the point
+/// reader places an inline/crossline export (see the module documentation: steps from the
+/// greatest common divisor of the numbers, columns follow crosslines and rows inlines, an
+/// outlier check that a few wrong nodes cannot pull, then the least-squares affine map and
+/// its geotransform), without values. `tolerance` is the largest distance of a node from its
+/// lattice position as a share of the smaller bin (0 < t < 0.5, as `--lattice-tolerance`).
+/// Errors (one line, naming nodes by `naming.record` and their 1-based number): fewer than
+/// 3 x 3 nodes, nodes off the lattice, a lattice too large or too sparse for its nodes, two
+/// nodes with the same numbers, coordinates that do not span an area.
+pub fn place_numbered(
+    nodes: NumberedNodes,
+    tolerance: f64,
+    naming: Naming,
+) -> std::result::Result<NodePlacement, String> {
+    let n = nodes.inline.len();
+    if [nodes.crossline.len(), nodes.x.len(), nodes.y.len()] != [n; 3] {
+        return Err(format!(
+            "inline, crossline, x and y lists differ in length ({n}, {}, {}, {})",
+            nodes.crossline.len(),
+            nodes.x.len(),
+            nodes.y.len()
+        ));
+    }
+    if !(tolerance > 0.0 && tolerance < 0.5) {
+        return Err(format!(
+            "--lattice-tolerance {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin (default 0.05)"
+        ));
+    }
+    enough(n, naming.points)?;
+    if n >= u32::MAX as usize {
+        return Err(format!("{n} {} are more than flexure places at once", naming.points));
+    }
+    let p = Points {
+        lines: (1..=n).collect(),
+        x: nodes.x,
+        y: nodes.y,
+        inline: nodes.inline,
+        crossline: nodes.crossline,
+        has_numbering: true,
+        values: Vec::new(),
+        bands: 0,
+    };
+    let (cols_in, rows_in, numbering) = lattice_from_numbering(&p);
+    let numbering = Some(numbering);
+    let fitted = fit_lattice(&p, (cols_in, rows_in), numbering, tolerance, naming)?;
+    let filled = fill(&p, &fitted.index, (fitted.cols, fitted.rows), &numbering, naming)?;
+    let geo_transform = fitted.geo_transform(&p);
+    let lattice = fitted.report(&p, &geo_transform, numbering, &filled, None);
+    Ok(NodePlacement {
+        cols: fitted.cols,
+        rows: fitted.rows,
+        geo_transform,
+        index: fitted.index,
+        lattice,
     })
 }
 
@@ -1913,19 +2119,22 @@ struct Nodes {
 }
 
 /// Fills a `cols` x `rows` lattice with the points at `index`: the first point of a node
-/// gives its values; a repeat must carry the same values (refused naming both lines).
+/// gives its values; a repeat must carry the same values (refused naming both records), and
+/// points without values (no bands) may not repeat a node at all.
 fn fill(
     p: &Points,
     index: &[(usize, usize)],
     (cols, rows): (usize, usize),
     numbering: &Option<Numbering>,
+    naming: Naming,
 ) -> std::result::Result<Nodes, String> {
     let bands = p.bands;
     let same = |a: usize, b: usize| {
-        (0..bands).all(|j| {
-            let (x, y) = (p.value(a, j), p.value(b, j));
-            x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan())
-        })
+        bands > 0
+            && (0..bands).all(|j| {
+                let (x, y) = (p.value(a, j), p.value(b, j));
+                x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan())
+            })
     };
     let mut owner = vec![u32::MAX; cols * rows];
     let mut repeated = 0;
@@ -1943,13 +2152,16 @@ fn fill(
                     .collect::<Vec<_>>()
                     .join(" ")
             };
+            let values = match bands {
+                0 => String::new(),
+                _ => format!(" but with different values ({} vs {})", show(first), show(k)),
+            };
             return Err(format!(
-                "lines {} and {} both give node ({}) but with different values ({} vs {}); remove one of them",
+                "{}s {} and {} both give node ({}){values}; remove one of them",
+                naming.record,
                 p.lines[first],
                 p.lines[k],
                 node_name(numbering, c as i64, r as i64),
-                show(first),
-                show(k)
             ));
         }
     }
@@ -1968,7 +2180,7 @@ fn fill(
             all_null &= value.is_nan();
             band[[r, c]] = value;
         }
-        null += all_null as usize;
+        null += (bands > 0 && all_null) as usize;
     }
     Ok(Nodes {
         bands: arrays,
@@ -2415,6 +2627,7 @@ mod tests {
             p: &p,
             index: (0..10).map(|k| (k, k)).collect(),
             numbering: None,
+            naming: POINT_LIST,
         };
         let err = placed.check_extent(20_000, 20_000).unwrap_err();
         for s in [
