@@ -6,12 +6,14 @@ use flexure_cli::demo::{run_demo, write_demo_data};
 use flexure_engine::draw::colour::Clip;
 use flexure_engine::error::FlexureError;
 use flexure_engine::io::points::ColumnRole;
+use flexure_engine::io::segy::SegyHeaderBytes;
 use flexure_engine::io::{Compression, ReadOptions, TiffOptions};
 use flexure_engine::jobs::{
     parse_memory, parse_numbers, read_well_list, AnisotropyJob, AzimuthReference, CurvatureJob,
     GridJob, Named, PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource,
     WellBindings, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
+use flexure_engine::jobs::{SectorTimesJob, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS};
 use flexure_engine::surface::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::surface::horizon::{
     DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
@@ -58,6 +60,12 @@ enum Command {
     /// Write a point list (or any raster) as the float64 GeoTIFF flexure reads it: the exact
     /// bin lattice, nulls, value names and units, to check in a GIS and reuse.
     Grid(GridArgs),
+    /// Measure each azimuth-sector SEG-Y volume's time shift along a guide horizon (optionally
+    /// also a base horizon, for the interval between them) by cross-correlation with the
+    /// mean sector trace: sector_times.tif (ms), sector_quality.tif, reference_time.tif, ready
+    /// for `flexure anisotropy`.
+    #[command(after_help = CAUTION)]
+    SectorTimes(SectorTimesArgs),
     /// Run the curvature, anisotropy, render, stages and plan jobs on the shipped demo data.
     Demo {
         /// Folder for the results.
@@ -787,6 +795,95 @@ fn command_line() -> String {
         .join(" ")
 }
 
+#[derive(clap::Args)]
+struct SectorTimesArgs {
+    /// One SEG-Y volume per azimuth sector (rev 0, 1 or 2; IBM or IEEE floats, 1-, 2- or 4-byte
+    /// integers; either byte order).
+    #[arg(required = true)]
+    volumes: Vec<PathBuf>,
+    /// Sector-centre azimuths in degrees clockwise from grid north, one per volume, in order.
+    #[arg(
+        long,
+        value_delimiter = ',',
+        required = true,
+        allow_negative_numbers = true
+    )]
+    azimuths: Vec<f64>,
+    /// Guide horizon in two-way time (ms, or a file declaring s), picked on the full-azimuth
+    /// data: a raster or a point list on the volumes' bin lattice.
+    #[arg(long)]
+    horizon: PathBuf,
+    /// A deeper horizon (two-way time): measure there too and write the interval shifts, base
+    /// minus top, so anisotropy maps the interval between the horizons.
+    #[arg(long)]
+    base: Option<PathBuf>,
+    /// Trace each sector is measured against: `mean` (the mean of the sector traces at the
+    /// bin) or a SEG-Y volume such as the full-azimuth stack.
+    #[arg(long, default_value = "mean")]
+    reference: String,
+    /// Half length of the Hann-tapered analysis window around the horizon, ms.
+    #[arg(long, default_value_t = DEFAULT_HALF_WINDOW_MS)]
+    window: f64,
+    /// Largest shift searched, ms (sector residuals are usually below 20 ms peak to peak).
+    #[arg(long, default_value_t = DEFAULT_MAX_SHIFT_MS)]
+    max_shift: f64,
+    /// Trace header byte (1-based) of the 4-byte inline number.
+    #[arg(long, default_value_t = 189)]
+    inline_byte: usize,
+    /// Trace header byte of the 4-byte crossline number.
+    #[arg(long, default_value_t = 193)]
+    crossline_byte: usize,
+    /// Trace header byte of the 4-byte x coordinate.
+    #[arg(long, default_value_t = 181)]
+    x_byte: usize,
+    /// Trace header byte of the 4-byte y coordinate.
+    #[arg(long, default_value_t = 185)]
+    y_byte: usize,
+    /// Trace header byte of the 2-byte coordinate scalar.
+    #[arg(long, default_value_t = 71)]
+    scalar_byte: usize,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Working memory for the trace windows of a batch of rows, e.g. 512M or 2G; default a
+    /// quarter of the machine's memory, at most 1G.
+    #[arg(long, value_parser = parse_memory)]
+    memory: Option<u64>,
+    #[command(flatten)]
+    read: ReadArgs,
+    #[command(flatten)]
+    tiff: TiffArgs,
+    /// Print nothing but errors.
+    #[arg(long)]
+    quiet: bool,
+}
+
+impl SectorTimesArgs {
+    fn job(&self) -> SectorTimesJob {
+        let mut job = SectorTimesJob::new(
+            self.volumes.clone(),
+            self.azimuths.clone(),
+            &self.horizon,
+            &self.out,
+        );
+        job.base = self.base.clone();
+        job.reference = (self.reference != "mean").then(|| PathBuf::from(&self.reference));
+        job.half_window_ms = self.window;
+        job.max_shift_ms = self.max_shift;
+        job.header_bytes = SegyHeaderBytes {
+            inline: self.inline_byte,
+            crossline: self.crossline_byte,
+            x: self.x_byte,
+            y: self.y_byte,
+            scalar: self.scalar_byte,
+        };
+        job.read = self.read.options();
+        job.memory = self.memory;
+        job.tiff = self.tiff.options();
+        job
+    }
+}
+
 /// Prints `text` and a newline to stdout; a closed pipe (e.g. `| head`) is not an error.
 fn say(text: &str) {
     let _ = writeln!(std::io::stdout().lock(), "{text}");
@@ -807,6 +904,12 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
             let report = job.run()?;
             if !args.quiet {
                 say(&report.to_string());
+            }
+        }
+        Command::SectorTimes(args) => {
+            let report = args.job().run(&Bar::new(args.quiet))?;
+            if !args.quiet {
+                say(&format!("{report}{CAUTION}"));
             }
         }
         Command::Anisotropy(args) => {

@@ -6,6 +6,7 @@ mod curvature;
 mod grid;
 mod plan;
 mod render;
+mod sector_times;
 mod stages;
 mod well_inputs;
 mod window_study;
@@ -19,6 +20,10 @@ pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
 pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
+pub use sector_times::{
+    SectorTimesJob, SectorTimesReport, AZIMUTH_ITEM, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
+    REFERENCE_KIND_ITEM, REFERENCE_TIME_ITEM, SHIFTS_ITEM,
+};
 pub use stages::{
     StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS, MIN_FITTED_SHARE,
     SAMPLE_STEP_M, WELL_CAUTION,
