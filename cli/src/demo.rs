@@ -16,18 +16,26 @@
 //!   anticline, magnitudes of 2 to 4.5 ms, 0.3 ms of picking noise, the fault gap in every
 //!   sector, two sectors missing along the low-fold south-west edge and only three sectors in
 //!   one corner.
+//! - `kelvane_sector_NNN.sgy`: six azimuth-sector SEG-Y volumes (rev 1, IBM floats, 4 ms) over
+//!   a 44 x 36 bin part of the Kelvane survey (inline = 1200 + row, crossline = 3400 + 2 col),
+//!   each trace three Ricker reflections (30 Hz) around the Kelvane Marl, shifted by the same
+//!   anisotropy field as the sector picks, with white noise of 10% of the peak amplitude.
 
 use flexure_engine::error::{FlexureError, Result};
 use flexure_engine::grid::GridGeometry;
+use flexure_engine::io::segy::{
+    write_segy, ByteOrder, SampleFormat, SegyHeaderBytes, SegyTrace, SegyWriteSpec, TextEncoding,
+};
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use flexure_engine::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
-    RenderJob, RenderReport, StagesJob, StagesReport, WellInput, WindowStudyJob, WindowStudyReport,
+    RenderJob, RenderReport, SectorTimesJob, SectorTimesReport, StagesJob, StagesReport, WellInput,
+    WindowStudyJob, WindowStudyReport,
 };
 use flexure_engine::stats::SeededNoise;
 use flexure_engine::surface::curvature::attribute_by_id;
 use flexure_engine::surface::horizon::{Domain, VelocitySource};
-use flexure_engine::synthetic::{Shape, Surface};
+use flexure_engine::synthetic::{ricker_samples, Shape, Surface};
 use flexure_engine::wells::trajectory::MdUnit;
 use gdal::spatial_ref::SpatialRef;
 use ndarray::Array2;
@@ -279,6 +287,140 @@ impl DemoSectors {
     }
 }
 
+/// The demo's azimuth-sectored seismic: one SEG-Y volume per sector over part of the Kelvane
+/// Marl survey, whose reflections carry the anisotropy field of [`DemoSectors::truth`].
+#[derive(Clone, Debug)]
+pub struct DemoSeismic {
+    /// The horizon the volumes image (its lattice, and its surface for the event times).
+    pub horizon: DemoHorizon,
+    /// The anisotropy field ([`DemoSectors::truth`]).
+    pub field: DemoSectors,
+    /// Sector-centre azimuths, degrees from grid north.
+    pub azimuths: Vec<f64>,
+    /// First column and row of the horizon grid the volumes cover, and their size.
+    pub area: (usize, usize, usize, usize),
+    /// Sample interval, microseconds.
+    pub interval_us: u16,
+    /// Peak frequency of the Ricker wavelets, Hz.
+    pub peak_hz: f64,
+    /// Standard deviation of the white noise, as a share of the peak amplitude.
+    pub noise: f64,
+    /// Seed of the noise.
+    pub seed: u64,
+}
+
+/// The Kelvane Marl's sector volumes.
+pub fn demo_seismic() -> DemoSeismic {
+    DemoSeismic {
+        horizon: demo_horizons().remove(1),
+        field: demo_sectors(),
+        azimuths: (0..6).map(|k| 15.0 + 30.0 * k as f64).collect(),
+        area: (110, 14, 44, 36),
+        interval_us: 4000,
+        peak_hz: 30.0,
+        noise: 0.1,
+        seed: 14,
+    }
+}
+
+impl DemoSeismic {
+    /// File name of sector `k`'s volume.
+    pub fn file(&self, k: usize) -> String {
+        format!("kelvane_sector_{:03.0}.sgy", self.azimuths[k])
+    }
+
+    /// Every volume's file name, in sector order.
+    pub fn files(&self) -> Vec<String> {
+        (0..self.azimuths.len()).map(|k| self.file(k)).collect()
+    }
+
+    /// Two-way time (ms) of the noise-free Kelvane Marl at (x, y).
+    fn twt(&self, x: f64, y: f64) -> f64 {
+        2000.0 * self.horizon.surface.eval(x, y).z / self.horizon.velocity.unwrap_or(1.0)
+    }
+
+    /// The horizon cells of the volumes, row by row.
+    fn cells(&self) -> impl Iterator<Item = (usize, usize)> {
+        let (c0, r0, cols, rows) = self.area;
+        (r0..r0 + rows).flat_map(move |r| (c0..c0 + cols).map(move |c| (c, r)))
+    }
+
+    /// First sample time (ms) and sample count covering the area's reflections with 160 ms to
+    /// spare on both sides.
+    fn time_axis(&self) -> (i16, usize) {
+        let g = &self.horizon.geometry;
+        let times = self.cells().map(|(c, r)| {
+            let (x, y) = g.cell_centre(c, r);
+            self.twt(x, y)
+        });
+        let (lo, hi) = times.fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), t| {
+            (lo.min(t), hi.max(t))
+        });
+        let dt = f64::from(self.interval_us) / 1000.0;
+        let first = ((lo - 160.0) / 100.0).floor() * 100.0;
+        (first as i16, ((hi + 160.0 - first) / dt).ceil() as usize)
+    }
+
+    /// Writes every sector volume into `dir`: at each bin reflections 40 ms above (0.5), at
+    /// (1.0) and 50 ms below (-0.7) the Kelvane Marl, all shifted by `B cos 2(phi - slow)`.
+    fn write(&self, dir: &Path) -> Result<Vec<PathBuf>> {
+        let g = &self.horizon.geometry;
+        let (delay, samples) = self.time_axis();
+        let dt = f64::from(self.interval_us) / 1000.0;
+        let first = (f64::from(delay) / dt).round() as isize;
+        let mut rng = SeededNoise::new(self.seed);
+        self.azimuths
+            .iter()
+            .enumerate()
+            .map(|(k, &phi)| {
+                let spec = SegyWriteSpec {
+                    revision: 1,
+                    byte_order: ByteOrder::Big,
+                    format: SampleFormat::Ibm,
+                    text_encoding: TextEncoding::Ebcdic,
+                    text: vec![
+                        format!("C 1 TESSARY 3D (INVENTED DEMO) AZIMUTH SECTOR {phi:.0} DEG"),
+                        "C 2 KELVANE MARL WINDOW, SYNTHETIC RICKER REFLECTIONS, NOT REAL DATA"
+                            .into(),
+                        "C 3 INLINE BYTE 189, CROSSLINE 193, CDP X 181, CDP Y 185, SCALAR -100"
+                            .into(),
+                    ],
+                    sample_interval_us: self.interval_us,
+                    samples,
+                    delay_ms: delay,
+                    header_bytes: SegyHeaderBytes::default(),
+                    coordinate_scalar: -100,
+                };
+                let traces: Vec<(i32, i32, f64, f64, Vec<f32>)> = self
+                    .cells()
+                    .map(|(c, r)| {
+                        let (x, y) = g.cell_centre(c, r);
+                        let (b, fast) = self.field.truth(x, y);
+                        let shift = b * (2.0 * (phi - fast - 90.0).to_radians()).cos();
+                        let t = self.twt(x, y) + shift;
+                        let events = [(t - 40.0, 0.5), (t, 1.0), (t + 50.0, -0.7)];
+                        let mut v = ricker_samples(first, samples, dt, self.peak_hz, &events);
+                        for s in &mut v {
+                            *s += (self.noise * rng.gaussian()) as f32;
+                        }
+                        (1200 + r as i32, 3400 + 2 * c as i32, x, y, v)
+                    })
+                    .collect();
+                let path = dir.join(self.file(k));
+                let traces = traces.iter().map(|(il, xl, x, y, v)| SegyTrace {
+                    inline: *il,
+                    crossline: *xl,
+                    x: *x,
+                    y: *y,
+                    samples: v,
+                });
+                write_segy(&path, &spec, traces)?;
+                Ok(path)
+            })
+            .collect()
+    }
+}
+
 fn demo_metadata() -> Vec<(String, String)> {
     vec![(
         "FLEXURE_DEMO".to_string(),
@@ -337,6 +479,7 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
         })
         .collect::<Result<Vec<_>>>()?;
     written.push(demo_sectors().write(dir)?);
+    written.extend(demo_seismic().write(dir)?);
     let points = dir.join(DEMO_POINT_EXPORT);
     std::fs::write(&points, demo_point_export()).map_err(|e| FlexureError::write(&points, e))?;
     written.push(points);
@@ -391,6 +534,36 @@ pub fn demo_anisotropy_job(
         out_dir.join("anisotropy"),
     );
     job.every = 3;
+    job
+}
+
+/// The sector-times job the demo runs: the Kelvane sector volumes measured along the
+/// Kelvane Marl picks, into `out_dir/sector_times`.
+pub fn demo_sector_times_job(
+    seismic: &DemoSeismic,
+    data_dir: &Path,
+    out_dir: &Path,
+) -> SectorTimesJob {
+    SectorTimesJob::new(
+        seismic.files().iter().map(|f| data_dir.join(f)).collect(),
+        seismic.azimuths.clone(),
+        data_dir.join(seismic.horizon.file),
+        out_dir.join("sector_times"),
+    )
+}
+
+/// The anisotropy job on the measured sector shifts, into `out_dir/anisotropy_seismic`.
+pub fn demo_seismic_anisotropy_job(
+    seismic: &DemoSeismic,
+    sector_times: &SectorTimesJob,
+    out_dir: &Path,
+) -> AnisotropyJob {
+    let mut job = AnisotropyJob::new(
+        vec![sector_times.times_path()],
+        seismic.azimuths.clone(),
+        out_dir.join("anisotropy_seismic"),
+    );
+    job.every = 2;
     job
 }
 
@@ -666,6 +839,10 @@ pub struct DemoReport {
     pub curvature: Vec<CurvatureReport>,
     /// The anisotropy of the sector picks.
     pub anisotropy: AnisotropyReport,
+    /// The sector shifts measured on the demo's sector volumes.
+    pub sector_times: SectorTimesReport,
+    /// The anisotropy of the measured sector shifts.
+    pub seismic_anisotropy: AnisotropyReport,
     /// The maps drawn.
     pub maps: Vec<RenderReport>,
     /// The stage analysis of the demo wells.
@@ -682,6 +859,8 @@ pub struct DemoReport {
 pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Result<DemoReport> {
     let horizons = demo_horizons();
     let sectors = demo_sectors();
+    let seismic = demo_seismic();
+    let seismic_files = seismic.files();
     let well_files: Vec<String> = demo_wells()
         .iter()
         .flat_map(|w| [w.well_file(), w.stages_file()])
@@ -690,7 +869,8 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         .iter()
         .map(|h| h.file)
         .chain([sectors.file, DEMO_POINT_EXPORT])
-        .chain(well_files.iter().map(String::as_str));
+        .chain(well_files.iter().map(String::as_str))
+        .chain(seismic_files.iter().map(String::as_str));
     for file in files {
         if !data_dir.join(file).is_file() {
             return Err(FlexureError::input(
@@ -706,6 +886,10 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         .map(|job| job.run(progress))
         .collect::<Result<Vec<_>>>()?;
     let anisotropy = demo_anisotropy_job(&sectors, data_dir, out_dir).run()?;
+    let sector_times_job = demo_sector_times_job(&seismic, data_dir, out_dir);
+    let sector_times = sector_times_job.run(progress)?;
+    let seismic_anisotropy =
+        demo_seismic_anisotropy_job(&seismic, &sector_times_job, out_dir).run()?;
     let maps = demo_render_jobs(data_dir, out_dir)
         .iter()
         .map(RenderJob::run)
@@ -717,6 +901,8 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
         window_study,
         curvature,
         anisotropy,
+        sector_times,
+        seismic_anisotropy,
         maps,
         stages,
         plan,

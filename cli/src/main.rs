@@ -961,6 +961,8 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
                         .join(", ")
                 );
                 text += &report.anisotropy.to_string();
+                text += &report.sector_times.to_string();
+                text += &report.seismic_anisotropy.to_string();
                 text += &format!("Maps in {}:\n", out.join("maps").display());
                 text += &report
                     .maps
