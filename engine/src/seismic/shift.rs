@@ -11,9 +11,8 @@
 //! - Sub-sample peak: the cross products and the trace energies are each interpolated between
 //!   integer lags by the Lanczos windowed sinc of 8 lobes (Duchon 1979, J. Appl. Meteorol.
 //!   18:1016, from memory; the cross products are a linear filter of the band-limited trace,
-//!   the energies a Hann-smoothed square), their ratio searched on a grid of 1/64 sample around
-//!   the best integer lag and refined by the parabola through the three best grid points
-//!   (REFERENCES.md section 8). The plain parabola through three integer lags of `c` is biased
+//!   the energies a Hann-smoothed square), their ratio searched on a grid of 1/8 sample around
+//!   the best integer lag and refined by golden-section search to 1e-4 sample. The plain parabola through three integer lags of `c` is biased
 //!   towards the nearest sample for seismic wavelets; a 4-lobe kernel, or interpolating the
 //!   ratio itself, left errors of a few hundredths of a sample (the tests compare against exact
 //!   shifts).
@@ -28,8 +27,11 @@ use std::ops::Range;
 /// Half length, in lags, of the Lanczos kernel interpolating between lags.
 const LANCZOS_LOBES: usize = 8;
 
-/// Steps per sample of the fine search for the interpolated peak.
-const FINE_STEPS: usize = 64;
+/// Steps per lag of the coarse search for the interpolated peak.
+const COARSE_STEPS: usize = 8;
+
+/// Width, in lags, to which the golden-section search narrows the peak.
+const LAG_TOLERANCE: f64 = 1e-4;
 
 /// A measured time shift.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -190,23 +192,34 @@ fn interpolate(values: &[f64], reach: isize, lag: f64) -> f64 {
 }
 
 /// The peak of `correlation` within one lag of the best integer lag `best`: (lag,
-/// coefficient).
+/// coefficient). A grid of [`COARSE_STEPS`] a lag finds the peak's neighbourhood; a
+/// golden-section search (Kiefer 1953, from memory) refines it to [`LAG_TOLERANCE`].
 fn fine_peak(correlation: impl Fn(f64) -> f64, best: isize) -> (f64, f64) {
-    let step = 1.0 / FINE_STEPS as f64;
-    let value = |i: isize| correlation(best as f64 + i as f64 * step);
-    let span = FINE_STEPS as isize;
+    let step = 1.0 / COARSE_STEPS as f64;
+    let at = |i: isize| best as f64 + i as f64 * step;
+    let span = COARSE_STEPS as isize;
     let top = (-span..=span)
-        .max_by(|&a, &b| value(a).total_cmp(&value(b)))
+        .max_by(|&a, &b| correlation(at(a)).total_cmp(&correlation(at(b))))
         .unwrap_or(0);
-    let (left, centre, right) = (value(top - 1), value(top), value(top + 1));
-    let curvature = left - 2.0 * centre + right;
-    let offset = if curvature < 0.0 {
-        (0.5 * (left - right) / curvature).clamp(-1.0, 1.0)
-    } else {
-        0.0
-    };
-    let lag = best as f64 + (top as f64 + offset) * step;
-    (lag, centre - 0.25 * (left - right) * offset)
+    let ratio = (5f64.sqrt() - 1.0) / 2.0;
+    let (mut lo, mut hi) = (at(top) - step, at(top) + step);
+    let (mut x1, mut x2) = (hi - ratio * (hi - lo), lo + ratio * (hi - lo));
+    let (mut f1, mut f2) = (correlation(x1), correlation(x2));
+    while hi - lo > LAG_TOLERANCE {
+        if f1 < f2 {
+            lo = x1;
+            (x1, f1) = (x2, f2);
+            x2 = lo + ratio * (hi - lo);
+            f2 = correlation(x2);
+        } else {
+            hi = x2;
+            (x2, f2) = (x1, f1);
+            x1 = hi - ratio * (hi - lo);
+            f1 = correlation(x1);
+        }
+    }
+    let lag = 0.5 * (lo + hi);
+    (lag, correlation(lag))
 }
 
 #[cfg(test)]
