@@ -12,10 +12,10 @@
 //!   integer lags by the Lanczos windowed sinc of 8 lobes (Duchon 1979, J. Appl. Meteorol.
 //!   18:1016, from memory; the cross products are a linear filter of the band-limited trace,
 //!   the energies a Hann-smoothed square), their ratio searched on a grid of 1/8 sample around
-//!   the best integer lag and refined by golden-section search to 1e-4 sample. The plain parabola through three integer lags of `c` is biased
-//!   towards the nearest sample for seismic wavelets; a 4-lobe kernel, or interpolating the
-//!   ratio itself, left errors of a few hundredths of a sample (the tests compare against exact
-//!   shifts).
+//!   the best integer lag and refined by golden-section search to 1e-4 sample. The plain
+//!   parabola through three integer lags of `c` is biased towards the nearest sample for
+//!   seismic wavelets; a 4-lobe kernel, or interpolating the ratio itself, left errors of a few
+//!   hundredths of a sample (the tests compare against exact shifts).
 //! - Quality: the interpolated peak coefficient (at most 1).
 //!
 //! Lags are limited to `max_shift`: a best lag at the limit whose refined peak lies beyond it
