@@ -390,22 +390,23 @@ impl ByteOrder {
     }
 }
 
-/// The factor a SEG-Y coordinate scalar stands for: positive multiplies, negative divides by
-/// its absolute value, 0 is 1 (SEG-Y rev 1, trace header bytes 71-72).
-fn scale_factor(scalar: i16) -> f64 {
-    match scalar {
-        0 => 1.0,
-        s if s > 0 => s as f64,
-        s => 1.0 / -(s as f64),
-    }
-}
-
-/// Applies a coordinate scalar to a stored coordinate (dividing, not multiplying by a
-/// reciprocal, for negative scalars, so -100 gives the nearest double to `v / 100`).
+/// A stored coordinate with a SEG-Y coordinate scalar applied (SEG-Y rev 1, trace header
+/// bytes 71-72): positive multiplies, negative divides by its absolute value (dividing, so
+/// -100 gives the nearest double to `v / 100`), 0 leaves it.
 fn scaled(v: i32, scalar: i16) -> f64 {
     match scalar {
         s if s < 0 => v as f64 / -(s as f64),
-        s => v as f64 * scale_factor(s),
+        s if s > 0 => v as f64 * s as f64,
+        _ => v as f64,
+    }
+}
+
+/// The inverse of [`scaled`] before rounding to the stored integer.
+fn unscaled(v: f64, scalar: i16) -> f64 {
+    match scalar {
+        s if s < 0 => v * -(s as f64),
+        s if s > 0 => v / s as f64,
+        _ => v,
     }
 }
 
@@ -1103,7 +1104,8 @@ pub struct SegyTrace<'a> {
     pub inline: i32,
     /// Crossline number.
     pub crossline: i32,
-    /// Map x, CRS units (stored as `round(x / factor)` for the scalar's factor).
+    /// Map x, CRS units (stored as the integer nearest to x with the scalar undone: x times
+    /// 100 for a scalar of -100).
     pub x: f64,
     /// Map y, CRS units.
     pub y: f64,
@@ -1143,7 +1145,6 @@ pub fn stage_segy<'a>(
     let file = File::create(staged.temp()).map_err(|e| fail(e.to_string()))?;
     let mut out = BufWriter::new(file);
     out.write_all(&head).map_err(|e| fail(e.to_string()))?;
-    let factor = scale_factor(spec.coordinate_scalar);
     let size = spec.format.bytes();
     let mut block = vec![0u8; TRACE_HEADER_BYTES + spec.samples * size];
     let mut count = 0usize;
@@ -1165,7 +1166,7 @@ pub fn stage_segy<'a>(
             )));
         }
         block.fill(0);
-        trace_header(spec, k, &t, factor, &mut block[..TRACE_HEADER_BYTES])
+        trace_header(spec, k, &t, &mut block[..TRACE_HEADER_BYTES])
             .map_err(|why| fail(format!("{}: {why}", what())))?;
         encode(spec, t.samples, &mut block[TRACE_HEADER_BYTES..])
             .map_err(|why| fail(format!("{}: {why}", what())))?;
@@ -1250,7 +1251,6 @@ fn trace_header(
     spec: &SegyWriteSpec,
     k: usize,
     t: &SegyTrace,
-    factor: f64,
     h: &mut [u8],
 ) -> std::result::Result<(), String> {
     let order = spec.byte_order;
@@ -1262,7 +1262,7 @@ fn trace_header(
     order.put_u16(h, trace::SAMPLES, spec.samples as u16);
     order.put_u16(h, trace::INTERVAL, spec.sample_interval_us);
     let stored = |v: f64, name: &str| {
-        let s = (v / factor).round();
+        let s = unscaled(v, spec.coordinate_scalar).round();
         match s.is_finite() && s >= i32::MIN as f64 && s <= i32::MAX as f64 {
             true => Ok(s as i32),
             false => Err(format!(
