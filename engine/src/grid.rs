@@ -230,7 +230,9 @@ impl GridGeometry {
         ];
         let m = j.map(|row| row.map(|v| v.round()));
         let unit = |v: f64| v == 0.0 || v.abs() == 1.0;
-        let permutation = m.iter().flatten().all(|&v| unit(v))
+        let close = (0..4).all(|k| (j[k / 2][k % 2] - m[k / 2][k % 2]).abs() <= SAME_NODE_SHARE);
+        let permutation = close
+            && m.iter().flatten().all(|&v| unit(v))
             && (m[0][0] * m[1][1] - m[0][1] * m[1][0]).abs() == 1.0
             && m.iter().flatten().filter(|&&v| v != 0.0).count() == 2;
         let (sx, sy) = self.spacing();
@@ -484,5 +486,82 @@ mod tests {
             ]
         };
         assert_eq!(coarse.superbin_of(&a), Some((3, 3)));
+    }
+
+    #[test]
+    fn cell_maps_follow_the_lattice_over_other_areas_and_axis_orders() {
+        // Hand-checkable: `big` is a rotated 4 x 3 lattice (25 x 12.5 bins, 30 deg); every
+        // smaller grid below is cut from the same lattice, so each of its cells must map to
+        // the cell of `big` whose centre it shares.
+        let big = GridGeometry {
+            cols: 40,
+            rows: 30,
+            ..rotated(30.0)
+        };
+        let g = big.geo_transform;
+        let node = |i: f64, j: f64| (g[0] + i * g[1] + j * g[2], g[3] + i * g[4] + j * g[5]);
+        // A window 5 columns and 7 rows in.
+        let (x0, y0) = node(5.0, 7.0);
+        let window = GridGeometry {
+            cols: 6,
+            rows: 4,
+            geo_transform: [x0, g[1], g[2], y0, g[4], g[5]],
+            ..big.clone()
+        };
+        // The same window with rows running the other way (corner at the far row edge).
+        let (x1, y1) = node(5.0, 11.0);
+        let flipped = GridGeometry {
+            geo_transform: [x1, g[1], -g[2], y1, g[4], -g[5]],
+            ..window.clone()
+        };
+        // Columns and rows swapped (a transposed export of the window).
+        let swapped = GridGeometry {
+            cols: 4,
+            rows: 6,
+            geo_transform: [x0, g[2], g[1], y0, g[5], g[4]],
+            ..window.clone()
+        };
+        for small in [&window, &flipped, &swapped] {
+            let map = small.cell_map(&big).unwrap();
+            for r in 0..small.rows {
+                for c in 0..small.cols {
+                    let (i, j) = map.cell(c, r).unwrap();
+                    let (a, b) = (small.cell_centre(c, r), big.cell_centre(i, j));
+                    assert!((a.0 - b.0).hypot(a.1 - b.1) < 1e-6, "{c} {r}");
+                }
+            }
+        }
+        assert_eq!(window.cell_map(&big).unwrap().offset, (5, 7));
+        assert_eq!(flipped.cell_map(&big).unwrap().axes, [[1, 0], [0, -1]]);
+        assert_eq!(swapped.cell_map(&big).unwrap().axes, [[0, 1], [1, 0]]);
+        // The window mapped from the big grid: most cells fall outside it.
+        let back = big.cell_map(&window).unwrap();
+        assert_eq!(back.cell(5, 7), Some((0, 0)));
+        assert_eq!(back.cell(4, 7), None);
+        // Refused: a shift of 0.01 bin, bins twice as long, a turn of 0.1 deg, another CRS.
+        let shifted = GridGeometry {
+            geo_transform: [x0 + 0.25, g[1], g[2], y0, g[4], g[5]],
+            ..window.clone()
+        };
+        assert!(shifted
+            .cell_map(&big)
+            .unwrap_err()
+            .contains("off the other grid's nodes"));
+        let coarse = GridGeometry {
+            geo_transform: [x0, 2.0 * g[1], g[2], y0, 2.0 * g[4], g[5]],
+            ..window.clone()
+        };
+        assert!(coarse.cell_map(&big).unwrap_err().contains("other bins"));
+        let t = rotated(30.1).geo_transform;
+        let turned = GridGeometry {
+            geo_transform: [x0, t[1], t[2], y0, t[4], t[5]],
+            ..window.clone()
+        };
+        assert!(turned.cell_map(&big).is_err());
+        let other_crs = GridGeometry {
+            crs_wkt: "LOCAL_CS[\"x\"]".into(),
+            ..window.clone()
+        };
+        assert_eq!(other_crs.cell_map(&big).unwrap_err(), "another CRS");
     }
 }

@@ -70,7 +70,11 @@ fn every_fixture_reads_as_segyio_reads_it() {
         };
         assert_eq!(info.text_encoding, encoding, "{name}");
         assert_eq!(info.text, r["text"].as_str().unwrap(), "{name}");
-        assert_eq!(info.extended_headers as i64, int(&r["extended_headers"]), "{name}");
+        assert_eq!(
+            info.extended_headers as i64,
+            int(&r["extended_headers"]),
+            "{name}"
+        );
         assert_eq!(info.format.code() as i64, int(&bin["format"]), "{name}");
         assert_eq!(
             (info.revision.0 as i64, info.revision.1 as i64),
@@ -83,7 +87,11 @@ fn every_fixture_reads_as_segyio_reads_it() {
             n => n,
         };
         assert_eq!(v.samples() as i64, samples, "{name}");
-        assert_eq!(info.sample_interval_us as i64, int(&bin["interval_us"]), "{name}");
+        assert_eq!(
+            info.sample_interval_us as i64,
+            int(&bin["interval_us"]),
+            "{name}"
+        );
         // segyio's time axis: the first trace's delay, then the binary header's interval.
         let times: Vec<f64> = r["times_ms"]
             .as_array()
@@ -93,7 +101,11 @@ fn every_fixture_reads_as_segyio_reads_it() {
             .collect();
         assert_eq!(times.len(), v.samples(), "{name}");
         for (k, &t) in times.iter().enumerate() {
-            assert_eq!(v.first_time_ms() + k as f64 * v.sample_interval_ms(), t, "{name}");
+            assert_eq!(
+                v.first_time_ms() + k as f64 * v.sample_interval_ms(),
+                t,
+                "{name}"
+            );
         }
         let traces = r["traces"].as_array().unwrap();
         assert_eq!(v.traces(), traces.len(), "{name}");
@@ -106,12 +118,19 @@ fn every_fixture_reads_as_segyio_reads_it() {
             assert_eq!(loc.x, scaled(int(&t["x"]), scalar), "{name} trace {k}");
             assert_eq!(loc.y, scaled(int(&t["y"]), scalar), "{name} trace {k}");
             // Trace headers give the file's sampling or 0 ("not recorded"), and the delay.
-            assert!([0, samples].contains(&int(&t["samples"])), "{name} trace {k}");
+            assert!(
+                [0, samples].contains(&int(&t["samples"])),
+                "{name} trace {k}"
+            );
             assert!(
                 [0, int(&bin["interval_us"])].contains(&int(&t["interval_us"])),
                 "{name} trace {k}"
             );
-            assert_eq!(int(&t["delay_ms"]) as f64, v.first_time_ms(), "{name} trace {k}");
+            assert_eq!(
+                int(&t["delay_ms"]) as f64,
+                v.first_time_ms(),
+                "{name} trace {k}"
+            );
             let data: Vec<f32> = t["data"]
                 .as_array()
                 .unwrap()
@@ -204,8 +223,11 @@ fn writer_samples(format: SampleFormat, k: usize, n: usize) -> Vec<f32> {
         .collect()
 }
 
+/// Inline, crossline, x and y of each trace.
+type Nodes = Vec<(i32, i32, f64, f64)>;
+
 /// The files our writer contributes to the fixtures, with what they hold.
-fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Vec<(i32, i32, f64, f64)>)> {
+fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Nodes)> {
     let custom = SegyHeaderBytes {
         inline: 17,
         crossline: 13,
@@ -213,8 +235,8 @@ fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Vec<(i32, i32, f64, f6
         y: 77,
         scalar: 71,
     };
-    let spec = |revision, byte_order, format, text_encoding, header_bytes, scalar, delay| {
-        SegyWriteSpec {
+    let spec =
+        |revision, byte_order, format, text_encoding, header_bytes, scalar, delay| SegyWriteSpec {
             revision,
             byte_order,
             format,
@@ -228,10 +250,9 @@ fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Vec<(i32, i32, f64, f6
             delay_ms: delay,
             header_bytes,
             coordinate_scalar: scalar,
-        }
-    };
+        };
     // A rotated lattice (columns at 60 deg) with 15 x 20 m bins, 4 crosslines x 3 inlines.
-    let nodes = |scalar: i16| -> Vec<(i32, i32, f64, f64)> {
+    let nodes = |scalar: i16| -> Nodes {
         // Coordinates the scalar stores exactly: the stored integer scaled as the standard
         // says.
         let exact = |v: f64| match scalar {
@@ -247,7 +268,7 @@ fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Vec<(i32, i32, f64, f6
             .map(|(r, c)| {
                 let x = 421_000.0 + c as f64 * 15.0 * a.sin() - r as f64 * 20.0 * a.cos();
                 let y = 5_012_000.0 + c as f64 * 15.0 * a.cos() + r as f64 * 20.0 * a.sin();
-                ((r * 2 + 11) as i32, (c + 101) as i32, exact(x), exact(y))
+                (r * 2 + 11, c + 101, exact(x), exact(y))
             })
             .collect()
     };
@@ -256,11 +277,26 @@ fn writer_fixtures() -> Vec<(&'static str, SegyWriteSpec, Vec<(i32, i32, f64, f6
     use TextEncoding::*;
     let standard = SegyHeaderBytes::default();
     vec![
-        ("flexure_ibm_le_rev1_ascii.sgy", spec(1, Little, Ibm, Ascii, standard, -100, 0)),
-        ("flexure_ieee_be_rev2_ascii.sgy", spec(2, Big, Ieee, Ascii, standard, -10, 0)),
-        ("flexure_int16_be_rev2_ebcdic_custom.sgy", spec(2, Big, Int16, Ebcdic, custom, 10, 20)),
-        ("flexure_int32_le_rev2_ebcdic.sgy", spec(2, Little, Int32, Ebcdic, standard, 0, 0)),
-        ("flexure_int8_be_rev1_ascii.sgy", spec(1, Big, Int8, Ascii, standard, 1, 0)),
+        (
+            "flexure_ibm_le_rev1_ascii.sgy",
+            spec(1, Little, Ibm, Ascii, standard, -100, 0),
+        ),
+        (
+            "flexure_ieee_be_rev2_ascii.sgy",
+            spec(2, Big, Ieee, Ascii, standard, -10, 0),
+        ),
+        (
+            "flexure_int16_be_rev2_ebcdic_custom.sgy",
+            spec(2, Big, Int16, Ebcdic, custom, 10, 20),
+        ),
+        (
+            "flexure_int32_le_rev2_ebcdic.sgy",
+            spec(2, Little, Int32, Ebcdic, standard, 0, 0),
+        ),
+        (
+            "flexure_int8_be_rev1_ascii.sgy",
+            spec(1, Big, Int8, Ascii, standard, 1, 0),
+        ),
     ]
     .into_iter()
     .map(|(name, spec)| {
@@ -274,13 +310,16 @@ fn write_writer_fixture(path: &Path, spec: &SegyWriteSpec, nodes: &[(i32, i32, f
     let samples: Vec<Vec<f32>> = (0..nodes.len())
         .map(|k| writer_samples(spec.format, k, spec.samples))
         .collect();
-    let traces = nodes.iter().zip(&samples).map(|(&(il, xl, x, y), s)| SegyTrace {
-        inline: il,
-        crossline: xl,
-        x,
-        y,
-        samples: s,
-    });
+    let traces = nodes
+        .iter()
+        .zip(&samples)
+        .map(|(&(il, xl, x, y), s)| SegyTrace {
+            inline: il,
+            crossline: xl,
+            x,
+            y,
+            samples: s,
+        });
     write_segy(path, spec, traces).unwrap();
 }
 
@@ -303,7 +342,10 @@ fn committed_writer_fixtures_are_what_the_writer_writes_now() {
         let path = dir.path().join(name);
         write_writer_fixture(&path, &spec, &nodes);
         let committed = std::fs::read(folder().join(name)).unwrap();
-        assert!(std::fs::read(&path).unwrap() == committed, "{name} differs: make segy-fixtures");
+        assert!(
+            std::fs::read(&path).unwrap() == committed,
+            "{name} differs: make segy-fixtures"
+        );
     }
 }
 
@@ -318,26 +360,64 @@ fn segyio_reads_our_files_as_written() {
         let bin = &r["binary"];
         assert_eq!(int(&bin["format"]), spec.format.code() as i64, "{name}");
         assert_eq!(int(&bin["samples"]), spec.samples as i64, "{name}");
-        assert_eq!(int(&bin["interval_us"]), spec.sample_interval_us as i64, "{name}");
+        assert_eq!(
+            int(&bin["interval_us"]),
+            spec.sample_interval_us as i64,
+            "{name}"
+        );
         assert_eq!(int(&bin["revision"]), spec.revision as i64, "{name}");
         assert_eq!(int(&bin["fixed_length"]), 1, "{name}");
         assert_eq!(int(&bin["ext_samples"]), 0, "{name}");
-        let order = if spec.byte_order == ByteOrder::Big { "big" } else { "little" };
+        let order = if spec.byte_order == ByteOrder::Big {
+            "big"
+        } else {
+            "little"
+        };
         assert_eq!(r["endian"], order, "{name}");
         // segyio decodes EBCDIC itself; an ASCII header is recorded as its bytes.
         let text: String = spec.text.iter().map(|l| format!("{l:80}")).collect();
-        assert_eq!(r["text"].as_str().unwrap(), format!("{text:3200}"), "{name}");
+        assert_eq!(
+            r["text"].as_str().unwrap(),
+            format!("{text:3200}"),
+            "{name}"
+        );
         let times = r["times_ms"].as_array().unwrap();
         assert_eq!(times[0].as_f64().unwrap(), spec.delay_ms as f64, "{name}");
-        for (k, (t, &(il, xl, x, y))) in r["traces"].as_array().unwrap().iter().zip(&nodes).enumerate() {
+        for (k, (t, &(il, xl, x, y))) in r["traces"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .zip(&nodes)
+            .enumerate()
+        {
             assert_eq!(int(&t["inline"]), il as i64, "{name} trace {k}");
             assert_eq!(int(&t["crossline"]), xl as i64, "{name} trace {k}");
-            assert_eq!(int(&t["scalar"]), spec.coordinate_scalar as i64, "{name} trace {k}");
-            assert_eq!(scaled(int(&t["x"]), int(&t["scalar"])), x, "{name} trace {k}");
-            assert_eq!(scaled(int(&t["y"]), int(&t["scalar"])), y, "{name} trace {k}");
+            assert_eq!(
+                int(&t["scalar"]),
+                spec.coordinate_scalar as i64,
+                "{name} trace {k}"
+            );
+            assert_eq!(
+                scaled(int(&t["x"]), int(&t["scalar"])),
+                x,
+                "{name} trace {k}"
+            );
+            assert_eq!(
+                scaled(int(&t["y"]), int(&t["scalar"])),
+                y,
+                "{name} trace {k}"
+            );
             assert_eq!(int(&t["samples"]), spec.samples as i64, "{name} trace {k}");
-            assert_eq!(int(&t["interval_us"]), spec.sample_interval_us as i64, "{name}");
-            assert_eq!(int(&t["delay_ms"]), spec.delay_ms as i64, "{name} trace {k}");
+            assert_eq!(
+                int(&t["interval_us"]),
+                spec.sample_interval_us as i64,
+                "{name}"
+            );
+            assert_eq!(
+                int(&t["delay_ms"]),
+                spec.delay_ms as i64,
+                "{name} trace {k}"
+            );
             let given = writer_samples(spec.format, k, spec.samples);
             for (i, (d, &g)) in t["data"].as_array().unwrap().iter().zip(&given).enumerate() {
                 let read = d.as_f64().unwrap() as f32;

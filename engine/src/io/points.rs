@@ -1900,7 +1900,10 @@ impl Fitted {
     fn geo_transform(&self, p: &Points) -> [f64; 6] {
         let (fit, x0, y0) = (&self.fit, p.x[0], p.y[0]);
         let snap = |a: f64, len: f64| if a.abs() <= 1e-12 * len { 0.0 } else { a };
-        let (g1, g4) = (snap(fit.col.0, self.column_bin), snap(fit.col.1, self.column_bin));
+        let (g1, g4) = (
+            snap(fit.col.0, self.column_bin),
+            snap(fit.col.1, self.column_bin),
+        );
         let (g2, g5) = (snap(fit.row.0, self.row_bin), snap(fit.row.1, self.row_bin));
         [
             x0 + fit.origin.0 - 0.5 * g1 - 0.5 * g2,
@@ -1941,11 +1944,7 @@ impl Fitted {
 
 /// Places the points on their lattice ([`fit_lattice`]) and fills it: no node given twice
 /// with different values, at least 3 x 3 distinct nodes.
-fn place(
-    p: Points,
-    indices: Indices,
-    reading: Reading,
-) -> std::result::Result<PointGrid, String> {
+fn place(p: Points, indices: Indices, reading: Reading) -> std::result::Result<PointGrid, String> {
     let n = p.len();
     let numbering = reading.numbering;
     let fitted = fit_lattice(&p, indices, numbering, reading.tolerance, POINT_LIST)?;
@@ -2079,7 +2078,10 @@ pub fn place_numbered(
     }
     enough(n, naming.points)?;
     if n >= u32::MAX as usize {
-        return Err(format!("{n} {} are more than flexure places at once", naming.points));
+        return Err(format!(
+            "{n} {} are more than flexure places at once",
+            naming.points
+        ));
     }
     let p = Points {
         lines: (1..=n).collect(),
@@ -2094,7 +2096,13 @@ pub fn place_numbered(
     let (cols_in, rows_in, numbering) = lattice_from_numbering(&p);
     let numbering = Some(numbering);
     let fitted = fit_lattice(&p, (cols_in, rows_in), numbering, tolerance, naming)?;
-    let filled = fill(&p, &fitted.index, (fitted.cols, fitted.rows), &numbering, naming)?;
+    let filled = fill(
+        &p,
+        &fitted.index,
+        (fitted.cols, fitted.rows),
+        &numbering,
+        naming,
+    )?;
     let geo_transform = fitted.geo_transform(&p);
     let lattice = fitted.report(&p, &geo_transform, numbering, &filled, None);
     Ok(NodePlacement {
@@ -2154,7 +2162,11 @@ fn fill(
             };
             let values = match bands {
                 0 => String::new(),
-                _ => format!(" but with different values ({} vs {})", show(first), show(k)),
+                _ => format!(
+                    " but with different values ({} vs {})",
+                    show(first),
+                    show(k)
+                ),
             };
             return Err(format!(
                 "{}s {} and {} both give node ({}){values}; remove one of them",
@@ -2366,6 +2378,50 @@ mod tests {
                 (xa - xb).hypot(ya - yb) / bin
             })
             .fold(0.0, f64::max)
+    }
+
+    #[test]
+    fn numbered_nodes_are_placed_as_the_point_reader_places_them() {
+        // Reference: the point reader's own placement of the same export (place_numbered
+        // reuses it without values): same lattice bit for bit, each node at the cell holding
+        // its line's value; a rotated survey with inline steps of 2, coordinates to 0.01 m.
+        let g = GridGeometry::survey(
+            (402_500.0, 6_450_000.0),
+            104.0,
+            (12.5, 25.0),
+            (9, 7),
+            String::new(),
+        );
+        let mut e = Export::new(g.geo_transform, 9, 7);
+        e.numbering = Some((501, 2, 1001, 1));
+        e.decimals = Some(2);
+        let text = e.full(" ", None);
+        let grid = parse(&text, &PointOptions::default()).unwrap();
+        let mut nodes = NumberedNodes::default();
+        let mut values = Vec::new();
+        for line in text.lines() {
+            let f: Vec<f64> = line.split(' ').map(|v| v.parse().unwrap()).collect();
+            nodes.inline.push(f[0] as i64);
+            nodes.crossline.push(f[1] as i64);
+            nodes.x.push(f[2]);
+            nodes.y.push(f[3]);
+            values.push(f[4]);
+        }
+        let placed = place_numbered(nodes.clone(), 0.05, POINT_LIST).unwrap();
+        assert_eq!((placed.cols, placed.rows), (grid.cols, grid.rows));
+        assert_eq!(placed.geo_transform, grid.geo_transform);
+        assert_eq!(placed.lattice.numbering, grid.lattice.numbering);
+        for (&(c, r), v) in placed.index.iter().zip(&values) {
+            assert_eq!(grid.bands[0][[r, c]], *v);
+        }
+        assert_eq!(placed.lattice.empty_nodes, 0);
+        // A node given twice is refused (no values to tell the two apart).
+        nodes.inline.push(nodes.inline[3]);
+        nodes.crossline.push(nodes.crossline[3]);
+        nodes.x.push(nodes.x[3]);
+        nodes.y.push(nodes.y[3]);
+        let err = place_numbered(nodes, 0.05, POINT_LIST).unwrap_err();
+        assert!(err.contains("lines 4 and 64 both give node"), "{err}");
     }
 
     #[test]

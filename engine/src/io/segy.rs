@@ -48,15 +48,17 @@
 //! 24-bit fraction, value `(-1)^s x 0.f x 16^(e - 64)`. See [`ibm_to_f32`] and [`f32_to_ibm`].
 //!
 //! Why not a SEG-Y crate: `giga-segy-in` 0.5.0 (MIT/Apache-2.0, builds here with rustc 1.95)
-//! was tried on files written by segyio 1.9.14. It memory-maps the file and keeps a parsed
-//! 296-byte header per trace plus a hash map (not the 32 bytes a trace kept here); it reads a
-//! whole trace or a single sample, not a window; a 600-trace file cut 600 bytes short opened as
-//! 599 traces without an error, and the same file with 1000 zero bytes appended opened as 604
-//! traces; with trace headers that leave the sample count at 0 it listed 454 of 600 traces
-//! without an error; its byte-order test takes the bytes 01 02 03 04 at 3297-3300 for
-//! little-endian, and it reads the extended textual header count from bytes 3507-3510 where
-//! segyio reads it from 3505-3506. The refusals this module owes its users (truncation at a
-//! byte, sample counts that disagree) are not available through it.
+//! was tried on files written by segyio 1.9.14 and by this module (measured). It memory-maps
+//! the file and keeps a parsed 296-byte header per trace plus a hash map (32 bytes a trace
+//! here); it reads a whole trace or a single sample, not a window. A 600-trace file cut 600
+//! bytes short opened as 599 traces without an error, and with 1000 zero bytes appended as
+//! 604 traces; with trace headers that leave the sample count at 0 it listed 454 of 600
+//! traces without an error. It takes the byte-order constant written big-endian (bytes 01 02
+//! 03 04 at 3297-3300) for little-endian, so a big-endian rev 2 file failed with "Could not
+//! parse source (1280) to SampleFormatCode"; and it reads the extended textual header count
+//! from bytes 3507-3510 instead of 3505-3506, so `int16_custom_bytes.sgy` (one extended
+//! header, 20 traces) opened as 31 traces with wrong samples. The refusals this module owes
+//! its users (truncation at a byte, sample counts that disagree) are not available through it.
 
 use super::points::{place_numbered, Naming, NodePlacement, NumberedNodes};
 use super::StagedFile;
@@ -145,9 +147,8 @@ impl SegyHeaderBytes {
         let overlap = |a: (usize, usize), b: (usize, usize)| a.0 < b.0 + b.1 && b.0 < a.0 + a.1;
         for (i, &(at, len, name)) in fields.iter().enumerate() {
             let others = fields[i + 1..].iter().chain(FIXED_FIELDS.iter());
-            if let Some(&(o_at, o_len, other)) = others
-                .into_iter()
-                .find(|o| overlap((at, len), (o.0, o.1)))
+            if let Some(&(o_at, o_len, other)) =
+                others.into_iter().find(|o| overlap((at, len), (o.0, o.1)))
             {
                 return Err(FlexureError::Parameter(format!(
                     "the {name} field (trace header bytes {at}-{}) overlaps the {other} field (bytes {o_at}-{}): give separate byte positions",
@@ -389,22 +390,23 @@ impl ByteOrder {
     }
 }
 
-/// The factor a SEG-Y coordinate scalar stands for: positive multiplies, negative divides by
-/// its absolute value, 0 is 1 (SEG-Y rev 1, trace header bytes 71-72).
-fn scale_factor(scalar: i16) -> f64 {
-    match scalar {
-        0 => 1.0,
-        s if s > 0 => s as f64,
-        s => 1.0 / -(s as f64),
-    }
-}
-
-/// Applies a coordinate scalar to a stored coordinate (dividing, not multiplying by a
-/// reciprocal, for negative scalars, so -100 gives the nearest double to `v / 100`).
+/// A stored coordinate with a SEG-Y coordinate scalar applied (SEG-Y rev 1, trace header
+/// bytes 71-72): positive multiplies, negative divides by its absolute value (dividing, so
+/// -100 gives the nearest double to `v / 100`), 0 leaves it.
 fn scaled(v: i32, scalar: i16) -> f64 {
     match scalar {
         s if s < 0 => v as f64 / -(s as f64),
-        s => v as f64 * scale_factor(s),
+        s if s > 0 => v as f64 * s as f64,
+        _ => v as f64,
+    }
+}
+
+/// The inverse of [`scaled`] before rounding to the stored integer.
+fn unscaled(v: f64, scalar: i16) -> f64 {
+    match scalar {
+        s if s < 0 => v * -(s as f64),
+        s if s > 0 => v / s as f64,
+        _ => v,
     }
 }
 
@@ -479,9 +481,7 @@ impl SegyVolume {
             .filter(|&n| n < u32::MAX as usize)
             .ok_or_else(|| fail(format!("holds {whole} traces, more than flexure reads")))?;
         info.traces = traces;
-        let nodes = scan
-            .traces(&mut info, header_bytes)
-            .map_err(&fail)?;
+        let nodes = scan.traces(&mut info, header_bytes).map_err(&fail)?;
         if rest > 0 {
             return Err(fail(scan.rest(&info, len, rest)));
         }
@@ -540,7 +540,12 @@ impl SegyVolume {
     /// order) into `out`, converted from the file's format to `f32`, with one seek and one
     /// read. Errors: no such trace, a window reaching beyond the trace (naming both in samples
     /// and milliseconds), a read failure (the file changed since it was opened).
-    pub fn read_samples(&mut self, trace: usize, first_sample: usize, out: &mut [f32]) -> Result<()> {
+    pub fn read_samples(
+        &mut self,
+        trace: usize,
+        first_sample: usize,
+        out: &mut [f32],
+    ) -> Result<()> {
         let info = &self.info;
         let fail = |reason: String| FlexureError::input(&self.path, reason);
         if trace >= info.traces {
@@ -649,13 +654,7 @@ impl SegyVolume {
     /// samples, time of the first sample), naming both files: sector volumes must share one
     /// time axis.
     pub fn check_same_sampling(&self, other: &SegyVolume) -> Result<()> {
-        let axis = |v: &SegyVolume| {
-            (
-                v.info.sample_interval_us,
-                v.info.samples,
-                v.info.delay_ms,
-            )
-        };
+        let axis = |v: &SegyVolume| (v.info.sample_interval_us, v.info.samples, v.info.delay_ms);
         if axis(self) == axis(other) {
             return Ok(());
         }
@@ -863,7 +862,8 @@ impl Scan {
         for k in 0..n {
             let at = info.data_start + k as u64 * info.trace_bytes();
             let h = self.header_at(at)?;
-            let field = |offset: usize| format!("trace {} (file byte {})", k + 1, at + offset as u64 + 1);
+            let field =
+                |offset: usize| format!("trace {} (file byte {})", k + 1, at + offset as u64 + 1);
             let samples = order.u16(&h, trace::SAMPLES) as usize;
             if samples != 0 && samples != info.samples {
                 return Err(format!(
@@ -907,10 +907,18 @@ impl Scan {
             }
             let at_byte = |position: usize| position - 1;
             let scalar = order.i16(&h, at_byte(bytes.scalar));
-            nodes.inline.push(order.i32(&h, at_byte(bytes.inline)) as i64);
-            nodes.crossline.push(order.i32(&h, at_byte(bytes.crossline)) as i64);
-            nodes.x.push(scaled(order.i32(&h, at_byte(bytes.x)), scalar));
-            nodes.y.push(scaled(order.i32(&h, at_byte(bytes.y)), scalar));
+            nodes
+                .inline
+                .push(order.i32(&h, at_byte(bytes.inline)) as i64);
+            nodes
+                .crossline
+                .push(order.i32(&h, at_byte(bytes.crossline)) as i64);
+            nodes
+                .x
+                .push(scaled(order.i32(&h, at_byte(bytes.x)), scalar));
+            nodes
+                .y
+                .push(scaled(order.i32(&h, at_byte(bytes.y)), scalar));
         }
         Ok(nodes)
     }
@@ -1048,7 +1056,10 @@ fn decode_text(bytes: &[u8]) -> (TextEncoding, String) {
     let (encoding, latin1): (TextEncoding, Vec<u8>) = match ebcdic > ascii {
         true => (
             TextEncoding::Ebcdic,
-            bytes.iter().map(|&b| EBCDIC_TO_LATIN1[b as usize]).collect(),
+            bytes
+                .iter()
+                .map(|&b| EBCDIC_TO_LATIN1[b as usize])
+                .collect(),
         ),
         false => (TextEncoding::Ascii, bytes.to_vec()),
     };
@@ -1093,7 +1104,8 @@ pub struct SegyTrace<'a> {
     pub inline: i32,
     /// Crossline number.
     pub crossline: i32,
-    /// Map x, CRS units (stored as `round(x / factor)` for the scalar's factor).
+    /// Map x, CRS units (stored as the integer nearest to x with the scalar undone: x times
+    /// 100 for a scalar of -100).
     pub x: f64,
     /// Map y, CRS units.
     pub y: f64,
@@ -1133,12 +1145,18 @@ pub fn stage_segy<'a>(
     let file = File::create(staged.temp()).map_err(|e| fail(e.to_string()))?;
     let mut out = BufWriter::new(file);
     out.write_all(&head).map_err(|e| fail(e.to_string()))?;
-    let factor = scale_factor(spec.coordinate_scalar);
     let size = spec.format.bytes();
     let mut block = vec![0u8; TRACE_HEADER_BYTES + spec.samples * size];
     let mut count = 0usize;
     for (k, t) in traces.into_iter().enumerate() {
-        let what = || format!("trace {} (inline {}, crossline {})", k + 1, t.inline, t.crossline);
+        let what = || {
+            format!(
+                "trace {} (inline {}, crossline {})",
+                k + 1,
+                t.inline,
+                t.crossline
+            )
+        };
         if t.samples.len() != spec.samples {
             return Err(fail(format!(
                 "{} has {} samples, the file {}",
@@ -1148,7 +1166,7 @@ pub fn stage_segy<'a>(
             )));
         }
         block.fill(0);
-        trace_header(spec, k, &t, factor, &mut block[..TRACE_HEADER_BYTES])
+        trace_header(spec, k, &t, &mut block[..TRACE_HEADER_BYTES])
             .map_err(|why| fail(format!("{}: {why}", what())))?;
         encode(spec, t.samples, &mut block[TRACE_HEADER_BYTES..])
             .map_err(|why| fail(format!("{}: {why}", what())))?;
@@ -1178,7 +1196,10 @@ pub fn stage_segy<'a>(
 /// The 3600-byte textual and binary header of `spec`.
 fn file_header(spec: &SegyWriteSpec) -> std::result::Result<Vec<u8>, String> {
     if !matches!(spec.revision, 1 | 2) {
-        return Err(format!("SEG-Y revision {} is not written: give 1 or 2", spec.revision));
+        return Err(format!(
+            "SEG-Y revision {} is not written: give 1 or 2",
+            spec.revision
+        ));
     }
     let samples = u16::try_from(spec.samples)
         .ok()
@@ -1188,7 +1209,10 @@ fn file_header(spec: &SegyWriteSpec) -> std::result::Result<Vec<u8>, String> {
         return Err("a sample interval of 0 µs: give 1 to 65535".into());
     }
     if spec.text.len() > 40 {
-        return Err(format!("{} textual header lines: give at most 40", spec.text.len()));
+        return Err(format!(
+            "{} textual header lines: give at most 40",
+            spec.text.len()
+        ));
     }
     let mut head = vec![b' '; FILE_HEADER_BYTES];
     for (i, line) in spec.text.iter().enumerate() {
@@ -1227,7 +1251,6 @@ fn trace_header(
     spec: &SegyWriteSpec,
     k: usize,
     t: &SegyTrace,
-    factor: f64,
     h: &mut [u8],
 ) -> std::result::Result<(), String> {
     let order = spec.byte_order;
@@ -1239,7 +1262,7 @@ fn trace_header(
     order.put_u16(h, trace::SAMPLES, spec.samples as u16);
     order.put_u16(h, trace::INTERVAL, spec.sample_interval_us);
     let stored = |v: f64, name: &str| {
-        let s = (v / factor).round();
+        let s = unscaled(v, spec.coordinate_scalar).round();
         match s.is_finite() && s >= i32::MIN as f64 && s <= i32::MAX as f64 {
             true => Ok(s as i32),
             false => Err(format!(
@@ -1258,9 +1281,17 @@ fn trace_header(
 }
 
 /// Encodes `samples` in the spec's format and byte order into `out`.
-fn encode(spec: &SegyWriteSpec, samples: &[f32], out: &mut [u8]) -> std::result::Result<(), String> {
+fn encode(
+    spec: &SegyWriteSpec,
+    samples: &[f32],
+    out: &mut [u8],
+) -> std::result::Result<(), String> {
     let (format, order) = (spec.format, spec.byte_order);
-    for (i, (&v, b)) in samples.iter().zip(out.chunks_exact_mut(format.bytes())).enumerate() {
+    for (i, (&v, b)) in samples
+        .iter()
+        .zip(out.chunks_exact_mut(format.bytes()))
+        .enumerate()
+    {
         if let Some((lo, hi)) = format.integer_range() {
             if !(v.fract() == 0.0 && v >= lo && v < hi) {
                 return Err(format!(
@@ -1272,8 +1303,9 @@ fn encode(spec: &SegyWriteSpec, samples: &[f32], out: &mut [u8]) -> std::result:
         }
         match format {
             SampleFormat::Ibm => {
-                let bits = f32_to_ibm(v)
-                    .ok_or_else(|| format!("sample {} is {v}, which IBM floats cannot hold", i + 1))?;
+                let bits = f32_to_ibm(v).ok_or_else(|| {
+                    format!("sample {} is {v}, which IBM floats cannot hold", i + 1)
+                })?;
                 order.put_u32(b, 0, bits);
             }
             SampleFormat::Ieee => order.put_u32(b, 0, v.to_bits()),
@@ -1283,4 +1315,630 @@ fn encode(spec: &SegyWriteSpec, samples: &[f32], out: &mut [u8]) -> std::result:
         }
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// An IBM word's value in f64, exactly (the definition, `../shared/REFERENCES.md`
+    /// "SEG-Y"): `(-1)^s x fraction x 16^(e - 64) / 2^24`.
+    fn ibm_value(bits: u32) -> f64 {
+        let sign = if bits >> 31 == 1 { -1.0 } else { 1.0 };
+        let e = ((bits >> 24) & 0x7f) as i32 - 64;
+        sign * (bits & 0xff_ffff) as f64 / 16_777_216.0 * 16f64.powi(e)
+    }
+
+    /// Deterministic pseudo-random words (SplitMix64, common practice).
+    fn words(n: usize, seed: u64) -> impl Iterator<Item = u64> {
+        (0..n as u64).map(move |k| {
+            let mut z = (seed + k).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+            z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+            z ^ (z >> 31)
+        })
+    }
+
+    #[test]
+    fn ibm_floats_match_the_published_examples() {
+        // ../shared/REFERENCES.md "SEG-Y" [D]: the IBM System/360 examples.
+        for (bits, value) in [
+            (0x4110_0000u32, 1.0f32),
+            (0x4264_0000, 100.0),
+            (0xC276_A000, -118.625),
+            (0x0000_0000, 0.0),
+        ] {
+            assert_eq!(ibm_to_f32(bits), value, "{bits:08x}");
+            assert_eq!(f32_to_ibm(value), Some(bits), "{value}");
+        }
+        // -0.0, and 1.0 unnormalised (fraction 0.001 hex x 16^3), read as their values.
+        assert_eq!(ibm_to_f32(0x8000_0000).to_bits(), (-0.0f32).to_bits());
+        assert_eq!(ibm_to_f32(0x4300_1000), 1.0);
+    }
+
+    #[test]
+    fn ibm_range_limits_overflow_and_underflow_as_documented() {
+        // Largest IBM value 16^63 (1 - 2^-24), about 7.2e75: beyond f32, so infinite.
+        assert_eq!(ibm_to_f32(0x7fff_ffff), f32::INFINITY);
+        assert_eq!(ibm_to_f32(0xffff_ffff), f32::NEG_INFINITY);
+        // Smallest normalised IBM value 16^-65, about 5.4e-79: below f32, so 0.
+        assert_eq!(ibm_to_f32(0x0010_0000), 0.0);
+        // f32::MAX = 16^32 (1 - 2^-24) and the smallest subnormal 2^-149 are exact in IBM.
+        for v in [f32::MAX, f32::from_bits(1), -f32::from_bits(1)] {
+            let bits = f32_to_ibm(v).unwrap();
+            assert_eq!(ibm_value(bits), v as f64);
+            assert_eq!(ibm_to_f32(bits), v);
+        }
+        assert_eq!(f32_to_ibm(f32::NAN), None);
+        assert_eq!(f32_to_ibm(f32::INFINITY), None);
+        assert_eq!(f32_to_ibm(-0.0), Some(0));
+    }
+
+    #[test]
+    fn normalised_ibm_words_in_f32_range_round_trip_bit_for_bit() {
+        // Exponents 44..=96 are 16^-21 ..16^32: f32 normal range; fractions normalised.
+        for w in words(300_000, 7) {
+            let e = 44 + (w >> 40) as u32 % 53;
+            let fraction = 0x10_0000 + (w as u32 % 0xf0_0000);
+            let bits = ((w >> 63) as u32) << 31 | e << 24 | fraction;
+            let v = ibm_to_f32(bits);
+            assert_eq!(v as f64, ibm_value(bits), "{bits:08x}");
+            assert_eq!(f32_to_ibm(v), Some(bits), "{bits:08x}");
+        }
+    }
+
+    #[test]
+    fn f32_to_ibm_gives_the_nearest_ibm_value() {
+        // Nearest: neither neighbouring fraction is closer; ties go to the even fraction.
+        for w in words(300_000, 11) {
+            let x = f32::from_bits(w as u32);
+            if !x.is_finite() || x == 0.0 {
+                continue;
+            }
+            let bits = f32_to_ibm(x).unwrap();
+            let fraction = bits & 0xff_ffff;
+            assert!(fraction >= 0x10_0000, "{x}: not normalised {bits:08x}");
+            let miss = (ibm_value(bits) - x as f64).abs();
+            // The normalised IBM values just below and above (fractions wrap to the next
+            // exponent).
+            let (sign_exp, e) = (bits & 0xff00_0000, 1 << 24);
+            let below = match fraction {
+                0x10_0000 => (sign_exp - e) | 0xff_ffff,
+                f => sign_exp | (f - 1),
+            };
+            let above = match fraction {
+                0xff_ffff => (sign_exp + e) | 0x10_0000,
+                f => sign_exp | (f + 1),
+            };
+            for neighbour in [below, above] {
+                let other = (ibm_value(neighbour) - x as f64).abs();
+                assert!(
+                    miss < other || (miss == other && fraction.is_multiple_of(2)),
+                    "{x}: {bits:08x} vs {neighbour:08x}"
+                );
+            }
+            assert!(miss <= x.abs() as f64 * 2f64.powi(-21), "{x}");
+        }
+    }
+
+    #[test]
+    fn ebcdic_table_is_code_page_037() {
+        // From memory of code page 037, as Python's cp037 codec has it: 'C' is 0xC3, space
+        // 0x40, '1' 0xF1, 'a' 0x81, '.' 0x4B.
+        for (ebcdic, latin1) in [
+            (0xc3, b'C'),
+            (0x40, b' '),
+            (0xf1, b'1'),
+            (0x81, b'a'),
+            (0x4b, b'.'),
+        ] {
+            assert_eq!(EBCDIC_TO_LATIN1[ebcdic], latin1);
+            assert_eq!(LATIN1_TO_EBCDIC[latin1 as usize] as usize, ebcdic);
+        }
+        for b in 0..=255u8 {
+            assert_eq!(EBCDIC_TO_LATIN1[LATIN1_TO_EBCDIC[b as usize] as usize], b);
+        }
+        let card = b"C 1 CLIENT".map(|c| LATIN1_TO_EBCDIC[c as usize]);
+        let mut text = vec![0x40u8; TEXT_HEADER_BYTES];
+        text[..card.len()].copy_from_slice(&card);
+        let (encoding, decoded) = decode_text(&text);
+        assert_eq!(encoding, TextEncoding::Ebcdic);
+        assert!(decoded.starts_with("C 1 CLIENT  "));
+        let (encoding, _) = decode_text(&[b' '; TEXT_HEADER_BYTES]);
+        assert_eq!(encoding, TextEncoding::Ascii);
+    }
+
+    /// A small valid volume: 5 crosslines (10..=14) x 4 inlines (1..=4) on a north-up 25 m
+    /// lattice, 20 samples of 4 ms, trace k sample i = 100 k + i.
+    fn spec() -> SegyWriteSpec {
+        SegyWriteSpec {
+            revision: 1,
+            byte_order: ByteOrder::Big,
+            format: SampleFormat::Ieee,
+            text_encoding: TextEncoding::Ebcdic,
+            text: vec!["C 1 A TEST VOLUME".into()],
+            sample_interval_us: 4000,
+            samples: 20,
+            delay_ms: 0,
+            header_bytes: SegyHeaderBytes::default(),
+            coordinate_scalar: -100,
+        }
+    }
+
+    fn write(path: &Path, spec: &SegyWriteSpec) {
+        let samples: Vec<Vec<f32>> = (0..20)
+            .map(|k| (0..spec.samples).map(|i| (100 * k + i) as f32).collect())
+            .collect();
+        let traces = (0..20).map(|k| SegyTrace {
+            inline: 1 + k as i32 / 5,
+            crossline: 10 + k as i32 % 5,
+            x: 500_000.0 + 25.0 * (k % 5) as f64,
+            y: 4_000_000.0 + 25.0 * (k / 5) as f64,
+            samples: &samples[k],
+        });
+        write_segy(path, spec, traces).unwrap();
+    }
+
+    fn small(dir: &Path) -> PathBuf {
+        let path = dir.join("v.sgy");
+        write(&path, &spec());
+        path
+    }
+
+    /// The error of opening `path`, checked to be one line naming the file.
+    fn refused(path: &Path, bytes: &SegyHeaderBytes) -> String {
+        let err = SegyVolume::open(path, bytes).unwrap_err().to_string();
+        assert!(
+            !err.contains('\n') && err.contains(&path.display().to_string()),
+            "{err}"
+        );
+        err
+    }
+
+    fn patch(path: &Path, at: usize, bytes: &[u8]) {
+        let mut data = std::fs::read(path).unwrap();
+        data[at..at + bytes.len()].copy_from_slice(bytes);
+        std::fs::write(path, data).unwrap();
+    }
+
+    #[test]
+    fn a_written_volume_reads_back_with_its_windows() {
+        // Round trip through our writer for every format and byte order (the external check
+        // of both is tests/segy_reference.rs against segyio).
+        let dir = tempfile::tempdir().unwrap();
+        for format in [
+            SampleFormat::Ibm,
+            SampleFormat::Int32,
+            SampleFormat::Int16,
+            SampleFormat::Ieee,
+        ] {
+            for byte_order in [ByteOrder::Big, ByteOrder::Little] {
+                let path = dir.path().join("rt.sgy");
+                let s = SegyWriteSpec {
+                    format,
+                    byte_order,
+                    revision: 2,
+                    delay_ms: 40,
+                    ..spec()
+                };
+                write(&path, &s);
+                let mut v = SegyVolume::open(&path, &s.header_bytes).unwrap();
+                assert_eq!(v.info().byte_order, byte_order);
+                assert_eq!(v.info().format, format);
+                assert_eq!(v.info().revision, (2, 0));
+                assert_eq!((v.traces(), v.samples()), (20, 20));
+                assert_eq!((v.sample_interval_ms(), v.first_time_ms()), (4.0, 40.0));
+                let mut out = [0f32; 5];
+                v.read_samples(13, 7, &mut out).unwrap();
+                assert_eq!(out, [1307.0, 1308.0, 1309.0, 1310.0, 1311.0]);
+                let t = v.trace(13);
+                assert_eq!(
+                    (t.inline, t.crossline, t.x, t.y),
+                    (3, 13, 500_075.0, 4_000_050.0)
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn files_that_are_not_segy_are_refused_naming_the_byte() {
+        let dir = tempfile::tempdir().unwrap();
+        let text = dir.path().join("points.txt");
+        std::fs::write(&text, "x y z\n".repeat(1000)).unwrap();
+        let err = refused(&text, &SegyHeaderBytes::default());
+        assert!(
+            err.contains("is not SEG-Y: the sample format code"),
+            "{err}"
+        );
+        let short = dir.path().join("short.txt");
+        std::fs::write(&short, "x y z\n1 2 3\n").unwrap();
+        let err = refused(&short, &SegyHeaderBytes::default());
+        assert!(
+            err.contains("is not SEG-Y or is truncated: it ends at byte 12"),
+            "{err}"
+        );
+        // A GeoTIFF (written through GDAL): not SEG-Y either way.
+        let tif = dir.path().join("grid.tif");
+        let geometry = GridGeometry {
+            cols: 60,
+            rows: 50,
+            geo_transform: [500_000.0, 25.0, 0.0, 4_000_000.0, 0.0, -25.0],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        let values = Array2::from_shape_fn((50, 60), |(r, c)| (r * 60 + c) as f32);
+        crate::io::write_float_geotiff(
+            &tif,
+            &geometry,
+            &[crate::io::BandOut {
+                description: "twt",
+                unit: "ms",
+                values,
+            }],
+            &[],
+        )
+        .unwrap();
+        let err = refused(&tif, &SegyHeaderBytes::default());
+        assert!(err.contains("not SEG-Y"), "{err}");
+    }
+
+    #[test]
+    fn truncated_files_and_trailing_bytes_are_refused_naming_the_byte() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = small(dir.path());
+        let data = std::fs::read(&path).unwrap();
+        // Hand-checkable: 3600 header bytes, traces of 240 + 20 x 4 = 320 bytes.
+        assert_eq!(data.len(), 3600 + 20 * 320);
+        std::fs::write(&path, &data[..data.len() - 50]).unwrap();
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(
+            err.contains("is truncated at byte 9950: trace 20 starts at byte 9681 and needs 320 bytes, 270 remain"),
+            "{err}"
+        );
+        // Cut inside the last trace header: not told apart from trailing bytes.
+        std::fs::write(&path, &data[..data.len() - 100]).unwrap();
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(
+            err.contains("has 220 trailing bytes after its last whole trace (trace 19, ending at byte 9680), less than a trace of 320 bytes: the file is truncated at byte 9900"),
+            "{err}"
+        );
+        std::fs::write(&path, &data[..3000]).unwrap();
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(err.contains("ends at byte 3000"), "{err}");
+        let mut longer = data.clone();
+        longer.extend_from_slice(&[0u8; 100]);
+        std::fs::write(&path, &longer).unwrap();
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(err.contains("has 100 trailing bytes after its last whole trace (trace 20, ending at byte 10000)"), "{err}");
+        std::fs::write(&path, &data[..3600]).unwrap();
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(err.contains("holds no traces"), "{err}");
+    }
+
+    #[test]
+    fn unknown_formats_revisions_and_byte_orders_are_refused() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = small(dir.path());
+        let bytes = SegyHeaderBytes::default();
+        patch(&path, bin::FORMAT, &[0, 6]);
+        let err = refused(&path, &bytes);
+        assert!(
+            err.contains(
+                "sample format code (binary header bytes 3225-3226) is 6 (8-byte IEEE float)"
+            ),
+            "{err}"
+        );
+        patch(&path, bin::FORMAT, &[0, 5]);
+        patch(&path, bin::REVISION, &[3, 0]);
+        assert!(refused(&path, &bytes).contains("revision 3.0"));
+        patch(&path, bin::REVISION, &[1, 0]);
+        patch(&path, bin::BYTE_ORDER, &[2, 1, 4, 3]);
+        assert!(refused(&path, &bytes).contains("byte pairs swapped"));
+        patch(&path, bin::BYTE_ORDER, &[0, 0, 0, 0]);
+        patch(&path, bin::EXTENDED, &[0xff, 0xff]);
+        assert!(refused(&path, &bytes).contains("variable number of extended textual headers"));
+        patch(&path, bin::EXTENDED, &[0, 0]);
+        // Rev 1 written as the integer 1 (0x0001) reads as revision 1.0.
+        patch(&path, bin::REVISION, &[0, 1]);
+        assert_eq!(
+            SegyVolume::open(&path, &bytes).unwrap().info().revision,
+            (1, 0)
+        );
+    }
+
+    #[test]
+    fn rev2_extended_sample_count_overrides_the_two_byte_count() {
+        // SEG-Y rev 2 (from memory; segyio names bytes 3269-3272 ExtSamples): a non-zero
+        // 4-byte count at 3269-3272 overrides 3221-3222.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("ext.sgy");
+        write(
+            &path,
+            &SegyWriteSpec {
+                revision: 2,
+                ..spec()
+            },
+        );
+        patch(&path, bin::SAMPLES, &[0, 0]);
+        patch(&path, bin::EXT_SAMPLES, &[0, 0, 0, 20]);
+        let v = SegyVolume::open(&path, &SegyHeaderBytes::default()).unwrap();
+        assert_eq!(v.samples(), 20);
+        patch(&path, bin::EXT_SAMPLES, &[0, 0, 0, 21]);
+        let err = refused(&path, &SegyHeaderBytes::default());
+        assert!(
+            err.contains("trace 1 (file byte 3715) has 20 samples"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn trace_headers_that_disagree_with_the_file_are_named() {
+        let dir = tempfile::tempdir().unwrap();
+        let bytes = SegyHeaderBytes::default();
+        // Trace 3 starts at 3600 + 2 x 320 = 4240 (0-based); its bytes 115-116 at file byte
+        // 4240 + 115 = 4355 (1-based).
+        let trace3 = 3600 + 2 * 320;
+        for (offset, value, says) in [
+            (trace::SAMPLES, 19u16, "trace 3 (file byte 4355) has 19 samples (trace header bytes 115-116) but the file 20"),
+            (trace::INTERVAL, 2000, "trace 3 (file byte 4357) has a sample interval of 2000 µs"),
+            (trace::DELAY, 8, "trace 3 (file byte 4349) starts at 8 ms (delay recording time, trace header bytes 109-110) but trace 1 at 0 ms"),
+            (trace::COORDINATE_UNITS, 3, "coordinates in degrees"),
+        ] {
+            let path = small(dir.path());
+            patch(&path, trace3 + offset, &value.to_be_bytes());
+            let err = refused(&path, &bytes);
+            assert!(err.contains(says), "{err}");
+        }
+        // A delay with a time scalar the reader does not apply.
+        let path = dir.path().join("delay.sgy");
+        write(
+            &path,
+            &SegyWriteSpec {
+                delay_ms: 100,
+                ..spec()
+            },
+        );
+        patch(&path, 3600 + trace::TIME_SCALAR, &10u16.to_be_bytes());
+        assert!(refused(&path, &bytes).contains("time scalar of 10"));
+        // 0 in a trace header means "not recorded".
+        let path = small(dir.path());
+        patch(&path, trace3 + trace::SAMPLES, &[0, 0]);
+        assert!(SegyVolume::open(&path, &bytes).is_ok());
+    }
+
+    #[test]
+    fn header_byte_positions_are_checked() {
+        let bad = |b: SegyHeaderBytes| {
+            let dir = tempfile::tempdir().unwrap();
+            let err = SegyVolume::open(&small(dir.path()), &b)
+                .unwrap_err()
+                .to_string();
+            assert!(!err.contains('\n'), "{err}");
+            err
+        };
+        let d = SegyHeaderBytes::default();
+        assert!(bad(SegyHeaderBytes { inline: 238, ..d }).contains("outside the trace header"));
+        assert!(bad(SegyHeaderBytes { inline: 0, ..d }).contains("outside the trace header"));
+        assert!(bad(SegyHeaderBytes {
+            crossline: 191,
+            ..d
+        })
+        .contains("overlaps the crossline"));
+        assert!(bad(SegyHeaderBytes { x: 113, ..d }).contains("overlaps the samples field"));
+    }
+
+    #[test]
+    fn wrong_header_bytes_give_a_lattice_refusal_with_a_hint() {
+        // Bytes 9-12 (field record) are 0 on every trace our writer writes: every trace on
+        // one "inline".
+        let dir = tempfile::tempdir().unwrap();
+        let path = small(dir.path());
+        let bytes = SegyHeaderBytes {
+            inline: 9,
+            ..Default::default()
+        };
+        let v = SegyVolume::open(&path, &bytes).unwrap();
+        let err = v.lattice(0.05).unwrap_err().to_string();
+        assert!(!err.contains('\n'), "{err}");
+        for s in [
+            "the traces span 5 x 1 nodes",
+            "inline at trace header byte 9",
+            "give the byte positions",
+        ] {
+            assert!(err.contains(s), "'{s}' in {err}");
+        }
+        // Two traces at one node.
+        let path = dir.path().join("twice.sgy");
+        let samples = vec![0f32; 20];
+        let traces = (0..21).map(|k: usize| {
+            let k = k.min(19) - usize::from(k == 20) * 19;
+            SegyTrace {
+                inline: 1 + k as i32 / 5,
+                crossline: 10 + k as i32 % 5,
+                x: 500_000.0 + 25.0 * (k % 5) as f64,
+                y: 4_000_000.0 + 25.0 * (k / 5) as f64,
+                samples: &samples,
+            }
+        });
+        write_segy(&path, &spec(), traces).unwrap();
+        let v = SegyVolume::open(&path, &SegyHeaderBytes::default()).unwrap();
+        let err = v.lattice(0.05).unwrap_err().to_string();
+        assert!(
+            err.contains("traces 1 and 21 both give node (inline 1, crossline 10)"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn windows_beyond_the_trace_are_refused_in_samples_and_ms() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("d.sgy");
+        write(
+            &path,
+            &SegyWriteSpec {
+                delay_ms: 100,
+                ..spec()
+            },
+        );
+        let mut v = SegyVolume::open(&path, &SegyHeaderBytes::default()).unwrap();
+        let mut out = [0f32; 6];
+        let err = v.read_samples(0, 16, &mut out).unwrap_err().to_string();
+        assert!(
+            err.contains("a window of samples 16..22 (164 to 184 ms) reaches beyond the traces, which hold samples 0..20 (100 to 176 ms)"),
+            "{err}"
+        );
+        let err = v.read_samples(20, 0, &mut out).unwrap_err().to_string();
+        assert!(err.contains("has 20 traces, no trace 21"), "{err}");
+        assert!(v.read_samples(19, 14, &mut out).is_ok());
+    }
+
+    #[test]
+    fn sector_volumes_must_share_one_sampling() {
+        let dir = tempfile::tempdir().unwrap();
+        let (a, b) = (dir.path().join("a.sgy"), dir.path().join("b.sgy"));
+        write(&a, &spec());
+        write(
+            &b,
+            &SegyWriteSpec {
+                sample_interval_us: 2000,
+                ..spec()
+            },
+        );
+        let bytes = SegyHeaderBytes::default();
+        let (va, vb) = (
+            SegyVolume::open(&a, &bytes).unwrap(),
+            SegyVolume::open(&b, &bytes).unwrap(),
+        );
+        assert!(va.check_same_sampling(&va).is_ok());
+        let err = va.check_same_sampling(&vb).unwrap_err().to_string();
+        assert!(
+            err.contains("20 samples of 2 ms from 0 ms but")
+                && err.contains("a.sgy has 20 samples of 4 ms"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn traces_land_on_the_horizon_cells_at_their_coordinates() {
+        // Hand-checkable geometry: the volume's 5 x 4 nodes (500000 + 25 c, 4000000 + 25 r)
+        // on horizon grids of the same 25 m lattice covering more, with rows running south
+        // (north-up raster) or north; each trace must land on the horizon cell whose centre
+        // is its x, y.
+        let dir = tempfile::tempdir().unwrap();
+        let path = small(dir.path());
+        let v = SegyVolume::open(&path, &SegyHeaderBytes::default()).unwrap();
+        let placement = v.lattice(0.05).unwrap();
+        let horizons = [
+            [499_937.5, 25.0, 0.0, 4_000_137.5, 0.0, -25.0],
+            [499_912.5, 25.0, 0.0, 3_999_912.5, 0.0, 25.0],
+        ];
+        for gt in horizons {
+            let horizon = GridGeometry {
+                cols: 12,
+                rows: 9,
+                geo_transform: gt,
+                crs_wkt: String::new(),
+                metres_per_unit: 1.0,
+            };
+            let traces = v
+                .traces_on(&placement, Path::new("h.tif"), &horizon)
+                .unwrap();
+            let mut found = 0;
+            for ((r, c), &k) in traces.indexed_iter() {
+                if k == NO_TRACE {
+                    continue;
+                }
+                let t = v.trace(k as usize);
+                assert_eq!(horizon.cell_centre(c, r), (t.x, t.y));
+                found += 1;
+            }
+            // The first horizon holds every trace; the second starts 2 bins west and south,
+            // so all 20 too.
+            assert_eq!(found, 20);
+        }
+        // Half a bin off, or 20 m bins: refused naming both files.
+        let mut off = GridGeometry {
+            cols: 12,
+            rows: 9,
+            geo_transform: [499_950.0, 25.0, 0.0, 4_000_150.0, 0.0, -25.0],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        let err = v
+            .traces_on(&placement, Path::new("h.tif"), &off)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            err.contains("lies on another lattice than the horizon h.tif")
+                && err.contains("off the other grid's nodes"),
+            "{err}"
+        );
+        off.geo_transform = [499_937.5, 20.0, 0.0, 4_000_137.5, 0.0, -20.0];
+        let err = v
+            .traces_on(&placement, Path::new("h.tif"), &off)
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("other bins"), "{err}");
+        off.geo_transform = [599_987.5, 25.0, 0.0, 4_000_137.5, 0.0, -25.0];
+        let err = v
+            .traces_on(&placement, Path::new("h.tif"), &off)
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("none of its traces is inside it"), "{err}");
+    }
+
+    #[test]
+    fn the_writer_refuses_what_the_format_cannot_hold() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("w.sgy");
+        let write_one = |spec: &SegyWriteSpec, samples: &[f32]| {
+            let t = SegyTrace {
+                inline: 1,
+                crossline: 1,
+                x: 0.0,
+                y: 0.0,
+                samples,
+            };
+            write_segy(&path, spec, [t]).unwrap_err().to_string()
+        };
+        let int16 = SegyWriteSpec {
+            format: SampleFormat::Int16,
+            samples: 2,
+            ..spec()
+        };
+        assert!(write_one(&int16, &[1.0, 32768.0])
+            .contains("sample 2 is 32768, not a value of the 2-byte integer format"));
+        assert!(write_one(&int16, &[1.5, 0.0]).contains("sample 1 is 1.5"));
+        let ibm = SegyWriteSpec {
+            format: SampleFormat::Ibm,
+            samples: 2,
+            ..spec()
+        };
+        assert!(write_one(&ibm, &[f32::NAN, 0.0]).contains("IBM floats cannot hold"));
+        assert!(write_one(&ibm, &[0.0]).contains("has 1 samples, the file 2"));
+        let far = SegyWriteSpec {
+            samples: 1,
+            ..spec()
+        };
+        let t = SegyTrace {
+            inline: 1,
+            crossline: 1,
+            x: 3e7,
+            y: 0.0,
+            samples: &[0.0],
+        };
+        let err = write_segy(&path, &far, [t]).unwrap_err().to_string();
+        assert!(
+            err.contains(
+                "x 30000000 does not fit a 4-byte integer with the coordinate scalar -100"
+            ),
+            "{err}"
+        );
+        assert!(write_segy(&path, &far, [])
+            .unwrap_err()
+            .to_string()
+            .contains("no traces"));
+        // Nothing is left behind.
+        assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 0);
+    }
 }
