@@ -13,7 +13,9 @@ use flexure_engine::jobs::{
     GridJob, Named, PlanJob, Progress, RenderJob, Silent, StagesJob, VectorAxis, WeightSource,
     WellBindings, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
-use flexure_engine::jobs::{SectorTimesJob, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS};
+use flexure_engine::jobs::{
+    SectorTimesJob, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS, DEFAULT_TRACE_TOLERANCE,
+};
 use flexure_engine::surface::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::surface::horizon::{
     DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
@@ -842,6 +844,10 @@ struct SectorTimesArgs {
     /// Trace header byte of the 2-byte coordinate scalar.
     #[arg(long, default_value_t = 71)]
     scalar_byte: usize,
+    /// Largest distance of a trace from its bin lattice node, as a share of the smaller bin
+    /// (coordinates stored to the metre are up to 0.71 m off).
+    #[arg(long, default_value_t = DEFAULT_TRACE_TOLERANCE)]
+    trace_tolerance: f64,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
@@ -878,6 +884,7 @@ impl SectorTimesArgs {
             scalar: self.scalar_byte,
         };
         job.read = self.read.options();
+        job.trace_tolerance = self.trace_tolerance;
         job.memory = self.memory;
         job.tiff = self.tiff.options();
         job

@@ -212,11 +212,17 @@ impl GridGeometry {
     /// Where the cells of `self` lie on `other` when both are one lattice: same CRS, the
     /// same bins up to the order and direction of the axes (so a grid whose rows run south
     /// matches one whose rows run north), and every cell centre of `self` within
-    /// [`SAME_NODE_SHARE`] of a bin of a cell centre of `other`'s lattice (checked at the four
+    /// `tolerance` (a share of the smaller bin of `other`; [`SAME_NODE_SHARE`] for grids from
+    /// files, the lattice tolerance for a lattice fitted to rounded coordinates) of a bin of a
+    /// cell centre of `other`'s lattice (checked at the four
     /// corner cells: the mapping is affine). The grids may cover different areas, overlapping
     /// or not. Otherwise why not, in words (another CRS, other bins, or nodes off the lattice
     /// by how much).
-    pub fn cell_map(&self, other: &GridGeometry) -> std::result::Result<CellMap, String> {
+    pub fn cell_map(
+        &self,
+        other: &GridGeometry,
+        tolerance: f64,
+    ) -> std::result::Result<CellMap, String> {
         if self.crs_wkt != other.crs_wkt {
             return Err("another CRS".into());
         }
@@ -230,7 +236,7 @@ impl GridGeometry {
         ];
         let m = j.map(|row| row.map(|v| v.round()));
         let unit = |v: f64| v == 0.0 || v.abs() == 1.0;
-        let close = (0..4).all(|k| (j[k / 2][k % 2] - m[k / 2][k % 2]).abs() <= SAME_NODE_SHARE);
+        let close = (0..4).all(|k| (j[k / 2][k % 2] - m[k / 2][k % 2]).abs() <= tolerance);
         let permutation = close
             && m.iter().flatten().all(|&v| unit(v))
             && (m[0][0] * m[1][1] - m[0][1] * m[1][0]).abs() == 1.0
@@ -272,9 +278,9 @@ impl GridGeometry {
             })
             .fold(0.0, f64::max);
         let bin = ox.min(oy);
-        if worst.is_nan() || worst > SAME_NODE_SHARE * bin {
+        if worst.is_nan() || worst > tolerance * bin {
             return Err(format!(
-                "cell centres up to {worst:.6} CRS units ({:.4} of a bin) off the other grid's nodes (more than {SAME_NODE_SHARE} of a bin)",
+                "cell centres up to {worst:.6} CRS units ({:.4} of a bin) off the other grid's nodes (more than {tolerance} of a bin)",
                 worst / bin
             ));
         }
@@ -522,7 +528,7 @@ mod tests {
             ..window.clone()
         };
         for small in [&window, &flipped, &swapped] {
-            let map = small.cell_map(&big).unwrap();
+            let map = small.cell_map(&big, SAME_NODE_SHARE).unwrap();
             for r in 0..small.rows {
                 for c in 0..small.cols {
                     let (i, j) = map.cell(c, r).unwrap();
@@ -531,11 +537,20 @@ mod tests {
                 }
             }
         }
-        assert_eq!(window.cell_map(&big).unwrap().offset, (5, 7));
-        assert_eq!(flipped.cell_map(&big).unwrap().axes, [[1, 0], [0, -1]]);
-        assert_eq!(swapped.cell_map(&big).unwrap().axes, [[0, 1], [1, 0]]);
+        assert_eq!(
+            window.cell_map(&big, SAME_NODE_SHARE).unwrap().offset,
+            (5, 7)
+        );
+        assert_eq!(
+            flipped.cell_map(&big, SAME_NODE_SHARE).unwrap().axes,
+            [[1, 0], [0, -1]]
+        );
+        assert_eq!(
+            swapped.cell_map(&big, SAME_NODE_SHARE).unwrap().axes,
+            [[0, 1], [1, 0]]
+        );
         // The window mapped from the big grid: most cells fall outside it.
-        let back = big.cell_map(&window).unwrap();
+        let back = big.cell_map(&window, SAME_NODE_SHARE).unwrap();
         assert_eq!(back.cell(5, 7), Some((0, 0)));
         assert_eq!(back.cell(4, 7), None);
         // Refused: a shift of 0.01 bin, bins twice as long, a turn of 0.1 deg, another CRS.
@@ -544,24 +559,30 @@ mod tests {
             ..window.clone()
         };
         assert!(shifted
-            .cell_map(&big)
+            .cell_map(&big, SAME_NODE_SHARE)
             .unwrap_err()
             .contains("off the other grid's nodes"));
         let coarse = GridGeometry {
             geo_transform: [x0, 2.0 * g[1], g[2], y0, 2.0 * g[4], g[5]],
             ..window.clone()
         };
-        assert!(coarse.cell_map(&big).unwrap_err().contains("other bins"));
+        assert!(coarse
+            .cell_map(&big, SAME_NODE_SHARE)
+            .unwrap_err()
+            .contains("other bins"));
         let t = rotated(30.1).geo_transform;
         let turned = GridGeometry {
             geo_transform: [x0, t[1], t[2], y0, t[4], t[5]],
             ..window.clone()
         };
-        assert!(turned.cell_map(&big).is_err());
+        assert!(turned.cell_map(&big, SAME_NODE_SHARE).is_err());
         let other_crs = GridGeometry {
             crs_wkt: "LOCAL_CS[\"x\"]".into(),
             ..window.clone()
         };
-        assert_eq!(other_crs.cell_map(&big).unwrap_err(), "another CRS");
+        assert_eq!(
+            other_crs.cell_map(&big, SAME_NODE_SHARE).unwrap_err(),
+            "another CRS"
+        );
     }
 }

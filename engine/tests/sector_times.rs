@@ -77,9 +77,9 @@ fn horizons(x: f64, y: f64) -> (f64, f64) {
 }
 
 /// Writes one volume per sector (IBM floats for even sectors, IEEE for odd ones) and the two
-/// horizon grids; events at the top (shifted by the overburden) and at the base (shifted by
+/// horizon grids, coordinates stored with the coordinate scalar `scalar`; events at the top (shifted by the overburden) and at the base (shifted by
 /// overburden and interval); returns (volumes, top, base).
-fn write_inputs(s: &Scenario, dir: &Path) -> (Vec<PathBuf>, PathBuf, PathBuf) {
+fn write_inputs(s: &Scenario, dir: &Path, scalar: i16) -> (Vec<PathBuf>, PathBuf, PathBuf) {
     let g = &s.grid;
     let mut noise = SeededNoise::new(7);
     let volumes = s
@@ -102,7 +102,7 @@ fn write_inputs(s: &Scenario, dir: &Path) -> (Vec<PathBuf>, PathBuf, PathBuf) {
                 samples: SAMPLES,
                 delay_ms: DELAY_MS,
                 header_bytes: SegyHeaderBytes::default(),
-                coordinate_scalar: -100,
+                coordinate_scalar: scalar,
             };
             let traces: Vec<(i32, i32, f64, f64, Vec<f32>)> = (0..g.rows)
                 .flat_map(|r| (0..g.cols).map(move |c| (r, c)))
@@ -186,7 +186,7 @@ fn median(mut v: Vec<f64>) -> f64 {
 fn sector_volumes_give_the_anisotropy_they_were_made_with() {
     let dir = tempfile::tempdir().unwrap();
     let s = scenario();
-    let (volumes, top, base) = write_inputs(&s, dir.path());
+    let (volumes, top, base) = write_inputs(&s, dir.path(), -100);
     let out = dir.path().join("shifts");
     let job = SectorTimesJob::new(volumes.clone(), s.azimuths.clone(), &top, &out);
     let report = job.run(&Silent).unwrap();
@@ -229,4 +229,17 @@ fn sector_volumes_give_the_anisotropy_they_were_made_with() {
     let (x, y) = s.grid.cell_centre(3, 4);
     let (t, b) = horizons(x, y);
     assert!((reference.bands[0][(4, 3)] - (b - t)).abs() < 1e-3);
+}
+
+#[test]
+fn coordinates_stored_to_the_metre_still_place_every_trace() {
+    // Coordinate scalar 1: x and y rounded to whole metres, up to 0.71 m (0.057 of the
+    // 12.5 m bin) off their nodes, as SEG-Y files often store them (common practice).
+    let dir = tempfile::tempdir().unwrap();
+    let s = scenario();
+    let (volumes, top, _) = write_inputs(&s, dir.path(), 1);
+    let job = SectorTimesJob::new(volumes, s.azimuths.clone(), &top, dir.path().join("out"));
+    let report = job.run(&Silent).unwrap();
+    let cells = s.grid.cols * s.grid.rows;
+    assert!(report.measured().iter().all(|&m| m == cells), "{report}");
 }

@@ -610,16 +610,19 @@ impl SegyVolume {
     /// where the volume has none: the volume's lattice (`placement`, from
     /// [`SegyVolume::lattice`]) must be the horizon's, up to the order and direction of the
     /// axes, over any part of it ([`GridGeometry::cell_map`]; the volume's coordinates are
-    /// taken in the horizon's CRS, SEG-Y declaring none reliably). Errors name both files and
-    /// the difference; a volume with no trace inside the horizon is refused.
+    /// taken in the horizon's CRS, SEG-Y declaring none reliably) to within `tolerance` of a
+    /// bin (the lattice tolerance: the volume's lattice is fitted to coordinates rounded as
+    /// the coordinate scalar allows). Errors name both files and the difference; a volume with
+    /// no trace inside the horizon is refused.
     pub fn traces_on(
         &self,
         placement: &NodePlacement,
         horizon_path: &Path,
         horizon: &GridGeometry,
+        tolerance: f64,
     ) -> Result<Array2<u32>> {
         let volume = placement.geometry(horizon.crs_wkt.clone(), horizon.metres_per_unit);
-        let map = volume.cell_map(horizon).map_err(|why| {
+        let map = volume.cell_map(horizon, tolerance).map_err(|why| {
             FlexureError::input(
                 &self.path,
                 format!(
@@ -1841,7 +1844,7 @@ mod tests {
                 metres_per_unit: 1.0,
             };
             let traces = v
-                .traces_on(&placement, Path::new("h.tif"), &horizon)
+                .traces_on(&placement, Path::new("h.tif"), &horizon, 0.05)
                 .unwrap();
             let mut found = 0;
             for ((r, c), &k) in traces.indexed_iter() {
@@ -1865,7 +1868,7 @@ mod tests {
             metres_per_unit: 1.0,
         };
         let err = v
-            .traces_on(&placement, Path::new("h.tif"), &off)
+            .traces_on(&placement, Path::new("h.tif"), &off, 0.05)
             .unwrap_err()
             .to_string();
         assert!(
@@ -1875,13 +1878,13 @@ mod tests {
         );
         off.geo_transform = [499_937.5, 20.0, 0.0, 4_000_137.5, 0.0, -20.0];
         let err = v
-            .traces_on(&placement, Path::new("h.tif"), &off)
+            .traces_on(&placement, Path::new("h.tif"), &off, 0.05)
             .unwrap_err()
             .to_string();
         assert!(err.contains("other bins"), "{err}");
         off.geo_transform = [599_987.5, 25.0, 0.0, 4_000_137.5, 0.0, -25.0];
         let err = v
-            .traces_on(&placement, Path::new("h.tif"), &off)
+            .traces_on(&placement, Path::new("h.tif"), &off, 0.05)
             .unwrap_err()
             .to_string();
         assert!(err.contains("none of its traces is inside it"), "{err}");

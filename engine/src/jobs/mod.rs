@@ -22,7 +22,7 @@ pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use sector_times::{
     SectorTimesJob, SectorTimesReport, AZIMUTH_ITEM, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
-    REFERENCE_KIND_ITEM, REFERENCE_TIME_ITEM, SHIFTS_ITEM,
+    DEFAULT_TRACE_TOLERANCE, REFERENCE_KIND_ITEM, REFERENCE_TIME_ITEM, SHIFTS_ITEM,
 };
 pub use stages::{
     StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS, MIN_FITTED_SHARE,

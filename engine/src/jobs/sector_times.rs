@@ -35,6 +35,12 @@ pub const DEFAULT_HALF_WINDOW_MS: f64 = 40.0;
 /// peak to peak (common practice).
 pub const DEFAULT_MAX_SHIFT_MS: f64 = 12.0;
 
+/// Default largest distance of a trace from its lattice node, as a share of the smaller bin:
+/// SEG-Y coordinates are often stored to the metre, up to 0.71 m off the node, 0.057 of a
+/// 12.5 m bin (common practice), so the point lists' 0.05 is too tight; half-bin errors
+/// (0.5) are still refused.
+pub const DEFAULT_TRACE_TOLERANCE: f64 = 0.1;
+
 /// Band metadata item holding a sector band's azimuth (degrees, as given).
 pub const AZIMUTH_ITEM: &str = "AZIMUTH_DEG";
 
@@ -73,8 +79,11 @@ pub struct SectorTimesJob {
     /// Trace header byte positions of inline, crossline, x, y and the coordinate scalar.
     pub header_bytes: SegyHeaderBytes,
     /// How the horizons are read (CRS, nodata sentinels, point-list columns, lattice
-    /// tolerance; the tolerance also places the traces).
+    /// tolerance of point-list horizons).
     pub read: ReadOptions,
+    /// Largest distance of a trace from its lattice node, and of the volume's lattice from the
+    /// horizon's, as a share of the smaller bin.
+    pub trace_tolerance: f64,
     /// Output folder.
     pub out_dir: PathBuf,
     /// Working memory for the trace windows of a batch, bytes (default: the machine's).
@@ -127,6 +136,7 @@ impl SectorTimesJob {
             max_shift_ms: DEFAULT_MAX_SHIFT_MS,
             header_bytes: SegyHeaderBytes::default(),
             read: ReadOptions::default(),
+            trace_tolerance: DEFAULT_TRACE_TOLERANCE,
             out_dir: out_dir.into(),
             memory: None,
             tiff: TiffOptions::default(),
@@ -278,8 +288,8 @@ impl SectorTimesJob {
             .iter()
             .chain(reference.as_ref())
             .map(|v| {
-                let placement = v.lattice(self.read.lattice_tolerance)?;
-                v.traces_on(&placement, &top.path, &top.geometry)
+                let placement = v.lattice(self.trace_tolerance)?;
+                v.traces_on(&placement, &top.path, &top.geometry, self.trace_tolerance)
             })
             .collect::<Result<Vec<_>>>()?;
         Ok(Volumes {
