@@ -149,6 +149,10 @@ struct AnisotropyArgs {
     /// Vector length in metres per ms of magnitude (automatic when omitted).
     #[arg(long)]
     vector_scale: Option<f64>,
+    /// Working memory (row batches and GDAL's block cache), e.g. 512M or 2G; default a
+    /// quarter of the machine's memory, at most 1G.
+    #[arg(long, value_parser = parse_memory)]
+    memory: Option<u64>,
     #[command(flatten)]
     read: ReadArgs,
     #[command(flatten)]
@@ -233,6 +237,7 @@ impl AnisotropyArgs {
         job.min_snr = self.min_snr;
         job.axis = axis(self.vector);
         job.vector_scale = self.vector_scale;
+        job.memory = self.memory;
         job.read = self.read.options();
         job.tiff = self.tiff.options();
         Ok(job)

@@ -6,6 +6,7 @@ mod curvature;
 mod grid;
 mod plan;
 mod render;
+mod sector_inputs;
 mod stages;
 mod well_inputs;
 mod window_study;
