@@ -1,9 +1,11 @@
 //! The anisotropy job: read azimuth-sector time grids (one file per sector or one band per
-//! sector), convert the sector azimuths to grid north, fit the cos 2phi model in every bin and
-//! write `anisotropy.tif` and the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and
-//! committed together.
+//! sector, or the interval between two horizons' sector-time rasters), convert the sector
+//! azimuths to grid north, fit the cos 2phi model in every bin and write `anisotropy.tif` and
+//! the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and committed together. The
+//! inputs (azimuths declared by the bands, correlation-quality weights, reference times) are
+//! gathered by [`SectorInputs`].
 //!
-//! The grids stream through the fit in batches of whole rows ([`Stack`], read by runs of rows):
+//! The grids stream through the fit in batches of whole rows (read by runs of rows):
 //! each batch's sector times and weights are read, every bin fitted, and the batch's bands
 //! written to the GeoTIFF before the next batch is read. A bin's fit depends on that bin's
 //! values alone, so the results are the same bits whatever the batch size and thread count.
@@ -11,13 +13,13 @@
 //! vector, and three float32 values (4 bytes each) per fitted bin for the report's medians and
 //! 95th percentiles.
 
-use super::sector_inputs::{Stack, Units};
+use super::sector_inputs::SectorInputs;
 use super::{batch_rows, default_memory_budget};
 use crate::anisotropy::vectors::{
     default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
 };
 use crate::anisotropy::{
-    fit_sector_grids, SectorFit, SectorWeight, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
+    fit_sector_grids, SectorFit, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -71,14 +73,23 @@ pub enum WeightSource {
     PerSector(Vec<f64>),
     /// One weight grid per sector (files, or the bands of one file), on the sectors' grid.
     Grids(Vec<PathBuf>),
+    /// The correlation quality beside each sector-time raster
+    /// ([`crate::anisotropy::sector_rasters`]: `sector_quality.tif`, bands matched by
+    /// `AZIMUTH_DEG`), as the inverse-variance weight `c^2 / (1 - c^2)`, `c` capped at 0.99.
+    Quality,
 }
 
 /// Options of the anisotropy job.
 #[derive(Clone, Debug)]
 pub struct AnisotropyJob {
-    /// One single-band grid per sector, or one raster with a band per sector.
+    /// One single-band grid per sector, or one raster with a band per sector; with `top`, the
+    /// base horizon's sector-time raster alone.
     pub inputs: Vec<PathBuf>,
-    /// Sector-centre azimuths in degrees, one per sector, in input (band) order.
+    /// The top horizon's sector-time raster: the sectors fitted are then the interval times
+    /// base (`inputs`) minus top, matched by azimuth (layer stripping).
+    pub top: Option<PathBuf>,
+    /// Sector-centre azimuths in degrees, one per sector, in input (band) order; empty to use
+    /// the azimuths the bands declare (`AZIMUTH_DEG`, from grid north).
     pub azimuths: Vec<f64>,
     /// North of `azimuths`.
     pub reference: AzimuthReference,
@@ -96,6 +107,9 @@ pub struct AnisotropyJob {
     pub axis: VectorAxis,
     /// Vector length in metres per ms of magnitude; automatic when `None`.
     pub vector_scale: Option<f64>,
+    /// The isotropic two-way time (ms) of `anisotropy_percent` for inputs whose metadata names
+    /// none (`REFERENCE_TIME_FILE`); a single sector input only.
+    pub reference_time: Option<PathBuf>,
     /// How to read the inputs (assumed CRS, null sentinels, point-list columns).
     pub read: ReadOptions,
     /// How output GeoTIFFs are compressed and laid out.
@@ -111,6 +125,7 @@ impl AnisotropyJob {
     pub fn new(inputs: Vec<PathBuf>, azimuths: Vec<f64>, out_dir: impl Into<PathBuf>) -> Self {
         Self {
             inputs,
+            top: None,
             azimuths,
             reference: AzimuthReference::Grid,
             weights: WeightSource::Equal,
@@ -120,6 +135,7 @@ impl AnisotropyJob {
             min_snr: 2.0,
             axis: VectorAxis::Fast,
             vector_scale: None,
+            reference_time: None,
             read: ReadOptions::default(),
             tiff: TiffOptions::default(),
             memory: None,
@@ -146,47 +162,29 @@ impl AnisotropyJob {
         self.check_parameters()?;
         let budget = self.memory.unwrap_or_else(default_memory_budget);
         set_block_cache(budget / 4);
-        let sectors = Stack::open(&self.inputs, &self.read, Units::Time)?;
+        let sectors = SectorInputs::open(self)?;
         let n = sectors.len();
-        if n < MIN_SECTORS_FLOOR {
-            return Err(FlexureError::Parameter(format!(
-                "{n} sector grid(s) given: the cos 2phi fit needs at least {MIN_SECTORS_FLOOR} sectors"
-            )));
-        }
-        if self.azimuths.len() != n {
-            return Err(FlexureError::Parameter(format!(
-                "{} azimuths given for {n} sector grids: give one --azimuths value per sector",
-                self.azimuths.len()
-            )));
-        }
         if self.min_sectors > n {
             return Err(FlexureError::Parameter(format!(
                 "--min-sectors {} exceeds the {n} sectors given",
                 self.min_sectors
             )));
         }
-        let weights = self.open_weights(&sectors)?;
-        let convergence = self.convergence_to_apply(&sectors)?;
-        let grid_azimuths: Vec<f64> = self
-            .azimuths
-            .iter()
-            .map(|a| (a - convergence.unwrap_or(0.0)).rem_euclid(360.0))
-            .collect();
         let geometry = &sectors.geometry;
         // batch_rows counts 8 bytes per band and bin.
         let batch = batch_rows(
             budget / 2,
             geometry.cols,
-            bin_bytes(n, weights.grids()).div_ceil(8),
+            bin_bytes(sectors.values_per_bin()).div_ceil(8),
             0,
         );
         let batches: Vec<Range<usize>> = (0..geometry.rows)
             .step_by(batch)
             .map(|r| r..(r + batch).min(geometry.rows))
             .collect();
-        refuse_duplicate_sectors(&self.azimuths, &sectors, &batches)?;
+        refuse_duplicate_sectors(&sectors, &batches)?;
         prepare_output_dir(&self.out_dir)?;
-        let inputs = self.input_files();
+        let inputs = sectors.files();
         let inputs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
         let outputs = [
             self.raster_path(),
@@ -196,7 +194,7 @@ impl AnisotropyJob {
         for out in &outputs {
             refuse_overwrite(out, &inputs)?;
         }
-        let metadata = self.metadata(&sectors, &grid_azimuths, convergence)?;
+        let metadata = self.metadata(&sectors, &inputs)?;
         let specs: Vec<BandSpec> = FIT_BANDS
             .iter()
             .map(|b| BandSpec {
@@ -215,15 +213,17 @@ impl AnisotropyJob {
         let mut kept = Kept::default();
         for rows in batches {
             let times = (0..n)
-                .map(|k| sectors.read_rows(k, rows.clone()))
+                .map(|k| sectors.read_times(k, rows.clone()))
                 .collect::<Result<Vec<_>>>()?;
-            let weights = weights.read_rows(rows.clone())?;
-            let fits = fit_sector_grids(&times, &grid_azimuths, &weights, self.min_sectors);
+            let weights = sectors.read_weights(rows.clone())?;
+            let fits = fit_sector_grids(&times, &sectors.grid_azimuths, &weights, self.min_sectors);
             drop((times, weights));
+            let isotropic = sectors.isotropic_times(rows.clone(), &fits)?;
             for (b, band) in FIT_BANDS.iter().enumerate() {
                 let values: Vec<f32> = fits
                     .par_iter()
-                    .map(|f| f.map_or(NODATA, |f| nodata_if_null((band.value)(&f) as f32)))
+                    .zip(&isotropic)
+                    .map(|(f, &t)| f.map_or(NODATA, |f| nodata_if_null((band.value)(&f, t) as f32)))
                     .collect();
                 writer.write_rows(b, rows.start, values)?;
             }
@@ -256,16 +256,7 @@ impl AnisotropyJob {
             &layer,
         )?);
         commit_all(staged)?;
-        Ok(self.report(&sectors, &grid_azimuths, convergence, kept, scale))
-    }
-
-    /// Every input file: the sector grids, then the weight grids.
-    fn input_files(&self) -> Vec<PathBuf> {
-        let mut inputs = self.inputs.clone();
-        if let WeightSource::Grids(paths) = &self.weights {
-            inputs.extend(paths.iter().cloned());
-        }
-        inputs
+        Ok(self.report(&sectors, kept, scale))
     }
 
     fn check_parameters(&self) -> Result<()> {
@@ -307,99 +298,68 @@ impl AnisotropyJob {
                 return bad(format!("weight {v} must be a positive number"));
             }
         }
+        if let Some(top) = &self.top {
+            match self.inputs.as_slice() {
+                [base] if base == top => {
+                    return bad(format!(
+                        "--top and --base are the same file {}: give the top and the base horizon's sector times",
+                        top.display()
+                    ))
+                }
+                [_] => {}
+                _ => {
+                    return bad(
+                        "with --top, give the base horizon's sector times as one raster (--base)"
+                            .into(),
+                    )
+                }
+            }
+        }
         Ok(())
     }
 
-    fn open_weights(&self, sectors: &Stack) -> Result<Weights> {
-        let n = sectors.len();
-        match &self.weights {
-            WeightSource::Equal => Ok(Weights::Constant(vec![1.0; n])),
-            WeightSource::PerSector(w) if w.len() == n => Ok(Weights::Constant(w.clone())),
-            WeightSource::PerSector(w) => Err(FlexureError::Parameter(format!(
-                "{} weights given for {n} sectors: give one weight per sector",
-                w.len()
-            ))),
-            WeightSource::Grids(paths) => {
-                let weights = ReadOptions {
-                    find_sentinels: false,
-                    ..self.read.clone()
-                };
-                let stack = Stack::open(paths, &weights, Units::Weight)?;
-                if stack.len() != n {
-                    return Err(FlexureError::Parameter(format!(
-                        "{} weight grids given for {n} sectors: give one weight grid per sector",
-                        stack.len()
-                    )));
-                }
-                if let Some(why) = stack.geometry.mismatch(&sectors.geometry) {
-                    return Err(FlexureError::input(
-                        &paths[0],
-                        format!("weight grids are not on the sector grids' grid ({why}): give weights on the sector bins"),
-                    ));
-                }
-                Ok(Weights::Grids(stack))
-            }
-        }
-    }
-
-    /// The convergence subtracted from the given azimuths (`None` for grid-north azimuths).
-    fn convergence_to_apply(&self, sectors: &Stack) -> Result<Option<f64>> {
-        match self.reference {
-            AzimuthReference::Grid => Ok(None),
-            AzimuthReference::True {
-                convergence: Some(g),
-            } => Ok(Some(g)),
-            AzimuthReference::True { convergence: None } => {
-                sectors.geometry.convergence().map(Some).map_err(|e| {
-                    FlexureError::input(
-                        &self.inputs[0],
-                        format!("cannot compute the grid convergence from its CRS ({e}): give --convergence DEG"),
-                    )
-                })
-            }
-        }
-    }
-
-    fn metadata(
-        &self,
-        sectors: &Stack,
-        grid_azimuths: &[f64],
-        convergence: Option<f64>,
-    ) -> Result<Vec<(String, String)>> {
+    fn metadata(&self, sectors: &SectorInputs, inputs: &[&Path]) -> Result<Vec<(String, String)>> {
         let item = |k: &str, v: String| (k.to_string(), v);
         let centre_convergence = sectors
             .geometry
             .convergence()
             .map_or("unknown".to_string(), |g| format!("{g:.6}"));
-        let inputs = self.input_files();
-        let inputs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
-        let mut items = Provenance::of_inputs(&inputs)?.items().to_vec();
+        let mut items = Provenance::of_inputs(inputs)?.items().to_vec();
+        let azimuths_from = match sectors.declared {
+            true => "the bands' AZIMUTH_DEG metadata (grid north)",
+            false => "--azimuths",
+        };
         items.extend([
             item("FLEXURE_NODATA_SENTINELS", format!("{:?}", self.read.nodata)),
             item("FLEXURE_SECTORS", sectors.labels.join(", ")),
-            item("FLEXURE_SECTOR_AZIMUTHS_GRID_DEG", join_numbers(grid_azimuths)),
+            item("FLEXURE_SECTOR_AZIMUTHS_FROM", azimuths_from.into()),
+            item("FLEXURE_SECTOR_AZIMUTHS_GRID_DEG", join_numbers(&sectors.grid_azimuths)),
             item(
                 "FLEXURE_CONVERGENCE_APPLIED_DEG",
-                convergence.map_or("none (azimuths given from grid north)".into(), |g| g.to_string()),
+                sectors.convergence.map_or("none (azimuths from grid north)".into(), |g| g.to_string()),
             ),
             item("FLEXURE_GRID_CONVERGENCE_AT_CENTRE_DEG", centre_convergence),
-            item("FLEXURE_WEIGHTS", format!("{:?}", self.weights)),
+            item("FLEXURE_WEIGHTS", sectors.weights()),
             item("FLEXURE_MIN_SECTORS", self.min_sectors.to_string()),
             item("FLEXURE_UNITS", "times ms, azimuths degrees clockwise from grid north".into()),
             item("FLEXURE_METHOD", "weighted least squares t = A + a1 cos 2phi + a2 sin 2phi per bin; covariance standard errors; Rice bias after Wardle & Kronberg 1974".into()),
+            item("FLEXURE_ANISOTROPY_PERCENT", format!("100 x 2B / T, T = {}", sectors.reference_time())),
             item("FLEXURE_CAUTION", HTI_CAUTION.into()),
         ]);
+        if let Some((top, base)) = sectors.interval() {
+            items.push(item(
+                "FLEXURE_INTERVAL",
+                format!(
+                    "sector times of {} minus those of {}, sector by sector (layer stripping)",
+                    base.display(),
+                    top.display()
+                ),
+            ));
+        }
         Ok(items)
     }
 
-    fn report(
-        &self,
-        sectors: &Stack,
-        grid_azimuths: &[f64],
-        convergence: Option<f64>,
-        kept: Kept,
-        scale: f64,
-    ) -> AnisotropyReport {
+    fn report(&self, sectors: &SectorInputs, kept: Kept, scale: f64) -> AnisotropyReport {
         let magnitude = quantiles(kept.magnitude);
         let mut notes = sectors.notes.clone();
         if sectors.len() < USUAL_MIN_SECTORS {
@@ -416,19 +376,27 @@ impl AnisotropyJob {
                 ));
             }
         }
+        if let Some(why) = sectors.no_reference_time() {
+            notes.push(format!("anisotropy_percent is nodata everywhere: {why}"));
+        }
         AnisotropyReport {
             sectors: sectors
                 .labels
                 .iter()
                 .cloned()
-                .zip(grid_azimuths.iter().copied())
+                .zip(sectors.grid_azimuths.iter().copied())
                 .collect(),
+            azimuths_declared: sectors.declared,
+            interval: sectors
+                .interval()
+                .map(|(t, b)| (t.to_path_buf(), b.to_path_buf())),
             grid: sectors.geometry.describe(),
-            convergence,
+            convergence: sectors.convergence,
             fitted_share: kept.fitted as f64 / kept.bins.max(1) as f64,
             magnitude,
             magnitude_stderr: quantiles(kept.magnitude_stderr),
             azimuth_stderr: quantiles(kept.azimuth_stderr),
+            reference_time: sectors.reference_time(),
             raster: self.raster_path(),
             vector_files: vec![
                 self.vector_path(VectorFormat::GeoPackage),
@@ -494,38 +462,11 @@ fn line_feature(
     }
 }
 
-/// Bytes a bin takes in a batch: its sector times (f64) and weight grids (f64, when given),
-/// its fit, and one output band's float32 value (the bands are written one at a time).
-fn bin_bytes(sectors: usize, weight_grids: usize) -> usize {
-    8 * (sectors + weight_grids) + std::mem::size_of::<Option<SectorFit>>() + 4
-}
-
-/// The sector weights, read batch by batch.
-enum Weights {
-    /// One weight per sector for every bin.
-    Constant(Vec<f64>),
-    /// One weight grid per sector.
-    Grids(Stack),
-}
-
-impl Weights {
-    /// Number of weight grids read per batch.
-    fn grids(&self) -> usize {
-        match self {
-            Weights::Constant(_) => 0,
-            Weights::Grids(stack) => stack.len(),
-        }
-    }
-
-    /// The weights of every sector over grid rows `rows`.
-    fn read_rows(&self, rows: Range<usize>) -> Result<Vec<SectorWeight>> {
-        match self {
-            Weights::Constant(w) => Ok(w.iter().map(|&v| SectorWeight::Constant(v)).collect()),
-            Weights::Grids(stack) => (0..stack.len())
-                .map(|k| stack.read_rows(k, rows.clone()).map(SectorWeight::Grid))
-                .collect(),
-        }
-    }
+/// Bytes a bin takes in a batch: `values` f64 values read for it (sector times, weight grids,
+/// reference times, its isotropic time), its fit, and one output band's float32 value (the
+/// bands are written one at a time).
+fn bin_bytes(values: usize) -> usize {
+    8 * values + std::mem::size_of::<Option<SectorFit>>() + 4
 }
 
 /// What a run keeps of the fits beyond their batch: bin counts, the reported quantities of
@@ -571,11 +512,8 @@ impl Kept {
 
 /// Refuses an azimuth given twice (equal modulo 360) and two sectors whose azimuths coincide
 /// modulo 180 but hold identical times (the same data given twice; compared batch by batch).
-fn refuse_duplicate_sectors(
-    azimuths: &[f64],
-    sectors: &Stack,
-    batches: &[Range<usize>],
-) -> Result<()> {
+fn refuse_duplicate_sectors(sectors: &SectorInputs, batches: &[Range<usize>]) -> Result<()> {
+    let azimuths = &sectors.azimuths;
     for i in 0..azimuths.len() {
         for j in i + 1..azimuths.len() {
             let d180 = (azimuths[i] - azimuths[j]).rem_euclid(180.0);
@@ -586,8 +524,8 @@ fn refuse_duplicate_sectors(
             let same_data = || -> Result<bool> {
                 for rows in batches {
                     let (a, b) = (
-                        sectors.read_rows(i, rows.clone())?,
-                        sectors.read_rows(j, rows.clone())?,
+                        sectors.read_times(i, rows.clone())?,
+                        sectors.read_times(j, rows.clone())?,
                     );
                     if !a
                         .iter()
@@ -606,7 +544,7 @@ fn refuse_duplicate_sectors(
                     "they hold identical times (the same data given twice)"
                 };
                 return Err(FlexureError::input(
-                    &sectors.paths[j],
+                    sectors.path_of(j),
                     format!(
                         "sectors {} ({} deg) and {} ({} deg) cannot both be used: {why}",
                         sectors.labels[i], azimuths[i], sectors.labels[j], azimuths[j]
@@ -636,6 +574,10 @@ fn quantiles(values: Vec<f32>) -> Option<(f64, f64)> {
 pub struct AnisotropyReport {
     /// (label, azimuth from grid north) per sector.
     pub sectors: Vec<(String, f64)>,
+    /// Whether the azimuths were read from the bands' `AZIMUTH_DEG` (else given).
+    pub azimuths_declared: bool,
+    /// The (top, base) rasters when the sectors are an interval's (base minus top).
+    pub interval: Option<(PathBuf, PathBuf)>,
     /// One-line description of the grid.
     pub grid: String,
     /// Convergence subtracted from true-north azimuths, if any (degrees).
@@ -648,6 +590,8 @@ pub struct AnisotropyReport {
     pub magnitude_stderr: Option<(f64, f64)>,
     /// (median, 95th percentile) of the azimuth standard error, degrees.
     pub azimuth_stderr: Option<(f64, f64)>,
+    /// What the isotropic two-way time T of `anisotropy_percent` is (or why it is unknown).
+    pub reference_time: String,
     /// The raster written.
     pub raster: PathBuf,
     /// The vector files written.
@@ -663,8 +607,20 @@ pub struct AnisotropyReport {
 impl fmt::Display for AnisotropyReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         writeln!(f, "sectors: {}, on {}", self.sectors.len(), self.grid)?;
+        if let Some((top, base)) = &self.interval {
+            writeln!(
+                f,
+                "  interval: {} minus {}, sector by sector",
+                base.display(),
+                top.display()
+            )?;
+        }
+        let declared = match self.azimuths_declared {
+            true => " (declared by the bands)",
+            false => "",
+        };
         for (label, az) in &self.sectors {
-            writeln!(f, "  {label}: {az:.3} deg from grid north")?;
+            writeln!(f, "  {label}: {az:.3} deg from grid north{declared}")?;
         }
         if let Some(g) = self.convergence {
             writeln!(
@@ -684,6 +640,11 @@ impl fmt::Display for AnisotropyReport {
         line(f, "magnitude", self.magnitude, "ms")?;
         line(f, "magnitude_stderr", self.magnitude_stderr, "ms")?;
         line(f, "azimuth_stderr", self.azimuth_stderr, "deg")?;
+        writeln!(
+            f,
+            "anisotropy_percent: 100 x 2B / T, T = {}",
+            self.reference_time
+        )?;
         writeln!(
             f,
             "wrote {} ({} bands)",
@@ -709,6 +670,7 @@ impl fmt::Display for AnisotropyReport {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::anisotropy::SectorWeight;
     use crate::io::{read_raster, write_float_geotiff, BandOut};
     use crate::stats::SeededNoise;
     use gdal::vector::LayerAccess;
@@ -809,7 +771,7 @@ mod tests {
         let (small, small_report) = run("small", 1 << 20);
         let (large, large_report) = run("large", 1 << 30);
         // The small budget takes several batches, the large one a single batch.
-        let batch = |memory: u64| batch_rows(memory / 2, 40, bin_bytes(8, 8).div_ceil(8), 0);
+        let batch = |memory: u64| batch_rows(memory / 2, 40, bin_bytes(8 + 8 + 1).div_ceil(8), 0);
         assert_eq!(batch(1 << 20), 256);
         assert!(batch(1 << 30) >= 700);
         let read = |job: &AnisotropyJob| {
@@ -844,7 +806,7 @@ mod tests {
         assert!(fits.iter().any(Option::is_none) && fits.iter().any(Option::is_some));
         for (band, written) in FIT_BANDS.iter().zip(read(&small)) {
             let same = fits.iter().zip(written.iter()).all(|(f, &w)| {
-                match f.map(|f| (band.value)(&f) as f32) {
+                match f.map(|f| (band.value)(&f, f.isotropic) as f32) {
                     Some(e) if e.is_finite() => e.to_bits() == (w as f32).to_bits(),
                     _ => w.is_nan(),
                 }
