@@ -486,6 +486,52 @@ fn low_quality_sectors_are_down_weighted() {
     );
     assert!((wm - 4.0).abs() < 0.5 * (pm - 4.0).abs());
     assert!(axial(ws, 30.0).abs() < 0.5 * axial(ps, 30.0).abs());
+
+    // The same law as an interval: the top (quality 0.9 everywhere) holds another cos 2phi law,
+    // the base the top's plus the law above with its bad sector (qualities as above). Variances
+    // of a difference add, so sector j weighs 1 / (1/w(0.9) + 1/w(0.2)) against
+    // 1 / (2/w(0.9)) elsewhere in the same closed form. Float32 times near 2000 ms: 1e-3 ms.
+    let (top_dir, base_dir) = (d.join("top"), d.join("base"));
+    let top_t = |phi: f64| cos2(900.0, 2.0, 100.0, phi);
+    for (folder, value, quality) in [
+        (&top_dir, &top_t as &dyn Fn(f64) -> f64, vec![0.9; 8]),
+        (
+            &base_dir,
+            &|phi: f64| {
+                top_t(phi) + cos2(1000.0, 4.0, 30.0, phi) + if phi == az[j] { delta } else { 0.0 }
+            },
+            quality.clone(),
+        ),
+    ] {
+        std::fs::create_dir(folder).unwrap();
+        let times = per_sector(&az, |phi, _, _| value(phi));
+        sector_raster(&folder.join("sector_times.tif"), &g, times, Some(&az), &[]);
+        let q = quality
+            .iter()
+            .map(|&q| Array2::from_elem((ROWS, COLS), q as f32))
+            .collect();
+        sector_raster(&folder.join("sector_quality.tif"), &g, q, Some(&az), &[]);
+    }
+    let interval = d.join("interval");
+    run_ok(&[
+        "anisotropy",
+        "--top",
+        s(&top_dir.join("sector_times.tif")),
+        "--base",
+        s(&base_dir.join("sector_times.tif")),
+        "--weights",
+        "quality",
+        "--out",
+        s(&interval),
+        "--quiet",
+    ]);
+    let difference = |a: f64, b: f64| 1.0 / (1.0 / a + 1.0 / b);
+    let (im, is) = got(&interval);
+    let (xm, xs) = expected(difference(w(0.9), w(0.2)), difference(w(0.9), w(0.9)));
+    assert!(
+        (im - xm).abs() < 1e-3 && axial(is, xs).abs() < 1e-2,
+        "{im} {is} vs {xm} {xs}"
+    );
 }
 
 #[test]

@@ -750,7 +750,8 @@ mod tests {
     /// A 700-row grid streamed in 256-row batches (a 1 MB budget) gives, bit for bit, the
     /// bands, vectors and report of a run in one batch (1 GB), and both equal the fit of the
     /// whole grids at once (the reference: `fit_sector_grids` on every bin, as the job computed
-    /// it before it streamed), read back through GDAL.
+    /// it before it streamed; `anisotropy_percent` of absolute times against the fitted A), read
+    /// back through GDAL.
     #[test]
     fn streamed_batches_equal_one_batch_and_the_whole_grid_fit() {
         let dir = tempfile::tempdir().unwrap();

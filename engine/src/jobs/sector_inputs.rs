@@ -10,7 +10,7 @@
 
 use super::anisotropy::{AnisotropyJob, AzimuthReference, WeightSource};
 use crate::anisotropy::sector_rasters::{
-    declares_shifts, interval_weight, quality_weight, AZIMUTH_ITEM, QUALITY_FILE,
+    declares_shifts, interval_weight, quality_weight, AZIMUTH_ITEM, QUALITY_CAP, QUALITY_FILE,
     REFERENCE_FILE_ITEM, REFERENCE_KIND_ITEM, SHIFTS_ITEM,
 };
 use crate::anisotropy::{SectorFit, SectorWeight, MIN_SECTORS_FLOOR};
@@ -31,7 +31,7 @@ const QUALITY_MAX: f64 = 1.0 + 1e-6;
 /// What the values of a stack are: sector times (ms; declared seconds are converted, declared
 /// lengths refused) or weights (any unit).
 #[derive(Clone, Copy, PartialEq)]
-pub(super) enum Units {
+enum Units {
     Time,
     Weight,
 }
@@ -55,17 +55,17 @@ struct StackBand {
 
 /// Co-registered grids read from one multi-band raster or from single-band rasters, opened
 /// for reading by runs of rows.
-pub(super) struct Stack {
+struct Stack {
     /// The grid they share.
-    pub(super) geometry: GridGeometry,
+    geometry: GridGeometry,
     sources: Vec<RowSource>,
     bands: Vec<StackBand>,
     /// One label per grid: the file name, with the band number for a multi-band file.
-    pub(super) labels: Vec<String>,
+    labels: Vec<String>,
     /// The file of each grid.
-    pub(super) paths: Vec<PathBuf>,
+    paths: Vec<PathBuf>,
     /// What the readers noticed (point-list lattices, outliers kept, seconds converted).
-    pub(super) notes: Vec<String>,
+    notes: Vec<String>,
 }
 
 fn file_name(p: &Path) -> String {
@@ -78,7 +78,7 @@ fn file_name(p: &Path) -> String {
 impl Stack {
     /// Opens `paths` as a stack of `units` grids: the bands of one file, or one band per file,
     /// all on the same grid.
-    pub(super) fn open(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Stack> {
+    fn open(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Stack> {
         let what = units.what();
         if let [path] = paths {
             let source = RowSource::open(path, read)?;
@@ -178,12 +178,12 @@ impl Stack {
     }
 
     /// Number of grids.
-    pub(super) fn len(&self) -> usize {
+    fn len(&self) -> usize {
         self.bands.len()
     }
 
     /// Rows `rows` of grid `k`, every column, NaN nulls, times in ms.
-    pub(super) fn read_rows(&self, k: usize, rows: Range<usize>) -> Result<Array2<f64>> {
+    fn read_rows(&self, k: usize, rows: Range<usize>) -> Result<Array2<f64>> {
         let b = &self.bands[k];
         let mut values = self.sources[b.source].read_rows(b.band, rows)?;
         if b.factor != 1.0 {
@@ -328,9 +328,87 @@ enum Weights {
     Constant(Vec<f64>),
     /// One weight grid per sector.
     Grids(Stack),
-    /// Correlation qualities beside each sector-time raster (two for an interval), with the
-    /// quality band of each sector.
-    Quality(Vec<(Stack, Vec<usize>)>),
+    /// The correlation quality beside the sector-time raster (`main`), and beside the top's
+    /// for an interval.
+    Quality {
+        main: Box<Quality>,
+        top: Option<Box<Quality>>,
+    },
+}
+
+/// A correlation-quality raster with the band of each sector.
+struct Quality {
+    stack: Stack,
+    bands: Vec<usize>,
+}
+
+impl Quality {
+    /// Opens [`QUALITY_FILE`] beside `sectors` and finds the band of each of the sectors at
+    /// `grid_azimuths` by its [`AZIMUTH_ITEM`].
+    fn open(sectors: &Stack, read: &ReadOptions, grid_azimuths: &[f64]) -> Result<Quality> {
+        let path = sectors.folder().join(QUALITY_FILE);
+        if !path.is_file() {
+            return Err(FlexureError::input(
+                &path,
+                format!(
+                    "--weights quality reads {QUALITY_FILE} beside the sector times {}, and there is none: put the quality raster there, or weight the sectors otherwise",
+                    sectors.path().display()
+                ),
+            ));
+        }
+        let stack = Stack::open(std::slice::from_ref(&path), read, Units::Weight)?;
+        sectors.refuse_other_grid(&stack, "the quality raster")?;
+        let found = stack
+            .declared_azimuths()?
+            .iter()
+            .enumerate()
+            .map(|(b, a)| {
+                a.ok_or_else(|| {
+                    FlexureError::input(
+                        &path,
+                        format!("band {} declares no {AZIMUTH_ITEM}: quality bands are matched to the sectors by it", b + 1),
+                    )
+                })
+            })
+            .collect::<Result<Vec<f64>>>()?;
+        let bands = grid_azimuths
+            .iter()
+            .map(|&a| {
+                (0..found.len())
+                    .find(|&b| azimuth_gap(a, found[b]) < SAME_AZIMUTH_DEG)
+                    .ok_or_else(|| {
+                        FlexureError::input(
+                            &path,
+                            format!(
+                                "has no band for the sector at {a} deg from grid north of {} (its {AZIMUTH_ITEM}: {}): give the quality raster of these sector times",
+                                sectors.path().display(),
+                                list(&found)
+                            ),
+                        )
+                    })
+            })
+            .collect::<Result<Vec<usize>>>()?;
+        Ok(Quality { stack, bands })
+    }
+
+    /// Rows `rows` of sector `k`'s quality as weights ([`quality_weight`]); a coefficient above
+    /// 1 is refused.
+    fn read_weights(&self, k: usize, rows: Range<usize>) -> Result<Array2<f64>> {
+        let (band, first_row) = (self.bands[k], rows.start);
+        let c = self.stack.read_rows(band, rows)?;
+        if let Some(((r, col), v)) = c.indexed_iter().find(|(_, v)| **v > QUALITY_MAX) {
+            return Err(FlexureError::input(
+                self.stack.path(),
+                format!(
+                    "band {} holds {v} at row {}, column {}: quality bands hold correlation coefficients from 0 to 1",
+                    band + 1,
+                    first_row + r + 1,
+                    col + 1
+                ),
+            ));
+        }
+        Ok(c.mapv(quality_weight))
+    }
 }
 
 /// Where the isotropic two-way time T of `anisotropy_percent` comes from.
@@ -447,7 +525,10 @@ impl SectorInputs {
         match &self.weights {
             Weights::Constant(_) => {}
             Weights::Grids(s) => stacks.push(s),
-            Weights::Quality(q) => stacks.extend(q.iter().map(|(s, _)| s)),
+            Weights::Quality { main, top } => {
+                stacks.push(&main.stack);
+                stacks.extend(top.as_ref().map(|t| &t.stack));
+            }
         }
         if let Reference::Files { base, top } = &self.reference {
             stacks.push(base);
@@ -469,7 +550,7 @@ impl SectorInputs {
         let weights = match &self.weights {
             Weights::Constant(_) => 0,
             Weights::Grids(s) => s.len(),
-            Weights::Quality(q) => q.iter().map(|(_, bands)| bands.len()).sum(),
+            Weights::Quality { top, .. } => self.len() * (1 + usize::from(top.is_some())),
         };
         let reference = match &self.reference {
             Reference::Files { top, .. } => 1 + usize::from(top.is_some()),
@@ -495,21 +576,15 @@ impl SectorInputs {
             Weights::Grids(stack) => (0..n)
                 .map(|k| stack.read_rows(k, rows.clone()).map(SectorWeight::Grid))
                 .collect(),
-            Weights::Quality(qualities) => (0..n)
+            Weights::Quality { main, top } => (0..n)
                 .map(|k| {
-                    let mut weights = qualities
-                        .iter()
-                        .map(|(stack, bands)| read_quality(stack, bands[k], rows.clone()));
-                    let first = weights
-                        .next()
-                        .unwrap_or_else(|| Ok(Array2::zeros((0, 0))))?;
-                    let combined = match weights.next() {
-                        None => first,
-                        Some(base) => Zip::from(&first)
-                            .and(&base?)
+                    let base = main.read_weights(k, rows.clone())?;
+                    Ok(SectorWeight::Grid(match top {
+                        None => base,
+                        Some(top) => Zip::from(&top.read_weights(k, rows.clone())?)
+                            .and(&base)
                             .map_collect(|&t, &b| interval_weight(t, b)),
-                    };
-                    Ok(SectorWeight::Grid(combined))
+                    }))
                 })
                 .collect(),
         }
@@ -577,14 +652,21 @@ impl SectorInputs {
     /// How the sectors are weighted, in words.
     pub(super) fn weights(&self) -> String {
         match &self.weights {
+            Weights::Constant(w) if w.iter().all(|&v| v == w[0]) => "equal".into(),
             Weights::Constant(w) => format!("per sector {w:?}"),
             Weights::Grids(s) => format!("grids {:?}", s.files().collect::<Vec<_>>()),
-            Weights::Quality(q) => format!(
-                "correlation quality c of {:?}: w = c^2 / (1 - c^2), c capped at {} (Knapp & Carter 1976){}",
-                q.iter().map(|(s, _)| s.path().to_path_buf()).collect::<Vec<_>>(),
-                crate::anisotropy::sector_rasters::QUALITY_CAP,
-                if q.len() == 2 { "; interval w = 1 / (1/w_top + 1/w_base)" } else { "" }
-            ),
+            Weights::Quality { main, top } => {
+                let rule =
+                    format!("w = c^2 / (1 - c^2), c capped at {QUALITY_CAP} (Knapp & Carter 1976)");
+                match top {
+                    None => format!("correlation quality c of {}: {rule}", main.stack.path().display()),
+                    Some(top) => format!(
+                        "correlation quality c of {} and {}: {rule}; interval w = 1 / (1/w_top + 1/w_base)",
+                        top.stack.path().display(),
+                        main.stack.path().display()
+                    ),
+                }
+            }
         }
     }
 }
@@ -698,76 +780,14 @@ fn open_weights(job: &AnisotropyJob, times: &Times, grid_azimuths: &[f64]) -> Re
             }
             Ok(Weights::Grids(stack))
         }
-        WeightSource::Quality => times
-            .stacks()
-            .into_iter()
-            .map(|sectors| {
-                let path = sectors.folder().join(QUALITY_FILE);
-                if !path.is_file() {
-                    return Err(FlexureError::input(
-                        &path,
-                        format!(
-                            "--weights quality reads {QUALITY_FILE} beside the sector times {}, and there is none: put the quality raster there, or weight the sectors otherwise",
-                            sectors.path().display()
-                        ),
-                    ));
-                }
-                let quality = Stack::open(std::slice::from_ref(&path), &read, Units::Weight)?;
-                sectors.refuse_other_grid(&quality, "the quality raster")?;
-                let declared = quality.declared_azimuths()?;
-                let found = declared
-                    .iter()
-                    .enumerate()
-                    .map(|(b, a)| {
-                        a.ok_or_else(|| {
-                            FlexureError::input(
-                                &path,
-                                format!("band {} declares no {AZIMUTH_ITEM}: quality bands are matched to the sectors by it", b + 1),
-                            )
-                        })
-                    })
-                    .collect::<Result<Vec<f64>>>()?;
-                let bands = grid_azimuths
-                    .iter()
-                    .map(|&a| {
-                        (0..found.len())
-                            .find(|&b| azimuth_gap(a, found[b]) < SAME_AZIMUTH_DEG)
-                            .ok_or_else(|| {
-                                FlexureError::input(
-                                    &path,
-                                    format!(
-                                        "has no band for the sector at {a} deg from grid north of {} (its {AZIMUTH_ITEM}: {}): give the quality raster of these sector times",
-                                        sectors.path().display(),
-                                        list(&found)
-                                    ),
-                                )
-                            })
-                    })
-                    .collect::<Result<Vec<usize>>>()?;
-                Ok((quality, bands))
-            })
-            .collect::<Result<Vec<_>>>()
-            .map(Weights::Quality),
+        WeightSource::Quality => Ok(Weights::Quality {
+            main: Box::new(Quality::open(main, &read, grid_azimuths)?),
+            top: match &times.top {
+                Some((top, _)) => Some(Box::new(Quality::open(top, &read, grid_azimuths)?)),
+                None => None,
+            },
+        }),
     }
-}
-
-/// Rows `rows` of quality band `band` as weights ([`quality_weight`]); a coefficient above 1
-/// is refused.
-fn read_quality(stack: &Stack, band: usize, rows: Range<usize>) -> Result<Array2<f64>> {
-    let first_row = rows.start;
-    let c = stack.read_rows(band, rows)?;
-    if let Some(((r, col), v)) = c.indexed_iter().find(|(_, v)| **v > QUALITY_MAX) {
-        return Err(FlexureError::input(
-            stack.path(),
-            format!(
-                "band {} holds {v} at row {}, column {}: quality bands hold correlation coefficients from 0 to 1",
-                band + 1,
-                first_row + r + 1,
-                col + 1
-            ),
-        ));
-    }
-    Ok(c.mapv(quality_weight))
 }
 
 /// Where the isotropic two-way time of `anisotropy_percent` comes from (see [`Reference`]):
