@@ -29,8 +29,8 @@ use flexure_engine::io::segy::{
 use flexure_engine::io::{write_float_geotiff, BandOut};
 use flexure_engine::jobs::{
     AnisotropyJob, AnisotropyReport, CurvatureJob, CurvatureReport, PlanJob, PlanReport, Progress,
-    RenderJob, RenderReport, SectorTimesJob, SectorTimesReport, StagesJob, StagesReport, WellInput,
-    WindowStudyJob, WindowStudyReport,
+    RenderJob, RenderReport, SectorTimesJob, SectorTimesReport, StagesJob, StagesReport,
+    WeightSource, WellInput, WindowStudyJob, WindowStudyReport,
 };
 use flexure_engine::stats::SeededNoise;
 use flexure_engine::surface::curvature::attribute_by_id;
@@ -552,17 +552,16 @@ pub fn demo_sector_times_job(
     )
 }
 
-/// The anisotropy job on the measured sector shifts, into `out_dir/anisotropy_seismic`.
-pub fn demo_seismic_anisotropy_job(
-    seismic: &DemoSeismic,
-    sector_times: &SectorTimesJob,
-    out_dir: &Path,
-) -> AnisotropyJob {
+/// The anisotropy job on the measured sector shifts, into `out_dir/anisotropy_seismic`: the
+/// azimuths from the shift raster's band metadata, the sectors weighted by their correlation
+/// quality.
+pub fn demo_seismic_anisotropy_job(sector_times: &SectorTimesJob, out_dir: &Path) -> AnisotropyJob {
     let mut job = AnisotropyJob::new(
         vec![sector_times.times_path()],
-        seismic.azimuths.clone(),
+        Vec::new(),
         out_dir.join("anisotropy_seismic"),
     );
+    job.weights = WeightSource::Quality;
     job.every = 2;
     job
 }
@@ -888,8 +887,7 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
     let anisotropy = demo_anisotropy_job(&sectors, data_dir, out_dir).run()?;
     let sector_times_job = demo_sector_times_job(&seismic, data_dir, out_dir);
     let sector_times = sector_times_job.run(progress)?;
-    let seismic_anisotropy =
-        demo_seismic_anisotropy_job(&seismic, &sector_times_job, out_dir).run()?;
+    let seismic_anisotropy = demo_seismic_anisotropy_job(&sector_times_job, out_dir).run()?;
     let maps = demo_render_jobs(data_dir, out_dir)
         .iter()
         .map(RenderJob::run)

@@ -108,7 +108,9 @@ enum AxisArg {
 const ANISOTROPY_OUTPUTS: &str = "Sector times are in ms (two-way times picked per sector, or \
 residual time shifts). Outputs: DIR/anisotropy.tif with bands magnitude, magnitude_unbiased, \
 azimuth_slow, azimuth_fast, isotropic, r2, residual_rms, magnitude_stderr, azimuth_stderr, \
-n_sectors (azimuths in degrees from grid north), DIR/anisotropy_vectors.gpkg (grid CRS) and \
+n_sectors, anisotropy_percent (100 x 2B / T, T the isotropic two-way time of the horizon or \
+interval: the fitted A for absolute times, the reference time for time shifts; azimuths in \
+degrees from grid north), DIR/anisotropy_vectors.gpkg (grid CRS) and \
 DIR/anisotropy_vectors.geojson (RFC 7946, WGS84).";
 
 /// Help epilogue of the anisotropy command: outputs, the HTI reading and its cautions.
@@ -119,24 +121,32 @@ fn anisotropy_help() -> String {
 #[derive(clap::Args)]
 struct AnisotropyArgs {
     /// Sector time grids in ms: one single-band grid per sector, or one raster with a band per
-    /// sector.
-    #[arg(required = true)]
+    /// sector (e.g. sector_times.tif from sector-times).
+    #[arg(required_unless_present = "base", conflicts_with = "base")]
     sectors: Vec<PathBuf>,
-    /// Sector-centre azimuths in degrees clockwise from north, one per sector, in order.
-    #[arg(
-        long,
-        value_delimiter = ',',
-        required = true,
-        allow_negative_numbers = true
-    )]
+    /// The top horizon's sector-time raster: fit the interval times base minus top, sector by
+    /// sector (needs --base).
+    #[arg(long, requires = "base")]
+    top: Option<PathBuf>,
+    /// The base horizon's sector-time raster (with --top).
+    #[arg(long, requires = "top")]
+    base: Option<PathBuf>,
+    /// Sector-centre azimuths in degrees clockwise from north, one per sector, in order;
+    /// default: the azimuths the bands declare (AZIMUTH_DEG metadata, from grid north).
+    #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
     azimuths: Vec<f64>,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
-    /// Sector weights (e.g. fold): one number per sector, or one weight grid per sector (or one
-    /// raster with a band per sector).
+    /// Sector weights (e.g. fold): one number per sector, one weight grid per sector (or one
+    /// raster with a band per sector), or `quality`: the correlation quality in
+    /// sector_quality.tif beside the sector times, as w = c^2 / (1 - c^2).
     #[arg(long, value_delimiter = ',')]
     weights: Vec<String>,
+    /// Isotropic two-way time (ms) of anisotropy_percent for sector rasters whose metadata
+    /// names none (REFERENCE_TIME_FILE); by default the fitted A for absolute sector times.
+    #[arg(long)]
+    reference_time: Option<PathBuf>,
     /// North the azimuths are measured from.
     #[arg(long, value_enum, default_value = "grid")]
     azimuth_reference: ReferenceArg,
@@ -159,6 +169,10 @@ struct AnisotropyArgs {
     /// Vector length in metres per ms of magnitude (automatic when omitted).
     #[arg(long)]
     vector_scale: Option<f64>,
+    /// Working memory (row batches and GDAL's block cache), e.g. 512M or 2G; default a
+    /// quarter of the machine's memory, at most 1G.
+    #[arg(long, value_parser = parse_memory)]
+    memory: Option<u64>,
     #[command(flatten)]
     read: ReadArgs,
     #[command(flatten)]
@@ -235,7 +249,13 @@ impl ReadArgs {
 
 impl AnisotropyArgs {
     fn job(&self) -> Result<AnisotropyJob, FlexureError> {
-        let mut job = AnisotropyJob::new(self.sectors.clone(), self.azimuths.clone(), &self.out);
+        let inputs = match &self.base {
+            Some(base) => vec![base.clone()],
+            None => self.sectors.clone(),
+        };
+        let mut job = AnisotropyJob::new(inputs, self.azimuths.clone(), &self.out);
+        job.top = self.top.clone();
+        job.reference_time = self.reference_time.clone();
         job.reference = reference(self.azimuth_reference, self.convergence)?;
         job.weights = weight_source(&self.weights);
         job.min_sectors = self.min_sectors;
@@ -243,16 +263,23 @@ impl AnisotropyArgs {
         job.min_snr = self.min_snr;
         job.axis = axis(self.vector);
         job.vector_scale = self.vector_scale;
+        job.memory = self.memory;
         job.read = self.read.options();
         job.tiff = self.tiff.options();
         Ok(job)
     }
 }
 
-/// Numbers are per-sector weights; anything else names weight grids.
+/// Numbers are per-sector weights; `quality` the correlation quality beside the sector times;
+/// anything else names weight grids.
 fn weight_source(items: &[String]) -> WeightSource {
     if items.is_empty() {
         return WeightSource::Equal;
+    }
+    if let [item] = items {
+        if item.trim() == "quality" {
+            return WeightSource::Quality;
+        }
     }
     let numbers: Option<Vec<f64>> = items.iter().map(|s| s.trim().parse().ok()).collect();
     match numbers {

@@ -129,7 +129,7 @@ fn demo_sector_volumes_return_their_anisotropy_field() {
     let seismic = demo_seismic();
     let times = demo_sector_times_job(&seismic, &data, dir.path());
     times.run(&Silent).unwrap();
-    let job = demo_seismic_anisotropy_job(&seismic, &times, dir.path());
+    let job = demo_seismic_anisotropy_job(&times, dir.path());
     job.run().unwrap();
     let r = read_raster(&job.raster_path(), &ReadOptions::default()).unwrap();
     let band = |id: &str| {

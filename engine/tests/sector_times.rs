@@ -11,7 +11,8 @@ use flexure_engine::io::segy::{
     write_segy, ByteOrder, SampleFormat, SegyHeaderBytes, SegyTrace, SegyWriteSpec, TextEncoding,
 };
 use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions};
-use flexure_engine::jobs::{SectorTimesJob, Silent, AZIMUTH_ITEM};
+use flexure_engine::anisotropy::sector_rasters::AZIMUTH_ITEM;
+use flexure_engine::jobs::{SectorTimesJob, Silent};
 use flexure_engine::stats::SeededNoise;
 use flexure_engine::synthetic::ricker_samples;
 use gdal::Metadata;

@@ -20,9 +20,16 @@
 //!   `G^T W G` above [`SECTOR_CONDITION_LIMIT`]. With exactly three sectors the fit is exact and
 //!   the residual variance, standard errors and bias correction are undefined (NaN).
 //!
+//! - `anisotropy_percent` ([`anisotropy_percent`]) relates the peak-to-peak variation 2B to
+//!   the isotropic two-way time T of the horizon (or of the interval between two horizons):
+//!   `100 x 2B / T`.
+//!
 //! Map vectors (what a vector reads from a bin, which bins get one, default length and segment
-//! geometry) are in [`vectors`].
+//! geometry) are in [`vectors`]; what sector-time rasters declare (azimuths, time shifts and
+//! their reference time, correlation quality) and the weight a quality gives are in
+//! [`sector_rasters`].
 
+pub mod sector_rasters;
 pub mod vectors;
 
 use crate::bands::{BandInfo, ScaleKind, VectorRole};
@@ -219,9 +226,20 @@ impl SectorFit {
     }
 }
 
+/// Anisotropy in percent, `100 x 2B / T`: the peak-to-peak cos 2phi variation `2B` (ms, B the
+/// magnitude) over the isotropic two-way time `T` (ms) of the horizon, or of the interval
+/// between two horizons (their time thickness). NaN when `T` is not a positive number.
+pub fn anisotropy_percent(magnitude: f64, isotropic_time: f64) -> f64 {
+    if isotropic_time > 0.0 && isotropic_time.is_finite() {
+        100.0 * 2.0 * magnitude / isotropic_time
+    } else {
+        f64::NAN
+    }
+}
+
 /// One output band of a per-bin fit: identifier (the band description), unit, meaning,
 /// colour-scale kind, what the map vectors read it for, and how it is read from a
-/// [`SectorFit`].
+/// [`SectorFit`] and the bin's isotropic two-way time.
 pub struct FitBand {
     /// Band description.
     pub id: &'static str,
@@ -233,8 +251,9 @@ pub struct FitBand {
     pub scale: ScaleKind,
     /// What the map vectors read it for, if anything.
     pub vector: Option<VectorRole>,
-    /// The value of one bin.
-    pub value: fn(&SectorFit) -> f64,
+    /// The value of one bin from its fit and its isotropic two-way time T in ms (the horizon's,
+    /// or the interval's; NaN when unknown), which only [`anisotropy_percent`] reads.
+    pub value: fn(&SectorFit, f64) -> f64,
 }
 
 impl FitBand {
@@ -251,14 +270,14 @@ impl FitBand {
 }
 
 /// The bands of the anisotropy raster, in band order.
-pub const FIT_BANDS: [FitBand; 10] = [
+pub const FIT_BANDS: [FitBand; 11] = [
     FitBand {
         id: "magnitude",
         unit: "ms",
         description: "B = sqrt(a1^2 + a2^2), half the peak-to-peak time variation",
         scale: ScaleKind::Sequential,
         vector: Some(VectorRole::Length),
-        value: |f| f.magnitude,
+        value: |f, _| f.magnitude,
     },
     FitBand {
         id: "magnitude_unbiased",
@@ -266,7 +285,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "B with the Rice bias removed (Wardle & Kronberg 1974)",
         scale: ScaleKind::Sequential,
         vector: None,
-        value: |f| f.magnitude_unbiased,
+        value: |f, _| f.magnitude_unbiased,
     },
     FitBand {
         id: "azimuth_slow",
@@ -274,7 +293,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "azimuth of maximum time, degrees from grid north, 0..180",
         scale: ScaleKind::Cyclic { period: 180.0 },
         vector: Some(VectorRole::Azimuth(VectorAxis::Slow)),
-        value: |f| f.azimuth_slow,
+        value: |f, _| f.azimuth_slow,
     },
     FitBand {
         id: "azimuth_fast",
@@ -282,7 +301,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "slow azimuth + 90, degrees from grid north, 0..180",
         scale: ScaleKind::Cyclic { period: 180.0 },
         vector: Some(VectorRole::Azimuth(VectorAxis::Fast)),
-        value: |f| f.azimuth_fast,
+        value: |f, _| f.azimuth_fast,
     },
     FitBand {
         id: "isotropic",
@@ -290,7 +309,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "azimuth-independent term A",
         scale: ScaleKind::Sequential,
         vector: None,
-        value: |f| f.isotropic,
+        value: |f, _| f.isotropic,
     },
     FitBand {
         id: "r2",
@@ -298,7 +317,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "weighted coefficient of determination",
         scale: ScaleKind::Sequential,
         vector: None,
-        value: |f| f.r2,
+        value: |f, _| f.r2,
     },
     FitBand {
         id: "residual_rms",
@@ -306,7 +325,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "weighted RMS residual of the fit",
         scale: ScaleKind::Sequential,
         vector: None,
-        value: |f| f.residual_rms,
+        value: |f, _| f.residual_rms,
     },
     FitBand {
         id: "magnitude_stderr",
@@ -314,7 +333,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "standard error of B from the least-squares covariance",
         scale: ScaleKind::Sequential,
         vector: Some(VectorRole::LengthStderr),
-        value: |f| f.magnitude_stderr,
+        value: |f, _| f.magnitude_stderr,
     },
     FitBand {
         id: "azimuth_stderr",
@@ -322,7 +341,7 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "standard error of the azimuths from the least-squares covariance",
         scale: ScaleKind::Sequential,
         vector: Some(VectorRole::AzimuthStderr),
-        value: |f| f.azimuth_stderr,
+        value: |f, _| f.azimuth_stderr,
     },
     FitBand {
         id: "n_sectors",
@@ -330,7 +349,15 @@ pub const FIT_BANDS: [FitBand; 10] = [
         description: "sectors used in the bin",
         scale: ScaleKind::Sequential,
         vector: Some(VectorRole::Sectors),
-        value: |f| f.n_sectors as f64,
+        value: |f, _| f.n_sectors as f64,
+    },
+    FitBand {
+        id: "anisotropy_percent",
+        unit: "%",
+        description: "100 x 2B / T: the peak-to-peak cos 2phi time variation over the isotropic two-way time T at the horizon (or of the interval between two horizons), percent; T is the fitted A for absolute sector times, the reference time for time shifts; null where T is unknown or not positive",
+        scale: ScaleKind::Sequential,
+        vector: None,
+        value: |f, t| anisotropy_percent(f.magnitude, t),
     },
 ];
 

@@ -49,10 +49,14 @@ impl From<&SectorFit> for VectorSample {
 }
 
 /// Bins kept for map vectors, row-major `(row, col, sample)`: every `every.0`-th column and
-/// `every.1`-th row (the middle bin of each block) whose SNR is at least `min_snr`
+/// `every.1`-th row of the grid (the middle bin of each block) whose SNR is at least `min_snr`
 /// (`min_snr = 0` keeps every bin with a sample, including 3-sector bins of unknown SNR).
+/// `samples` are whole rows of `cols` bins starting at grid row `first_row` (0 for a whole
+/// grid; a job streaming the grid in batches passes each batch's first row, so the same bins
+/// are kept whatever the batches); rows returned are grid rows.
 pub fn vector_bins<T: Copy>(
     samples: &[Option<T>],
+    first_row: usize,
     cols: usize,
     every: (usize, usize),
     min_snr: f64,
@@ -62,7 +66,7 @@ pub fn vector_bins<T: Copy>(
     samples
         .iter()
         .enumerate()
-        .filter_map(|(i, s)| s.map(|s| (i / cols, i % cols, s)))
+        .filter_map(|(i, s)| s.map(|s| (first_row + i / cols, i % cols, s)))
         .filter(|&(r, c, _)| r % er == er / 2 && c % ec == ec / 2)
         .filter(|(_, _, s)| min_snr <= 0.0 || snr(s) >= min_snr)
         .collect()

@@ -203,6 +203,20 @@ impl GeoTiffWriter {
             .map_err(|e| FlexureError::write(&target, gdal_failure("band metadata", e)))
     }
 
+    /// Sets dataset metadata item `key` (default domain) after rows were written: for a value
+    /// known only once the whole grid has streamed through (e.g. a scale taken from every
+    /// bin). GDAL writes it with the file's directory when the file is finished.
+    pub fn set_metadata_item(&mut self, key: &str, value: &str) -> Result<()> {
+        let target = self.staged.target().to_path_buf();
+        let dataset = self
+            .dataset
+            .as_mut()
+            .ok_or_else(|| FlexureError::write(&target, "internal: written after finishing"))?;
+        dataset
+            .set_metadata_item(key, value, "")
+            .map_err(|e| FlexureError::write(&target, gdal_failure("metadata", e)))
+    }
+
     /// Flushes and closes the file, converts it to a Cloud Optimized GeoTIFF when asked, reads
     /// it back to check its size and band count, and hands it over for the job's commit.
     pub fn finish(mut self) -> Result<StagedFile> {

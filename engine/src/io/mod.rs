@@ -17,6 +17,7 @@
 //! [`vector`]. SEG-Y volumes (azimuth-sector seismic) are read trace by trace, window by
 //! window, and written for fixtures and demo data by [`segy`].
 
+mod band_rows;
 pub mod geotiff;
 pub mod nulls;
 pub mod points;
@@ -25,6 +26,7 @@ mod staged;
 pub mod table;
 pub mod vector;
 
+pub use band_rows::RowSource;
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
 pub use staged::{
@@ -159,22 +161,11 @@ pub fn read_grid(path: &Path, options: &ReadOptions) -> Result<Grid> {
 /// the rest is refused, naming the value and `--nodata` (see [`nulls`]); other far outliers
 /// are kept and noted.
 pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
-    capture_gdal_messages();
-    if !path.is_file() {
-        return Err(FlexureError::read(path, "no such file"));
-    }
-    if points::is_point_list(path) {
-        return read_point_list(path, options);
-    }
-    let ds = match Dataset::open(path) {
-        Ok(ds) => ds,
-        // A text file GDAL cannot read is most likely a point list with something unusual in
-        // it: the point reader names the line.
-        Err(_) if points::is_plain_text(path) => return read_point_list(path, options),
-        Err(e) => return Err(FlexureError::read(path, e)),
+    let ds = match band_rows::open_input(path, options)? {
+        band_rows::Opened::Points(raster) => return Ok(raster),
+        band_rows::Opened::Dataset(ds) => ds,
     };
     let geometry = read_geometry(&ds, path, options.crs.as_deref())?;
-    let size = (geometry.cols, geometry.rows);
     let count = ds.raster_count();
     check_only_band(path, options, count)?;
     let wanted = |i: usize| options.only_band.is_none_or(|b| b + 1 == i);
@@ -182,12 +173,14 @@ pub fn read_raster(path: &Path, options: &ReadOptions) -> Result<Raster> {
     for i in (1..=count).filter(|&i| wanted(i)) {
         let band = ds.rasterband(i).map_err(|e| FlexureError::read(path, e))?;
         let nodata = band.no_data_value();
-        let mut values = band
-            .read_as::<f64>((0, 0), size, size, None)
-            .map_err(|e| FlexureError::read(path, e))?
-            .to_array()
-            .map_err(|e| FlexureError::read(path, e))?;
-        values.mapv_inplace(|v| nulls::null_to_nan(v, nodata, &options.nodata));
+        let values = band_rows::read_band_rows(
+            &band,
+            0..geometry.rows,
+            geometry.cols,
+            nodata,
+            &options.nodata,
+        )
+        .map_err(|e| FlexureError::read(path, e))?;
         read.push((i, nodata, values));
     }
     let info = raster_info(&ds, path)?;

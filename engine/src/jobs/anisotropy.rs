@@ -1,29 +1,41 @@
 //! The anisotropy job: read azimuth-sector time grids (one file per sector or one band per
-//! sector), convert the sector azimuths to grid north, fit the cos 2phi model in every bin and
-//! write `anisotropy.tif` and the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and
-//! committed together.
+//! sector, or the interval between two horizons' sector-time rasters), convert the sector
+//! azimuths to grid north, fit the cos 2phi model in every bin and write `anisotropy.tif` and
+//! the map vectors (GeoPackage and RFC 7946 GeoJSON), all staged and committed together. The
+//! inputs (azimuths declared by the bands, correlation-quality weights, reference times) are
+//! gathered by [`SectorInputs`].
+//!
+//! The grids stream through the fit in batches of whole rows (read by runs of rows):
+//! each batch's sector times and weights are read, every bin fitted, and the batch's bands
+//! written to the GeoTIFF before the next batch is read. A bin's fit depends on that bin's
+//! values alone, so the results are the same bits whatever the batch size and thread count.
+//! Beyond a batch the job keeps only what its outputs need: the fits of the bins that get a map
+//! vector, and three float32 values (4 bytes each) per fitted bin for the report's medians and
+//! 95th percentiles.
 
+use super::sector_inputs::SectorInputs;
+use super::{batch_rows, default_memory_budget};
 use crate::anisotropy::vectors::{
     default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
 };
 use crate::anisotropy::{
-    fit_sector_grids, SectorFit, SectorWeight, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
+    fit_sector_grids, SectorFit, DEFAULT_MIN_SECTORS, FIT_BANDS, MIN_SECTORS_FLOOR,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
+use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::vector::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
 };
-use crate::io::Raster;
 use crate::io::{
-    commit_all, prepare_output_dir, read_raster, refuse_overwrite, stage_float_geotiff, BandOut,
-    ReadOptions, TiffOptions,
+    commit_all, nodata_if_null, prepare_output_dir, refuse_overwrite, GeoTiffWriter, ReadOptions,
+    TiffOptions, NODATA,
 };
 use crate::provenance::Provenance;
 use crate::stats::{self, Quantile};
-use crate::surface::horizon::DeclaredUnit;
-use ndarray::Array2;
+use rayon::prelude::*;
 use std::fmt;
+use std::ops::Range;
 use std::path::{Path, PathBuf};
 
 /// Usual largest peak-to-peak time difference between sectors, ms (common practice).
@@ -61,14 +73,23 @@ pub enum WeightSource {
     PerSector(Vec<f64>),
     /// One weight grid per sector (files, or the bands of one file), on the sectors' grid.
     Grids(Vec<PathBuf>),
+    /// The correlation quality beside each sector-time raster
+    /// ([`crate::anisotropy::sector_rasters`]: `sector_quality.tif`, bands matched by
+    /// `AZIMUTH_DEG`), as the inverse-variance weight `c^2 / (1 - c^2)`, `c` capped at 0.99.
+    Quality,
 }
 
 /// Options of the anisotropy job.
 #[derive(Clone, Debug)]
 pub struct AnisotropyJob {
-    /// One single-band grid per sector, or one raster with a band per sector.
+    /// One single-band grid per sector, or one raster with a band per sector; with `top`, the
+    /// base horizon's sector-time raster alone.
     pub inputs: Vec<PathBuf>,
-    /// Sector-centre azimuths in degrees, one per sector, in input (band) order.
+    /// The top horizon's sector-time raster: the sectors fitted are then the interval times
+    /// base (`inputs`) minus top, matched by azimuth (layer stripping).
+    pub top: Option<PathBuf>,
+    /// Sector-centre azimuths in degrees, one per sector, in input (band) order; empty to use
+    /// the azimuths the bands declare (`AZIMUTH_DEG`, from grid north).
     pub azimuths: Vec<f64>,
     /// North of `azimuths`.
     pub reference: AzimuthReference,
@@ -86,10 +107,16 @@ pub struct AnisotropyJob {
     pub axis: VectorAxis,
     /// Vector length in metres per ms of magnitude; automatic when `None`.
     pub vector_scale: Option<f64>,
+    /// The isotropic two-way time (ms) of `anisotropy_percent` for inputs whose metadata names
+    /// none (`REFERENCE_TIME_FILE`); a single sector input only.
+    pub reference_time: Option<PathBuf>,
     /// How to read the inputs (assumed CRS, null sentinels, point-list columns).
     pub read: ReadOptions,
     /// How output GeoTIFFs are compressed and laid out.
     pub tiff: TiffOptions,
+    /// Working memory in bytes for the row batches and GDAL's block cache;
+    /// [`default_memory_budget`] when `None`.
+    pub memory: Option<u64>,
 }
 
 impl AnisotropyJob {
@@ -98,6 +125,7 @@ impl AnisotropyJob {
     pub fn new(inputs: Vec<PathBuf>, azimuths: Vec<f64>, out_dir: impl Into<PathBuf>) -> Self {
         Self {
             inputs,
+            top: None,
             azimuths,
             reference: AzimuthReference::Grid,
             weights: WeightSource::Equal,
@@ -107,8 +135,10 @@ impl AnisotropyJob {
             min_snr: 2.0,
             axis: VectorAxis::Fast,
             vector_scale: None,
+            reference_time: None,
             read: ReadOptions::default(),
             tiff: TiffOptions::default(),
+            memory: None,
         }
     }
 
@@ -126,41 +156,36 @@ impl AnisotropyJob {
         self.out_dir.join(format!("anisotropy_vectors.{ext}"))
     }
 
-    /// Runs the job and reports what it wrote.
+    /// Runs the job and reports what it wrote. The grids stream through the fit in batches of
+    /// rows (see the module notes); the outputs are staged and committed together at the end.
     pub fn run(&self) -> Result<AnisotropyReport> {
         self.check_parameters()?;
-        let sectors = read_stack(&self.inputs, &self.read, Units::Time)?;
-        let n = sectors.grids.len();
-        if n < MIN_SECTORS_FLOOR {
-            return Err(FlexureError::Parameter(format!(
-                "{n} sector grid(s) given: the cos 2phi fit needs at least {MIN_SECTORS_FLOOR} sectors"
-            )));
-        }
-        if self.azimuths.len() != n {
-            return Err(FlexureError::Parameter(format!(
-                "{} azimuths given for {n} sector grids: give one --azimuths value per sector",
-                self.azimuths.len()
-            )));
-        }
+        let budget = self.memory.unwrap_or_else(default_memory_budget);
+        set_block_cache(budget / 4);
+        let sectors = SectorInputs::open(self)?;
+        let n = sectors.len();
         if self.min_sectors > n {
             return Err(FlexureError::Parameter(format!(
                 "--min-sectors {} exceeds the {n} sectors given",
                 self.min_sectors
             )));
         }
-        refuse_duplicate_sectors(&self.azimuths, &sectors)?;
-        let weights = self.read_weights(&sectors)?;
-        let convergence = self.convergence_to_apply(&sectors)?;
-        let grid_azimuths: Vec<f64> = self
-            .azimuths
-            .iter()
-            .map(|a| (a - convergence.unwrap_or(0.0)).rem_euclid(360.0))
+        let geometry = &sectors.geometry;
+        // batch_rows counts 8 bytes per band and bin.
+        let batch = batch_rows(
+            budget / 2,
+            geometry.cols,
+            bin_bytes(sectors.values_per_bin()).div_ceil(8),
+            0,
+        );
+        let batches: Vec<Range<usize>> = (0..geometry.rows)
+            .step_by(batch)
+            .map(|r| r..(r + batch).min(geometry.rows))
             .collect();
+        refuse_duplicate_sectors(&sectors, &batches)?;
         prepare_output_dir(&self.out_dir)?;
-        let mut inputs: Vec<&Path> = self.inputs.iter().map(PathBuf::as_path).collect();
-        if let WeightSource::Grids(paths) = &self.weights {
-            inputs.extend(paths.iter().map(PathBuf::as_path));
-        }
+        let inputs = sectors.files();
+        let inputs: Vec<&Path> = inputs.iter().map(PathBuf::as_path).collect();
         let outputs = [
             self.raster_path(),
             self.vector_path(VectorFormat::GeoPackage),
@@ -169,8 +194,69 @@ impl AnisotropyJob {
         for out in &outputs {
             refuse_overwrite(out, &inputs)?;
         }
-        let fits = fit_sector_grids(&sectors.grids, &grid_azimuths, &weights, self.min_sectors);
-        self.write(&sectors, &grid_azimuths, convergence, &fits)
+        let metadata = self.metadata(&sectors, &inputs)?;
+        let specs: Vec<BandSpec> = FIT_BANDS
+            .iter()
+            .map(|b| BandSpec {
+                description: b.id,
+                unit: b.unit,
+            })
+            .collect();
+        let mut writer = GeoTiffWriter::create::<f32>(
+            &self.raster_path(),
+            geometry,
+            &specs,
+            &metadata,
+            self.tiff,
+            Layout::Float,
+        )?;
+        let mut kept = Kept::default();
+        for rows in batches {
+            let times = (0..n)
+                .map(|k| sectors.read_times(k, rows.clone()))
+                .collect::<Result<Vec<_>>>()?;
+            let weights = sectors.read_weights(rows.clone())?;
+            let fits = fit_sector_grids(&times, &sectors.grid_azimuths, &weights, self.min_sectors);
+            drop((times, weights));
+            let isotropic = sectors.isotropic_times(rows.clone(), &fits)?;
+            for (b, band) in FIT_BANDS.iter().enumerate() {
+                let values: Vec<f32> = fits
+                    .par_iter()
+                    .zip(&isotropic)
+                    .map(|(f, &t)| f.map_or(NODATA, |f| nodata_if_null((band.value)(&f, t) as f32)))
+                    .collect();
+                writer.write_rows(b, rows.start, values)?;
+            }
+            kept.add(&fits, rows.start, geometry.cols, self.every, self.min_snr);
+        }
+        let (sx, sy) = geometry.spacing();
+        let spacing_m = sx.min(sy) * geometry.metres_per_unit;
+        let scale = self.vector_scale.unwrap_or_else(|| {
+            default_vector_scale(
+                kept.vectors.iter().map(|k| k.2.magnitude),
+                self.every as f64 * spacing_m,
+            )
+        });
+        writer.set_metadata_item("FLEXURE_VECTOR_SCALE_M_PER_MS", &format!("{scale:.6}"))?;
+        let mut staged = vec![writer.finish()?];
+        let features: Vec<VectorFeature> = kept
+            .vectors
+            .iter()
+            .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
+            .collect();
+        let layer = Layer {
+            name: "anisotropy_vectors",
+            kind: GeometryKind::Line,
+            fields: &VECTOR_FIELDS,
+            features: &features,
+        };
+        staged.extend(stage_both_formats(
+            &self.out_dir,
+            &geometry.crs_wkt,
+            &layer,
+        )?);
+        commit_all(staged)?;
+        Ok(self.report(&sectors, kept, scale))
     }
 
     fn check_parameters(&self) -> Result<()> {
@@ -212,176 +298,74 @@ impl AnisotropyJob {
                 return bad(format!("weight {v} must be a positive number"));
             }
         }
+        if let Some(top) = &self.top {
+            match self.inputs.as_slice() {
+                [base] if base == top => {
+                    return bad(format!(
+                        "--top and --base are the same file {}: give the top and the base horizon's sector times",
+                        top.display()
+                    ))
+                }
+                [_] => {}
+                _ => {
+                    return bad(
+                        "with --top, give the base horizon's sector times as one raster (--base)"
+                            .into(),
+                    )
+                }
+            }
+        }
         Ok(())
     }
 
-    fn read_weights(&self, sectors: &Stack) -> Result<Vec<SectorWeight>> {
-        let n = sectors.grids.len();
-        match &self.weights {
-            WeightSource::Equal => Ok(vec![SectorWeight::Constant(1.0); n]),
-            WeightSource::PerSector(w) if w.len() == n => {
-                Ok(w.iter().map(|&v| SectorWeight::Constant(v)).collect())
-            }
-            WeightSource::PerSector(w) => Err(FlexureError::Parameter(format!(
-                "{} weights given for {n} sectors: give one weight per sector",
-                w.len()
-            ))),
-            WeightSource::Grids(paths) => {
-                let weights = ReadOptions {
-                    find_sentinels: false,
-                    ..self.read.clone()
-                };
-                let stack = read_stack(paths, &weights, Units::Weight)?;
-                if stack.grids.len() != n {
-                    return Err(FlexureError::Parameter(format!(
-                        "{} weight grids given for {n} sectors: give one weight grid per sector",
-                        stack.grids.len()
-                    )));
-                }
-                if let Some(why) = stack.geometry.mismatch(&sectors.geometry) {
-                    return Err(FlexureError::input(
-                        &paths[0],
-                        format!("weight grids are not on the sector grids' grid ({why}): give weights on the sector bins"),
-                    ));
-                }
-                Ok(stack.grids.into_iter().map(SectorWeight::Grid).collect())
-            }
-        }
-    }
-
-    /// The convergence subtracted from the given azimuths (`None` for grid-north azimuths).
-    fn convergence_to_apply(&self, sectors: &Stack) -> Result<Option<f64>> {
-        match self.reference {
-            AzimuthReference::Grid => Ok(None),
-            AzimuthReference::True {
-                convergence: Some(g),
-            } => Ok(Some(g)),
-            AzimuthReference::True { convergence: None } => {
-                sectors.geometry.convergence().map(Some).map_err(|e| {
-                    FlexureError::input(
-                        &self.inputs[0],
-                        format!("cannot compute the grid convergence from its CRS ({e}): give --convergence DEG"),
-                    )
-                })
-            }
-        }
-    }
-
-    fn write(
-        &self,
-        sectors: &Stack,
-        grid_azimuths: &[f64],
-        convergence: Option<f64>,
-        fits: &[Option<SectorFit>],
-    ) -> Result<AnisotropyReport> {
-        let geometry = &sectors.geometry;
-        let bands: Vec<BandOut> = FIT_BANDS
-            .iter()
-            .map(|b| BandOut {
-                description: b.id,
-                unit: b.unit,
-                values: Array2::from_shape_fn((geometry.rows, geometry.cols), |(r, c)| {
-                    fits[r * geometry.cols + c].map_or(f32::NAN, |f| (b.value)(&f) as f32)
-                }),
-            })
-            .collect();
-        let kept = vector_bins(
-            fits,
-            geometry.cols,
-            (self.every, self.every),
-            self.min_snr,
-            SectorFit::snr,
-        );
-        let (sx, sy) = geometry.spacing();
-        let spacing_m = sx.min(sy) * geometry.metres_per_unit;
-        let scale = self.vector_scale.unwrap_or_else(|| {
-            default_vector_scale(
-                kept.iter().map(|k| k.2.magnitude),
-                self.every as f64 * spacing_m,
-            )
-        });
-        let features: Vec<VectorFeature> = kept
-            .iter()
-            .map(|&(r, c, f)| line_feature(geometry, r, c, &f, self.axis, scale))
-            .collect();
-        let metadata = self.metadata(sectors, grid_azimuths, convergence, scale)?;
-        let raster =
-            stage_float_geotiff(&self.raster_path(), geometry, &bands, &metadata, self.tiff)?;
-        let mut staged = vec![raster];
-        let layer = Layer {
-            name: "anisotropy_vectors",
-            kind: GeometryKind::Line,
-            fields: &VECTOR_FIELDS,
-            features: &features,
-        };
-        staged.extend(stage_both_formats(
-            &self.out_dir,
-            &geometry.crs_wkt,
-            &layer,
-        )?);
-        commit_all(staged)?;
-        Ok(self.report(
-            sectors,
-            grid_azimuths,
-            convergence,
-            fits,
-            features.len(),
-            scale,
-        ))
-    }
-
-    fn metadata(
-        &self,
-        sectors: &Stack,
-        grid_azimuths: &[f64],
-        convergence: Option<f64>,
-        scale: f64,
-    ) -> Result<Vec<(String, String)>> {
+    fn metadata(&self, sectors: &SectorInputs, inputs: &[&Path]) -> Result<Vec<(String, String)>> {
         let item = |k: &str, v: String| (k.to_string(), v);
         let centre_convergence = sectors
             .geometry
             .convergence()
             .map_or("unknown".to_string(), |g| format!("{g:.6}"));
-        let mut inputs: Vec<&Path> = self.inputs.iter().map(PathBuf::as_path).collect();
-        if let WeightSource::Grids(paths) = &self.weights {
-            inputs.extend(paths.iter().map(PathBuf::as_path));
-        }
-        let mut items = Provenance::of_inputs(&inputs)?.items().to_vec();
+        let mut items = Provenance::of_inputs(inputs)?.items().to_vec();
+        let azimuths_from = match sectors.declared {
+            true => "the bands' AZIMUTH_DEG metadata (grid north)",
+            false => "--azimuths",
+        };
         items.extend([
             item("FLEXURE_NODATA_SENTINELS", format!("{:?}", self.read.nodata)),
             item("FLEXURE_SECTORS", sectors.labels.join(", ")),
-            item("FLEXURE_SECTOR_AZIMUTHS_GRID_DEG", join_numbers(grid_azimuths)),
+            item("FLEXURE_SECTOR_AZIMUTHS_FROM", azimuths_from.into()),
+            item("FLEXURE_SECTOR_AZIMUTHS_GRID_DEG", join_numbers(&sectors.grid_azimuths)),
             item(
                 "FLEXURE_CONVERGENCE_APPLIED_DEG",
-                convergence.map_or("none (azimuths given from grid north)".into(), |g| g.to_string()),
+                sectors.convergence.map_or("none (azimuths from grid north)".into(), |g| g.to_string()),
             ),
             item("FLEXURE_GRID_CONVERGENCE_AT_CENTRE_DEG", centre_convergence),
-            item("FLEXURE_WEIGHTS", format!("{:?}", self.weights)),
+            item("FLEXURE_WEIGHTS", sectors.weights()),
             item("FLEXURE_MIN_SECTORS", self.min_sectors.to_string()),
-            item("FLEXURE_VECTOR_SCALE_M_PER_MS", format!("{scale:.6}")),
             item("FLEXURE_UNITS", "times ms, azimuths degrees clockwise from grid north".into()),
             item("FLEXURE_METHOD", "weighted least squares t = A + a1 cos 2phi + a2 sin 2phi per bin; covariance standard errors; Rice bias after Wardle & Kronberg 1974".into()),
+            item("FLEXURE_ANISOTROPY_PERCENT", format!("100 x 2B / T, T = {}", sectors.reference_time())),
             item("FLEXURE_CAUTION", HTI_CAUTION.into()),
         ]);
+        if let Some((top, base)) = sectors.interval() {
+            items.push(item(
+                "FLEXURE_INTERVAL",
+                format!(
+                    "sector times of {} minus those of {}, sector by sector (layer stripping)",
+                    base.display(),
+                    top.display()
+                ),
+            ));
+        }
         Ok(items)
     }
 
-    fn report(
-        &self,
-        sectors: &Stack,
-        grid_azimuths: &[f64],
-        convergence: Option<f64>,
-        fits: &[Option<SectorFit>],
-        vectors: usize,
-        scale: f64,
-    ) -> AnisotropyReport {
-        let fitted: Vec<SectorFit> = fits.iter().flatten().copied().collect();
-        let magnitude = quantiles(fitted.iter().map(|f| f.magnitude));
+    fn report(&self, sectors: &SectorInputs, kept: Kept, scale: f64) -> AnisotropyReport {
+        let magnitude = quantiles(kept.magnitude);
         let mut notes = sectors.notes.clone();
-        if sectors.grids.len() < USUAL_MIN_SECTORS {
+        if sectors.len() < USUAL_MIN_SECTORS {
             notes.push(format!(
                 "only {} sectors: {USUAL_MIN_SECTORS} to 8 are usual; azimuths and errors are weakly constrained",
-                sectors.grids.len()
+                sectors.len()
             ));
         }
         if let Some((_, p95)) = magnitude {
@@ -392,25 +376,33 @@ impl AnisotropyJob {
                 ));
             }
         }
+        if let Some(why) = sectors.no_reference_time() {
+            notes.push(format!("anisotropy_percent is nodata everywhere: {why}"));
+        }
         AnisotropyReport {
             sectors: sectors
                 .labels
                 .iter()
                 .cloned()
-                .zip(grid_azimuths.iter().copied())
+                .zip(sectors.grid_azimuths.iter().copied())
                 .collect(),
+            azimuths_declared: sectors.declared,
+            interval: sectors
+                .interval()
+                .map(|(t, b)| (t.to_path_buf(), b.to_path_buf())),
             grid: sectors.geometry.describe(),
-            convergence,
-            fitted_share: fitted.len() as f64 / fits.len().max(1) as f64,
+            convergence: sectors.convergence,
+            fitted_share: kept.fitted as f64 / kept.bins.max(1) as f64,
             magnitude,
-            magnitude_stderr: quantiles(fitted.iter().map(|f| f.magnitude_stderr)),
-            azimuth_stderr: quantiles(fitted.iter().map(|f| f.azimuth_stderr)),
+            magnitude_stderr: quantiles(kept.magnitude_stderr),
+            azimuth_stderr: quantiles(kept.azimuth_stderr),
+            reference_time: sectors.reference_time(),
             raster: self.raster_path(),
             vector_files: vec![
                 self.vector_path(VectorFormat::GeoPackage),
                 self.vector_path(VectorFormat::GeoJson),
             ],
-            vectors,
+            vectors: kept.vectors.len(),
             scale,
             notes,
         }
@@ -470,154 +462,58 @@ fn line_feature(
     }
 }
 
-/// Co-registered grids read from one multi-band raster or from single-band rasters.
-struct Stack {
-    geometry: GridGeometry,
-    grids: Vec<Array2<f64>>,
-    /// One label per grid: the file name, with the band number for a multi-band file.
-    labels: Vec<String>,
-    /// The file of each grid.
-    paths: Vec<PathBuf>,
-    /// What the readers noticed (point-list lattices, outliers kept, seconds converted).
-    notes: Vec<String>,
+/// Bytes a bin takes in a batch: `values` f64 values read for it (sector times, weight grids,
+/// reference times, its isotropic time), its fit, and one output band's float32 value (the
+/// bands are written one at a time).
+fn bin_bytes(values: usize) -> usize {
+    8 * values + std::mem::size_of::<Option<SectorFit>>() + 4
 }
 
-/// What the values of a stack are: sector times (ms; declared seconds are converted, declared
-/// lengths refused) or weights (any unit).
-#[derive(Clone, Copy, PartialEq)]
-enum Units {
-    Time,
-    Weight,
+/// What a run keeps of the fits beyond their batch: bin counts, the reported quantities of
+/// every fitted bin as float32 (for the report's quantiles) and the fits of the vector bins.
+#[derive(Default)]
+struct Kept {
+    bins: usize,
+    fitted: usize,
+    magnitude: Vec<f32>,
+    magnitude_stderr: Vec<f32>,
+    azimuth_stderr: Vec<f32>,
+    /// `(row, col, fit)` of the bins that get a vector ([`vector_bins`]), row-major.
+    vectors: Vec<(usize, usize, SectorFit)>,
 }
 
-impl Units {
-    fn what(self) -> &'static str {
-        match self {
-            Units::Time => "sector",
-            Units::Weight => "weight",
+impl Kept {
+    /// Takes what is kept of one batch's fits (whole rows from grid row `first_row`).
+    fn add(
+        &mut self,
+        fits: &[Option<SectorFit>],
+        first_row: usize,
+        cols: usize,
+        every: usize,
+        min_snr: f64,
+    ) {
+        self.bins += fits.len();
+        for f in fits.iter().flatten() {
+            self.fitted += 1;
+            self.magnitude.push(f.magnitude as f32);
+            self.magnitude_stderr.push(f.magnitude_stderr as f32);
+            self.azimuth_stderr.push(f.azimuth_stderr as f32);
         }
+        self.vectors.extend(vector_bins(
+            fits,
+            first_row,
+            cols,
+            (every, every),
+            min_snr,
+            SectorFit::snr,
+        ));
     }
-}
-
-/// Reads one file of a stack, converting sector times declared in seconds to ms and refusing
-/// sector grids declared in a length unit.
-fn read_stack_file(path: &Path, read: &ReadOptions, units: Units) -> Result<Raster> {
-    let mut raster = read_raster(path, read)?;
-    if units == Units::Weight {
-        return Ok(raster);
-    }
-    for (band, unit) in raster.bands.iter_mut().zip(&raster.info.units) {
-        match DeclaredUnit::parse(unit) {
-            Some(DeclaredUnit::Seconds) => {
-                band.mapv_inplace(|t| t * 1000.0);
-                raster.notes.push(format!(
-                    "{}: a band declared in seconds converted to ms",
-                    path.display()
-                ));
-            }
-            Some(DeclaredUnit::Length(_)) => {
-                return Err(FlexureError::input(
-                    path,
-                    format!("declares its values in '{unit}', a length: sector grids hold two-way times or time shifts in ms"),
-                ))
-            }
-            _ => {}
-        }
-    }
-    Ok(raster)
-}
-
-/// Reads `paths` as a stack of `what` grids: the bands of one file, or one band per file, all
-/// on the same grid.
-fn read_stack(paths: &[PathBuf], read: &ReadOptions, units: Units) -> Result<Stack> {
-    let what = units.what();
-    let name = |p: &Path| {
-        p.file_name()
-            .unwrap_or_default()
-            .to_string_lossy()
-            .to_string()
-    };
-    if let [path] = paths {
-        let Raster {
-            geometry,
-            bands: grids,
-            info,
-            notes,
-        } = read_stack_file(path, read, units)?;
-        let labels = info
-            .names
-            .iter()
-            .enumerate()
-            .map(|(b, n)| match n.is_empty() {
-                true => format!("{} band {}", name(path), b + 1),
-                false => format!("{} band {} ({n})", name(path), b + 1),
-            })
-            .collect();
-        let paths = vec![path.clone(); grids.len()];
-        return Ok(Stack {
-            geometry,
-            grids,
-            labels,
-            paths,
-            notes,
-        });
-    }
-    let mut stack: Option<Stack> = None;
-    for path in paths {
-        if paths.iter().filter(|p| *p == path).count() > 1 {
-            return Err(FlexureError::input(
-                path,
-                format!("is given twice as a {what} grid: give each sector once"),
-            ));
-        }
-        let Raster {
-            geometry,
-            bands: mut grids,
-            notes,
-            ..
-        } = read_stack_file(path, read, units)?;
-        if grids.len() != 1 {
-            return Err(FlexureError::input(
-                path,
-                format!(
-                    "has {} bands: give one single-band {what} grid per sector, or one raster with a band per sector",
-                    grids.len()
-                ),
-            ));
-        }
-        match &mut stack {
-            None => {
-                stack = Some(Stack {
-                    geometry,
-                    grids,
-                    labels: vec![name(path)],
-                    paths: vec![path.clone()],
-                    notes,
-                })
-            }
-            Some(s) => {
-                if let Some(why) = s.geometry.mismatch(&geometry) {
-                    return Err(FlexureError::input(
-                        path,
-                        format!(
-                            "is not on the grid of {} ({why}): give every {what} grid on the same bins",
-                            s.labels[0]
-                        ),
-                    ));
-                }
-                s.grids.append(&mut grids);
-                s.labels.push(name(path));
-                s.paths.push(path.clone());
-                s.notes.extend(notes);
-            }
-        }
-    }
-    stack.ok_or_else(|| FlexureError::Parameter(format!("no {what} grid given")))
 }
 
 /// Refuses an azimuth given twice (equal modulo 360) and two sectors whose azimuths coincide
-/// modulo 180 but hold identical times (the same data given twice).
-fn refuse_duplicate_sectors(azimuths: &[f64], sectors: &Stack) -> Result<()> {
+/// modulo 180 but hold identical times (the same data given twice; compared batch by batch).
+fn refuse_duplicate_sectors(sectors: &SectorInputs, batches: &[Range<usize>]) -> Result<()> {
+    let azimuths = &sectors.azimuths;
     for i in 0..azimuths.len() {
         for j in i + 1..azimuths.len() {
             let d180 = (azimuths[i] - azimuths[j]).rem_euclid(180.0);
@@ -625,18 +521,30 @@ fn refuse_duplicate_sectors(azimuths: &[f64], sectors: &Stack) -> Result<()> {
                 continue;
             }
             let same_angle = (azimuths[i] - azimuths[j]).rem_euclid(360.0) == 0.0;
-            let same_data = sectors.grids[i]
-                .iter()
-                .zip(sectors.grids[j].iter())
-                .all(|(a, b)| a.to_bits() == b.to_bits());
-            if same_angle || same_data {
+            let same_data = || -> Result<bool> {
+                for rows in batches {
+                    let (a, b) = (
+                        sectors.read_times(i, rows.clone())?,
+                        sectors.read_times(j, rows.clone())?,
+                    );
+                    if !a
+                        .iter()
+                        .zip(b.iter())
+                        .all(|(a, b)| a.to_bits() == b.to_bits())
+                    {
+                        return Ok(false);
+                    }
+                }
+                Ok(true)
+            };
+            if same_angle || same_data()? {
                 let why = if same_angle {
                     "the same azimuth is given twice"
                 } else {
                     "they hold identical times (the same data given twice)"
                 };
                 return Err(FlexureError::input(
-                    &sectors.paths[j],
+                    sectors.path_of(j),
                     format!(
                         "sectors {} ({} deg) and {} ({} deg) cannot both be used: {why}",
                         sectors.labels[i], azimuths[i], sectors.labels[j], azimuths[j]
@@ -656,16 +564,20 @@ fn join_numbers(v: &[f64]) -> String {
 }
 
 /// (median, 95th percentile) of the finite values ([`Quantile::Nearest`]), if any.
-fn quantiles(values: impl Iterator<Item = f64>) -> Option<(f64, f64)> {
-    let mut v: Vec<f64> = values.filter(|x| x.is_finite()).collect();
+fn quantiles(values: Vec<f32>) -> Option<(f64, f64)> {
+    let finite = values.into_iter().filter(|x| x.is_finite());
+    let mut v: Vec<f64> = finite.map(f64::from).collect();
     stats::quantiles(&mut v, [0.5, 0.95], Quantile::Nearest).map(|[p50, p95]| (p50, p95))
 }
-
 /// What an anisotropy job wrote.
 #[derive(Clone, Debug)]
 pub struct AnisotropyReport {
     /// (label, azimuth from grid north) per sector.
     pub sectors: Vec<(String, f64)>,
+    /// Whether the azimuths were read from the bands' `AZIMUTH_DEG` (else given).
+    pub azimuths_declared: bool,
+    /// The (top, base) rasters when the sectors are an interval's (base minus top).
+    pub interval: Option<(PathBuf, PathBuf)>,
     /// One-line description of the grid.
     pub grid: String,
     /// Convergence subtracted from true-north azimuths, if any (degrees).
@@ -678,6 +590,8 @@ pub struct AnisotropyReport {
     pub magnitude_stderr: Option<(f64, f64)>,
     /// (median, 95th percentile) of the azimuth standard error, degrees.
     pub azimuth_stderr: Option<(f64, f64)>,
+    /// What the isotropic two-way time T of `anisotropy_percent` is (or why it is unknown).
+    pub reference_time: String,
     /// The raster written.
     pub raster: PathBuf,
     /// The vector files written.
@@ -693,8 +607,20 @@ pub struct AnisotropyReport {
 impl fmt::Display for AnisotropyReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         writeln!(f, "sectors: {}, on {}", self.sectors.len(), self.grid)?;
+        if let Some((top, base)) = &self.interval {
+            writeln!(
+                f,
+                "  interval: {} minus {}, sector by sector",
+                base.display(),
+                top.display()
+            )?;
+        }
+        let declared = match self.azimuths_declared {
+            true => " (declared by the bands)",
+            false => "",
+        };
         for (label, az) in &self.sectors {
-            writeln!(f, "  {label}: {az:.3} deg from grid north")?;
+            writeln!(f, "  {label}: {az:.3} deg from grid north{declared}")?;
         }
         if let Some(g) = self.convergence {
             writeln!(
@@ -716,6 +642,11 @@ impl fmt::Display for AnisotropyReport {
         line(f, "azimuth_stderr", self.azimuth_stderr, "deg")?;
         writeln!(
             f,
+            "anisotropy_percent: 100 x 2B / T, T = {}",
+            self.reference_time
+        )?;
+        writeln!(
+            f,
             "wrote {} ({} bands)",
             self.raster.display(),
             FIT_BANDS.len()
@@ -733,5 +664,155 @@ impl fmt::Display for AnisotropyReport {
             writeln!(f, "note: {n}")?;
         }
         writeln!(f, "{HTI_CAUTION}")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::anisotropy::SectorWeight;
+    use crate::io::{read_raster, write_float_geotiff, BandOut};
+    use crate::stats::SeededNoise;
+    use gdal::vector::LayerAccess;
+    use ndarray::Array2;
+
+    /// Eight sectors of `t = 1000 + 3 cos 2(phi - slow(r, c)) + noise` ms on a 700 x 40 grid,
+    /// with null runs across the 256-row batch boundaries and a patch of unfitted bins, as one
+    /// multi-band raster; and fold
+    /// grids with zero-fold bins (sectors left out there).
+    fn inputs(dir: &Path) -> (PathBuf, PathBuf, Vec<f64>) {
+        let wkt = gdal::spatial_ref::SpatialRef::from_epsg(32625)
+            .unwrap()
+            .to_wkt()
+            .unwrap();
+        let geometry =
+            GridGeometry::survey((500_000.0, 3_900_000.0), 30.0, (25.0, 25.0), (40, 700), wkt);
+        let azimuths: Vec<f64> = (0..8).map(|k| 11.25 + 22.5 * k as f64).collect();
+        let mut rng = SeededNoise::new(12);
+        let times: Vec<Array2<f32>> = azimuths
+            .iter()
+            .enumerate()
+            .map(|(k, &phi)| {
+                let mut t = Array2::from_shape_fn((700, 40), |(r, c)| {
+                    let slow = 20.0 + 0.2 * r as f64 + c as f64;
+                    let t = 1000.0 + 3.0 * (2.0 * (phi - slow).to_radians()).cos();
+                    (t + 0.3 * rng.gaussian()) as f32
+                });
+                for r in 250 + k..262 + k {
+                    t[(r, 5 + k)] = f32::NAN;
+                }
+                // Five sectors of eight null: too few for a fit there.
+                if k < 5 {
+                    t.slice_mut(ndarray::s![510..516, 30..34]).fill(f32::NAN);
+                }
+                t
+            })
+            .collect();
+        let fold: Vec<Array2<f32>> = (0..8)
+            .map(|k| Array2::from_shape_fn((700, 40), |(r, c)| ((r + 3 * c + k) % 17) as f32))
+            .collect();
+        let write = |name: &str, bands: Vec<Array2<f32>>| {
+            let path = dir.join(name);
+            let bands: Vec<BandOut> = bands
+                .into_iter()
+                .map(|values| BandOut {
+                    description: "t",
+                    unit: "",
+                    values,
+                })
+                .collect();
+            write_float_geotiff(&path, &geometry, &bands, &[]).unwrap();
+            path
+        };
+        (
+            write("sectors.tif", times),
+            write("fold.tif", fold),
+            azimuths,
+        )
+    }
+
+    /// Every feature of the vector layer of `path`: geometry as WKT and every field as text.
+    fn features(path: &Path) -> Vec<(String, Vec<String>)> {
+        let ds = gdal::Dataset::open(path).unwrap();
+        let mut layer = ds.layer(0).unwrap();
+        layer
+            .features()
+            .map(|f| {
+                let values = f
+                    .fields()
+                    .map(|(name, v)| format!("{name}={v:?}"))
+                    .collect();
+                (f.geometry().unwrap().wkt().unwrap(), values)
+            })
+            .collect()
+    }
+
+    /// A 700-row grid streamed in 256-row batches (a 1 MB budget) gives, bit for bit, the
+    /// bands, vectors and report of a run in one batch (1 GB), and both equal the fit of the
+    /// whole grids at once (the reference: `fit_sector_grids` on every bin, as the job computed
+    /// it before it streamed; `anisotropy_percent` of absolute times against the fitted A), read
+    /// back through GDAL.
+    #[test]
+    fn streamed_batches_equal_one_batch_and_the_whole_grid_fit() {
+        let dir = tempfile::tempdir().unwrap();
+        let (sectors, fold, azimuths) = inputs(dir.path());
+        let run = |name: &str, memory: u64| {
+            let mut job = AnisotropyJob::new(
+                vec![sectors.clone()],
+                azimuths.clone(),
+                dir.path().join(name),
+            );
+            job.weights = WeightSource::Grids(vec![fold.clone()]);
+            job.every = 3;
+            job.min_snr = 1.0;
+            job.memory = Some(memory);
+            let report = job.run().unwrap();
+            (job, report)
+        };
+        let (small, small_report) = run("small", 1 << 20);
+        let (large, large_report) = run("large", 1 << 30);
+        // The small budget takes several batches, the large one a single batch.
+        let batch = |memory: u64| batch_rows(memory / 2, 40, bin_bytes(8 + 8 + 1).div_ceil(8), 0);
+        assert_eq!(batch(1 << 20), 256);
+        assert!(batch(1 << 30) >= 700);
+        let read = |job: &AnisotropyJob| {
+            read_raster(&job.raster_path(), &ReadOptions::default())
+                .unwrap()
+                .bands
+        };
+        let bits = |bands: Vec<Array2<f64>>| -> Vec<Vec<u64>> {
+            bands
+                .iter()
+                .map(|b| b.iter().map(|v| v.to_bits()).collect())
+                .collect()
+        };
+        assert!(
+            bits(read(&small)) == bits(read(&large)),
+            "the rasters differ"
+        );
+        let json =
+            |job: &AnisotropyJob| std::fs::read(job.vector_path(VectorFormat::GeoJson)).unwrap();
+        assert!(json(&small) == json(&large), "the GeoJSON files differ");
+        let gpkg = |job: &AnisotropyJob| features(&job.vector_path(VectorFormat::GeoPackage));
+        assert!(gpkg(&small) == gpkg(&large), "the GeoPackages differ");
+        assert!(small_report.vectors > 100);
+        assert_eq!(small_report.vectors, large_report.vectors);
+        assert_eq!(small_report.magnitude, large_report.magnitude);
+        assert_eq!(small_report.azimuth_stderr, large_report.azimuth_stderr);
+        assert_eq!(small_report.scale, large_report.scale);
+
+        let whole = |p: &Path| read_raster(p, &ReadOptions::default()).unwrap().bands;
+        let weights: Vec<SectorWeight> = whole(&fold).into_iter().map(SectorWeight::Grid).collect();
+        let fits = fit_sector_grids(&whole(&sectors), &azimuths, &weights, DEFAULT_MIN_SECTORS);
+        assert!(fits.iter().any(Option::is_none) && fits.iter().any(Option::is_some));
+        for (band, written) in FIT_BANDS.iter().zip(read(&small)) {
+            let same = fits.iter().zip(written.iter()).all(|(f, &w)| {
+                match f.map(|f| (band.value)(&f, f.isotropic) as f32) {
+                    Some(e) if e.is_finite() => e.to_bits() == (w as f32).to_bits(),
+                    _ => w.is_nan(),
+                }
+            });
+            assert!(same, "{}", band.id);
+        }
     }
 }

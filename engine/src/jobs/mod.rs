@@ -6,6 +6,7 @@ mod curvature;
 mod grid;
 mod plan;
 mod render;
+mod sector_inputs;
 mod sector_times;
 mod stages;
 mod well_inputs;
@@ -21,8 +22,8 @@ pub use grid::{GridJob, GridReport};
 pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use sector_times::{
-    SectorTimesJob, SectorTimesReport, AZIMUTH_ITEM, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
-    DEFAULT_TRACE_TOLERANCE, REFERENCE_KIND_ITEM, REFERENCE_TIME_ITEM, SHIFTS_ITEM,
+    SectorTimesJob, SectorTimesReport, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
+    DEFAULT_TRACE_TOLERANCE,
 };
 pub use stages::{
     StagesJob, StagesReport, WellReport, DEFAULT_HALF_WIDTH, MIN_BINS, MIN_FITTED_SHARE,

@@ -267,7 +267,7 @@ impl RenderJob {
                 (n(sx), n(sy))
             }
         };
-        let kept = vector_bins(&samples, g.cols, every, self.min_snr, |s| s.snr);
+        let kept = vector_bins(&samples, 0, g.cols, every, self.min_snr, |s| s.snr);
         let spacing_m = (every.0 as f64 * sx).min(every.1 as f64 * sy) * g.metres_per_unit;
         let scale = self
             .vector_scale

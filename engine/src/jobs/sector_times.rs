@@ -10,6 +10,10 @@
 //! only its own samples).
 
 use super::{default_memory_budget, stage_bytes, Progress};
+use crate::anisotropy::sector_rasters::{
+    interval_quality, AZIMUTH_ITEM, QUALITY_FILE, REFERENCE_FILE_ITEM, REFERENCE_KIND_ITEM,
+    SHIFTS_ITEM,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::geotiff::{BandSpec, GeoTiffWriter, Layout, BLOCK_ROWS};
@@ -41,21 +45,8 @@ pub const DEFAULT_MAX_SHIFT_MS: f64 = 12.0;
 /// (0.5) are still refused.
 pub const DEFAULT_TRACE_TOLERANCE: f64 = 0.1;
 
-/// Band metadata item holding a sector band's azimuth (degrees, as given).
-pub const AZIMUTH_ITEM: &str = "AZIMUTH_DEG";
-
-/// Dataset metadata item marking rasters of shifts (not absolute times).
-pub const SHIFTS_ITEM: &str = "SECTOR_SHIFTS";
-
-/// Dataset metadata item naming the reference-time raster beside the shifts.
-pub const REFERENCE_TIME_ITEM: &str = "REFERENCE_TIME_FILE";
-
-/// Dataset metadata item of the reference-time raster: `horizon` or `interval`.
-pub const REFERENCE_KIND_ITEM: &str = "REFERENCE_TIME_KIND";
-
 /// File names of the outputs in the output folder.
 const TIMES_FILE: &str = "sector_times.tif";
-const QUALITY_FILE: &str = "sector_quality.tif";
 const REFERENCE_FILE: &str = "reference_time.tif";
 const REPORT_FILE: &str = "sector_times.json";
 
@@ -543,7 +534,7 @@ impl Outputs {
         let kind = if interval { "interval" } else { "horizon" };
         let mut metadata = provenance.items().to_vec();
         metadata.push((SHIFTS_ITEM.into(), "yes".into()));
-        metadata.push((REFERENCE_TIME_ITEM.into(), REFERENCE_FILE.into()));
+        metadata.push((REFERENCE_FILE_ITEM.into(), REFERENCE_FILE.into()));
         metadata.push((REFERENCE_KIND_ITEM.into(), kind.into()));
         let create = |file: &str, bands: &[BandSpec]| {
             GeoTiffWriter::create::<f32>(
@@ -587,7 +578,7 @@ impl Outputs {
     }
 
     /// Writes one batch of rows starting at `first_row`: the shift at the top horizon, or the
-    /// base's minus the top's with a base (quality: the lower of the two).
+    /// base's minus the top's with a base (quality: [`interval_quality`] of the two).
     fn write(
         &mut self,
         first_row: usize,
@@ -637,7 +628,7 @@ impl Outputs {
                     [top] => top[s].map(|a| (a.ms, a.quality)),
                     [top, base] => top[s]
                         .zip(base[s])
-                        .map(|(a, b)| (b.ms - a.ms, a.quality.min(b.quality))),
+                        .map(|(a, b)| (b.ms - a.ms, interval_quality(a.quality, b.quality))),
                     _ => None,
                 };
                 match pair {
