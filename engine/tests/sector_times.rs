@@ -6,12 +6,12 @@
 //! volumes were made from.
 
 use flexure_engine::anisotropy::fit_sectors;
+use flexure_engine::anisotropy::sector_rasters::AZIMUTH_ITEM;
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::segy::{
     write_segy, ByteOrder, SampleFormat, SegyHeaderBytes, SegyTrace, SegyWriteSpec, TextEncoding,
 };
 use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions};
-use flexure_engine::anisotropy::sector_rasters::AZIMUTH_ITEM;
 use flexure_engine::jobs::{SectorTimesJob, Silent};
 use flexure_engine::stats::SeededNoise;
 use flexure_engine::synthetic::ricker_samples;

@@ -104,7 +104,7 @@ mod tests {
         // 1 / (3 + 0.5625) = 0.2807..., whose coefficient sqrt(w / (1 + w)) = 0.4685... (by
         // hand); its weight is that combination again.
         let c = interval_quality(0.5, 0.8);
-        let w = 1.0 / (3.0 + 0.36 / 0.64);
+        let w: f64 = 1.0 / (3.0 + 0.36 / 0.64);
         assert_relative_eq!(c, (w / (1.0 + w)).sqrt(), max_relative = 1e-14);
         assert_relative_eq!(quality_weight(c), w, max_relative = 1e-12);
         assert!(interval_quality(f64::NAN, 0.9).is_nan());
