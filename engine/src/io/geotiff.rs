@@ -175,32 +175,32 @@ impl GeoTiffWriter {
                 ),
             ));
         }
-        let target = self.staged.target().to_path_buf();
+        let mut rb = self.band(band)?;
+        let mut buffer = Buffer::new((cols, rows), values);
+        rb.write((0, first_row as isize), (cols, rows), &mut buffer)
+            .map_err(|e| FlexureError::write(self.staged.target(), gdal_failure("write", e)))
+    }
+
+    /// Band `band` (0-based) of the open file.
+    fn band(&self, band: usize) -> Result<gdal::raster::RasterBand<'_>> {
+        let target = self.staged.target();
         let dataset = self
             .dataset
             .as_ref()
-            .ok_or_else(|| FlexureError::write(&target, "internal: written after finishing"))?;
-        let mut rb = dataset
+            .ok_or_else(|| FlexureError::write(target, "internal: written after finishing"))?;
+        dataset
             .rasterband(band + 1)
-            .map_err(|e| FlexureError::write(&target, gdal_failure("band", e)))?;
-        let mut buffer = Buffer::new((cols, rows), values);
-        rb.write((0, first_row as isize), (cols, rows), &mut buffer)
-            .map_err(|e| FlexureError::write(&target, gdal_failure("write", e)))
+            .map_err(|e| FlexureError::write(target, gdal_failure("band", e)))
     }
 
     /// Sets metadata item `key` = `value` (default domain) on band `band` (0-based), e.g. the
     /// azimuth of a sector band; kept through the COG copy.
     pub fn set_band_metadata(&mut self, band: usize, key: &str, value: &str) -> Result<()> {
-        let target = self.staged.target().to_path_buf();
-        let dataset = self
-            .dataset
-            .as_ref()
-            .ok_or_else(|| FlexureError::write(&target, "internal: written after finishing"))?;
-        let mut rb = dataset
-            .rasterband(band + 1)
-            .map_err(|e| FlexureError::write(&target, gdal_failure("band", e)))?;
-        rb.set_metadata_item(key, value, "")
-            .map_err(|e| FlexureError::write(&target, gdal_failure("band metadata", e)))
+        self.band(band)?
+            .set_metadata_item(key, value, "")
+            .map_err(|e| {
+                FlexureError::write(self.staged.target(), gdal_failure("band metadata", e))
+            })
     }
 
     /// Sets dataset metadata item `key` (default domain) after rows were written: for a value
