@@ -137,7 +137,7 @@ impl SegyHeaderBytes {
     pub fn check(&self) -> Result<()> {
         let fields = self.fields();
         for &(at, len, name) in &fields {
-            if at == 0 || at + len - 1 > TRACE_HEADER_BYTES {
+            if at == 0 || at > TRACE_HEADER_BYTES + 1 - len {
                 return Err(FlexureError::Parameter(format!(
                     "the {name} byte position {at} is outside the trace header: give a 1-based position from 1 to {} for this {len}-byte field",
                     TRACE_HEADER_BYTES + 1 - len
@@ -591,7 +591,7 @@ impl SegyVolume {
     }
 
     /// Places the traces on their bin lattice from their inline/crossline numbers and x, y
-    /// ([`place_numbered`]; `tolerance` as `--lattice-tolerance`, a share of the smaller
+    /// ([`place_numbered`]; `tolerance` as `--trace-tolerance`, a share of the smaller
     /// bin). Errors name the file, the trace, and the header byte positions read, since a
     /// lattice that cannot be found most often means the fields are elsewhere in this file.
     pub fn lattice(&self, tolerance: f64) -> Result<NodePlacement> {
@@ -702,10 +702,13 @@ mod bin {
     pub const SAMPLES: usize = 3220;
     pub const FORMAT: usize = 3224;
     pub const EXT_SAMPLES: usize = 3268;
+    pub const EXT_INTERVAL: usize = 3272;
     pub const BYTE_ORDER: usize = 3296;
     pub const REVISION: usize = 3500;
     pub const FIXED_LENGTH: usize = 3502;
     pub const EXTENDED: usize = 3504;
+    pub const TRACE_HEADERS: usize = 3506;
+    pub const TRAILERS: usize = 3514;
 }
 
 /// Offsets (0-based) of trace header fields.
@@ -719,6 +722,40 @@ mod trace {
 
 /// The value of the rev 2 byte-order constant (bytes 3297-3300).
 const BYTE_ORDER_CONSTANT: u32 = 0x0102_0304;
+
+/// Refuses the rev 2 layouts this reader does not follow, each named by its binary header
+/// bytes (SEG-Y rev 2.0, from memory): an extended sample interval (3273-3280, an IEEE double
+/// overriding 3217-3218), additional 240-byte trace headers (3507-3508) and trailer stanzas
+/// (3515-3518). Read as they are, they would give wrong times or trace lengths.
+fn refuse_rev2_layout(order: ByteOrder, head: &[u8]) -> std::result::Result<(), String> {
+    let interval = [
+        order.u32(head, bin::EXT_INTERVAL),
+        order.u32(head, bin::EXT_INTERVAL + 4),
+    ];
+    let fields = [
+        (
+            interval != [0, 0],
+            "3273-3280",
+            "an extended sample interval",
+        ),
+        (
+            order.u16(head, bin::TRACE_HEADERS) != 0,
+            "3507-3508",
+            "additional trace headers",
+        ),
+        (
+            order.u32(head, bin::TRAILERS) != 0,
+            "3515-3518",
+            "trailer stanzas",
+        ),
+    ];
+    match fields.iter().find(|f| f.0) {
+        Some((_, bytes, what)) => Err(format!(
+            "declares {what} (binary header bytes {bytes}), which flexure does not read: write the volume without them (rev 1 layout)"
+        )),
+        None => Ok(()),
+    }
+}
 
 impl FileHeader {
     /// Reads the textual and binary headers (`head`: the first 3600 bytes).
@@ -743,6 +780,9 @@ impl FileHeader {
             return Err(format!(
                 "declares a variable number of extended textual headers ({extended} at binary header bytes 3505-3506), which flexure does not read: give the count"
             ));
+        }
+        if revision.0 >= 2 {
+            refuse_rev2_layout(order, head)?;
         }
         let ext_samples = match revision.0 >= 2 {
             true => order.u32(head, bin::EXT_SAMPLES),
@@ -894,9 +934,9 @@ impl Scan {
                 ));
             }
             let time_scalar = order.i16(&h, trace::TIME_SCALAR);
-            if delay != 0 && !matches!(time_scalar, 0 | 1) {
+            if delay != 0 && !matches!(time_scalar, -1..=1) {
                 return Err(format!(
-                    "{} has a delay of {delay} with a time scalar of {time_scalar} (trace header bytes 215-216), which flexure does not apply: give the delay in ms with a time scalar of 0 or 1",
+                    "{} has a delay of {delay} with a time scalar of {time_scalar} (trace header bytes 215-216), which flexure does not apply: give the delay in ms with a time scalar of 0 or +-1",
                     field(trace::TIME_SCALAR)
                 ));
             }
@@ -1647,6 +1687,44 @@ mod tests {
             SegyVolume::open(&path, &bytes).unwrap().info().revision,
             (1, 0)
         );
+    }
+
+    #[test]
+    fn rev2_layouts_the_reader_does_not_follow_are_refused_by_byte() {
+        // SEG-Y rev 2 (from memory): extended sample interval 3273-3280, additional trace
+        // headers 3507-3508, trailer stanzas 3515-3518; each changes times or trace lengths.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("rev2.sgy");
+        let rev2 = SegyWriteSpec {
+            revision: 2,
+            ..spec()
+        };
+        let bytes = SegyHeaderBytes::default();
+        for (at, value, named) in [
+            (bin::EXT_INTERVAL, &[0x40u8, 0, 0, 0][..], "3273-3280"),
+            (bin::TRACE_HEADERS, &[0, 1][..], "3507-3508"),
+            (bin::TRAILERS, &[0, 0, 0, 2][..], "3515-3518"),
+        ] {
+            write(&path, &rev2);
+            assert!(SegyVolume::open(&path, &bytes).is_ok());
+            patch(&path, at, value);
+            let err = refused(&path, &bytes);
+            assert!(err.contains(named), "{err}");
+        }
+        // The same bytes are unassigned in rev 1 and not read there.
+        write(&path, &spec());
+        patch(&path, bin::TRACE_HEADERS, &[0, 1]);
+        assert!(SegyVolume::open(&path, &bytes).is_ok());
+    }
+
+    #[test]
+    fn header_positions_beyond_any_trace_header_are_refused() {
+        let huge = SegyHeaderBytes {
+            inline: usize::MAX,
+            ..SegyHeaderBytes::default()
+        };
+        let err = huge.check().unwrap_err().to_string();
+        assert!(err.contains("outside the trace header"), "{err}");
     }
 
     #[test]
