@@ -9,7 +9,8 @@ use flexure_engine::anisotropy::fit_sectors;
 use flexure_engine::anisotropy::sector_rasters::AZIMUTH_ITEM;
 use flexure_engine::grid::GridGeometry;
 use flexure_engine::io::segy::{
-    write_segy, ByteOrder, SampleFormat, SegyHeaderBytes, SegyTrace, SegyWriteSpec, TextEncoding,
+    write_segy, ByteOrder, SampleFormat, SegyHeaderBytes, SegyTrace, SegyVolume, SegyWriteSpec,
+    TextEncoding, TraceLocation,
 };
 use flexure_engine::io::{read_raster, write_float_geotiff, BandOut, ReadOptions};
 use flexure_engine::jobs::{SectorTimesJob, Silent};
@@ -243,4 +244,102 @@ fn coordinates_stored_to_the_metre_still_place_every_trace() {
     let report = job.run(&Silent).unwrap();
     let cells = s.grid.cols * s.grid.rows;
     assert!(report.measured().iter().all(|&m| m == cells), "{report}");
+}
+
+#[test]
+fn trace_order_and_wild_horizon_values_change_nothing_else() {
+    // The volumes written in reverse crossline-major order are the same data: the shifts
+    // must be the same bits (each bin reads only its own trace windows). A horizon value of
+    // 1e30 ms (an undeclared null) at one bin leaves that bin outside the traces, the others
+    // as they were.
+    let dir = tempfile::tempdir().unwrap();
+    let s = scenario();
+    let (volumes, top, _) = write_inputs(&s, dir.path(), -100);
+    let reordered: Vec<PathBuf> = volumes
+        .iter()
+        .map(|path| {
+            let v = SegyVolume::open(path, &SegyHeaderBytes::default()).unwrap();
+            rewrite_reordered(v, &dir.path().join("reordered"))
+        })
+        .collect();
+    let run = |volumes: Vec<PathBuf>, top: &Path, out: &str| {
+        let job = SectorTimesJob::new(volumes, s.azimuths.clone(), top, dir.path().join(out));
+        let report = job.run(&Silent).unwrap();
+        (
+            read_raster(&job.times_path(), &ReadOptions::default()).unwrap(),
+            report,
+        )
+    };
+    let (a, _) = run(volumes.clone(), &top, "a");
+    let (b, _) = run(reordered, &top, "b");
+    for (x, y) in a.bands.iter().zip(&b.bands) {
+        assert!(x.iter().zip(y).all(|(p, q)| p.to_bits() == q.to_bits()));
+    }
+    let wild = dir.path().join("wild.tif");
+    let mut times = read_raster(&top, &ReadOptions::default())
+        .unwrap()
+        .bands
+        .remove(0);
+    times[(5, 7)] = 1e30;
+    let band = BandOut {
+        description: "twt",
+        unit: "ms",
+        values: times.mapv(|t| t as f32),
+    };
+    write_float_geotiff(&wild, &s.grid, &[band], &[]).unwrap();
+    let (c, report) = run(volumes, &wild, "c");
+    assert_eq!(report.outside_traces(), 1, "{report}");
+    for (x, y) in a.bands.iter().zip(&c.bands) {
+        for ((at, p), q) in x.indexed_iter().zip(y) {
+            match at {
+                (5, 7) => assert!(q.is_nan()),
+                _ => assert_eq!(p.to_bits(), q.to_bits()),
+            }
+        }
+    }
+}
+
+/// Writes the traces of `v` again into `dir`, crossline by crossline, last first.
+fn rewrite_reordered(mut v: SegyVolume, dir: &Path) -> PathBuf {
+    std::fs::create_dir_all(dir).unwrap();
+    let info = v.info().clone();
+    let mut order: Vec<usize> = (0..v.traces()).collect();
+    order.sort_by_key(|&k| {
+        let t = v.trace(k).unwrap();
+        (std::cmp::Reverse(t.crossline), std::cmp::Reverse(t.inline))
+    });
+    let traces: Vec<(TraceLocation, Vec<f32>)> = order
+        .iter()
+        .map(|&k| {
+            let mut samples = vec![0f32; info.samples];
+            v.read_samples(k, 0, &mut samples).unwrap();
+            (v.trace(k).unwrap(), samples)
+        })
+        .collect();
+    let path = dir.join(v.path().file_name().unwrap());
+    let spec = SegyWriteSpec {
+        revision: 2,
+        byte_order: ByteOrder::Little,
+        format: SampleFormat::Ieee,
+        text_encoding: TextEncoding::Ascii,
+        text: vec!["C 1 reordered".into()],
+        sample_interval_us: info.sample_interval_us as u16,
+        samples: info.samples,
+        delay_ms: info.delay_ms as i16,
+        header_bytes: SegyHeaderBytes::default(),
+        coordinate_scalar: -100,
+    };
+    write_segy(
+        &path,
+        &spec,
+        traces.iter().map(|(t, samples)| SegyTrace {
+            inline: t.inline as i32,
+            crossline: t.crossline as i32,
+            x: t.x,
+            y: t.y,
+            samples,
+        }),
+    )
+    .unwrap();
+    path
 }

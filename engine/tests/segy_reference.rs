@@ -111,7 +111,7 @@ fn every_fixture_reads_as_segyio_reads_it() {
         assert_eq!(v.traces(), traces.len(), "{name}");
         let mut whole = vec![0f32; v.samples()];
         for (k, t) in traces.iter().enumerate() {
-            let loc = v.trace(k);
+            let loc = v.trace(k).unwrap();
             assert_eq!(loc.inline, int(&t["inline"]), "{name} trace {k}");
             assert_eq!(loc.crossline, int(&t["crossline"]), "{name} trace {k}");
             let scalar = int(&t["scalar"]);

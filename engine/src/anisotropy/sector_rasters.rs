@@ -10,9 +10,9 @@
 //!   reference time in ms, named relative to the sector raster's folder; its own dataset
 //!   metadata [`REFERENCE_KIND_ITEM`] (`REFERENCE_TIME_KIND`) is `horizon` (the guide
 //!   horizon's two-way time) or `interval` (the isotropic interval time, base minus top).
-//! - Beside it [`QUALITY_FILE`] (`sector_quality.tif`): per sector, the peak normalised
-//!   cross-correlation coefficient of the measured shift (0..1), bands matched to sectors by
-//!   `AZIMUTH_DEG`.
+//! - Beside it [`QUALITY_FILE`] (`sector_quality.tif`, dataset metadata [`QUALITY_ITEM`]` =
+//!   yes`): per sector, the peak normalised cross-correlation coefficient of the measured
+//!   shift (0..1), bands matched to sectors by `AZIMUTH_DEG`.
 //!
 //! Weight of a quality ([`quality_weight`]): for a time delay estimated by cross-correlation,
 //! the variance is proportional to `(1 - c^2) / c^2` with `c^2` the coherence of the two
@@ -33,6 +33,9 @@ pub const SHIFTS_ITEM: &str = "SECTOR_SHIFTS";
 pub const REFERENCE_FILE_ITEM: &str = "REFERENCE_TIME_FILE";
 /// Dataset metadata item of a reference-time raster: `horizon` or `interval`.
 pub const REFERENCE_KIND_ITEM: &str = "REFERENCE_TIME_KIND";
+/// Dataset metadata item saying (`yes`) that the bands hold correlation qualities (the
+/// quality raster), not times.
+pub const QUALITY_ITEM: &str = "SECTOR_QUALITY";
 /// File name of the correlation-quality raster beside a sector-time raster.
 pub const QUALITY_FILE: &str = "sector_quality.tif";
 /// Largest correlation coefficient a weight is computed from (see the module notes).

@@ -526,14 +526,22 @@ impl SegyVolume {
         self.info.traces
     }
 
-    /// Inline, crossline and map position of trace `trace` (0-based, file order).
-    pub fn trace(&self, trace: usize) -> TraceLocation {
-        TraceLocation {
-            inline: self.nodes.inline[trace],
-            crossline: self.nodes.crossline[trace],
-            x: self.nodes.x[trace],
-            y: self.nodes.y[trace],
-        }
+    /// Inline, crossline and map position of trace `trace` (0-based, file order); `None`
+    /// for no such trace, or once [`SegyVolume::forget_locations`] was called.
+    pub fn trace(&self, trace: usize) -> Option<TraceLocation> {
+        Some(TraceLocation {
+            inline: *self.nodes.inline.get(trace)?,
+            crossline: *self.nodes.crossline.get(trace)?,
+            x: *self.nodes.x.get(trace)?,
+            y: *self.nodes.y.get(trace)?,
+        })
+    }
+
+    /// Lets go of the table of trace locations (32 bytes a trace) once the traces are placed
+    /// ([`SegyVolume::traces_on`]), so a job holding many volumes open keeps only their
+    /// files; [`SegyVolume::lattice`] and [`SegyVolume::trace`] then find no traces.
+    pub fn forget_locations(&mut self) {
+        self.nodes = NumberedNodes::default();
     }
 
     /// Reads samples `first_sample..first_sample + out.len()` of trace `trace` (0-based, file
@@ -1574,7 +1582,7 @@ mod tests {
                 let mut out = [0f32; 5];
                 v.read_samples(13, 7, &mut out).unwrap();
                 assert_eq!(out, [1307.0, 1308.0, 1309.0, 1310.0, 1311.0]);
-                let t = v.trace(13);
+                let t = v.trace(13).unwrap();
                 assert_eq!(
                     (t.inline, t.crossline, t.x, t.y),
                     (3, 13, 500_075.0, 4_000_050.0)
@@ -1929,7 +1937,7 @@ mod tests {
                 if k == NO_TRACE {
                     continue;
                 }
-                let t = v.trace(k as usize);
+                let t = v.trace(k as usize).unwrap();
                 assert_eq!(horizon.cell_centre(c, r), (t.x, t.y));
                 found += 1;
             }

@@ -11,7 +11,7 @@
 use super::anisotropy::{AnisotropyJob, AzimuthReference, WeightSource};
 use crate::anisotropy::sector_rasters::{
     declares_shifts, interval_weight, quality_weight, AZIMUTH_ITEM, QUALITY_CAP, QUALITY_FILE,
-    REFERENCE_FILE_ITEM, REFERENCE_KIND_ITEM, SHIFTS_ITEM,
+    QUALITY_ITEM, REFERENCE_FILE_ITEM, REFERENCE_KIND_ITEM, SHIFTS_ITEM,
 };
 use crate::anisotropy::{SectorFit, SectorWeight, MIN_SECTORS_FLOOR};
 use crate::error::{FlexureError, Result};
@@ -149,6 +149,12 @@ impl Stack {
     /// Adds every band of `source`, converting sector times declared in seconds to ms and
     /// refusing sector grids declared in a length unit.
     fn add_bands(&mut self, source: RowSource, units: Units) -> Result<()> {
+        if units == Units::Time && declares_shifts(source.info().item(QUALITY_ITEM)) {
+            return Err(FlexureError::input(
+                source.path(),
+                format!("holds correlation qualities ({QUALITY_ITEM}=yes), not sector times: give the sector_times.tif beside it, and use the qualities with --weights quality"),
+            ));
+        }
         for (band, unit) in source.info().units.iter().enumerate() {
             let factor = match (units, DeclaredUnit::parse(unit)) {
                 (Units::Weight, _) => 1.0,

@@ -11,8 +11,8 @@
 
 use super::{default_memory_budget, stage_bytes, Progress};
 use crate::anisotropy::sector_rasters::{
-    interval_quality, AZIMUTH_ITEM, QUALITY_FILE, REFERENCE_FILE_ITEM, REFERENCE_KIND_ITEM,
-    SHIFTS_ITEM,
+    interval_quality, AZIMUTH_ITEM, QUALITY_FILE, QUALITY_ITEM, REFERENCE_FILE_ITEM,
+    REFERENCE_KIND_ITEM, SHIFTS_ITEM,
 };
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -179,7 +179,7 @@ impl SectorTimesJob {
             )));
         }
         let levels: Vec<&TimeHorizon> = std::iter::once(&top).chain(base.as_ref()).collect();
-        check_time_range(&levels, first, &measure)?;
+        refuse_unmeasurable(&levels, &volumes, &measure)?;
         prepare_output_dir(&self.out_dir)?;
         for name in [TIMES_FILE, QUALITY_FILE, REFERENCE_FILE, REPORT_FILE] {
             refuse_overwrite(&self.out_dir.join(name), &self.inputs())?;
@@ -188,7 +188,11 @@ impl SectorTimesJob {
         let mut outputs = Outputs::create(self, &top.geometry, &provenance, base.is_some())?;
         let geometry = &top.geometry;
         let budget = self.memory.unwrap_or_else(default_memory_budget);
-        let per_row = (geometry.cols * (volumes.traces.len()) * span * 4 * levels.len()) as u64;
+        // Per cell and level: every volume's window (f32) and the measured shifts.
+        let per_cell = volumes.traces.len() * span * 4
+            + std::mem::size_of::<BinShifts>()
+            + self.volumes.len() * std::mem::size_of::<Option<Shift>>();
+        let per_row = (geometry.cols * per_cell * levels.len()) as u64;
         let batch = ((budget / per_row.max(1)) as usize / BLOCK_ROWS).max(1) * BLOCK_ROWS;
         let mut tally = Tally {
             per_sector: vec![(0, 0); self.volumes.len()],
@@ -263,26 +267,47 @@ impl SectorTimesJob {
                 ));
             }
         }
-        ShiftMeasure::new(1.0, self.half_window_ms, self.max_shift_ms).map(|_| ())
+        let (window, shift) = (self.half_window_ms, self.max_shift_ms);
+        if !(window.is_finite() && shift.is_finite() && shift > 0.0 && window > shift) {
+            return Err(FlexureError::Parameter(format!(
+                "--window {window} ms and --max-shift {shift} ms: give a positive largest shift smaller than the half window (defaults 40 and 12 ms)"
+            )));
+        }
+        let tolerance = self.trace_tolerance;
+        if !(tolerance > 0.0 && tolerance < 0.5) {
+            return Err(FlexureError::Parameter(format!(
+                "--trace-tolerance {tolerance} is outside 0..0.5: give the largest distance of a trace from its bin's node as a share of the smaller bin (default {DEFAULT_TRACE_TOLERANCE})"
+            )));
+        }
+        Ok(())
     }
 
-    /// Opens every volume, checks they share one sampling and places their traces on the
-    /// horizon's grid.
+    /// Opens every volume, places its traces on the horizon's grid (keeping only the trace
+    /// index of each cell, not the volume's table of trace locations) and checks the volumes
+    /// share one sampling.
     fn open_volumes(&self, top: &TimeHorizon) -> Result<Volumes> {
-        let open = |path: &PathBuf| SegyVolume::open(path, &self.header_bytes);
-        let sectors = self.volumes.iter().map(open).collect::<Result<Vec<_>>>()?;
-        let reference = self.reference.as_ref().map(open).transpose()?;
+        let mut traces = Vec::new();
+        let mut open = |path: &PathBuf| -> Result<SegyVolume> {
+            let mut volume = SegyVolume::open(path, &self.header_bytes)?;
+            let placement = volume.lattice(self.trace_tolerance)?;
+            traces.push(volume.traces_on(
+                &placement,
+                &top.path,
+                &top.geometry,
+                self.trace_tolerance,
+            )?);
+            volume.forget_locations();
+            Ok(volume)
+        };
+        let sectors = self
+            .volumes
+            .iter()
+            .map(&mut open)
+            .collect::<Result<Vec<_>>>()?;
+        let reference = self.reference.as_ref().map(&mut open).transpose()?;
         for other in sectors[1..].iter().chain(reference.as_ref()) {
             sectors[0].check_same_sampling(other)?;
         }
-        let traces = sectors
-            .iter()
-            .chain(reference.as_ref())
-            .map(|v| {
-                let placement = v.lattice(self.trace_tolerance)?;
-                v.traces_on(&placement, &top.path, &top.geometry, self.trace_tolerance)
-            })
-            .collect::<Result<Vec<_>>>()?;
         Ok(Volumes {
             sectors,
             reference,
@@ -373,35 +398,43 @@ fn check_base(top: &TimeHorizon, base: &TimeHorizon) -> Result<()> {
     }
 }
 
-/// Refuses horizons none of whose bins' windows lie inside the traces.
-fn check_time_range(
+/// Refuses a horizon with no bin that can be measured: one with a time, a trace in every
+/// volume and a window inside the traces. Names what is missing where the traces are.
+fn refuse_unmeasurable(
     levels: &[&TimeHorizon],
-    volume: &SegyVolume,
+    volumes: &Volumes,
     measure: &ShiftMeasure,
 ) -> Result<()> {
+    let volume = &volumes.sectors[0];
     let (t0, dt) = (volume.first_time_ms(), volume.sample_interval_ms());
     let last = t0 + (volume.samples() as f64 - 1.0) * dt;
     for level in levels {
-        let inside = level
+        let traced: Vec<f64> = level
             .ms
+            .indexed_iter()
+            .filter(|(at, t)| t.is_finite() && volumes.traces.iter().all(|tr| tr[*at] != NO_TRACE))
+            .map(|(_, &t)| t)
+            .collect();
+        if traced
             .iter()
-            .any(|&t| t.is_finite() && window_inside(measure, (t - t0) / dt, volume.samples()));
-        if !inside {
-            let (lo, hi) = level
-                .ms
-                .iter()
-                .filter(|t| t.is_finite())
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| {
-                    (lo.min(t), hi.max(t))
-                });
-            return Err(FlexureError::input(
-                &level.path,
-                format!(
-                    "lies at {lo:.1} to {hi:.1} ms, outside the traces of {} ({t0} to {last} ms) once the window and largest shift are added: check the horizon's unit and the volumes' delay, or shorten --window",
-                    volume.path().display()
-                ),
-            ));
+            .any(|&t| window_inside(measure, (t - t0) / dt, volume.samples()))
+        {
+            continue;
         }
+        let reason = match traced.iter().copied().reduce(f64::min) {
+            None => format!(
+                "has no time at any bin where every volume has a trace (first volume {}): give the horizon over the volumes' area",
+                volume.path().display()
+            ),
+            Some(lo) => {
+                let hi = traced.iter().copied().fold(lo, f64::max);
+                format!(
+                    "lies at {lo:.1} to {hi:.1} ms where the volumes have traces, outside the traces of {} ({t0} to {last} ms) once the window and largest shift are added: check the horizon's unit and the volumes' delay, or shorten --window",
+                    volume.path().display()
+                )
+            }
+        };
+        return Err(FlexureError::input(&level.path, reason));
     }
     Ok(())
 }
@@ -532,11 +565,12 @@ impl Outputs {
                 .collect()
         };
         let kind = if interval { "interval" } else { "horizon" };
-        let mut metadata = provenance.items().to_vec();
-        metadata.push((SHIFTS_ITEM.into(), "yes".into()));
-        metadata.push((REFERENCE_FILE_ITEM.into(), REFERENCE_FILE.into()));
-        metadata.push((REFERENCE_KIND_ITEM.into(), kind.into()));
-        let create = |file: &str, bands: &[BandSpec]| {
+        let with = |items: &[(&str, &str)]| {
+            let mut metadata = provenance.items().to_vec();
+            metadata.extend(items.iter().map(|(k, v)| (k.to_string(), v.to_string())));
+            metadata
+        };
+        let create = |file: &str, bands: &[BandSpec], metadata: Vec<(String, String)>| {
             GeoTiffWriter::create::<f32>(
                 &job.out_dir.join(file),
                 geometry,
@@ -546,8 +580,9 @@ impl Outputs {
                 Layout::Float,
             )
         };
-        let mut times = create(TIMES_FILE, &bands("ms"))?;
-        let mut quality = create(QUALITY_FILE, &bands(""))?;
+        let times_items = [(SHIFTS_ITEM, "yes"), (REFERENCE_FILE_ITEM, REFERENCE_FILE)];
+        let mut times = create(TIMES_FILE, &bands("ms"), with(&times_items))?;
+        let mut quality = create(QUALITY_FILE, &bands(""), with(&[(QUALITY_ITEM, "yes")]))?;
         for (b, a) in job.azimuths.iter().enumerate() {
             times.set_band_metadata(b, AZIMUTH_ITEM, &format_number(*a))?;
             quality.set_band_metadata(b, AZIMUTH_ITEM, &format_number(*a))?;
@@ -563,6 +598,7 @@ impl Outputs {
                 description,
                 unit: "ms",
             }],
+            with(&[(REFERENCE_KIND_ITEM, kind)]),
         )?;
         Ok(Self {
             times,

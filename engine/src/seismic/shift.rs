@@ -94,17 +94,20 @@ impl ShiftMeasure {
         (self.max_lag + LANCZOS_LOBES) as isize
     }
 
-    /// The window's sample indices for a centre at fractional sample index `centre`.
+    /// The window's sample indices for a centre at fractional sample index `centre`
+    /// (saturating at the ends of `isize` for centres far outside any trace).
     fn window(&self, centre: f64) -> Range<isize> {
         let half = self.half_window_ms / self.dt_ms;
-        (centre - half).ceil() as isize..(centre + half).floor() as isize + 1
+        let start = (centre - half).ceil() as isize;
+        start..((centre + half).floor() as isize).saturating_add(1)
     }
 
     /// Sample indices a trace must provide for a centre at fractional sample index `centre`
-    /// (the window widened by the largest lag and the interpolation's reach).
+    /// (the window widened by the largest lag and the interpolation's reach; saturating, so a
+    /// centre far outside any trace gives a range outside it rather than an overflow).
     pub fn samples_needed(&self, centre: f64) -> Range<isize> {
         let window = self.window(centre);
-        window.start - self.lag_reach()..window.end + self.lag_reach()
+        window.start.saturating_sub(self.lag_reach())..window.end.saturating_add(self.lag_reach())
     }
 
     /// Shift of `trace` against `reference` for a window centred at fractional sample index
@@ -113,7 +116,7 @@ impl ShiftMeasure {
     /// the largest shift.
     pub fn measure(&self, centre: f64, reference: &[f32], trace: &[f32]) -> Option<Shift> {
         let needed = self.samples_needed(centre);
-        let len = (needed.end - needed.start) as usize;
+        let len = needed.end.checked_sub(needed.start)? as usize;
         if reference.len() != len || trace.len() != len {
             return None;
         }
@@ -311,6 +314,20 @@ pub(crate) mod tests {
         assert_eq!(m.measure(centre, &reference, &dead), None);
         assert_eq!(m.measure(centre, &dead, &reference), None);
         assert_eq!(m.measure(centre, &reference, &reference[1..]), None);
+    }
+
+    #[test]
+    fn centres_far_outside_any_trace_neither_overflow_nor_measure() {
+        // A horizon value of 1e30 ms (an undeclared null) must not wrap the sample arithmetic.
+        let m = ShiftMeasure::new(2.0, 40.0, 12.0).unwrap();
+        for centre in [1e30, -1e30, 4.6e18, -4.6e18] {
+            let needed = m.samples_needed(centre);
+            assert!(
+                needed.start < 0 || needed.end > 1_000_000,
+                "{centre}: {needed:?}"
+            );
+            assert_eq!(m.measure(centre, &[1.0; 8], &[1.0; 8]), None);
+        }
     }
 
     #[test]
