@@ -44,8 +44,18 @@
 //!
 //! The parts: [`noise`] estimates the horizon's noise; [`thresholds`] is the noise model of the
 //! derivative changes between windows and the step tests; [`choice`] pools the changes and
-//! makes the per-cell choice. This module runs the study (streamed fits of the clean and
-//! noise-perturbed horizon per window), gives the per-window figures and the recommendation.
+//! makes the per-cell choice. This module runs the study ([`plan`], [`StudyPlan::run`]), gives
+//! the per-window figures and the recommendation.
+//!
+//! Memory: the grid streams in batches of rows. Per batch every window is fitted to the clean
+//! horizon over the batch and the [`POOL_RADIUS`] rows either side (the pooled test's reach)
+//! and to the perturbed horizon over the batch (its rows generated from the seeded stream for
+//! the batch and half the largest window either side); the cells choose their window and the
+//! batch's per-cell results go to the caller. The figures are running sums in the grid's
+//! row-major order (the same bits as sums over whole maps, for any batch size) and, for the
+//! quantile-based ones, quantile sketches ([`crate::stats::sketch`]). So besides the input only
+//! one batch is held, however many windows; the horizon noise estimate's residuals (one a
+//! fitted cell, before the fits) are the only grid-sized array.
 
 pub mod choice;
 pub mod noise;
