@@ -638,6 +638,10 @@ struct HorizonArgs {
     read: ReadArgs,
     #[command(flatten)]
     tiff: TiffArgs,
+    /// Working memory beyond the input grid (row batches and GDAL's block cache), e.g. 512M
+    /// or 2G; default a quarter of the machine's memory, at most 1G.
+    #[arg(long, value_parser = parse_memory)]
+    memory: Option<u64>,
     /// Print nothing but errors.
     #[arg(long)]
     quiet: bool,
@@ -650,6 +654,7 @@ impl HorizonArgs {
         job.min_valid = self.min_valid;
         job.read = self.read.options();
         job.tiff = self.tiff.options();
+        job.memory = self.memory;
         job
     }
 }
@@ -735,17 +740,12 @@ struct CurvatureArgs {
     /// Replace existing outputs even when they hold other bands than this run writes.
     #[arg(long)]
     overwrite: bool,
-    /// Working memory beyond the input grid (row batches and GDAL's block cache), e.g. 512M
-    /// or 2G; default a quarter of the machine's memory, at most 1G.
-    #[arg(long, value_parser = parse_memory)]
-    memory: Option<u64>,
 }
 
 impl CurvatureArgs {
     fn job(&self) -> Result<CurvatureJob, FlexureError> {
         let mut job = self.horizon.job();
         job.overwrite = self.overwrite;
-        job.memory = self.memory;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes

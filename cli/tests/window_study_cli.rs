@@ -4,7 +4,7 @@
 
 mod common;
 
-use common::{fails, flexure, north_up, write_bands};
+use common::{band_bits, fails, flexure, north_up, write_bands};
 use flexure_engine::stats::SeededNoise;
 use gdal::Metadata;
 use ndarray::Array2;
@@ -69,6 +69,24 @@ fn study_writes_its_figures_and_recommends_a_listed_window() {
     assert!(sds.windows(2).all(|p| p[1] < p[0]), "{sds:?}");
     let csv = std::fs::read_to_string(out.join("window_study.csv")).unwrap();
     assert_eq!(csv.lines().count(), 5);
+    // The columns the README lists, and the first window's change from a previous one (there
+    // is none) empty in the CSV and null in the JSON; the recommended window marked 1.
+    let mut lines = csv.lines();
+    assert_eq!(
+        lines.next().unwrap(),
+        "window,noise_sd,derivative_noise_sd,rms,robust_spread,change_from_previous,\
+         share_within_noise,valid_share,rms_from_adaptive,adaptive_share,recommended"
+    );
+    let first: Vec<&str> = lines.next().unwrap().split(',').collect();
+    assert_eq!((first[0], first[5]), ("3", ""));
+    assert!(json["windows"][0]["change_from_previous"].is_null());
+    let marked: Vec<&str> = csv.lines().skip(1).map(|l| &l[l.len() - 1..]).collect();
+    let recommended = json["recommended_window"].as_u64().unwrap();
+    let expected: Vec<&str> = windows
+        .iter()
+        .map(|&w| if w == recommended { "1" } else { "0" })
+        .collect();
+    assert_eq!(marked, expected);
     // One test per step between consecutive windows, each with a threshold above 1 (a ratio to
     // the noise-only expectation of the pooled change).
     let steps = json["steps"].as_array().unwrap();
@@ -198,4 +216,62 @@ fn bad_window_study_inputs_fail_cleanly() {
         &out,
     );
     assert!(msg.contains("k_wobble"), "{msg}");
+}
+
+#[test]
+fn batches_forced_by_a_small_memory_budget_change_nothing() {
+    // The study streams the grid in row batches sized from --memory (jobs::batch_rows). On a
+    // 700 x 500 grid, --memory 64M leaves at most 32M for batches of about 250 bytes a cell
+    // (175 KB a row), so batches are one 256-row GeoTIFF block (the least): two batches, the
+    // edge at row 256 inside a gap of nulls and a fold. --memory 1G holds the grid in one
+    // batch. The pooled test at a batch edge sees the same neighbours and every sum runs in
+    // the grid's order, so the adaptive GeoTIFF (read back through GDAL) and every figure
+    // (JSON, CSV) must be the same bits (reference: the one-batch run).
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = SeededNoise::new(43);
+    let values = Array2::from_shape_fn((500, 700), |(r, c)| {
+        let across = (c as f64 - 0.6 * r as f64 - 150.0) / 9.0;
+        let gap = (250..262).contains(&r) && (300..340).contains(&c);
+        if gap {
+            f32::NAN
+        } else {
+            (2000.0 - 12.0 * (-across * across / 2.0).exp() + 0.3 * rng.gaussian()) as f32
+        }
+    });
+    let input = write_bands(dir.path(), "fold.tif", &north_up(700, 500), vec![values]);
+    let run = |memory: &str| {
+        let out = dir.path().join(format!("study_{memory}"));
+        let o = flexure(&[
+            "window-study",
+            input.to_str().unwrap(),
+            "--windows",
+            "3,5,9",
+            "--adaptive",
+            "--quiet",
+            "--memory",
+            memory,
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let mut json: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("window_study.json")).unwrap())
+                .unwrap();
+        // The command line names the memory budget: the one field that may differ.
+        json["provenance"]["flexure_command"] = serde_json::Value::Null;
+        (
+            band_bits(&out.join("fold_k_pos_adaptive.tif")),
+            json,
+            std::fs::read_to_string(out.join("window_study.csv")).unwrap(),
+        )
+    };
+    let (batched, whole) = (run("64M"), run("1G"));
+    assert!(batched.0 == whole.0, "adaptive GeoTIFF differs");
+    assert_eq!(batched.1, whole.1);
+    assert_eq!(batched.2, whole.2);
+    // Cells beside the gap have a chosen window, so the edge rows were judged.
+    let chosen = &whole.0[1];
+    assert!(chosen[255 * 700 + 200..255 * 700 + 210]
+        .iter()
+        .all(|&w| f32::from_bits(w) >= 3.0));
 }

@@ -2,7 +2,8 @@
 //! - `curvature_2048`: quadric fit plus all 13 attributes on a 2048 x 2048 grid at windows 3,
 //!   9 and 33, with and without 10% random nulls;
 //! - `window_study_1024`: the window study of k_pos (noise estimate, two fits per window, step
-//!   tests, per-cell choice) on a noisy 1024 x 1024 dome at windows 3, 5, 9 and 17.
+//!   tests, per-cell choice, figures) on a noisy 1024 x 1024 dome at windows 3, 5, 9 and 17,
+//!   in one batch.
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use flexure_engine::grid::GridGeometry;
@@ -10,7 +11,7 @@ use flexure_engine::stats::SeededNoise;
 use flexure_engine::surface::curvature::{
     attribute_by_id, evaluate_field, FlatTolerance, ATTRIBUTES,
 };
-use flexure_engine::surface::study::study;
+use flexure_engine::surface::study::plan;
 use flexure_engine::surface::window::{fit_quadrics, WindowSpec};
 use flexure_engine::synthetic::{Shape, Surface};
 use ndarray::Array2;
@@ -77,14 +78,21 @@ fn window_study(c: &mut Criterion) {
     group.throughput(Throughput::Elements((side * side) as u64));
     group.bench_function("k_pos_3_5_9_17", |b| {
         b.iter(|| {
-            black_box(study(
+            let plan = plan(
                 depth.view(),
                 &g,
                 &[3, 5, 9, 17],
                 attribute,
                 0.75,
                 FlatTolerance::EXACT,
-            ))
+            )
+            .expect("a valid study")
+            .expect("a noise estimate");
+            // The whole grid in one batch, the per-cell results dropped.
+            black_box(plan.run(side, &[], &[], &mut |rows| {
+                black_box(rows);
+                Ok(())
+            }))
         })
     });
     group.finish();

@@ -16,7 +16,8 @@
 //! Values beyond the clip are drawn in the end colours; NaN has no colour (transparent).
 
 use crate::bands::{band_info, ScaleKind};
-use crate::stats::{quantile, quantiles, Quantile};
+use crate::stats::sketch::Distribution;
+use crate::stats::{quantile, Quantile};
 use ndarray::Array2;
 
 /// How to clip the colour range.
@@ -57,14 +58,68 @@ pub fn scale_kind(id: &str, values: &Array2<f64>) -> ScaleKind {
     }
 }
 
+/// Order statistics of a band's finite values at the [`Quantile::Nearest`] positions, which
+/// robust colour limits are read from: exact from the values, or from the quantile sketches of
+/// a map too large to hold ([`Distribution`]).
+pub trait BandQuantiles {
+    /// Whether the band has no finite value.
+    fn is_empty(&self) -> bool;
+    /// The `q` quantile of the values.
+    fn value(&mut self, q: f64) -> f64;
+    /// The `q` quantile of their magnitudes.
+    fn magnitude(&mut self, q: f64) -> f64;
+}
+
+/// The finite values themselves: exact quantiles.
+struct Exact(Vec<f64>);
+
+impl BandQuantiles for Exact {
+    fn is_empty(&self) -> bool {
+        self.0.is_empty()
+    }
+
+    fn value(&mut self, q: f64) -> f64 {
+        quantile(&mut self.0, q, Quantile::Nearest).unwrap_or(f64::NAN)
+    }
+
+    fn magnitude(&mut self, q: f64) -> f64 {
+        let mut magnitudes: Vec<f64> = self.0.iter().map(|v| v.abs()).collect();
+        quantile(&mut magnitudes, q, Quantile::Nearest).unwrap_or(f64::NAN)
+    }
+}
+
+/// Sketched quantiles, within [`crate::stats::sketch::RELATIVE_ERROR`] of the exact ones.
+impl BandQuantiles for Distribution {
+    fn is_empty(&self) -> bool {
+        self.values.count() == 0
+    }
+
+    fn value(&mut self, q: f64) -> f64 {
+        self.values.quantile(q).unwrap_or(f64::NAN)
+    }
+
+    fn magnitude(&mut self, q: f64) -> f64 {
+        self.magnitudes.quantile(q).unwrap_or(f64::NAN)
+    }
+}
+
 impl ColourScale {
     /// The scale for band `id` with `values` (NaN = null); `None` when every value is null.
     pub fn for_band(id: &str, values: &Array2<f64>, clip: Clip) -> Option<Self> {
-        let mut finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
-        if finite.is_empty() {
+        let finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+        Self::from_quantiles(scale_kind(id, values), &mut Exact(finite), clip)
+    }
+
+    /// The scale of `kind` for a band whose robust limits are read from `quantiles`; `None`
+    /// when the band has no finite value.
+    pub fn from_quantiles(
+        kind: ScaleKind,
+        quantiles: &mut impl BandQuantiles,
+        clip: Clip,
+    ) -> Option<Self> {
+        if quantiles.is_empty() {
             return None;
         }
-        let kind = scale_kind(id, values);
         if let Clip::Range(lo, hi) = clip {
             let clip_note = format!("colours clipped to {lo} .. {hi} (--clip)");
             return Some(Self {
@@ -78,10 +133,7 @@ impl ColourScale {
             ScaleKind::Cyclic { period } => (0.0, period, format!("cyclic, 0 .. {period} degrees")),
             ScaleKind::ShapeIndex => (-1.0, 1.0, "full range -1 (bowl) .. +1 (dome)".into()),
             ScaleKind::Diverging => {
-                let mut magnitudes: Vec<f64> = finite.iter().map(|v| v.abs()).collect();
-                let c = positive_or_one(
-                    quantile(&mut magnitudes, 0.98, Quantile::Nearest).unwrap_or(f64::NAN),
-                );
+                let c = positive_or_one(quantiles.magnitude(0.98));
                 (
                     -c,
                     c,
@@ -89,8 +141,7 @@ impl ColourScale {
                 )
             }
             ScaleKind::Sequential => {
-                let [lo, mut hi] = quantiles(&mut finite, [0.02, 0.98], Quantile::Nearest)
-                    .unwrap_or([f64::NAN; 2]);
+                let (lo, mut hi) = (quantiles.value(0.02), quantiles.value(0.98));
                 if hi <= lo {
                     hi = lo + positive_or_one(lo.abs() * 1e-3);
                 }
@@ -263,6 +314,31 @@ mod tests {
             scale_kind("Depth", &values(&[-3.0, 2.0])),
             ScaleKind::Diverging
         );
+    }
+
+    #[test]
+    fn sketched_limits_are_within_the_sketch_error_of_exact_ones() {
+        // Reference: the exact limits of for_band on the same values (the sketch's bound,
+        // stats::sketch: RELATIVE_ERROR of each quantile's magnitude).
+        let mut rng = crate::stats::SeededNoise::new(8);
+        let v: Vec<f64> = (0..20_000).map(|_| 0.5 + rng.gaussian()).collect();
+        let mut sketched = Distribution::default();
+        v.iter().for_each(|&x| sketched.add(x));
+        let tol = crate::stats::sketch::RELATIVE_ERROR * (1.0 + 1e-9);
+        for kind in [ScaleKind::Diverging, ScaleKind::Sequential] {
+            let exact =
+                ColourScale::from_quantiles(kind, &mut Exact(v.clone()), Clip::Auto).unwrap();
+            let got = ColourScale::from_quantiles(kind, &mut sketched, Clip::Auto).unwrap();
+            for (g, e) in [(got.lo, exact.lo), (got.hi, exact.hi)] {
+                assert!((g - e).abs() <= tol * e.abs(), "{kind:?}: {g} vs {e}");
+            }
+        }
+        assert!(ColourScale::from_quantiles(
+            ScaleKind::Diverging,
+            &mut Distribution::default(),
+            Clip::Auto
+        )
+        .is_none());
     }
 
     #[test]

@@ -119,21 +119,43 @@ pub fn colour_cells(
 /// of the cell under its centre (nearest neighbour: colours are never mixed).
 pub fn cells_to_pixmap(cells: &Array2<[u8; 4]>, px: (f64, f64)) -> Pixmap {
     let (rows, cols) = cells.dim();
-    let (w, h) = picture_size((cols, rows), px);
-    let mut pixmap = Pixmap::new(w, h).expect("non-empty picture");
-    let source = |pixel: u32, scale: f64, n: usize| {
-        (((pixel as f64 + 0.5) / scale) as usize).min(n.max(1) - 1)
-    };
-    let columns: Vec<usize> = (0..w).map(|x| source(x, px.0, cols)).collect();
-    let width = w as usize;
+    let shown = PictureCells::new((cols, rows), px);
+    let mut pixmap =
+        Pixmap::new(shown.cols.len() as u32, shown.rows.len() as u32).expect("non-empty picture");
+    let width = shown.cols.len();
     let pixels = pixmap.pixels_mut();
-    for y in 0..h {
-        let r = source(y, px.1, rows);
-        for (x, &c) in columns.iter().enumerate() {
-            pixels[y as usize * width + x] = premultiplied(cells[(r, c)]);
+    for (y, &r) in shown.rows.iter().enumerate() {
+        for (x, &c) in shown.cols.iter().enumerate() {
+            pixels[y * width + x] = premultiplied(cells[(r, c)]);
         }
     }
     pixmap
+}
+
+/// The cells a picture of a grid shows: pixel `(x, y)` takes the cell under its centre, in
+/// grid row `rows[y]` and column `cols[x]` (nearest neighbour), so a map's picture can be kept
+/// as those cells alone while the map streams by.
+#[derive(Clone, Debug, PartialEq)]
+pub struct PictureCells {
+    /// Grid row of each pixel row.
+    pub rows: Vec<usize>,
+    /// Grid column of each pixel column.
+    pub cols: Vec<usize>,
+}
+
+impl PictureCells {
+    /// The cells of a picture of a `(cols, rows)` grid at `px` pixels per column and row (its
+    /// size is [`picture_size`]).
+    pub fn new((cols, rows): (usize, usize), px: (f64, f64)) -> Self {
+        let (w, h) = picture_size((cols, rows), px);
+        let source = |pixel: u32, scale: f64, n: usize| {
+            (((pixel as f64 + 0.5) / scale) as usize).min(n.max(1) - 1)
+        };
+        Self {
+            rows: (0..h).map(|y| source(y, px.1, rows)).collect(),
+            cols: (0..w).map(|x| source(x, px.0, cols)).collect(),
+        }
+    }
 }
 
 /// Pixels per (column, row) that draw `geometry`'s grid about `long_side` pixels along its

@@ -2,33 +2,39 @@
 //! the windows ([`crate::surface::study`]), and its outputs: `window_study.json`,
 //! `window_study.csv`, a chart (SVG and PNG) of noise and detail against window size, a panel
 //! PNG of the maps at every window on one colour scale and, with `adaptive`, the adaptive map
-//! and the chosen-window grid as a GeoTIFF. Outputs are staged and committed together.
+//! and the chosen-window grid as a GeoTIFF. The study streams the grid in batches of rows sized
+//! from the memory budget as `curvature` does, the adaptive rows going straight to the GeoTIFF;
+//! the panel keeps only the cells its pictures show. Outputs are staged and committed
+//! together.
 
 use super::curvature::{CurvatureJob, Prepared};
-use super::{stage_bytes, stage_figure, stage_png};
+use super::{batch_rows, default_memory_budget, stage_bytes, stage_figure, stage_png};
 use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::figure::{Anchor, Figure, Mark};
-use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale};
+use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale, PictureCells};
 use crate::error::{FlexureError, Result};
-use crate::io::{commit_all, refuse_overwrite, stage_float_geotiff, BandOut, StagedFile};
+use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
+use crate::io::{commit_all, nodata_if_null, refuse_overwrite, GeoTiffWriter, StagedFile};
 use crate::provenance::Provenance;
 use crate::surface::curvature::{AttributeDef, DerivativeOrder};
 use crate::surface::study::choice::POOL_RADIUS;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
-use crate::surface::study::thresholds::PROPAGATION_ALPHA;
-use crate::surface::study::{study, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
+use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
+use crate::surface::study::{plan, ChosenRows, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
+use ndarray::Array2;
+use serde::Serialize;
 use std::fmt;
 use std::path::{Path, PathBuf};
 
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
 
-/// Options of the window study: the horizon and windows as for `curvature` (its `attributes`
-/// are not used), the attribute studied and whether to write the adaptive map.
+/// Options of the window study: the horizon, windows and memory budget as for `curvature` (its
+/// `attributes` are not used), the attribute studied and whether to write the adaptive map.
 #[derive(Clone, Debug)]
 pub struct WindowStudyJob {
-    /// Horizon (domain, units, velocity), reading options, windows, min-valid and output
-    /// folder, as for `curvature`.
+    /// Horizon (domain, units, velocity), reading options, windows, min-valid, memory budget
+    /// and output folder, as for `curvature`.
     pub fit: CurvatureJob,
     /// The attribute studied.
     pub attribute: &'static AttributeDef,
@@ -39,6 +45,8 @@ pub struct WindowStudyJob {
 impl WindowStudyJob {
     /// Runs the study.
     pub fn run(&self) -> Result<WindowStudyReport> {
+        let budget = self.fit.memory.unwrap_or_else(default_memory_budget);
+        set_block_cache(budget / 4);
         let mut notices = Vec::new();
         let mut sorted = self.fit.windows.clone();
         sorted.sort_unstable();
@@ -55,7 +63,9 @@ impl WindowStudyJob {
                     .into(),
             ));
         }
-        let prepared = self.fit.prepare()?;
+        let mut prepared = self.fit.prepare()?;
+        // Only the depth is fitted: the values as read are let go first.
+        prepared.horizon.grid.values = Array2::zeros((0, 0));
         let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
@@ -69,8 +79,18 @@ impl WindowStudyJob {
         for name in names {
             refuse_overwrite(&out.join(name), &self.fit.horizon.inputs())?;
         }
+        let adaptive_path = self.adaptive.then(|| {
+            out.join(format!(
+                "{}_{}_adaptive.tif",
+                stem(&self.fit.horizon.path),
+                self.attribute.id
+            ))
+        });
+        if let Some(path) = &adaptive_path {
+            refuse_overwrite(path, &self.fit.horizon.inputs())?;
+        }
         let g = &grid.geometry;
-        let s = study(
+        let plan = plan(
             depth.view(),
             g,
             &windows,
@@ -84,6 +104,26 @@ impl WindowStudyJob {
                 "no full 3 x 3 window: cannot estimate the noise",
             )
         })?;
+        let mut writer = match &adaptive_path {
+            Some(path) => Some(self.create_adaptive(path, g, &provenance, &plan.steps)?),
+            None => None,
+        };
+        let rows = batch_rows(
+            budget / 2,
+            g.cols,
+            plan.batch_cell_bytes().div_ceil(8),
+            plan.working_rows(),
+        );
+        let shown = PictureCells::new((g.cols, g.rows), picture_scale(g, PANEL_MAP_SIZE));
+        let s = plan.run(
+            rows,
+            &shown.rows,
+            &shown.cols,
+            &mut |batch| match &mut writer {
+                Some(writer) => write_adaptive(writer, batch),
+                None => Ok(()),
+            },
+        )?;
         let spacing_m = {
             let (sx, sy) = g.spacing();
             (sx * g.metres_per_unit, sy * g.metres_per_unit)
@@ -93,7 +133,10 @@ impl WindowStudyJob {
                 &out.join("window_study.json"),
                 self.json(&s, spacing_m, &notices, &provenance).as_bytes(),
             )?,
-            stage_bytes(&out.join("window_study.csv"), csv(&s).as_bytes())?,
+            stage_bytes(
+                &out.join("window_study.csv"),
+                &csv(&s, &out.join("window_study.csv"))?,
+            )?,
         ];
         staged.extend(stage_chart(
             &out.join("window_study_chart"),
@@ -101,36 +144,9 @@ impl WindowStudyJob {
             self.attribute,
             g.metres_per_unit,
         )?);
-        staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s, g)?);
-        let adaptive_path = self.adaptive.then(|| {
-            out.join(format!(
-                "{}_{}_adaptive.tif",
-                stem(&self.fit.horizon.path),
-                self.attribute.id
-            ))
-        });
-        if let Some(path) = &adaptive_path {
-            refuse_overwrite(path, &self.fit.horizon.inputs())?;
-            let bands = [
-                BandOut {
-                    description: self.attribute.id,
-                    unit: self.attribute.unit,
-                    values: s.adaptive.mapv(|v| v as f32),
-                },
-                BandOut {
-                    description: "chosen_window",
-                    unit: "cells",
-                    values: s.chosen.mapv(|w| if w == 0 { f32::NAN } else { w as f32 }),
-                },
-            ];
-            let meta = provenance
-                .clone()
-                .with("attribute", self.attribute.id)
-                .with("method", WINDOW_RULE)
-                .with("step_thresholds", step_list(&s))
-                .items()
-                .to_vec();
-            staged.push(stage_float_geotiff(path, g, &bands, &meta, self.fit.tiff)?);
+        staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s)?);
+        if let Some(writer) = writer {
+            staged.push(writer.finish()?);
         }
         commit_all(staged)?;
         Ok(WindowStudyReport {
@@ -145,6 +161,35 @@ impl WindowStudyJob {
         })
     }
 
+    /// Creates the adaptive map's GeoTIFF (the attribute and the `chosen_window` band), ready
+    /// for rows.
+    fn create_adaptive(
+        &self,
+        path: &Path,
+        geometry: &crate::grid::GridGeometry,
+        provenance: &Provenance,
+        steps: &[StepTest],
+    ) -> Result<GeoTiffWriter> {
+        let bands = [
+            BandSpec {
+                description: self.attribute.id,
+                unit: self.attribute.unit,
+            },
+            BandSpec {
+                description: "chosen_window",
+                unit: "cells",
+            },
+        ];
+        let meta = provenance
+            .clone()
+            .with("attribute", self.attribute.id)
+            .with("method", WINDOW_RULE)
+            .with("step_thresholds", step_list(steps))
+            .items()
+            .to_vec();
+        GeoTiffWriter::create::<f32>(path, geometry, &bands, &meta, self.fit.tiff, Layout::Float)
+    }
+
     fn json(
         &self,
         s: &Study,
@@ -152,82 +197,65 @@ impl WindowStudyJob {
         notices: &[String],
         provenance: &Provenance,
     ) -> String {
-        let windows: Vec<serde_json::Value> = s
-            .windows
-            .iter()
-            .map(|w| {
-                serde_json::json!({
-                    "window": w.window,
-                    "window_size_m": [w.window as f64 * spacing_m.0, w.window as f64 * spacing_m.1],
-                    "noise_sd": finite(w.noise_sd),
-                    "derivative_noise_sd": finite(w.derivative_noise_sd),
-                    "rms": finite(w.rms),
-                    "robust_spread": finite(w.robust_spread),
-                    "change_from_previous": finite(w.change_from_previous),
-                    "share_within_noise": finite(w.share_within_noise),
-                    "valid_share": finite(w.valid_share),
-                    "rms_from_adaptive": finite(w.rms_from_adaptive),
-                    "adaptive_share": finite(w.adaptive_share),
-                })
-            })
-            .collect();
-        let doc = serde_json::json!({
-            "input": self.fit.horizon.path.display().to_string(),
-            "attribute": self.attribute.id,
-            "unit": self.attribute.unit,
-            "horizon_noise_sd": s.noise.sigma,
-            "horizon_noise_unit": "CRS length unit (positive-down depth)",
-            "noise_estimator": NOISE_ESTIMATOR,
-            "noise_cells": s.noise.n,
-            "rule": WINDOW_RULE,
-            "compared_derivatives": format!("{:?}", self.attribute.order).to_lowercase(),
-            "derivative_noise_unit": match self.attribute.order {
+        let doc = StudyJson {
+            input: self.fit.horizon.path.display().to_string(),
+            attribute: self.attribute.id,
+            unit: self.attribute.unit,
+            horizon_noise_sd: s.noise.sigma,
+            horizon_noise_unit: "CRS length unit (positive-down depth)",
+            noise_estimator: NOISE_ESTIMATOR,
+            noise_cells: s.noise.n,
+            rule: WINDOW_RULE,
+            compared_derivatives: format!("{:?}", self.attribute.order).to_lowercase(),
+            derivative_noise_unit: match self.attribute.order {
                 DerivativeOrder::First => "m/m (gradient)",
                 DerivativeOrder::Second => "1/km (Hessian, z_xx, z_yy, sqrt(2) z_xy)",
             },
-            "pooling_box_cells": 2 * POOL_RADIUS + 1,
-            "propagation_alpha": PROPAGATION_ALPHA,
-            "steps": s.steps.iter().map(|t| serde_json::json!({
-                "from_window": t.windows.0,
-                "to_window": t.windows.1,
-                "expected_squared_change": finite(t.expected),
-                "degrees_of_freedom": finite(t.dof),
-                "false_stop_probability": t.false_stop,
-                "threshold": finite(t.threshold),
-            })).collect::<Vec<_>>(),
-            "noise_band_sd": NOISE_BAND,
-            "windows": windows,
-            "recommended_window": s.recommended,
-            "notices": notices,
-            "provenance": provenance.to_json(),
-        });
-        serde_json::to_string_pretty(&doc).unwrap_or_default() + "\n"
+            pooling_box_cells: 2 * POOL_RADIUS + 1,
+            propagation_alpha: PROPAGATION_ALPHA,
+            steps: &s.steps,
+            noise_band_sd: NOISE_BAND,
+            windows: (s.windows.iter())
+                .map(|figures| JsonWindow {
+                    figures,
+                    window_size_m: [
+                        figures.window as f64 * spacing_m.0,
+                        figures.window as f64 * spacing_m.1,
+                    ],
+                })
+                .collect(),
+            recommended_window: s.recommended,
+            notices,
+            provenance: provenance.to_json(),
+        };
+        // Through a JSON value, whose keys are kept sorted: the file lists them alphabetically.
+        serde_json::to_value(&doc)
+            .and_then(|v| serde_json::to_string_pretty(&v))
+            .unwrap_or_default()
+            + "\n"
     }
 
-    fn stage_panel(
-        &self,
-        path: &Path,
-        s: &Study,
-        g: &crate::grid::GridGeometry,
-    ) -> Result<StagedFile> {
+    fn stage_panel(&self, path: &Path, s: &Study) -> Result<StagedFile> {
         let reference = s
             .windows
             .iter()
             .position(|w| w.window == s.recommended)
             .unwrap_or(0);
-        let scale = ColourScale::for_band(self.attribute.id, &s.maps[reference], Clip::Auto)
-            .ok_or_else(|| {
-                FlexureError::input(
-                    &self.fit.horizon.path,
-                    "the attribute is null everywhere at the recommended window",
-                )
-            })?;
-        let px = picture_scale(g, PANEL_MAP_SIZE);
-        let tile = |m: &ndarray::Array2<f64>| cells_to_pixmap(&colour_cells(m, &scale, None), px);
+        let mut distribution = s.distributions[reference].clone();
+        let scale =
+            ColourScale::from_quantiles(self.attribute.scale, &mut distribution, Clip::Auto)
+                .ok_or_else(|| {
+                    FlexureError::input(
+                        &self.fit.horizon.path,
+                        "the attribute is null everywhere at the recommended window",
+                    )
+                })?;
+        // The samples are the cells the pictures show, one a pixel.
+        let tile = |m: &Array2<f64>| cells_to_pixmap(&colour_cells(m, &scale, None), (1.0, 1.0));
         let mut maps: Vec<(String, tiny_skia::Pixmap)> = s
             .windows
             .iter()
-            .zip(&s.maps)
+            .zip(&s.samples)
             .map(|(w, m)| {
                 let mark = if w.window == s.recommended {
                     " (recommended)"
@@ -237,7 +265,9 @@ impl WindowStudyJob {
                 (format!("window {}{mark}", w.window), tile(m))
             })
             .collect();
-        maps.push(("adaptive (window per cell)".to_string(), tile(&s.adaptive)));
+        if let Some(adaptive) = s.samples.last() {
+            maps.push(("adaptive (window per cell)".to_string(), tile(adaptive)));
+        }
         let title = format!(
             "{} of {} at each window and adaptive (one colour scale)",
             self.attribute.id,
@@ -253,21 +283,54 @@ impl WindowStudyJob {
     }
 }
 
-/// `3-5:2.110,5-7:2.060,...`: each step's threshold, for the GeoTIFF metadata.
-fn step_list(s: &Study) -> String {
-    s.steps
-        .iter()
-        .map(|t| format!("{}-{}:{:.3}", t.windows.0, t.windows.1, t.threshold))
-        .collect::<Vec<_>>()
-        .join(",")
+/// The JSON report (`window_study.json`); every field named once, here.
+#[derive(Serialize)]
+struct StudyJson<'a> {
+    input: String,
+    attribute: &'a str,
+    unit: &'a str,
+    horizon_noise_sd: f64,
+    horizon_noise_unit: &'a str,
+    noise_estimator: &'a str,
+    noise_cells: usize,
+    rule: &'a str,
+    compared_derivatives: String,
+    derivative_noise_unit: &'a str,
+    pooling_box_cells: usize,
+    propagation_alpha: f64,
+    steps: &'a [StepTest],
+    noise_band_sd: f64,
+    windows: Vec<JsonWindow<'a>>,
+    recommended_window: usize,
+    notices: &'a [String],
+    provenance: serde_json::Value,
 }
 
-fn finite(v: f64) -> serde_json::Value {
-    if v.is_finite() {
-        serde_json::json!(v)
-    } else {
-        serde_json::Value::Null
-    }
+/// One window in the JSON report: its figures and the window's size in metres.
+#[derive(Serialize)]
+struct JsonWindow<'a> {
+    #[serde(flatten)]
+    figures: &'a WindowFigures,
+    window_size_m: [f64; 2],
+}
+
+/// Writes one batch of the adaptive map and chosen windows (nulls as the nodata value).
+fn write_adaptive(writer: &mut GeoTiffWriter, batch: ChosenRows) -> Result<()> {
+    let adaptive = batch.adaptive.into_iter().map(nodata_if_null).collect();
+    let chosen = (batch.chosen.iter())
+        .map(|&w| nodata_if_null(if w == 0 { f32::NAN } else { w as f32 }))
+        .collect();
+    writer.write_rows(0, batch.first_row, adaptive)?;
+    writer.write_rows(1, batch.first_row, chosen)
+}
+
+/// `3-5:2.110,5-7:2.060,...`: each step's threshold, for the GeoTIFF metadata.
+fn step_list(steps: &[StepTest]) -> String {
+    steps
+        .iter()
+        .map(|t| format!("{}-{}:{:.3}", t.from_window, t.to_window, t.threshold))
+        .collect::<Vec<_>>()
+        .join(",")
 }
 
 fn join(v: &[usize]) -> String {
@@ -284,32 +347,23 @@ fn stem(p: &Path) -> String {
         .to_string()
 }
 
-fn csv(s: &Study) -> String {
-    let mut text = String::from("window,noise_sd,derivative_noise_sd,rms,robust_spread,change_from_previous,share_within_noise,valid_share,rms_from_adaptive,adaptive_share,recommended\n");
-    let f = |v: f64| {
-        if v.is_finite() {
-            format!("{v:.6e}")
-        } else {
-            String::new()
-        }
-    };
-    for w in &s.windows {
-        text += &format!(
-            "{},{},{},{},{},{},{},{},{},{},{}\n",
-            w.window,
-            f(w.noise_sd),
-            f(w.derivative_noise_sd),
-            f(w.rms),
-            f(w.robust_spread),
-            f(w.change_from_previous),
-            f(w.share_within_noise),
-            f(w.valid_share),
-            f(w.rms_from_adaptive),
-            f(w.adaptive_share),
-            u8::from(w.window == s.recommended)
-        );
+/// The CSV report (`window_study.csv`, written for `path`): one row per window, the figures'
+/// columns (named by [`WindowFigures`]) and `recommended` (1 for the recommended window).
+fn csv(s: &Study, path: &Path) -> Result<Vec<u8>> {
+    #[derive(Serialize)]
+    struct Recommended {
+        recommended: u8,
     }
-    text
+    let mut writer = csv::Writer::from_writer(Vec::new());
+    for figures in &s.windows {
+        let recommended = u8::from(figures.window == s.recommended);
+        writer
+            .serialize((figures, Recommended { recommended }))
+            .map_err(|e| FlexureError::write(path, e))?;
+    }
+    writer
+        .into_inner()
+        .map_err(|e| FlexureError::write(path, e.to_string()))
 }
 
 /// Noise (blue), detail lost (orange), RMS (grey) and difference from the adaptive map (purple)

@@ -10,9 +10,11 @@
 //! nearest or the lower order statistic. Sorting is by IEEE total order, so a NaN (positive)
 //! sorts last: callers pass finite values.
 //!
-//! Directional and axial statistics are in [`circular`].
+//! Directional and axial statistics are in [`circular`]; streaming quantiles of values too
+//! many to hold (the window study's maps) in [`sketch`].
 
 pub mod circular;
+pub mod sketch;
 
 /// How a quantile is read at the Hyndman & Fan type-7 position `h = (n - 1) q` of the
 /// ascending sample `x`.
@@ -107,6 +109,9 @@ pub fn median_and_mad(values: &mut [f64]) -> Option<(f64, f64)> {
     Some((centre, mad))
 }
 
+/// SplitMix64's increment of the state per draw (the odd integer nearest 2^64 / golden ratio).
+const GOLDEN_GAMMA: u64 = 0x9E37_79B9_7F4A_7C15;
+
 /// Seeded pseudo-random numbers (SplitMix64, Steele, Lea & Flood 2014, OOPSLA), so the window
 /// study's injected noise, the demo data and the tests are reproducible on every platform
 /// without depending on a crate's stream.
@@ -121,9 +126,16 @@ impl SeededNoise {
         Self { state: seed }
     }
 
+    /// Moves on by `draws` draws of [`Self::next_u64`] at once (SplitMix64's state advances by
+    /// a fixed increment per draw), so any part of a stream can be generated on its own:
+    /// [`Self::gaussian`] takes two draws.
+    pub fn skip(&mut self, draws: u64) {
+        self.state = self.state.wrapping_add(draws.wrapping_mul(GOLDEN_GAMMA));
+    }
+
     /// Next 64 random bits.
     pub fn next_u64(&mut self) -> u64 {
-        self.state = self.state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        self.state = self.state.wrapping_add(GOLDEN_GAMMA);
         let mut z = self.state;
         z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
         z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
@@ -226,6 +238,22 @@ mod tests {
             Some((3.5, 1.75))
         );
         assert_eq!(median_and_mad(&mut []), None);
+    }
+
+    #[test]
+    fn skipping_draws_continues_the_same_stream() {
+        // SplitMix64 (Steele, Lea & Flood 2014): the state after k draws is seed + k gamma, so
+        // a skip of k must give the draws that k calls of next_u64 would have led to.
+        let mut walked = SeededNoise::new(99);
+        for _ in 0..1001 {
+            walked.next_u64();
+        }
+        let mut skipped = SeededNoise::new(99);
+        skipped.skip(1001);
+        let (a, b): (Vec<u64>, Vec<u64>) = (0..5)
+            .map(|_| (walked.next_u64(), skipped.next_u64()))
+            .unzip();
+        assert_eq!(a, b);
     }
 
     #[test]

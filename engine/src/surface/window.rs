@@ -159,6 +159,63 @@ pub fn fit_quadrics_with_noise(
     Ok((QuadricField { cols, rows, cells }, power))
 }
 
+/// The rows of a grid a [`WindowFit`] reads: `values` holds grid rows
+/// `first_row..first_row + values.nrows()` of a grid of `grid_rows` rows (`[row, col]`, NaN =
+/// null; z in CRS length units), and `z_mean` is [`valid_mean`] of the whole grid's values, the
+/// fit's working origin for z. Fitting a run of rows reads the rows within half a window of
+/// it, which must be held here or lie outside the grid; each cell's quadric is then the same
+/// bits as in a fit of the whole grid. So a grid that is never held whole (the window study's
+/// noise-perturbed horizon) can be fitted a band of rows at a time.
+#[derive(Clone, Copy)]
+pub struct GridRows<'a> {
+    /// The rows held.
+    pub values: ArrayView2<'a, f64>,
+    /// Grid row of the first row held.
+    pub first_row: usize,
+    /// Rows of the whole grid.
+    pub grid_rows: usize,
+    /// Mean of the whole grid's valid values ([`valid_mean`]).
+    pub z_mean: f64,
+}
+
+impl<'a> GridRows<'a> {
+    /// The whole grid `values`.
+    pub fn whole(values: ArrayView2<'a, f64>) -> Self {
+        Self {
+            values,
+            first_row: 0,
+            grid_rows: values.nrows(),
+            z_mean: valid_mean(values.iter().copied()),
+        }
+    }
+
+    /// The value at grid row `row` (held) and column `col`.
+    fn at(&self, row: usize, col: usize) -> f64 {
+        self.values[(row - self.first_row, col)]
+    }
+
+    /// Whether the grid rows `rows` are held or outside the grid.
+    fn holds(&self, rows: std::ops::Range<isize>) -> bool {
+        let held = self.first_row as isize..(self.first_row + self.values.nrows()) as isize;
+        let inside = rows.start.max(0)..rows.end.min(self.grid_rows as isize);
+        inside.is_empty() || (held.start <= inside.start && inside.end <= held.end)
+    }
+}
+
+/// Mean of the finite `values`, summed in the order given (0 when there is none): the origin
+/// for z of a [`WindowFit`], subtracted before its sums for precision.
+pub fn valid_mean(values: impl IntoIterator<Item = f64>) -> f64 {
+    let (sum, count) = values
+        .into_iter()
+        .filter(|v| v.is_finite())
+        .fold((0.0, 0usize), |(s, n), v| (s + v, n + 1));
+    if count == 0 {
+        0.0
+    } else {
+        sum / count as f64
+    }
+}
+
 /// The window fit of one grid, ready to fit any run of its rows: the one window mechanism
 /// every job streams through. Rows are fitted in fixed tiles (their height depends only on the
 /// window, never on the thread count) on rayon; every cell's sums run in a fixed order, so a
@@ -198,9 +255,20 @@ impl<'a> WindowFit<'a> {
         spec: &WindowSpec,
         functionals: &[[f64; 6]],
     ) -> Result<Self> {
-        let (rows, cols) = values.dim();
-        spec.validate(cols, rows)?;
-        let fitter = Fitter::new(values, geometry, spec, functionals)?;
+        Self::of_rows(GridRows::whole(values), geometry, spec, functionals)
+    }
+
+    /// Prepares the fit of the grid of which `rows` holds a band (see [`GridRows`]), as
+    /// [`WindowFit::new`] does for a whole grid; [`WindowFit::map_tiles`] then fits runs of
+    /// rows whose windows lie in the band.
+    pub fn of_rows(
+        rows: GridRows<'a>,
+        geometry: &GridGeometry,
+        spec: &WindowSpec,
+        functionals: &[[f64; 6]],
+    ) -> Result<Self> {
+        spec.validate(rows.values.ncols(), rows.grid_rows)?;
+        let fitter = Fitter::new(rows, geometry, spec, functionals)?;
         Ok(Self {
             fitter,
             tile_rows: tile_rows(spec.half()),
@@ -215,7 +283,7 @@ impl<'a> WindowFit<'a> {
 
     /// (rows, columns) of the grid.
     pub fn dim(&self) -> (usize, usize) {
-        self.fitter.values.dim()
+        (self.fitter.rows.grid_rows, self.fitter.cols())
     }
 
     /// Height of the fixed tiles; runs of rows given to [`WindowFit::map_tiles`] that start at
@@ -225,13 +293,21 @@ impl<'a> WindowFit<'a> {
     }
 
     /// Fits the grid rows `rows` tile by tile in parallel and maps each tile's fitted cells
-    /// with `each`; the results come back in row order.
+    /// with `each`; the results come back in row order. The rows within half a window of
+    /// `rows` must be held (see [`GridRows`]).
     pub fn map_tiles<T: Send>(
         &self,
         rows: std::ops::Range<usize>,
         each: impl Fn(FittedTile) -> T + Sync,
     ) -> Vec<T> {
-        let end = rows.end.min(self.fitter.values.nrows());
+        let end = rows.end.min(self.fitter.rows.grid_rows);
+        let half = self.fitter.half as isize;
+        assert!(
+            self.fitter
+                .rows
+                .holds(rows.start as isize - half..end as isize + half),
+            "internal: rows {rows:?} fitted beyond the rows held"
+        );
         let starts: Vec<usize> = (rows.start..end).step_by(self.tile_rows).collect();
         starts
             .par_iter()
@@ -239,7 +315,7 @@ impl<'a> WindowFit<'a> {
                 let r1 = (r0 + self.tile_rows).min(end);
                 each(FittedTile {
                     first_row: r0,
-                    cols: self.fitter.values.ncols(),
+                    cols: self.fitter.cols(),
                     cells: self.fitter.fit_tile(r0, r1),
                 })
             })
@@ -389,7 +465,7 @@ impl CoefficientMap {
 
 /// Everything a tile needs: the data, window geometry and precomputed full-window solution.
 struct Fitter<'a> {
-    values: ArrayView2<'a, f64>,
+    rows: GridRows<'a>,
     half: usize,
     /// s = u/m for u = -m..=m.
     offsets: Vec<f64>,
@@ -399,7 +475,7 @@ struct Fitter<'a> {
     min_count: f64,
     full_inverse: Matrix6<f64>,
     map: CoefficientMap,
-    /// Mean of the valid values, subtracted before the sums for precision.
+    /// Mean of the grid's valid values, subtracted before the sums for precision.
     z_shift: f64,
     /// The noise functionals in window coordinates, `J^T t_c`.
     functionals: Vec<Vector6<f64>>,
@@ -415,7 +491,7 @@ struct RowSums {
 
 impl<'a> Fitter<'a> {
     fn new(
-        values: ArrayView2<'a, f64>,
+        rows: GridRows<'a>,
         geometry: &GridGeometry,
         spec: &WindowSpec,
         functionals: &[[f64; 6]],
@@ -434,16 +510,11 @@ impl<'a> Fitter<'a> {
             .collect();
         let full_inverse = full_window_inverse(half);
         let full_power = noise_power(&functionals, &full_inverse);
-        let (sum, count) = values
-            .iter()
-            .filter(|v| v.is_finite())
-            .fold((0.0, 0usize), |(s, n), v| (s + v, n + 1));
-        let z_shift = if count == 0 { 0.0 } else { sum / count as f64 };
         let offsets: Vec<f64> = (-(half as isize)..=half as isize)
             .map(|u| u as f64 / half as f64)
             .collect();
         Ok(Self {
-            values,
+            rows,
             half,
             offsets: offsets.clone(),
             row_powers: offsets
@@ -454,19 +525,22 @@ impl<'a> Fitter<'a> {
             min_count: spec.min_count(),
             full_inverse,
             map,
-            z_shift,
+            z_shift: rows.z_mean,
             functionals,
             full_power,
         })
     }
 
+    fn cols(&self) -> usize {
+        self.rows.values.ncols()
+    }
+
     /// Value at (row, col) as (mask, shifted z); cells outside the grid are nulls.
     fn cell(&self, row: isize, col: usize) -> (f64, f64) {
-        let rows = self.values.nrows() as isize;
-        if row < 0 || row >= rows {
+        if row < 0 || row >= self.rows.grid_rows as isize {
             return (0.0, 0.0);
         }
-        let v = self.values[(row as usize, col)];
+        let v = self.rows.at(row as usize, col);
         if v.is_finite() {
             (1.0, v - self.z_shift)
         } else {
@@ -476,7 +550,7 @@ impl<'a> Fitter<'a> {
 
     /// Pass along each grid row `row`: the sums over u of s^p M and s^p M z.
     fn row_sums(&self, row: isize) -> RowSums {
-        let cols = self.values.ncols();
+        let cols = self.cols();
         let (mut mask_row, mut data_row) = (vec![0.0; cols], vec![0.0; cols]);
         for col in 0..cols {
             (mask_row[col], data_row[col]) = self.cell(row, col);
@@ -512,7 +586,7 @@ impl<'a> Fitter<'a> {
         let sums: Vec<RowSums> = (first..(r1 + m) as isize)
             .map(|r| self.row_sums(r))
             .collect();
-        let cols = self.values.ncols();
+        let cols = self.cols();
         let mut out = Vec::with_capacity((r1 - r0) * cols);
         for row in r0..r1 {
             let window = &sums[row - r0..row - r0 + 2 * m + 1];
@@ -525,7 +599,7 @@ impl<'a> Fitter<'a> {
     /// for the count and right-hand side, a second for the mask moments only if the window
     /// holds nulls.
     fn fit_cell(&self, window: &[RowSums], row: usize, col: usize) -> Option<(Quadric, f64)> {
-        if !self.values[(row, col)].is_finite() {
+        if !self.rows.at(row, col).is_finite() {
             return None;
         }
         let mut count = 0.0;
@@ -736,6 +810,51 @@ mod tests {
         };
         assert!(spec.validate(8, 200).is_err());
         assert!(spec.validate(9, 9).is_ok());
+    }
+
+    #[test]
+    fn a_band_of_rows_fits_as_the_whole_grid_does() {
+        // The streaming contract (module notes): rows fitted from a held band with the whole
+        // grid's mean as origin are the same bits as in a whole-grid fit (reference: the
+        // whole-grid fit itself), at the grid's top and bottom edges and inside, with nulls.
+        let g = GridGeometry {
+            cols: 30,
+            rows: 90,
+            ..square(12.5)
+        };
+        let mut rng = crate::stats::SeededNoise::new(23);
+        let z = Array2::from_shape_fn((90, 30), |(r, c)| {
+            if (r * 7 + c * 3) % 19 == 0 {
+                f64::NAN
+            } else {
+                500.0 + 0.02 * (r * c) as f64 + rng.gaussian()
+            }
+        });
+        let spec = WindowSpec {
+            size: 7,
+            min_valid: 0.5,
+        };
+        let whole = WindowFit::new(z.view(), &g, &spec, &[[2.0, 2.0, 0.0, 0.0, 0.0, 0.0]])
+            .unwrap()
+            .map_tiles(0..90, |t| t.cells)
+            .concat();
+        for (first, last) in [(0usize, 20usize), (37, 61), (70, 90)] {
+            let held = first.saturating_sub(3)..(last + 3).min(90);
+            let band = GridRows {
+                values: z.slice(ndarray::s![held.clone(), ..]),
+                first_row: held.start,
+                grid_rows: 90,
+                z_mean: valid_mean(z.iter().copied()),
+            };
+            let fit =
+                WindowFit::of_rows(band, &g, &spec, &[[2.0, 2.0, 0.0, 0.0, 0.0, 0.0]]).unwrap();
+            let cells = fit.map_tiles(first..last, |t| t.cells).concat();
+            assert_eq!(
+                format!("{cells:?}"),
+                format!("{:?}", &whole[first * 30..last * 30]),
+                "rows {first}..{last}"
+            );
+        }
     }
 
     #[test]

@@ -1,11 +1,16 @@
 //! The per-cell window choice: the pooled squared change of the fitted derivatives between
 //! consecutive windows as a ratio to its expectation under noise alone, and the sequential
 //! choice that keeps a larger window while that ratio stays within the step's threshold.
+//!
+//! Everything works on a band of rows: the ratio of a cell reads the rows within
+//! [`POOL_RADIUS`] of it, so a band that holds those rows (or reaches the grid's edge) gives
+//! the cell the same bits as the whole grid would; the study streams the grid through it.
 
 use super::thresholds::StepTest;
 use super::Vectors;
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;
+use std::ops::Range;
 
 /// Half width in cells of the box over which squared changes are pooled (a 13 x 13 box). Our
 /// choice: wide enough that the noise of the smallest windows averages out, narrow enough to
@@ -14,7 +19,9 @@ use rayon::prelude::*;
 pub const POOL_RADIUS: usize = 6;
 
 /// The pooled squared change between two windows' derivative vectors as a ratio to its pooled
-/// expectation under noise alone, `expected` per cell (NaN where either window has no fit).
+/// expectation under noise alone, `expected` per cell (NaN where either window has no fit),
+/// for the band rows `rows` (all arrays hold the same band of the grid, cut at the grid's
+/// edges; `rows` must lie [`POOL_RADIUS`] inside the band's cuts that are not grid edges).
 /// For nested least-squares fits the larger window is efficient, so the variance of the change
 /// is the difference of the two variances (Hausman 1978, Econometrica 46:1251; from memory):
 /// `expected = sigma^2 (P_smaller - P_larger)` with the cells' own (masked) noise powers.
@@ -22,13 +29,14 @@ pub(super) fn pooled_ratio(
     smaller: &Vectors,
     larger: &Vectors,
     expected: &Array2<f64>,
+    rows: Range<usize>,
 ) -> Array2<f64> {
     let squares = (0..3).fold(Array2::zeros(smaller[0].dim()), |acc, k| {
         let d = &larger[k] - &smaller[k];
         acc + &d * &d
     });
-    let pooled = box_mean(&squares, POOL_RADIUS);
-    let mean = box_mean(expected, POOL_RADIUS);
+    let pooled = box_mean(&squares, POOL_RADIUS, rows.clone());
+    let mean = box_mean(expected, POOL_RADIUS, rows);
     ndarray::Zip::from(&pooled)
         .and(&mean)
         .map_collect(|&v, &e| {
@@ -67,7 +75,7 @@ impl Choice {
     pub(super) fn step(
         &mut self,
         k: usize,
-        first: &Array2<f64>,
+        first: ArrayView2<f64>,
         ratio: Option<&Array2<f64>>,
         step: Option<&StepTest>,
     ) {
@@ -94,13 +102,16 @@ impl Choice {
     }
 }
 
-/// Mean of the finite values of `values` in the `(2 radius + 1)^2` box around each cell (cut
-/// at the grid's edges), NaN where the cell itself is not finite. Separable: sums along rows,
-/// then down columns, each in a fixed order (the same bits for any thread count).
-fn box_mean(values: &Array2<f64>, radius: usize) -> Array2<f64> {
+/// Mean of the finite values of `values` in the `(2 radius + 1)^2` box around each cell of the
+/// rows `out` (cut at the array's edges), NaN where the cell itself is not finite. Separable:
+/// sums along rows, then down columns, each in a fixed order (the same bits for any thread
+/// count, and for any band that holds the rows within `radius` of `out`).
+fn box_mean(values: &Array2<f64>, radius: usize, out: Range<usize>) -> Array2<f64> {
     let (rows, cols) = values.dim();
     let span = |i: usize, n: usize| i.saturating_sub(radius)..(i + radius + 1).min(n);
-    let along_rows: Vec<Vec<(f64, f64)>> = (0..rows)
+    let read = out.start.saturating_sub(radius)..(out.end + radius).min(rows);
+    let along_rows: Vec<Vec<(f64, f64)>> = read
+        .clone()
         .into_par_iter()
         .map(|r| {
             (0..cols)
@@ -113,7 +124,8 @@ fn box_mean(values: &Array2<f64>, radius: usize) -> Array2<f64> {
                 .collect()
         })
         .collect();
-    let out: Vec<Vec<f64>> = (0..rows)
+    let means: Vec<Vec<f64>> = out
+        .clone()
         .into_par_iter()
         .map(|r| {
             (0..cols)
@@ -122,14 +134,15 @@ fn box_mean(values: &Array2<f64>, radius: usize) -> Array2<f64> {
                         return f64::NAN;
                     }
                     let (s, n) = span(r, rows).fold((0.0, 0.0), |(s, n), rr| {
-                        (s + along_rows[rr][c].0, n + along_rows[rr][c].1)
+                        let (rs, rn) = along_rows[rr - read.start][c];
+                        (s + rs, n + rn)
                     });
                     s / n
                 })
                 .collect()
         })
         .collect();
-    Array2::from_shape_vec((rows, cols), out.concat()).expect("rows x cols values")
+    Array2::from_shape_vec((out.len(), cols), means.concat()).expect("rows x cols values")
 }
 
 #[cfg(test)]
@@ -149,7 +162,13 @@ mod tests {
                 x
             }
         });
-        let got = box_mean(&v, 3);
+        let got = box_mean(&v, 3, 0..23);
+        // A band holding the rows within the radius gives its rows the same bits.
+        let band = box_mean(&v.slice(ndarray::s![6..18, ..]).to_owned(), 3, 3..9);
+        assert_eq!(
+            format!("{band:?}"),
+            format!("{:?}", got.slice(ndarray::s![9..15, ..]))
+        );
         for ((r, c), g) in got.indexed_iter() {
             if !v[(r, c)].is_finite() {
                 assert!(g.is_nan());

@@ -44,8 +44,18 @@
 //!
 //! The parts: [`noise`] estimates the horizon's noise; [`thresholds`] is the noise model of the
 //! derivative changes between windows and the step tests; [`choice`] pools the changes and
-//! makes the per-cell choice. This module runs the study (streamed fits of the clean and
-//! noise-perturbed horizon per window), gives the per-window figures and the recommendation.
+//! makes the per-cell choice. This module runs the study ([`plan`], [`StudyPlan::run`]), gives
+//! the per-window figures and the recommendation.
+//!
+//! Memory: the grid streams in batches of rows. Per batch every window is fitted to the clean
+//! horizon over the batch and the [`POOL_RADIUS`] rows either side (the pooled test's reach)
+//! and to the perturbed horizon over the batch (its rows generated from the seeded stream for
+//! the batch and half the largest window either side); the cells choose their window and the
+//! batch's per-cell results go to the caller. The figures are running sums in the grid's
+//! row-major order (the same bits as sums over whole maps, for any batch size) and, for the
+//! quantile-based ones, quantile sketches ([`crate::stats::sketch`]). So besides the input only
+//! one batch is held, however many windows; the horizon noise estimate's residuals (one a
+//! fitted cell, before the fits) are the only grid-sized array.
 
 pub mod choice;
 pub mod noise;
@@ -53,12 +63,16 @@ pub mod thresholds;
 
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::stats::{quantiles, Quantile, SeededNoise};
+use crate::stats::sketch::Distribution;
+use crate::stats::SeededNoise;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
-use crate::surface::window::{Quadric, WindowFit, WindowSpec};
-use choice::{pooled_ratio, Choice};
-use ndarray::{Array2, ArrayView2};
+use crate::surface::window::{valid_mean, GridRows, Quadric, WindowFit, WindowSpec};
+use choice::{pooled_ratio, Choice, POOL_RADIUS};
+use ndarray::{s, Array2, ArrayView2};
 use noise::{estimate_noise, NoiseEstimate};
+use rayon::prelude::*;
+use serde::{Serialize, Serializer};
+use std::ops::Range;
 use thresholds::{noise_model, NoiseModel, StepTest};
 
 /// Half width of the noise band of `share_within_noise`, in attribute noise standard
@@ -71,62 +85,118 @@ const NOISE_SEED: u64 = 0x5eed;
 /// Name of the per-cell rule and the recommendation, for reports.
 pub const WINDOW_RULE: &str = "per cell: pooled sequential Lepski test on the fitted derivatives (13 x 13 box), step thresholds from the chi-square model of the pooled noise and the propagation condition; recommended: the single window closest (RMS) to the adaptive map";
 
-/// Figures of one window, in the attribute's unit where they have one.
-#[derive(Clone, Debug, PartialEq)]
+/// Figures of one window, in the attribute's unit where they have one. Serialised with these
+/// names (the window-study report's JSON and CSV); values that are not finite as null (an
+/// empty CSV field).
+#[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct WindowFigures {
     /// Window edge length in cells.
     pub window: usize,
     /// Standard deviation of the attribute caused by the horizon's noise.
+    #[serde(serialize_with = "null_unless_finite")]
     pub noise_sd: f64,
     /// Exact noise standard deviation of the fitted derivative vector of a full window, sigma
     /// times the root-sum-square of its kernel weights: the Hessian `(z_xx, z_yy, sqrt(2)
     /// z_xy)` in 1/km for curvatures, the gradient in m/m for dip.
+    #[serde(serialize_with = "null_unless_finite")]
     pub derivative_noise_sd: f64,
     /// RMS of the attribute.
+    #[serde(serialize_with = "null_unless_finite")]
     pub rms: f64,
-    /// Robust spread: interquartile range / 1.349.
+    /// Robust spread: interquartile range / 1.349, the quartiles read from a quantile sketch
+    /// (within [`crate::stats::sketch::RELATIVE_ERROR`] of each quartile's magnitude).
+    #[serde(serialize_with = "null_unless_finite")]
     pub robust_spread: f64,
     /// RMS change from the previous (smaller) window (NaN for the first).
+    #[serde(serialize_with = "null_unless_finite")]
     pub change_from_previous: f64,
-    /// Share of cells whose value lies within +-`NOISE_BAND` noise_sd of zero.
+    /// Share of cells whose value lies within +-`NOISE_BAND` noise_sd of zero, read from a
+    /// quantile sketch of the magnitudes (off by at most the share of cells within
+    /// [`crate::stats::sketch::RELATIVE_ERROR`] of the band's edge).
+    #[serde(serialize_with = "null_unless_finite")]
     pub share_within_noise: f64,
     /// Share of cells with a value.
+    #[serde(serialize_with = "null_unless_finite")]
     pub valid_share: f64,
     /// RMS difference from the adaptive map (the recommendation is its least).
+    #[serde(serialize_with = "null_unless_finite")]
     pub rms_from_adaptive: f64,
     /// Share of the adaptive map's cells that chose this window.
+    #[serde(serialize_with = "null_unless_finite")]
     pub adaptive_share: f64,
 }
 
-/// The whole study.
-#[derive(Clone, Debug)]
+/// `v`, or none (JSON null, an empty CSV field) when it is not finite.
+fn null_unless_finite<S: Serializer>(v: &f64, s: S) -> std::result::Result<S::Ok, S::Error> {
+    if v.is_finite() {
+        s.serialize_some(v)
+    } else {
+        s.serialize_none()
+    }
+}
+
+/// The whole study: its figures and what the panel of maps needs. The per-cell results
+/// (adaptive map, chosen window) go to the caller batch by batch ([`StudyPlan::run`]).
+#[derive(Clone)]
 pub struct Study {
     /// The horizon's noise estimate.
     pub noise: NoiseEstimate,
     /// Per window, ascending.
     pub windows: Vec<WindowFigures>,
-    /// The attribute at each window, `[row, col]`, NaN = null.
-    pub maps: Vec<Array2<f64>>,
     /// The tests between consecutive windows.
     pub steps: Vec<StepTest>,
-    /// Per-cell chosen window (edge length, 0 where no window fits).
-    pub chosen: Array2<usize>,
-    /// The attribute at the chosen window of each cell.
-    pub adaptive: Array2<f64>,
     /// The recommended single window.
     pub recommended: usize,
+    /// The attribute at each window and (last) the adaptive map, at the sampled cells
+    /// (`[sample row, sample column]`, NaN = null).
+    pub samples: Vec<Array2<f64>>,
+    /// The distribution of the attribute's values at each window (sketched).
+    pub distributions: Vec<Distribution>,
 }
 
-/// Runs the study of `attribute` on `depth` (positive down, CRS units) over `windows`
-/// (ascending, distinct, at least two).
-pub fn study(
-    depth: ArrayView2<f64>,
-    geometry: &GridGeometry,
-    windows: &[usize],
-    attribute: &AttributeDef,
+/// The per-cell results of one batch of rows, row-major from grid row `first_row`.
+pub struct ChosenRows {
+    /// First grid row of the batch.
+    pub first_row: usize,
+    /// The attribute at each cell's chosen window (NaN where no window fits), in the
+    /// attribute's unit.
+    pub adaptive: Vec<f32>,
+    /// Each cell's chosen window edge length in cells (0 where no window fits).
+    pub chosen: Vec<usize>,
+}
+
+/// A study ready to run: the noise estimate, the step tests (both known before any window is
+/// fitted) and the fits of the clean horizon.
+pub struct StudyPlan<'a> {
+    depth: ArrayView2<'a, f64>,
+    geometry: &'a GridGeometry,
+    windows: Vec<usize>,
+    attribute: &'a AttributeDef,
     min_valid: f64,
     tolerance: FlatTolerance,
-) -> Result<Option<Study>> {
+    /// The horizon's noise estimate.
+    pub noise: NoiseEstimate,
+    /// The tests between consecutive windows.
+    pub steps: Vec<StepTest>,
+    /// Exact derivative noise per window, in output units (see [`WindowFigures`]).
+    derivative_noise_sd: Vec<f64>,
+    /// The fits of the clean horizon, one per window.
+    clean: Vec<WindowFit<'a>>,
+    /// [`valid_mean`] of the noise-perturbed horizon (the origin of its fits).
+    noisy_mean: f64,
+}
+
+/// Prepares the study of `attribute` on `depth` (positive down, CRS units) over `windows`
+/// (ascending, distinct, at least two): the horizon's noise estimate and the step tests;
+/// `None` when the noise cannot be estimated (no full 3 x 3 window).
+pub fn plan<'a>(
+    depth: ArrayView2<'a, f64>,
+    geometry: &'a GridGeometry,
+    windows: &[usize],
+    attribute: &'a AttributeDef,
+    min_valid: f64,
+    tolerance: FlatTolerance,
+) -> Result<Option<StudyPlan<'a>>> {
     let Some(noise) = estimate_noise(depth, geometry)? else {
         return Ok(None);
     };
@@ -134,231 +204,391 @@ pub fn study(
         steps,
         derivative_noise_sd,
     } = noise_model(geometry, windows, attribute.order, noise.sigma)?;
-    let mut rng = SeededNoise::new(NOISE_SEED);
-    let noisy = Array2::from_shape_fn(depth.dim(), |at| depth[at] + noise.sigma * rng.gaussian());
-    let functionals = attribute.order.functionals();
-    let (mut maps, mut noise_sds) = (Vec::new(), Vec::new());
-    let mut choice = Choice::new(depth.dim());
-    let mut previous: Option<(Vectors, Array2<f64>)> = None;
-    for (k, &n) in windows.iter().enumerate() {
-        let spec = WindowSpec { size: n, min_valid };
-        let fits = WindowFitPair {
-            clean: WindowFit::new(depth, geometry, &spec, &functionals)?,
-            perturbed: WindowFit::new(noisy.view(), geometry, &spec, &[])?,
-        };
-        let fitted = fits.evaluate(attribute, geometry.metres_per_unit, tolerance);
-        noise_sds.push(rms_difference(&fitted.map, &fitted.perturbed));
-        let ratio = previous.as_ref().map(|(prev, prev_power)| {
-            let expected = (prev_power - &fitted.power) * noise.sigma.powi(2);
-            pooled_ratio(prev, &fitted.vectors, &expected)
-        });
-        let step = k.checked_sub(1).map(|j| &steps[j]);
-        choice.step(k, &fitted.vectors[0], ratio.as_ref(), step);
-        previous = Some((fitted.vectors, fitted.power));
-        maps.push(fitted.map);
-    }
-    drop(previous);
-    let chosen_index = choice.chosen;
-    let adaptive = Array2::from_shape_fn(depth.dim(), |at| {
-        chosen_index[at].map_or(f64::NAN, |k| maps[k][at])
-    });
     let per_km = match attribute.order {
         DerivativeOrder::First => 1.0,
         DerivativeOrder::Second => 1000.0 / geometry.metres_per_unit,
     };
-    let derivative_noise_sd: Vec<f64> = derivative_noise_sd.iter().map(|sd| sd * per_km).collect();
-    let figures = window_figures(
-        windows,
-        &maps,
-        &noise_sds,
-        &derivative_noise_sd,
-        &adaptive,
-        &chosen_index,
-    );
-    let recommended = figures
+    let functionals = attribute.order.functionals();
+    let clean = windows
         .iter()
-        .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
-        .map_or(windows[0], |f| f.window);
-    Ok(Some(Study {
+        .map(|&size| {
+            WindowFit::new(
+                depth,
+                geometry,
+                &WindowSpec { size, min_valid },
+                &functionals,
+            )
+        })
+        .collect::<Result<Vec<_>>>()?;
+    let mut plan = StudyPlan {
+        depth,
+        geometry,
+        windows: windows.to_vec(),
+        attribute,
+        min_valid,
+        tolerance,
         noise,
-        windows: figures,
-        maps,
         steps,
-        chosen: chosen_index.mapv(|k| k.map_or(0, |k| windows[k])),
-        adaptive,
-        recommended,
-    }))
+        derivative_noise_sd: derivative_noise_sd.iter().map(|sd| sd * per_km).collect(),
+        clean,
+        noisy_mean: 0.0,
+    };
+    // Summed over the whole perturbed horizon in row-major order, as a fit of it held whole
+    // would, a chunk of rows at a time.
+    let rows = depth.nrows();
+    plan.noisy_mean = valid_mean(
+        (0..rows)
+            .step_by(NOISY_MEAN_ROWS)
+            .flat_map(|r| plan.noisy_rows(r..(r + NOISY_MEAN_ROWS).min(rows))),
+    );
+    Ok(Some(plan))
 }
 
-/// Per-window figures once the adaptive map is known (`derivative_noise_sd` in output units).
-fn window_figures(
-    windows: &[usize],
-    maps: &[Array2<f64>],
-    noise_sds: &[f64],
-    derivative_noise_sd: &[f64],
-    adaptive: &Array2<f64>,
-    chosen: &Array2<Option<usize>>,
-) -> Vec<WindowFigures> {
-    let mut chosen_counts = vec![0usize; windows.len()];
-    for k in chosen.iter().flatten() {
-        chosen_counts[*k] += 1;
+/// Rows generated at a time for the perturbed horizon's mean.
+const NOISY_MEAN_ROWS: usize = 64;
+
+/// Bytes a batch holds per cell of its rows beyond one per window (the window's map, 4 bytes
+/// a cell): the derivative vectors and noise power of two windows over the batch and its
+/// pooling halo, with their transient copies, the pooled means, the perturbed horizon's rows,
+/// the per-cell choice and the rows handed out.
+const BATCH_CELL_BYTES: usize = 240;
+
+impl StudyPlan<'_> {
+    /// Bytes the study holds per cell of a batch of rows (see [`StudyPlan::run`]).
+    pub fn batch_cell_bytes(&self) -> usize {
+        BATCH_CELL_BYTES + 4 * self.windows.len()
     }
-    let chosen_cells = chosen_counts.iter().sum::<usize>().max(1) as f64;
-    (0..windows.len())
-        .map(|k| {
-            let values: Vec<f64> = maps[k].iter().copied().filter(|v| v.is_finite()).collect();
-            let noise_sd = noise_sds[k];
-            WindowFigures {
-                window: windows[k],
-                noise_sd,
-                derivative_noise_sd: derivative_noise_sd[k],
-                rms: rms_of(values.iter().copied()),
-                robust_spread: robust_spread(&values),
-                change_from_previous: k
-                    .checked_sub(1)
-                    .map_or(f64::NAN, |j| rms_difference(&maps[j], &maps[k])),
-                share_within_noise: values
-                    .iter()
-                    .filter(|v| v.abs() <= NOISE_BAND * noise_sd)
-                    .count() as f64
-                    / values.len().max(1) as f64,
-                valid_share: values.len() as f64 / maps[k].len().max(1) as f64,
-                rms_from_adaptive: rms_difference(&maps[k], adaptive),
-                adaptive_share: chosen_counts[k] as f64 / chosen_cells,
+
+    /// Grid rows each worker thread's fit holds ([`WindowFit::working_rows`] of the largest
+    /// window).
+    pub fn working_rows(&self) -> usize {
+        self.clean
+            .iter()
+            .map(WindowFit::working_rows)
+            .max()
+            .unwrap_or(0)
+    }
+
+    /// Runs the study in batches of `batch_rows` rows: for each batch every window is fitted to
+    /// the clean and the noise-perturbed horizon over the batch (the clean one also over the
+    /// [`POOL_RADIUS`] rows either side that the pooled test reads, so every cell sees the
+    /// neighbours it would in a whole grid), the per-cell choice is made and handed to `each`,
+    /// and the per-window sums, sketches and the sampled cells (`sample_rows` x `sample_cols`,
+    /// grid rows and columns) are gathered. Only the input and one batch are held; every
+    /// figure and cell is the same bits whatever the batch size and thread count.
+    pub fn run(
+        &self,
+        batch_rows: usize,
+        sample_rows: &[usize],
+        sample_cols: &[usize],
+        each: &mut dyn FnMut(ChosenRows) -> Result<()>,
+    ) -> Result<Study> {
+        let (rows, cols) = self.depth.dim();
+        let n = self.windows.len();
+        let mut sums: Vec<WindowSums> = (0..n).map(|_| WindowSums::default()).collect();
+        let mut samples =
+            vec![Array2::from_elem((sample_rows.len(), sample_cols.len()), f64::NAN); n + 1];
+        for first_row in (0..rows).step_by(batch_rows.max(1)) {
+            let batch = first_row..(first_row + batch_rows.max(1)).min(rows);
+            let (maps, chosen) = self.batch(batch.clone(), &mut sums)?;
+            let adaptive: Vec<f32> = (chosen.iter().enumerate())
+                .map(|(i, k)| k.map_or(f32::NAN, |k| maps[k][i]))
+                .collect();
+            for k in chosen.iter().flatten() {
+                sums[*k].chosen += 1;
             }
+            sums.par_iter_mut().enumerate().for_each(|(k, s)| {
+                let previous = k.checked_sub(1).map(|j| maps[j].as_slice());
+                s.add_batch(&maps[k], previous, &adaptive);
+            });
+            for (y, &r) in sample_rows.iter().enumerate() {
+                if !batch.contains(&r) {
+                    continue;
+                }
+                let row = (r - batch.start) * cols;
+                for (map, sample) in maps.iter().chain([&adaptive]).zip(&mut samples) {
+                    for (x, &c) in sample_cols.iter().enumerate() {
+                        sample[(y, x)] = f64::from(map[row + c]);
+                    }
+                }
+            }
+            let chosen = chosen
+                .iter()
+                .map(|k| k.map_or(0, |k| self.windows[k]))
+                .collect();
+            each(ChosenRows {
+                first_row,
+                adaptive,
+                chosen,
+            })?;
+        }
+        let figures = self.figures(&sums, rows * cols);
+        let recommended = figures
+            .iter()
+            .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
+            .map_or(self.windows[0], |f| f.window);
+        Ok(Study {
+            noise: self.noise,
+            windows: figures,
+            steps: self.steps.clone(),
+            recommended,
+            samples,
+            distributions: sums.into_iter().map(|s| s.distribution).collect(),
         })
-        .collect()
+    }
+
+    /// One batch: every window's map over the batch rows (row-major) and each cell's chosen
+    /// window index; the noise sums and sketches go into `sums`.
+    fn batch(
+        &self,
+        rows: Range<usize>,
+        sums: &mut [WindowSums],
+    ) -> Result<(WindowMaps, Array2<Option<usize>>)> {
+        let (grid_rows, cols) = self.depth.dim();
+        let halo = rows.start.saturating_sub(POOL_RADIUS)..(rows.end + POOL_RADIUS).min(grid_rows);
+        let inner = rows.start - halo.start..rows.end - halo.start;
+        let reach = self.windows.last().map_or(0, |n| n / 2);
+        let held = rows.start.saturating_sub(reach)..(rows.end + reach).min(grid_rows);
+        let noisy = Array2::from_shape_vec((held.len(), cols), self.noisy_rows(held.clone()))
+            .expect("rows x cols values");
+        let band = GridRows {
+            values: noisy.view(),
+            first_row: held.start,
+            grid_rows,
+            z_mean: self.noisy_mean,
+        };
+        let mut choice = Choice::new((rows.len(), cols));
+        let mut previous: Option<(Vectors, Array2<f64>)> = None;
+        let mut maps = Vec::with_capacity(self.windows.len());
+        for (k, &size) in self.windows.iter().enumerate() {
+            let clean = self.fit_clean(k, halo.clone(), rows.clone());
+            let spec = WindowSpec {
+                size,
+                min_valid: self.min_valid,
+            };
+            let perturbed = WindowFit::of_rows(band, self.geometry, &spec, &[])?
+                .map_tiles(rows.clone(), |tile| self.values(&tile.cells))
+                .concat();
+            for (clean, perturbed) in clean.map.iter().zip(&perturbed) {
+                sums[k].noise.add(f64::from(*perturbed) - f64::from(*clean));
+            }
+            sums[k].distribution.merge(&clean.distribution);
+            let ratio = previous.as_ref().map(|(prev, prev_power)| {
+                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2);
+                pooled_ratio(prev, &clean.vectors, &expected, inner.clone())
+            });
+            let first = clean.vectors[0].slice(s![inner.clone(), ..]);
+            choice.step(
+                k,
+                first,
+                ratio.as_ref(),
+                k.checked_sub(1).map(|j| &self.steps[j]),
+            );
+            previous = Some((clean.vectors, clean.power));
+            maps.push(clean.map);
+        }
+        Ok((maps, choice.chosen))
+    }
+
+    /// Window `k`'s clean fit over the rows `halo`: its map over the batch rows `rows` with
+    /// their sketched distribution, and its derivative vectors and noise power over `halo`.
+    fn fit_clean(&self, k: usize, halo: Range<usize>, rows: Range<usize>) -> CleanFit {
+        let order = self.attribute.order;
+        let tiles = self.clean[k].map_tiles(halo.clone(), |tile| {
+            let cols = tile.cols;
+            let tile_rows = tile.first_row..tile.first_row + tile.rows();
+            let inside = tile_rows.start.max(rows.start)..tile_rows.end.min(rows.end);
+            let map = if inside.is_empty() {
+                Vec::new()
+            } else {
+                let at = |r: usize| (r - tile.first_row) * cols;
+                self.values(&tile.cells[at(inside.start)..at(inside.end)])
+            };
+            let mut distribution = Distribution::default();
+            map.iter().for_each(|&v| distribution.add(f64::from(v)));
+            let vectors: [Vec<f64>; 3] = std::array::from_fn(|j| {
+                (tile.cells.iter())
+                    .map(|c| c.as_ref().map_or(f64::NAN, |(q, _)| order.vector(q)[j]))
+                    .collect()
+            });
+            let power: Vec<f64> = (tile.cells.iter())
+                .map(|c| c.map_or(f64::NAN, |(_, p)| p))
+                .collect();
+            CleanTile {
+                map,
+                distribution,
+                vectors,
+                power,
+            }
+        });
+        let cols = self.depth.ncols();
+        let whole = |part: &dyn Fn(&CleanTile) -> &[f64]| {
+            let values: Vec<f64> = tiles.iter().flat_map(|t| part(t).iter().copied()).collect();
+            Array2::from_shape_vec((halo.len(), cols), values).expect("rows x cols values")
+        };
+        let vectors: Vectors = std::array::from_fn(|j| whole(&|t| &t.vectors[j]));
+        let power = whole(&|t| &t.power);
+        let mut distribution = Distribution::default();
+        tiles
+            .iter()
+            .for_each(|t| distribution.merge(&t.distribution));
+        CleanFit {
+            map: tiles.into_iter().flat_map(|t| t.map).collect(),
+            distribution,
+            vectors,
+            power,
+        }
+    }
+
+    /// The attribute of a run of fitted cells (NaN where there is no fit or no value).
+    fn values(&self, cells: &[Option<(Quadric, f64)>]) -> Vec<f32> {
+        let mut band = vec![Vec::with_capacity(cells.len())];
+        let quadrics = cells.iter().map(|c| c.as_ref().map(|(q, _)| q));
+        evaluate_cells(
+            quadrics,
+            &[self.attribute],
+            self.geometry.metres_per_unit,
+            self.tolerance,
+            &mut band,
+        );
+        band.remove(0)
+    }
+
+    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level
+    /// (row-major): cell `i` (row-major over the grid) takes the stream's `i`-th deviate, so
+    /// any band of rows is the same as in the whole perturbed horizon.
+    fn noisy_rows(&self, rows: Range<usize>) -> Vec<f64> {
+        let cols = self.depth.ncols();
+        let per_row: Vec<Vec<f64>> = rows
+            .into_par_iter()
+            .map(|r| {
+                let mut rng = SeededNoise::new(NOISE_SEED);
+                // Two draws a deviate.
+                rng.skip(2 * (r * cols) as u64);
+                (0..cols)
+                    .map(|c| self.depth[(r, c)] + self.noise.sigma * rng.gaussian())
+                    .collect()
+            })
+            .collect();
+        per_row.concat()
+    }
+
+    /// The per-window figures from the sums over all `cells` of the grid.
+    fn figures(&self, sums: &[WindowSums], cells: usize) -> Vec<WindowFigures> {
+        let chosen_cells = sums.iter().map(|s| s.chosen).sum::<usize>().max(1) as f64;
+        (sums.iter().enumerate())
+            .map(|(k, s)| {
+                let noise_sd = s.noise.rms();
+                let quartiles = (s.distribution.values.quantile(0.25))
+                    .zip(s.distribution.values.quantile(0.75));
+                WindowFigures {
+                    window: self.windows[k],
+                    noise_sd,
+                    derivative_noise_sd: self.derivative_noise_sd[k],
+                    rms: s.values.rms(),
+                    robust_spread: quartiles.map_or(f64::NAN, |(q1, q3)| (q3 - q1) / 1.349),
+                    change_from_previous: if k == 0 { f64::NAN } else { s.change.rms() },
+                    share_within_noise: s
+                        .distribution
+                        .magnitudes
+                        .share_at_most(NOISE_BAND * noise_sd),
+                    valid_share: s.values.n as f64 / cells.max(1) as f64,
+                    rms_from_adaptive: s.from_adaptive.rms(),
+                    adaptive_share: s.chosen as f64 / chosen_cells,
+                }
+            })
+            .collect()
+    }
 }
+
+/// Each window's map over a batch's rows (row-major, NaN where no value).
+type WindowMaps = Vec<Vec<f32>>;
 
 /// Three per-cell maps of derivative vectors ([`DerivativeOrder::vector`]), NaN where the
 /// window has no fit.
 type Vectors = [Array2<f64>; 3];
 
-/// The clean and noise-perturbed fits of one window.
-struct WindowFitPair<'a> {
-    clean: WindowFit<'a>,
-    perturbed: WindowFit<'a>,
-}
-
-/// What the study keeps of one window: the attribute of the clean and perturbed horizons, the
-/// derivative vectors ([`DerivativeOrder::vector`]) and the noise power of the clean fit.
-struct FittedWindow {
-    map: Array2<f64>,
-    perturbed: Array2<f64>,
+/// What the study keeps of one window's clean fit in a batch: its map over the batch rows and
+/// the map's sketched distribution; its derivative vectors and noise power over the batch and
+/// its pooling halo.
+struct CleanFit {
+    map: Vec<f32>,
+    distribution: Distribution,
     vectors: Vectors,
     power: Array2<f64>,
 }
 
-impl WindowFitPair<'_> {
-    /// Streams both fits in batches of rows, keeping only the per-cell values the study
-    /// needs.
-    fn evaluate(
-        &self,
-        attribute: &AttributeDef,
-        metres_per_unit: f64,
-        tolerance: FlatTolerance,
-    ) -> FittedWindow {
-        let dim = self.clean.dim();
-        let nan = || Array2::from_elem(dim, f64::NAN);
-        let mut out = FittedWindow {
-            map: nan(),
-            perturbed: nan(),
-            vectors: [nan(), nan(), nan()],
-            power: nan(),
-        };
-        let value = |cells: &[Option<(Quadric, f64)>]| {
-            let mut band = vec![Vec::with_capacity(cells.len())];
-            let quadrics = cells.iter().map(|c| c.as_ref().map(|(q, _)| q));
-            evaluate_cells(
-                quadrics,
-                &[attribute],
-                metres_per_unit,
-                tolerance,
-                &mut band,
-            );
-            band.remove(0)
-        };
-        let batch = STUDY_BATCH_ROWS.max(self.clean.tile_rows());
-        for first_row in (0..dim.0).step_by(batch) {
-            let rows = first_row..(first_row + batch).min(dim.0);
-            let cells = |r: &std::ops::Range<usize>| r.start * dim.1..r.end * dim.1;
-            let clean = self.clean.map_tiles(rows.clone(), |tile| {
-                let rows = tile.first_row..tile.first_row + tile.rows();
-                (rows, value(&tile.cells), tile.cells)
-            });
-            for (rows, values, fitted) in clean {
-                let range = cells(&rows);
-                fill(
-                    &mut out.map,
-                    range.clone(),
-                    values.iter().map(|&v| f64::from(v)),
-                );
-                let power = fitted.iter().map(|c| c.map_or(f64::NAN, |(_, p)| p));
-                fill(&mut out.power, range.clone(), power);
-                for (j, vector) in out.vectors.iter_mut().enumerate() {
-                    let v = fitted.iter().map(|c| {
-                        c.as_ref()
-                            .map_or(f64::NAN, |(q, _)| attribute.order.vector(q)[j])
-                    });
-                    fill(vector, range.clone(), v);
-                }
-            }
-            let perturbed = self.perturbed.map_tiles(rows.clone(), |tile| {
-                let rows = tile.first_row..tile.first_row + tile.rows();
-                (rows, value(&tile.cells))
-            });
-            for (rows, values) in perturbed {
-                fill(
-                    &mut out.perturbed,
-                    cells(&rows),
-                    values.iter().map(|&v| f64::from(v)),
-                );
-            }
+/// One tile of a window's clean fit: its map over the batch rows it holds, sketched, and its
+/// derivative vectors and noise power (row-major).
+struct CleanTile {
+    map: Vec<f32>,
+    distribution: Distribution,
+    vectors: [Vec<f64>; 3],
+    power: Vec<f64>,
+}
+
+/// Sum of squares of the finite values added, and their count, in the order added.
+#[derive(Clone, Copy, Default)]
+struct SquareSum {
+    sum: f64,
+    n: usize,
+}
+
+impl SquareSum {
+    fn add(&mut self, x: f64) {
+        if x.is_finite() {
+            self.sum += x * x;
+            self.n += 1;
         }
-        out
+    }
+
+    /// Root mean square (NaN when nothing was added).
+    fn rms(&self) -> f64 {
+        if self.n == 0 {
+            f64::NAN
+        } else {
+            (self.sum / self.n as f64).sqrt()
+        }
     }
 }
 
-/// Rows per batch of the study's streamed fits.
-const STUDY_BATCH_ROWS: usize = 256;
+/// One window's running figures over the batches, each sum in row-major order of the grid.
+#[derive(Default)]
+struct WindowSums {
+    /// Perturbed minus clean attribute.
+    noise: SquareSum,
+    /// The attribute (its count is the valid cells).
+    values: SquareSum,
+    /// The attribute minus the previous window's.
+    change: SquareSum,
+    /// The adaptive map minus the attribute.
+    from_adaptive: SquareSum,
+    /// Cells that chose this window.
+    chosen: usize,
+    /// The attribute's values, sketched.
+    distribution: Distribution,
+}
 
-/// Writes `values` into the row-major cells `range` of `target`.
-fn fill(
-    target: &mut Array2<f64>,
-    range: std::ops::Range<usize>,
-    values: impl Iterator<Item = f64>,
-) {
-    let slice = target.as_slice_mut().expect("standard-layout array");
-    for (cell, v) in slice[range].iter_mut().zip(values) {
-        *cell = v;
+impl WindowSums {
+    /// Adds a batch: this window's map, the previous window's and the adaptive map.
+    fn add_batch(&mut self, map: &[f32], previous: Option<&[f32]>, adaptive: &[f32]) {
+        for (i, &v) in map.iter().enumerate() {
+            let v = f64::from(v);
+            self.values.add(v);
+            if let Some(previous) = previous {
+                self.change.add(v - f64::from(previous[i]));
+            }
+            self.from_adaptive.add(f64::from(adaptive[i]) - v);
+        }
     }
-}
-
-/// RMS of `b - a` over the cells where both are finite.
-fn rms_difference(a: &Array2<f64>, b: &Array2<f64>) -> f64 {
-    rms_of(a.iter().zip(b.iter()).map(|(a, b)| b - a))
-}
-
-fn rms_of(v: impl Iterator<Item = f64>) -> f64 {
-    let (s, n) = v
-        .filter(|x| x.is_finite())
-        .fold((0.0, 0usize), |(s, n), x| (s + x * x, n + 1));
-    if n == 0 {
-        f64::NAN
-    } else {
-        (s / n as f64).sqrt()
-    }
-}
-
-fn robust_spread(values: &[f64]) -> f64 {
-    quantiles(&mut values.to_vec(), [0.25, 0.75], Quantile::Nearest)
-        .map_or(f64::NAN, |[q1, q3]| (q3 - q1) / 1.349)
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::surface::curvature::{attribute_by_id, LocalSurface};
+    use crate::stats::{quantiles, Quantile};
+    use crate::surface::curvature::{attribute_by_id, evaluate_field, LocalSurface};
+    use crate::surface::window::fit_quadrics;
     use crate::synthetic::{Shape, Surface};
 
     pub(super) fn grid(n: usize) -> GridGeometry {
@@ -395,16 +625,81 @@ mod tests {
         (z, surface)
     }
 
-    fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Study {
+    /// A study's figures with its per-cell results gathered from the batches, and each
+    /// window's whole map computed on its own (`fit_quadrics` and `evaluate_field`, the same
+    /// fit as the study's) for checks.
+    pub(super) struct Run {
+        study: Study,
+        adaptive: Array2<f64>,
+        chosen: Array2<usize>,
+        maps: Vec<Array2<f64>>,
+        sampled: (Vec<usize>, Vec<usize>),
+    }
+
+    impl std::ops::Deref for Run {
+        type Target = Study;
+        fn deref(&self) -> &Study {
+            &self.study
+        }
+    }
+
+    fn run_in_batches(
+        z: &Array2<f64>,
+        g: &GridGeometry,
+        windows: &[usize],
+        attr: &str,
+        batch_rows: usize,
+    ) -> Run {
         let attr = attribute_by_id(attr).unwrap();
-        study(z.view(), g, windows, attr, 0.75, FlatTolerance::EXACT)
+        let plan = plan(z.view(), g, windows, attr, 0.75, FlatTolerance::EXACT)
             .unwrap()
-            .unwrap()
+            .unwrap();
+        let (rows, cols) = z.dim();
+        let mut adaptive = Array2::from_elem((rows, cols), f64::NAN);
+        let mut chosen = Array2::zeros((rows, cols));
+        let sampled = (
+            (0..rows).step_by(7).collect::<Vec<_>>(),
+            (0..cols).step_by(5).collect::<Vec<_>>(),
+        );
+        let study = plan
+            .run(batch_rows, &sampled.0, &sampled.1, &mut |b| {
+                for (i, (&v, &w)) in b.adaptive.iter().zip(&b.chosen).enumerate() {
+                    let at = (b.first_row + i / cols, i % cols);
+                    adaptive[at] = f64::from(v);
+                    chosen[at] = w;
+                }
+                Ok(())
+            })
+            .unwrap();
+        let maps = windows
+            .iter()
+            .map(|&size| {
+                let spec = WindowSpec {
+                    size,
+                    min_valid: 0.75,
+                };
+                let field = fit_quadrics(z.view(), g, &spec, &|_| {}).unwrap();
+                evaluate_field(&field, &[attr], g.metres_per_unit, FlatTolerance::EXACT)
+                    .remove(0)
+                    .mapv(f64::from)
+            })
+            .collect();
+        Run {
+            study,
+            adaptive,
+            chosen,
+            maps,
+            sampled,
+        }
+    }
+
+    fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Run {
+        run_in_batches(z, g, windows, attr, z.nrows())
     }
 
     /// True RMS error of each window's map and (last) of the adaptive map against the analytic
     /// attribute of the surface, away from the grid's edges (16 cells).
-    fn true_errors(s: &Study, g: &GridGeometry, surface: &Surface, attr: &str) -> Vec<f64> {
+    fn true_errors(s: &Run, g: &GridGeometry, surface: &Surface, attr: &str) -> Vec<f64> {
         let attr = attribute_by_id(attr).unwrap();
         let truth = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);
@@ -629,13 +924,111 @@ mod tests {
                 .install(|| run(&z, &g, &[3, 5, 9, 15], "k_pos"))
         };
         let (one, two) = (in_pool(1), in_pool(2));
+        same_results(&one, &two);
+    }
+
+    /// Two runs gave the same bits: per-cell results, figures, steps and samples.
+    fn same_results(one: &Run, two: &Run) {
         assert_eq!(one.chosen, two.chosen);
-        assert!(one
-            .adaptive
-            .iter()
-            .zip(two.adaptive.iter())
-            .all(|(a, b)| a.to_bits() == b.to_bits()));
+        let bits = |m: &Array2<f64>| m.iter().map(|v| v.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(&one.adaptive), bits(&two.adaptive));
         assert_eq!(format!("{:?}", one.windows), format!("{:?}", two.windows));
         assert_eq!(format!("{:?}", one.steps), format!("{:?}", two.steps));
+        for (a, b) in one.samples.iter().zip(&two.samples) {
+            assert_eq!(bits(a), bits(b));
+        }
+    }
+
+    #[test]
+    fn batches_of_rows_give_the_bits_of_one_batch() {
+        // The streaming contract: the pooled test at a batch's edge sees the neighbours it
+        // would in the whole grid, and every sum runs in the grid's row-major order, so batches
+        // of 16 or 40 rows (edges inside the pooling box, the perturbed fit's band and the
+        // gaps) give the one-batch results bit for bit. Nulls across batch edges.
+        let g = grid(100);
+        let shapes = vec![fold((1200.0, 8700.0), 30.0, 140.0, true)];
+        let (mut z, _) = horizon(&g, shapes, 0.4, 62);
+        for r in 30..36 {
+            for c in 40..47 {
+                z[(r, c)] = f64::NAN;
+            }
+        }
+        z[(47, 3)] = f64::NAN;
+        let whole = run(&z, &g, &[3, 5, 9, 15], "k_mean");
+        for batch in [16, 40] {
+            same_results(
+                &whole,
+                &run_in_batches(&z, &g, &[3, 5, 9, 15], "k_mean", batch),
+            );
+        }
+    }
+
+    #[test]
+    fn streamed_figures_match_whole_maps() {
+        // Reference: the figures computed from whole maps as the study did before it streamed
+        // (each window's map from fit_quadrics and evaluate_field, the perturbed horizon made
+        // whole with one sequential noise stream, RMS sums in row-major order): the same bits
+        // for the RMS figures, the noise sd and the valid share; the sketched figures within
+        // their stated bounds (stats::sketch) of the exact ones (stats::quantiles, exact
+        // counts). The panel's samples are the maps' cells.
+        let g = grid(90);
+        let shapes = vec![fold((1100.0, 8800.0), 60.0, 120.0, false)];
+        let (mut z, _) = horizon(&g, shapes, 0.3, 63);
+        z[(20, 20)] = f64::NAN;
+        let windows = [3, 7, 11];
+        let s = run_in_batches(&z, &g, &windows, "k_pos", 32);
+        let rms = |v: &mut dyn Iterator<Item = f64>| {
+            let (sum, n) = v
+                .filter(|x| x.is_finite())
+                .fold((0.0, 0usize), |(s, n), x| (s + x * x, n + 1));
+            (sum / n as f64).sqrt()
+        };
+        let mut rng = SeededNoise::new(NOISE_SEED);
+        let noisy = z.mapv(|v| v + s.noise.sigma * rng.gaussian());
+        let attr = attribute_by_id("k_pos").unwrap();
+        let tol = crate::stats::sketch::RELATIVE_ERROR * (1.0 + 1e-9);
+        for (k, f) in s.windows.iter().enumerate() {
+            let map = &s.maps[k];
+            let spec = WindowSpec {
+                size: windows[k],
+                min_valid: 0.75,
+            };
+            let field = fit_quadrics(noisy.view(), &g, &spec, &|_| {}).unwrap();
+            let perturbed = evaluate_field(&field, &[attr], 1.0, FlatTolerance::EXACT)
+                .remove(0)
+                .mapv(f64::from);
+            let diff =
+                |a: &Array2<f64>, b: &Array2<f64>| rms(&mut a.iter().zip(b).map(|(a, b)| b - a));
+            assert_eq!(f.noise_sd.to_bits(), diff(map, &perturbed).to_bits());
+            assert_eq!(f.rms.to_bits(), rms(&mut map.iter().copied()).to_bits());
+            assert_eq!(
+                f.rms_from_adaptive.to_bits(),
+                diff(map, &s.adaptive).to_bits()
+            );
+            if k > 0 {
+                let change = diff(&s.maps[k - 1], map);
+                assert_eq!(f.change_from_previous.to_bits(), change.to_bits());
+            }
+            let mut values: Vec<f64> = map.iter().copied().filter(|v| v.is_finite()).collect();
+            assert_eq!(f.valid_share, values.len() as f64 / map.len() as f64);
+            let band = NOISE_BAND * f.noise_sd;
+            let within = values.iter().filter(|v| v.abs() <= band).count() as f64;
+            let near = (values.iter())
+                .filter(|v| (v.abs() - band).abs() <= tol * v.abs())
+                .count() as f64;
+            let n = values.len() as f64;
+            assert!((f.share_within_noise - within / n).abs() <= near / n + 1e-12);
+            let [q1, q3] = quantiles(&mut values, [0.25, 0.75], Quantile::Nearest).unwrap();
+            let spread_bound = tol * (q1.abs() + q3.abs()) / 1.349;
+            assert!((f.robust_spread - (q3 - q1) / 1.349).abs() <= spread_bound);
+            let chosen = s.chosen.iter().filter(|&&w| w == windows[k]).count() as f64;
+            let fitted = s.chosen.iter().filter(|&&w| w > 0).count() as f64;
+            assert_eq!(f.adaptive_share, chosen / fitted);
+            for (y, &r) in s.sampled.0.iter().enumerate() {
+                for (x, &c) in s.sampled.1.iter().enumerate() {
+                    assert_eq!(s.samples[k][(y, x)].to_bits(), map[(r, c)].to_bits());
+                }
+            }
+        }
     }
 }

@@ -20,6 +20,9 @@ pub struct NoiseEstimate {
 pub const NOISE_ESTIMATOR: &str =
     "1.4826 x median absolute deviation of 3 x 3 quadric-fit centre residuals / sqrt(1 - leverage)";
 
+/// Rows per batch of the residuals' fit.
+const RESIDUAL_BATCH_ROWS: usize = 256;
+
 /// Estimates the noise of `depth` (see the module notes); `None` without full 3 x 3 windows.
 pub fn estimate_noise(
     depth: ArrayView2<f64>,
@@ -31,16 +34,19 @@ pub fn estimate_noise(
     };
     let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
     let fit = WindowFit::new(depth, geometry, &spec, &[])?;
-    let mut residuals: Vec<f64> = fit
-        .map_tiles(0..depth.nrows(), |tile| {
+    // One residual a fitted cell, gathered batch by batch: the one grid-sized array held.
+    let fitted = depth.iter().filter(|v| v.is_finite()).count();
+    let mut residuals: Vec<f64> = Vec::with_capacity(fitted);
+    let batch = RESIDUAL_BATCH_ROWS.max(fit.tile_rows());
+    for first_row in (0..depth.nrows()).step_by(batch) {
+        let tiles = fit.map_tiles(first_row..first_row + batch, |tile| {
             let at = |i: usize| (tile.first_row + i / tile.cols, i % tile.cols);
             (tile.cells.iter().enumerate())
                 .filter_map(|(i, c)| c.map(|(q, _)| depth[at(i)] - q.f))
                 .collect::<Vec<f64>>()
-        })
-        .into_iter()
-        .flatten()
-        .collect();
+        });
+        residuals.extend(tiles.into_iter().flatten());
+    }
     if residuals.is_empty() {
         return Ok(None);
     }

@@ -11,6 +11,7 @@ use crate::surface::curvature::DerivativeOrder;
 use crate::surface::window::full_window_kernels;
 use nalgebra::DMatrix;
 use ndarray::Array2;
+use serde::Serialize;
 use statrs::distribution::{ChiSquared, ContinuousCDF};
 
 /// Extra derivative noise power the per-cell choice may cost on structureless ground, as a
@@ -21,17 +22,23 @@ pub const PROPAGATION_ALPHA: f64 = 0.1;
 /// precision; a step this strict is already never taken on noise alone).
 const MIN_STEP_PROBABILITY: f64 = 1e-12;
 
-/// The test of one step from a window to the next larger one.
-#[derive(Clone, Copy, Debug, PartialEq)]
+/// The test of one step from a window to the next larger one (serialised with the names of
+/// the window-study report; values that are not finite as null).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
 pub struct StepTest {
-    /// Window edge lengths compared (smaller, larger).
-    pub windows: (usize, usize),
+    /// Window edge length of the smaller window, in cells.
+    pub from_window: usize,
+    /// Window edge length of the larger window, in cells.
+    pub to_window: usize,
     /// Expected squared change of the derivative vector under the estimated noise alone for
     /// full windows, in CRS length units to the power -2 (Hessian) or 0 (gradient).
+    #[serde(rename = "expected_squared_change")]
     pub expected: f64,
     /// Degrees of freedom of the chi-square fitted to the pooled noise's first three cumulants.
+    #[serde(rename = "degrees_of_freedom")]
     pub dof: f64,
     /// Probability that noise alone stops the choice at this step.
+    #[serde(rename = "false_stop_probability")]
     pub false_stop: f64,
     /// Largest accepted ratio of the pooled squared change to `expected`.
     pub threshold: f64,
@@ -74,7 +81,8 @@ pub fn noise_model(
             let noise = PooledNoise::of(&kernel_difference(&pair[1], &pair[0]), POOL_RADIUS);
             let (false_stop, threshold) = noise.step_threshold(budget, smaller_power - largest);
             StepTest {
-                windows: (w[0], w[1]),
+                from_window: w[0],
+                to_window: w[1],
                 expected: sigma * sigma * noise.mean(),
                 dof: noise.dof(),
                 false_stop,
@@ -340,7 +348,7 @@ mod tests {
                 .collect();
             for k in 0..3 {
                 let expected = &fits[k].1 - &fits[k + 1].1;
-                let ratio = pooled_ratio(&fits[k].0, &fits[k + 1].0, &expected);
+                let ratio = pooled_ratio(&fits[k].0, &fits[k + 1].0, &expected, 0..200);
                 for r in 20..180 {
                     for c in 20..180 {
                         sums[k] += ratio[(r, c)];
