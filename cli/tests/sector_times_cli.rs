@@ -209,6 +209,43 @@ fn bad_inputs_are_refused_in_one_line_leaving_the_folder_as_it_was() {
     let e = fails_leaving_unchanged(&args(&volumes, metres.to_str().unwrap(), o), &out);
     assert!(e.contains("metres.tif") && e.contains("length"), "{e}");
 
+    // A horizon with times only where the volumes have no traces (a larger grid of the same
+    // lattice, null over the volumes' area): nothing could be measured.
+    let larger = survey_geometry((500_000.0, 3_900_000.0), 70.0, (20.0, 10.0), (12, 10));
+    let beside = Array2::from_shape_fn((10, 12), |(r, c)| {
+        if r < g.rows && c < g.cols {
+            f32::NAN
+        } else {
+            horizon_ms(c, r) as f32
+        }
+    });
+    let beside = write_bands_in(d, "beside.tif", &larger, vec![beside], "ms");
+    let e = fails_leaving_unchanged(&args(&volumes, beside.to_str().unwrap(), o), &out);
+    assert!(
+        e.contains("beside.tif") && e.contains("no time at any bin"),
+        "{e}"
+    );
+
+    // A trace tolerance outside 0..0.5.
+    let mut a = args(&volumes, h, o);
+    a.extend(["--trace-tolerance", "0.6"]);
+    let e = fails_leaving_unchanged(&a, &out);
+    assert!(e.contains("--trace-tolerance 0.6"), "{e}");
+
+    // The quality raster given to anisotropy as sector times.
+    let quality = out.join("sector_quality.tif");
+    let fit = d.join("fit");
+    let e = fails_leaving_unchanged(
+        &[
+            "anisotropy",
+            quality.to_str().unwrap(),
+            "--out",
+            fit.to_str().unwrap(),
+        ],
+        &fit,
+    );
+    assert!(e.contains("correlation qualities"), "{e}");
+
     // A window longer than the traces.
     let mut a = args(&volumes, h, o);
     a.extend(["--window", "700", "--max-shift", "12"]);
