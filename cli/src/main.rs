@@ -14,7 +14,7 @@ use flexure_engine::jobs::{
     WellBindings, WindowStudyJob, HTI_CAUTION, WELL_CAUTION,
 };
 use flexure_engine::jobs::{
-    SectorTimesJob, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS, DEFAULT_TRACE_TOLERANCE,
+    SectorTimesJob, TimeUnit, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS, DEFAULT_TRACE_TOLERANCE,
 };
 use flexure_engine::surface::curvature::{attribute_by_id, ATTRIBUTES};
 use flexure_engine::surface::horizon::{
@@ -846,6 +846,9 @@ struct SectorTimesArgs {
     /// minus top, so anisotropy maps the interval between the horizons.
     #[arg(long)]
     base: Option<PathBuf>,
+    /// Unit of horizon times a file does not declare (a declared unit must agree); default ms.
+    #[arg(long, value_enum)]
+    time_unit: Option<TimeUnitArg>,
     /// Trace each sector is measured against: `mean` (the mean of the sector traces at the
     /// bin) or a SEG-Y volume such as the full-azimuth stack.
     #[arg(long, default_value = "mean")]
@@ -891,6 +894,15 @@ struct SectorTimesArgs {
     quiet: bool,
 }
 
+/// Unit of horizon times.
+#[derive(Clone, Copy, ValueEnum)]
+enum TimeUnitArg {
+    /// Milliseconds of two-way time.
+    Ms,
+    /// Seconds of two-way time (converted to ms).
+    S,
+}
+
 impl SectorTimesArgs {
     fn job(&self) -> SectorTimesJob {
         let mut job = SectorTimesJob::new(
@@ -900,6 +912,10 @@ impl SectorTimesArgs {
             &self.out,
         );
         job.base = self.base.clone();
+        job.time_unit = self.time_unit.map(|u| match u {
+            TimeUnitArg::Ms => TimeUnit::Milliseconds,
+            TimeUnitArg::S => TimeUnit::Seconds,
+        });
         job.reference = (self.reference != "mean").then(|| PathBuf::from(&self.reference));
         job.half_window_ms = self.window;
         job.max_shift_ms = self.max_shift;

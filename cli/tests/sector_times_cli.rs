@@ -147,6 +147,26 @@ fn a_run_writes_shifts_that_follow_the_sectors() {
 }
 
 #[test]
+fn undeclared_seconds_are_read_with_the_time_unit_given() {
+    let dir = tempfile::tempdir().unwrap();
+    let (volumes, _) = inputs(dir.path());
+    let g = geometry();
+    let seconds = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+        (horizon_ms(c, r) / 1000.0) as f32
+    });
+    let seconds = write_bands_in(dir.path(), "seconds.tif", &g, vec![seconds], "");
+    let out = dir.path().join("out");
+    let mut a = args(&volumes, seconds.to_str().unwrap(), out.to_str().unwrap());
+    a.extend(["--time-unit", "s"]);
+    let o = flexure(&a);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let ds = gdal::Dataset::open(out.join("reference_time.tif")).unwrap();
+    let t = ds.rasterband(1).unwrap().read_band_as::<f32>().unwrap();
+    // The guide time of cell (0, 0) in ms (the definition of the fixture).
+    assert!((f64::from(t.data()[0]) - horizon_ms(0, 0)).abs() < 1e-3);
+}
+
+#[test]
 fn bad_inputs_are_refused_in_one_line_leaving_the_folder_as_it_was() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
@@ -245,6 +265,40 @@ fn bad_inputs_are_refused_in_one_line_leaving_the_folder_as_it_was() {
         &fit,
     );
     assert!(e.contains("correlation qualities"), "{e}");
+
+    // Times in seconds that the file does not declare: read as ms they lie outside the
+    // traces, and the message points to --time-unit; a declared unit it contradicts is refused.
+    let seconds = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+        (horizon_ms(c, r) / 1000.0) as f32
+    });
+    let seconds = write_bands_in(d, "seconds.tif", &g, vec![seconds], "");
+    let e = fails_leaving_unchanged(&args(&volumes, seconds.to_str().unwrap(), o), &out);
+    assert!(
+        e.contains("seconds.tif") && e.contains("--time-unit"),
+        "{e}"
+    );
+    let mut a = args(&volumes, h, o);
+    a.extend(["--time-unit", "s"]);
+    let e = fails_leaving_unchanged(&a, &out);
+    assert!(
+        e.contains("guide.tif") && e.contains("declares its times in 'ms'"),
+        "{e}"
+    );
+
+    // One trace's x mistyped by 0.3 of a bin: refused naming the trace and --trace-tolerance.
+    let typo = d.join("typo.sgy");
+    let mut bytes = std::fs::read(&volumes[0]).unwrap();
+    let at = 3600 + 5 * (240 + 300 * 4) + 180;
+    let x = i32::from_le_bytes(bytes[at..at + 4].try_into().unwrap()) + 30;
+    bytes[at..at + 4].copy_from_slice(&x.to_le_bytes());
+    std::fs::write(&typo, &bytes).unwrap();
+    let mut bad = volumes.clone();
+    bad[0] = typo.display().to_string();
+    let e = fails_leaving_unchanged(&args(&bad, h, o), &out);
+    assert!(
+        e.contains("typo.sgy") && e.contains("trace 6") && e.contains("--trace-tolerance"),
+        "{e}"
+    );
 
     // A window longer than the traces.
     let mut a = args(&volumes, h, o);

@@ -1680,12 +1680,22 @@ impl Placed<'_> {
                 self.node(c, r),
                 self.node(node.0, node.1)
             ),
-            _ => format!(
-                "{record} {line} lies {worst:.3} CRS units ({:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those {record}s, or raise --lattice-tolerance (to {:.2}) if the export rounds coordinates coarsely",
-                worst / bin,
-                self.node(c, r),
-                (worst / bin * 100.0).ceil() / 100.0
-            ),
+            _ => {
+                let share = worst / bin;
+                let raise = if share < 0.5 {
+                    format!(
+                        ", or raise {} (to {:.2}) if the file rounds coordinates coarsely",
+                        self.naming.tolerance_option,
+                        (share * 100.0).ceil() / 100.0
+                    )
+                } else {
+                    String::new()
+                };
+                format!(
+                    "{record} {line} lies {worst:.3} CRS units ({share:.3} of the {bin:.3} bin) off its lattice node ({}), more than the lattice tolerance {tolerance}{others}; fix those {record}s{raise}",
+                    self.node(c, r),
+                )
+            }
         }
     }
 
@@ -1844,8 +1854,8 @@ fn fit_lattice(
     let ((c0, cols), (r0, rows)) = (span(&cols_in), span(&rows_in));
     if cols < 3 || rows < 3 {
         return Err(format!(
-            "the {} span {cols} x {rows} nodes (columns x rows) of their lattice; a horizon needs at least 3 x 3",
-            naming.points
+            "the {} span {cols} x {rows} nodes (columns x rows) of their lattice; {} needs at least 3 x 3",
+            naming.points, naming.makes
         ));
     }
     let placed = Placed {
@@ -1998,6 +2008,10 @@ pub struct Naming {
     pub check: &'static str,
     /// What to do when the points lie on no lattice or look scattered.
     pub remedy: &'static str,
+    /// The option setting the lattice tolerance, as in "raise --lattice-tolerance".
+    pub tolerance_option: &'static str,
+    /// What the points make, as in "a horizon needs at least 3 x 3".
+    pub makes: &'static str,
 }
 
 impl Naming {
@@ -2014,6 +2028,8 @@ const POINT_LIST: Naming = Naming {
     coordinates: "columns (--columns)",
     check: "the columns (--columns) and the export",
     remedy: GRID_FIRST,
+    tolerance_option: "--lattice-tolerance",
+    makes: "a horizon",
 };
 
 /// Numbered nodes on their lattice ([`place_numbered`]).
@@ -2073,7 +2089,8 @@ pub fn place_numbered(
     }
     if !(tolerance > 0.0 && tolerance < 0.5) {
         return Err(format!(
-            "--lattice-tolerance {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin (default 0.05)"
+            "{} {tolerance} is outside 0..0.5: give the largest allowed distance from a lattice node as a share of the smaller bin",
+            naming.tolerance_option
         ));
     }
     enough(n, naming.points)?;

@@ -341,6 +341,8 @@ const TRACES: Naming = Naming {
     coordinates: "trace header fields",
     check: "the trace header byte positions of inline, crossline, x and y",
     remedy: "check the trace header byte positions of inline, crossline, x and y",
+    tolerance_option: "--trace-tolerance",
+    makes: "a volume",
 };
 
 /// Reads a big- or little-endian integer of `N` bytes at 0-based `at` of `b`.

@@ -22,7 +22,7 @@ pub use grid::{GridJob, GridReport};
 pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use sector_times::{
-    SectorTimesJob, SectorTimesReport, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
+    SectorTimesJob, SectorTimesReport, TimeUnit, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
     DEFAULT_TRACE_TOLERANCE,
 };
 pub use stages::{

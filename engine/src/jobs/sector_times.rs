@@ -61,6 +61,8 @@ pub struct SectorTimesJob {
     pub horizon: PathBuf,
     /// Deeper horizon: measure there too and write the interval shifts (base minus top).
     pub base: Option<PathBuf>,
+    /// Unit of horizons that declare none (a declared unit must agree); `None`: ms.
+    pub time_unit: Option<TimeUnit>,
     /// Reference volume (e.g. the full-azimuth stack); `None` = the mean of the sectors.
     pub reference: Option<PathBuf>,
     /// Half length of the tapered window around the horizon, ms.
@@ -122,6 +124,7 @@ impl SectorTimesJob {
             azimuths,
             horizon: horizon.into(),
             base: None,
+            time_unit: None,
             reference: None,
             half_window_ms: DEFAULT_HALF_WINDOW_MS,
             max_shift_ms: DEFAULT_MAX_SHIFT_MS,
@@ -151,11 +154,12 @@ impl SectorTimesJob {
     /// Runs the job and reports what it measured and wrote.
     pub fn run(&self, progress: &dyn Progress) -> Result<SectorTimesReport> {
         self.check_parameters()?;
-        let top = read_time_horizon(&self.horizon, &self.read)?;
+        let mut notes = Vec::new();
+        let top = read_time_horizon(&self.horizon, &self.read, self.time_unit, &mut notes)?;
         let base = self
             .base
             .as_ref()
-            .map(|p| read_time_horizon(p, &self.read))
+            .map(|p| read_time_horizon(p, &self.read, self.time_unit, &mut notes))
             .transpose()?;
         if let Some(b) = &base {
             check_base(&top, b)?;
@@ -219,6 +223,7 @@ impl SectorTimesJob {
             tally: tally.clone(),
             quality_medians: outputs.quality_medians(),
             shift_medians: outputs.shift_medians(),
+            notes,
         };
         let mut staged = outputs.finish()?;
         staged.push(stage_bytes(
@@ -334,18 +339,64 @@ impl SectorTimesJob {
     }
 }
 
-/// Reads a horizon in two-way time: ms, or s converted to ms; a length unit is refused.
-fn read_time_horizon(path: &Path, read: &ReadOptions) -> Result<TimeHorizon> {
-    let (mut grid, unit) = read_raster(path, read)?.into_single(path)?;
-    match DeclaredUnit::parse(&unit) {
-        Some(DeclaredUnit::Seconds) => grid.values.mapv_inplace(|t| t * 1000.0),
-        Some(DeclaredUnit::Length(_)) => {
+/// Unit of a horizon's two-way times.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum TimeUnit {
+    /// Milliseconds.
+    Milliseconds,
+    /// Seconds (converted to ms on reading).
+    Seconds,
+}
+
+impl TimeUnit {
+    fn declared(self) -> DeclaredUnit {
+        match self {
+            Self::Milliseconds => DeclaredUnit::Milliseconds,
+            Self::Seconds => DeclaredUnit::Seconds,
+        }
+    }
+}
+
+/// Reads a horizon in two-way time: the unit the file declares (ms, or s converted to ms),
+/// else `unit`, else ms (said in `notes`); a length unit, or a `unit` the file contradicts,
+/// is refused.
+fn read_time_horizon(
+    path: &Path,
+    read: &ReadOptions,
+    unit: Option<TimeUnit>,
+    notes: &mut Vec<String>,
+) -> Result<TimeHorizon> {
+    let (mut grid, text) = read_raster(path, read)?.into_single(path)?;
+    let declared = DeclaredUnit::parse(&text);
+    if let Some(DeclaredUnit::Length(_)) = declared {
+        return Err(FlexureError::input(
+            path,
+            format!("declares its values in '{text}', a length: the guide horizon must be in two-way time (ms) on the volumes' time axis"),
+        ));
+    }
+    let given = unit.map(TimeUnit::declared);
+    let effective = match (declared, given) {
+        (Some(d), Some(g)) if d != g => {
             return Err(FlexureError::input(
                 path,
-                format!("declares its values in '{unit}', a length: the guide horizon must be in two-way time (ms) on the volumes' time axis"),
+                format!(
+                    "declares its times in '{text}' but --time-unit says {}: drop --time-unit, or correct the file",
+                    g.name()
+                ),
             ))
         }
-        _ => {}
+        (Some(d), _) => d,
+        (None, Some(g)) => g,
+        (None, None) => {
+            notes.push(format!(
+                "{}: no time unit declared, read as ms (give --time-unit s for seconds)",
+                path.display()
+            ));
+            DeclaredUnit::Milliseconds
+        }
+    };
+    if effective == DeclaredUnit::Seconds {
+        grid.values.mapv_inplace(|t| t * 1000.0);
     }
     if grid.values.iter().all(|t| t.is_nan()) {
         return Err(FlexureError::input(
@@ -429,7 +480,7 @@ fn refuse_unmeasurable(
             Some(lo) => {
                 let hi = traced.iter().copied().fold(lo, f64::max);
                 format!(
-                    "lies at {lo:.1} to {hi:.1} ms where the volumes have traces, outside the traces of {} ({t0} to {last} ms) once the window and largest shift are added: check the horizon's unit and the volumes' delay, or shorten --window",
+                    "lies at {lo:.1} to {hi:.1} ms where the volumes have traces, outside the traces of {} ({t0} to {last} ms) once the window and largest shift are added: check the horizon's unit (--time-unit) and the volumes' delay, or shorten --window",
                     volume.path().display()
                 )
             }
@@ -753,6 +804,8 @@ pub struct SectorTimesReport {
     pub quality_medians: Vec<Option<f64>>,
     /// Per sector: median absolute shift of the measured bins, ms.
     pub shift_medians: Vec<Option<f64>>,
+    /// How units were decided, and anything else worth saying about the inputs.
+    pub notes: Vec<String>,
 }
 
 impl SectorTimesReport {
@@ -790,6 +843,7 @@ impl SectorTimesReport {
             "bins_without_trace": self.tally.no_trace,
             "bins_outside_traces": self.tally.outside_traces,
             "sectors": sectors,
+            "notes": self.notes,
             "provenance": provenance.to_json(),
         });
         serde_json::to_string_pretty(&doc).unwrap_or_default()
@@ -823,6 +877,16 @@ impl fmt::Display for SectorTimesReport {
                 self.tally.per_sector[s].1,
                 show(self.quality_medians[s]),
                 show(self.shift_medians[s])
+            )?;
+        }
+        for n in &self.notes {
+            writeln!(f, "  note: {n}")?;
+        }
+        if self.tally.outside_traces > 0 {
+            writeln!(
+                f,
+                "  note: {} bins not measured: their window reaches beyond the traces",
+                self.tally.outside_traces
             )?;
         }
         for p in &self.outputs {
