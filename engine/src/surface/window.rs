@@ -167,9 +167,9 @@ pub fn fit_quadrics_with_noise(
 /// bits as in a fit of the whole grid. So a grid that is never held whole (the window study's
 /// noise-perturbed horizon) can be fitted a band of rows at a time.
 #[derive(Clone, Copy)]
-pub struct GridRows<'a> {
+pub struct GridRows<'a, T: Sample = f64> {
     /// The rows held.
-    pub values: ArrayView2<'a, f64>,
+    pub values: ArrayView2<'a, T>,
     /// Grid row of the first row held.
     pub first_row: usize,
     /// Rows of the whole grid.
@@ -178,20 +178,20 @@ pub struct GridRows<'a> {
     pub z_mean: f64,
 }
 
-impl<'a> GridRows<'a> {
+impl<'a, T: Sample> GridRows<'a, T> {
     /// The whole grid `values`.
-    pub fn whole(values: ArrayView2<'a, f64>) -> Self {
+    pub fn whole(values: ArrayView2<'a, T>) -> Self {
         Self {
             values,
             first_row: 0,
             grid_rows: values.nrows(),
-            z_mean: valid_mean(values.iter().copied()),
+            z_mean: valid_mean(values.iter().map(|v| v.widen())),
         }
     }
 
     /// The value at grid row `row` (held) and column `col`.
     fn at(&self, row: usize, col: usize) -> f64 {
-        self.values[(row - self.first_row, col)]
+        self.values[(row - self.first_row, col)].widen()
     }
 
     /// Whether the grid rows `rows` are held or outside the grid.
@@ -200,6 +200,34 @@ impl<'a> GridRows<'a> {
         let inside = rows.start.max(0)..rows.end.min(self.grid_rows as isize);
         inside.is_empty() || (held.start <= inside.start && inside.end <= held.end)
     }
+}
+
+/// A value type of grids the window driver reads: `f64`, or `f32` for grids read from float32
+/// and used as they are (half the memory), widened exactly to `f64` as each value is read, so
+/// a fit is the same bits either way.
+pub trait Sample: Copy + Send + Sync + 'static {
+    /// The value as `f64` (exact).
+    fn widen(self) -> f64;
+}
+
+impl Sample for f64 {
+    fn widen(self) -> f64 {
+        self
+    }
+}
+
+impl Sample for f32 {
+    fn widen(self) -> f64 {
+        f64::from(self)
+    }
+}
+
+/// `values` as `f32` when every value converts exactly (NaN nulls included), else `None`.
+pub fn narrow_exactly(values: &Array2<f64>) -> Option<Array2<f32>> {
+    values
+        .iter()
+        .all(|&v| v.is_nan() || f64::from(v as f32) == v)
+        .then(|| values.mapv(|v| v as f32))
 }
 
 /// Mean of the finite `values`, summed in the order given (0 when there is none): the origin
@@ -220,8 +248,8 @@ pub fn valid_mean(values: impl IntoIterator<Item = f64>) -> f64 {
 /// every job streams through. Rows are fitted in fixed tiles (their height depends only on the
 /// window, never on the thread count) on rayon; every cell's sums run in a fixed order, so a
 /// cell's quadric is the same bits whichever run of rows it is fitted in.
-pub struct WindowFit<'a> {
-    fitter: Fitter<'a>,
+pub struct WindowFit<'a, T: Sample = f64> {
+    fitter: Fitter<'a, T>,
     tile_rows: usize,
 }
 
@@ -244,13 +272,13 @@ impl FittedTile {
     }
 }
 
-impl<'a> WindowFit<'a> {
+impl<'a, T: Sample> WindowFit<'a, T> {
     /// Prepares the fit of `values` (`[row, col]`, NaN = null; z in CRS length units) over
     /// `spec`'s window, with the noise power of `functionals` (rows over (a, b, c, d, e, f) in
     /// map units; empty for none). Fails on a window the grid cannot take or a degenerate
     /// geotransform.
     pub fn new(
-        values: ArrayView2<'a, f64>,
+        values: ArrayView2<'a, T>,
         geometry: &GridGeometry,
         spec: &WindowSpec,
         functionals: &[[f64; 6]],
@@ -262,7 +290,7 @@ impl<'a> WindowFit<'a> {
     /// [`WindowFit::new`] does for a whole grid; [`WindowFit::map_tiles`] then fits runs of
     /// rows whose windows lie in the band.
     pub fn of_rows(
-        rows: GridRows<'a>,
+        rows: GridRows<'a, T>,
         geometry: &GridGeometry,
         spec: &WindowSpec,
         functionals: &[[f64; 6]],
@@ -295,11 +323,11 @@ impl<'a> WindowFit<'a> {
     /// Fits the grid rows `rows` tile by tile in parallel and maps each tile's fitted cells
     /// with `each`; the results come back in row order. The rows within half a window of
     /// `rows` must be held (see [`GridRows`]).
-    pub fn map_tiles<T: Send>(
+    pub fn map_tiles<R: Send>(
         &self,
         rows: std::ops::Range<usize>,
-        each: impl Fn(FittedTile) -> T + Sync,
-    ) -> Vec<T> {
+        each: impl Fn(FittedTile) -> R + Sync,
+    ) -> Vec<R> {
         let end = rows.end.min(self.fitter.rows.grid_rows);
         let half = self.fitter.half as isize;
         assert!(
@@ -464,8 +492,8 @@ impl CoefficientMap {
 }
 
 /// Everything a tile needs: the data, window geometry and precomputed full-window solution.
-struct Fitter<'a> {
-    rows: GridRows<'a>,
+struct Fitter<'a, T: Sample> {
+    rows: GridRows<'a, T>,
     half: usize,
     /// s = u/m for u = -m..=m.
     offsets: Vec<f64>,
@@ -489,9 +517,9 @@ struct RowSums {
     data: [Vec<f64>; 3],
 }
 
-impl<'a> Fitter<'a> {
+impl<'a, T: Sample> Fitter<'a, T> {
     fn new(
-        rows: GridRows<'a>,
+        rows: GridRows<'a, T>,
         geometry: &GridGeometry,
         spec: &WindowSpec,
         functionals: &[[f64; 6]],
@@ -855,6 +883,51 @@ mod tests {
                 "rows {first}..{last}"
             );
         }
+    }
+
+    #[test]
+    fn float32_grids_fit_to_the_same_bits_as_their_float64_widening() {
+        // f32 -> f64 is exact (IEEE 754), so the driver reading f32 values must give the
+        // quadrics of the same grid held as f64, nulls and partial windows included.
+        let (rows, cols) = (37, 29);
+        let mut rng = crate::stats::SeededNoise::new(3);
+        let narrow = Array2::from_shape_fn((rows, cols), |(r, c)| {
+            let z = 1500.0 + 0.3 * r as f64 - 0.2 * c as f64 + rng.gaussian();
+            if (r * cols + c) % 11 == 0 {
+                f32::NAN
+            } else {
+                z as f32
+            }
+        });
+        let wide = narrow.mapv(f64::from);
+        let narrowed = narrow_exactly(&wide).map(|a| a.mapv(f32::to_bits));
+        assert_eq!(narrowed, Some(narrow.mapv(f32::to_bits)));
+        let g = square(25.0);
+        let g = GridGeometry { cols, rows, ..g };
+        let spec = WindowSpec {
+            size: 5,
+            min_valid: 0.5,
+        };
+        let field = fit_quadrics(wide.view(), &g, &spec, &|_| {}).unwrap();
+        let fit = WindowFit::new(narrow.view(), &g, &spec, &[]).unwrap();
+        let cells: Vec<Option<Quadric>> = fit
+            .map_tiles(0..rows, |t| t.cells)
+            .into_iter()
+            .flatten()
+            .map(|c| c.map(|(q, _)| q))
+            .collect();
+        assert_eq!(cells.len(), field.cells.len());
+        let bits =
+            |q: &Option<Quadric>| q.map(|q| [q.a, q.b, q.c, q.d, q.e, q.f].map(f64::to_bits));
+        assert!(cells
+            .iter()
+            .zip(&field.cells)
+            .all(|(a, b)| bits(a) == bits(b)));
+        assert!(cells.iter().any(Option::is_some));
+        // A value that is not a float32 keeps the grid in float64.
+        let mut finer = wide.clone();
+        finer[(3, 4)] += 1e-9;
+        assert!(narrow_exactly(&finer).is_none());
     }
 
     #[test]
