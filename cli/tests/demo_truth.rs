@@ -28,9 +28,8 @@ fn noise_free_demo_horizons_match_their_analytic_curvature() {
             values: h.values(false),
         };
         let velocity = h.velocity.map_or(Velocity::None, Velocity::Constant);
-        let depth =
-            positive_down_depth(&grid, Path::new(h.file), h.domain, ZUnit::Metre, &velocity)
-                .unwrap();
+        let depth = positive_down_depth(grid, Path::new(h.file), h.domain, ZUnit::Metre, &velocity)
+            .unwrap();
         let n = 3;
         let field = fit_quadrics(
             depth.view(),

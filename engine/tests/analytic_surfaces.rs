@@ -228,7 +228,7 @@ fn time_and_depth_versions_agree() {
         values: depth.mapv(|z| 2000.0 * z / v),
     };
     let converted = positive_down_depth(
-        &time,
+        time,
         Path::new("t"),
         Domain::Time,
         ZUnit::Metre,

@@ -82,9 +82,7 @@ impl CurvatureJob {
         let budget = self.memory.unwrap_or_else(default_memory_budget);
         set_block_cache(budget / 4);
         let mut prepared = self.prepare()?;
-        // Only the depth is fitted: the values as read are let go before the fit.
-        let input_null_share = prepared.horizon.grid.null_share();
-        prepared.horizon.grid.values = Array2::zeros((0, 0));
+        let input_null_share = prepared.horizon.input_null_share;
         for &n in &prepared.windows {
             let path = self.output_path(n);
             refuse_overwrite(&path, &self.horizon.inputs())?;
@@ -99,7 +97,7 @@ impl CurvatureJob {
         // The depth is held as float32 when every value is one (a float32 grid used as it
         // is): half the memory, and the same fit, since each value widens exactly.
         let depth = std::mem::take(&mut prepared.horizon.depth);
-        let geometry = &prepared.horizon.grid.geometry;
+        let geometry = &prepared.horizon.geometry;
         let (reports, staged) = match narrow_exactly(&depth) {
             Some(narrow) => {
                 drop(depth);
@@ -124,7 +122,7 @@ impl CurvatureJob {
         commit_all(staged)?;
         Ok(CurvatureReport {
             input: self.horizon.path.clone(),
-            grid: prepared.horizon.grid.geometry.describe(),
+            grid: prepared.horizon.geometry.describe(),
             input_null_share,
             notes: prepared.horizon.notes.clone(),
             windows: reports,
@@ -249,16 +247,15 @@ impl CurvatureJob {
     pub(crate) fn prepare(&self) -> Result<Prepared> {
         let windows = self.checked_windows()?;
         let horizon = self.horizon.load(&self.read)?;
-        let grid = &horizon.grid;
-        if grid.valid_count() == 0 {
+        let geometry = &horizon.geometry;
+        if horizon.input_null_share >= 1.0 {
             return Err(FlexureError::input(
                 &self.horizon.path,
                 "every cell is null: nothing to fit",
             ));
         }
         for &n in &windows {
-            self.spec(n)
-                .validate(grid.geometry.cols, grid.geometry.rows)?;
+            self.spec(n).validate(geometry.cols, geometry.rows)?;
         }
         if !horizon.depth.iter().any(|v| v.is_finite()) {
             return Err(FlexureError::input(
@@ -267,11 +264,11 @@ impl CurvatureJob {
             ));
         }
         prepare_output_dir(&self.out_dir)?;
-        let (sx, sy) = grid.geometry.spacing();
+        let (sx, sy) = geometry.spacing();
         let tolerance = FlatTolerance::for_grid(
             excursion(&horizon.depth),
             sx.min(sy),
-            grid.geometry.metres_per_unit,
+            geometry.metres_per_unit,
         );
         Ok(Prepared {
             windows,

@@ -551,7 +551,7 @@ fn check_well_names(wells: &[WellInput]) -> Result<()> {
 fn load_horizon(source: &HorizonSource, read: &ReadOptions, g: &GridGeometry) -> Result<Horizon> {
     let horizon = source.load(read)?;
     let srs = |wkt: &str| gdal::spatial_ref::SpatialRef::from_wkt(wkt).ok();
-    let same = match (srs(&horizon.grid.geometry.crs_wkt), srs(&g.crs_wkt)) {
+    let same = match (srs(&horizon.geometry.crs_wkt), srs(&g.crs_wkt)) {
         (Some(a), Some(b)) => a == b,
         _ => false,
     };
@@ -569,7 +569,7 @@ fn load_horizon(source: &HorizonSource, read: &ReadOptions, g: &GridGeometry) ->
 /// (`crs_per_md`); (mean, min, max) over the points with both, and whether some point has a
 /// TVD but no horizon depth.
 fn standoff(points: &[Station], horizon: &Horizon, crs_per_md: f64) -> Standoff {
-    let g = &horizon.grid.geometry;
+    let g = &horizon.geometry;
     let with_tvd: Vec<&Station> = points.iter().filter(|p| p.tvd.is_finite()).collect();
     let values: Vec<f64> = with_tvd
         .iter()

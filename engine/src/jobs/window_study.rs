@@ -63,9 +63,7 @@ impl WindowStudyJob {
                     .into(),
             ));
         }
-        let mut prepared = self.fit.prepare()?;
-        // Only the depth is fitted: the values as read are let go first.
-        prepared.horizon.grid.values = Array2::zeros((0, 0));
+        let prepared = self.fit.prepare()?;
         let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
@@ -73,7 +71,7 @@ impl WindowStudyJob {
             tolerance,
         } = prepared;
         notices.extend(horizon.notes.iter().cloned());
-        let (grid, depth) = (&horizon.grid, &horizon.depth);
+        let depth = &horizon.depth;
         let out = &self.fit.out_dir;
         let names = ["window_study.json", "window_study.csv"];
         for name in names {
@@ -89,7 +87,7 @@ impl WindowStudyJob {
         if let Some(path) = &adaptive_path {
             refuse_overwrite(path, &self.fit.horizon.inputs())?;
         }
-        let g = &grid.geometry;
+        let g = &horizon.geometry;
         let plan = plan(
             depth.view(),
             g,

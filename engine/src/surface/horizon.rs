@@ -16,7 +16,7 @@
 //! Velocities outside [`PLAUSIBLE_VELOCITY_M_S`] are refused as a probable unit mix-up.
 
 use crate::error::{FlexureError, Result};
-use crate::grid::Grid;
+use crate::grid::{Grid, GridGeometry};
 use crate::io::{read_raster, ReadOptions};
 use ndarray::{Array2, Zip};
 use std::path::{Path, PathBuf};
@@ -233,8 +233,11 @@ pub struct HorizonSource {
 /// A horizon read and converted to positive-down depth.
 #[derive(Clone, Debug)]
 pub struct Horizon {
-    /// The grid as read (time in ms, lengths in the stored unit; nulls NaN).
-    pub grid: Grid,
+    /// Where the grid lies (the values as read are converted to `depth` in place and not
+    /// kept: one grid-sized array while loading, not two).
+    pub geometry: GridGeometry,
+    /// Share of the input's cells that are null, as read.
+    pub input_null_share: f64,
     /// Positive-down depth in CRS length units (NaN nulls).
     pub depth: Array2<f64>,
     /// What the values measure.
@@ -295,15 +298,17 @@ impl HorizonSource {
             .transpose()?;
         check_magnitude(&grid, &self.path, domain, &mut notes)?;
         let (velocity, velocity_text) = self.read_velocity(domain, read, &mut notes)?;
+        let (geometry, input_null_share) = (grid.geometry.clone(), grid.null_share());
         let depth = positive_down_depth(
-            &grid,
+            grid,
             &self.path,
             domain,
             z_unit.unwrap_or(ZUnit::Metre),
             &velocity,
         )?;
         Ok(Horizon {
-            grid,
+            geometry,
+            input_null_share,
             depth,
             domain,
             z_unit,
@@ -635,28 +640,35 @@ pub enum Velocity {
     Grid(Grid, std::path::PathBuf),
 }
 
-/// Converts `grid` to positive-down depth in its CRS length unit (NaN stays null).
+/// Converts `grid` to positive-down depth in its CRS length unit (NaN stays null), in place:
+/// the values become the depths.
 pub fn positive_down_depth(
-    grid: &Grid,
+    grid: Grid,
     source: &Path,
     domain: Domain,
     z_unit: ZUnit,
     velocity: &Velocity,
 ) -> Result<Array2<f64>> {
     let per_unit = 1.0 / grid.geometry.metres_per_unit;
+    let Grid {
+        geometry,
+        mut values,
+    } = grid;
     match domain {
-        Domain::Depth => Ok(grid.values.mapv(|z| z * z_unit.metres() * per_unit)),
-        Domain::Elevation => Ok(grid.values.mapv(|z| -z * z_unit.metres() * per_unit)),
-        Domain::Time => time_to_depth(grid, source, velocity, per_unit),
+        Domain::Depth => values.mapv_inplace(|z| z * z_unit.metres() * per_unit),
+        Domain::Elevation => values.mapv_inplace(|z| -z * z_unit.metres() * per_unit),
+        Domain::Time => time_to_depth(&mut values, &geometry, source, velocity, per_unit)?,
     }
+    Ok(values)
 }
 
 fn time_to_depth(
-    grid: &Grid,
+    values: &mut Array2<f64>,
+    geometry: &GridGeometry,
     source: &Path,
     velocity: &Velocity,
     per_unit: f64,
-) -> Result<Array2<f64>> {
+) -> Result<()> {
     let depth = |t: f64, v: f64| {
         if v.is_finite() && v > 0.0 {
             v * t / 2000.0 * per_unit
@@ -675,22 +687,24 @@ fn time_to_depth(
                     "velocity {v} m/s is not a positive number: give an average velocity such as 3000"
                 )));
             }
-            Ok(grid.values.mapv(|t| depth(t, *v)))
+            values.mapv_inplace(|t| depth(t, *v));
+            Ok(())
         }
         Velocity::Grid(vgrid, vpath) => {
-            if let Some(why) = vgrid.geometry.mismatch(&grid.geometry) {
+            if let Some(why) = vgrid.geometry.mismatch(geometry) {
                 return Err(FlexureError::input(
                     vpath,
                     format!(
                         "velocity grid is not on the horizon's grid ({why}; {} vs {}): give velocities on the horizon's cells",
                         vgrid.geometry.describe(),
-                        grid.geometry.describe()
+                        geometry.describe()
                     ),
                 ));
             }
-            Ok(Zip::from(&grid.values)
+            Zip::from(values)
                 .and(&vgrid.values)
-                .map_collect(|&t, &v| depth(t, v)))
+                .for_each(|t, &v| *t = depth(*t, v));
+            Ok(())
         }
     }
 }
@@ -720,7 +734,7 @@ mod tests {
         // which is 9842.52 ft on a grid in feet.
         let g = grid(Array2::from_elem((2, 2), 2000.0), 0.3048);
         let d = positive_down_depth(
-            &g,
+            g.clone(),
             Path::new("t.tif"),
             Domain::Time,
             ZUnit::Metre,
@@ -729,7 +743,7 @@ mod tests {
         .unwrap();
         assert!((d[(0, 0)] - 3000.0 / 0.3048).abs() < 1e-9);
         let err = positive_down_depth(
-            &g,
+            g.clone(),
             Path::new("t.tif"),
             Domain::Time,
             ZUnit::Metre,
@@ -744,7 +758,7 @@ mod tests {
         // International foot 0.3048 m and US survey foot 1200/3937 m (NIST SP 811, from memory).
         let g = grid(Array2::from_elem((1, 1), 100.0), 1.0);
         let d = positive_down_depth(
-            &g,
+            g.clone(),
             Path::new("e.tif"),
             Domain::Elevation,
             ZUnit::Foot,
@@ -760,7 +774,7 @@ mod tests {
         let g = grid(Array2::from_elem((2, 2), 1000.0), 1.0);
         let v = grid(Array2::from_elem((2, 3), 2500.0), 1.0);
         let err = positive_down_depth(
-            &g,
+            g.clone(),
             Path::new("t.tif"),
             Domain::Time,
             ZUnit::Metre,
