@@ -710,7 +710,7 @@ fn stage_table(rows: &[StageRow]) -> String {
                 .lead()
                 .iter()
                 .map(|p| match p {
-                    Property::Text(t) => csv_text(t),
+                    Property::Text(t) => t.clone(),
                     Property::Number(v) => number(*v),
                 })
                 .collect();
@@ -720,27 +720,34 @@ fn stage_table(rows: &[StageRow]) -> String {
 }
 
 /// A CSV of corridors: the `lead` columns, the statistics, the flag and the curvature columns
-/// (named after the first corridor).
+/// (named after the first corridor); fields quoted where they need it by the csv crate.
 pub(super) fn corridor_table<'a>(
     lead: &[&str],
     rows: impl Iterator<Item = (Vec<String>, &'a Corridor)>,
 ) -> String {
-    let mut body = String::new();
+    let mut records = Vec::new();
     let mut curvature_cols = None;
     for (mut fields, c) in rows {
         curvature_cols.get_or_insert_with(|| c.curvature_columns());
         let numbers = c.numbers();
         let (stats, curvature) = numbers.split_at(STAT_COLUMNS.len());
         fields.extend(stats.iter().map(|v| number(*v)));
-        fields.push(csv_text(&c.flag()));
+        fields.push(c.flag());
         fields.extend(curvature.iter().map(|v| number(*v)));
-        body += &(fields.join(",") + "\n");
+        records.push(fields);
     }
     let mut header: Vec<String> = lead.iter().map(|s| s.to_string()).collect();
     header.extend(STAT_COLUMNS.iter().map(|s| s.to_string()));
     header.push("flag".into());
     header.extend(curvature_cols.unwrap_or_default());
-    header.join(",") + "\n" + &body
+    let mut out = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::Any(b'\n'))
+        .from_writer(Vec::new());
+    for record in std::iter::once(&header).chain(&records) {
+        // Writing to memory cannot fail.
+        let _ = out.write_record(record);
+    }
+    String::from_utf8(out.into_inner().unwrap_or_default()).unwrap_or_default()
 }
 
 /// A CSV number: integers (to 1e-9 relative) as such, tiny magnitudes (p-values) in
@@ -755,14 +762,6 @@ pub(super) fn number(v: f64) -> String {
         format!("{v:.3e}")
     } else {
         format!("{v:.6}")
-    }
-}
-
-fn csv_text(s: &str) -> String {
-    if s.contains([',', '"']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s.to_string()
     }
 }
 
