@@ -126,10 +126,9 @@ impl PlanJob {
             .map(|c| c.azimuth)
             .collect();
         prepare_output_dir(&self.out_dir)?;
-        let mut staged = vec![stage_bytes(
-            &self.out_dir.join("plan.csv"),
-            plan_table(&candidates).as_bytes(),
-        )?];
+        let table = self.out_dir.join("plan.csv");
+        let text = plan_table(&candidates).map_err(|e| FlexureError::write(&table, e))?;
+        let mut staged = vec![stage_bytes(&table, text.as_bytes())?];
         staged.extend(stage_figure(
             &self.out_dir.join("plan_scores"),
             &polar_chart(&candidates, best),
@@ -166,7 +165,7 @@ struct Candidate {
     corridor: Corridor,
 }
 
-fn plan_table(candidates: &[Candidate]) -> String {
+fn plan_table(candidates: &[Candidate]) -> std::result::Result<String, String> {
     corridor_table(
         &["azimuth", "score"],
         candidates

@@ -469,10 +469,9 @@ impl StagesJob {
         }
         let wells: Vec<&Well> = loaded.iter().map(|l| &l.well).collect();
         staged.extend(stage_paths(&self.out_dir, g, &wells)?);
-        staged.push(stage_bytes(
-            &self.out_dir.join("stages.csv"),
-            stage_table(&rows).as_bytes(),
-        )?);
+        let table = self.out_dir.join("stages.csv");
+        let text = stage_table(&rows).map_err(|e| FlexureError::write(&table, e))?;
+        staged.push(stage_bytes(&table, text.as_bytes())?);
         staged.extend(stage_corridors(&self.out_dir, "stage_corridors", g, &rows)?);
         commit_all(staged)?;
         Ok(StagesReport {
@@ -702,7 +701,7 @@ impl StageRow {
     }
 }
 
-fn stage_table(rows: &[StageRow]) -> String {
+fn stage_table(rows: &[StageRow]) -> std::result::Result<String, String> {
     corridor_table(
         &STAGE_LEAD,
         rows.iter().map(|r| {
@@ -720,11 +719,12 @@ fn stage_table(rows: &[StageRow]) -> String {
 }
 
 /// A CSV of corridors: the `lead` columns, the statistics, the flag and the curvature columns
-/// (named after the first corridor); fields quoted where they need it by the csv crate.
+/// (named after the first corridor); fields quoted where they need it by the csv crate. Errors
+/// (a row of another length than the header) in words.
 pub(super) fn corridor_table<'a>(
     lead: &[&str],
     rows: impl Iterator<Item = (Vec<String>, &'a Corridor)>,
-) -> String {
+) -> std::result::Result<String, String> {
     let mut records = Vec::new();
     let mut curvature_cols = None;
     for (mut fields, c) in rows {
@@ -744,10 +744,10 @@ pub(super) fn corridor_table<'a>(
         .terminator(csv::Terminator::Any(b'\n'))
         .from_writer(Vec::new());
     for record in std::iter::once(&header).chain(&records) {
-        // Writing to memory cannot fail.
-        let _ = out.write_record(record);
+        out.write_record(record).map_err(|e| e.to_string())?;
     }
-    String::from_utf8(out.into_inner().unwrap_or_default()).unwrap_or_default()
+    let bytes = out.into_inner().map_err(|e| e.to_string())?;
+    String::from_utf8(bytes).map_err(|e| e.to_string())
 }
 
 /// A CSV number: integers (to 1e-9 relative) as such, tiny magnitudes (p-values) in

@@ -234,7 +234,7 @@ pub struct HorizonSource {
 #[derive(Clone, Debug)]
 pub struct Horizon {
     /// Where the grid lies (the values as read are converted to `depth` in place and not
-    /// kept: one grid-sized array while loading, not two).
+    /// kept beside it).
     pub geometry: GridGeometry,
     /// Share of the input's cells that are null, as read.
     pub input_null_share: f64,
@@ -650,13 +650,18 @@ pub fn positive_down_depth(
     velocity: &Velocity,
 ) -> Result<Array2<f64>> {
     let per_unit = 1.0 / grid.geometry.metres_per_unit;
+    // Lengths already in the CRS's unit are kept exactly (z * 0.3048 / 0.3048 is not always z).
+    let scale = match ZUnit::from_metres(grid.geometry.metres_per_unit) == Some(z_unit) {
+        true => 1.0,
+        false => z_unit.metres() * per_unit,
+    };
     let Grid {
         geometry,
         mut values,
     } = grid;
     match domain {
-        Domain::Depth => values.mapv_inplace(|z| z * z_unit.metres() * per_unit),
-        Domain::Elevation => values.mapv_inplace(|z| -z * z_unit.metres() * per_unit),
+        Domain::Depth => values.mapv_inplace(|z| z * scale),
+        Domain::Elevation => values.mapv_inplace(|z| -z * scale),
         Domain::Time => time_to_depth(&mut values, &geometry, source, velocity, per_unit)?,
     }
     Ok(values)
@@ -767,6 +772,27 @@ mod tests {
         .unwrap();
         assert!((d[(0, 0)] + 30.48).abs() < 1e-12);
         assert!((ZUnit::UsFoot.metres() - 0.3048006096).abs() < 1e-10);
+    }
+
+    #[test]
+    fn lengths_in_the_crs_unit_keep_their_bits() {
+        // Depths in feet on a foot CRS need no conversion: (z * 0.3048) / 0.3048 is one ulp off
+        // for about a third of float32 values (IEEE 754 rounding), so the scale is skipped and
+        // a float32 grid stays exactly float32.
+        for unit in [ZUnit::Foot, ZUnit::UsFoot, ZUnit::Metre] {
+            let values = Array2::from_shape_fn((5, 7), |(r, c)| {
+                f64::from(7000.123_f32 + 13.37 * (r * 7 + c) as f32)
+            });
+            let g = grid(values.clone(), unit.metres());
+            let d =
+                positive_down_depth(g, Path::new("d.tif"), Domain::Depth, unit, &Velocity::None)
+                    .unwrap();
+            assert!(d
+                .iter()
+                .zip(&values)
+                .all(|(a, b)| a.to_bits() == b.to_bits()));
+            assert!(crate::surface::window::narrow_exactly(&d).is_some());
+        }
     }
 
     #[test]
