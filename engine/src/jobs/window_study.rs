@@ -13,15 +13,17 @@ use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::figure::{Anchor, Figure, Mark};
 use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale, PictureCells};
 use crate::error::{FlexureError, Result};
+use crate::grid::GridGeometry;
 use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::{commit_all, nodata_if_null, refuse_overwrite, GeoTiffWriter, StagedFile};
 use crate::provenance::Provenance;
-use crate::surface::curvature::{AttributeDef, DerivativeOrder};
+use crate::surface::curvature::{AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::study::choice::POOL_RADIUS;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
 use crate::surface::study::{plan, ChosenRows, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
-use ndarray::Array2;
+use crate::surface::window::{narrow_exactly, Sample};
+use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -67,11 +69,10 @@ impl WindowStudyJob {
         let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
-            horizon,
+            mut horizon,
             tolerance,
         } = prepared;
         notices.extend(horizon.notes.iter().cloned());
-        let depth = &horizon.depth;
         let out = &self.fit.out_dir;
         let names = ["window_study.json", "window_study.csv"];
         for name in names {
@@ -88,40 +89,29 @@ impl WindowStudyJob {
             refuse_overwrite(path, &self.fit.horizon.inputs())?;
         }
         let g = &horizon.geometry;
-        let plan = plan(
-            depth.view(),
-            g,
-            &windows,
-            self.attribute,
-            self.fit.min_valid,
-            tolerance,
-        )?
-        .ok_or_else(|| {
-            FlexureError::input(
-                &self.fit.horizon.path,
-                "no full 3 x 3 window: cannot estimate the noise",
-            )
-        })?;
-        let mut writer = match &adaptive_path {
-            Some(path) => Some(self.create_adaptive(path, g, &provenance, &plan.steps)?),
-            None => None,
+        // As in curvature: the depth held as float32 when every value is one (same bits).
+        let depth = std::mem::take(&mut horizon.depth);
+        let (s, adaptive) = match narrow_exactly(&depth) {
+            Some(narrow) => {
+                drop(depth);
+                self.study(
+                    narrow.view(),
+                    g,
+                    &windows,
+                    tolerance,
+                    &provenance,
+                    &adaptive_path,
+                )?
+            }
+            None => self.study(
+                depth.view(),
+                g,
+                &windows,
+                tolerance,
+                &provenance,
+                &adaptive_path,
+            )?,
         };
-        let rows = batch_rows(
-            budget / 2,
-            g.cols,
-            plan.batch_cell_bytes().div_ceil(8),
-            plan.working_rows(),
-        );
-        let shown = PictureCells::new((g.cols, g.rows), picture_scale(g, PANEL_MAP_SIZE));
-        let s = plan.run(
-            rows,
-            &shown.rows,
-            &shown.cols,
-            &mut |batch| match &mut writer {
-                Some(writer) => write_adaptive(writer, batch),
-                None => Ok(()),
-            },
-        )?;
         let spacing_m = {
             let (sx, sy) = g.spacing();
             (sx * g.metres_per_unit, sy * g.metres_per_unit)
@@ -143,9 +133,7 @@ impl WindowStudyJob {
             g.metres_per_unit,
         )?);
         staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s)?);
-        if let Some(writer) = writer {
-            staged.push(writer.finish()?);
-        }
+        staged.extend(adaptive);
         commit_all(staged)?;
         Ok(WindowStudyReport {
             attribute: self.attribute.id,
@@ -186,6 +174,56 @@ impl WindowStudyJob {
             .items()
             .to_vec();
         GeoTiffWriter::create::<f32>(path, geometry, &bands, &meta, self.fit.tiff, Layout::Float)
+    }
+
+    /// Plans and runs the study over `depth`, writing the adaptive map's rows as batches come
+    /// when `adaptive_path` is given; the study and the staged adaptive GeoTIFF.
+    fn study<T: Sample>(
+        &self,
+        depth: ArrayView2<T>,
+        g: &GridGeometry,
+        windows: &[usize],
+        tolerance: FlatTolerance,
+        provenance: &Provenance,
+        adaptive_path: &Option<PathBuf>,
+    ) -> Result<(Study, Option<StagedFile>)> {
+        let budget = self.fit.memory.unwrap_or_else(default_memory_budget);
+        let plan = plan(
+            depth,
+            g,
+            windows,
+            self.attribute,
+            self.fit.min_valid,
+            tolerance,
+        )?
+        .ok_or_else(|| {
+            FlexureError::input(
+                &self.fit.horizon.path,
+                "no full 3 x 3 window: cannot estimate the noise",
+            )
+        })?;
+        let mut writer = match adaptive_path {
+            Some(path) => Some(self.create_adaptive(path, g, provenance, &plan.steps)?),
+            None => None,
+        };
+        let rows = batch_rows(
+            budget / 2,
+            g.cols,
+            plan.batch_cell_bytes().div_ceil(8),
+            plan.working_rows(),
+        );
+        let shown = PictureCells::new((g.cols, g.rows), picture_scale(g, PANEL_MAP_SIZE));
+        let s = plan.run(
+            rows,
+            &shown.rows,
+            &shown.cols,
+            &mut |batch| match &mut writer {
+                Some(writer) => write_adaptive(writer, batch),
+                None => Ok(()),
+            },
+        )?;
+        let staged = writer.map(GeoTiffWriter::finish).transpose()?;
+        Ok((s, staged))
     }
 
     fn json(

@@ -66,7 +66,7 @@ use crate::grid::GridGeometry;
 use crate::stats::sketch::Distribution;
 use crate::stats::SeededNoise;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
-use crate::surface::window::{valid_mean, GridRows, Quadric, WindowFit, WindowSpec};
+use crate::surface::window::{valid_mean, GridRows, Quadric, Sample, WindowFit, WindowSpec};
 use choice::{pooled_ratio, Choice, POOL_RADIUS};
 use ndarray::{s, Array2, ArrayView2};
 use noise::{estimate_noise, NoiseEstimate};
@@ -167,8 +167,8 @@ pub struct ChosenRows {
 
 /// A study ready to run: the noise estimate, the step tests (both known before any window is
 /// fitted) and the fits of the clean horizon.
-pub struct StudyPlan<'a> {
-    depth: ArrayView2<'a, f64>,
+pub struct StudyPlan<'a, T: Sample = f64> {
+    depth: ArrayView2<'a, T>,
     geometry: &'a GridGeometry,
     windows: Vec<usize>,
     attribute: &'a AttributeDef,
@@ -181,7 +181,7 @@ pub struct StudyPlan<'a> {
     /// Exact derivative noise per window, in output units (see [`WindowFigures`]).
     derivative_noise_sd: Vec<f64>,
     /// The fits of the clean horizon, one per window.
-    clean: Vec<WindowFit<'a>>,
+    clean: Vec<WindowFit<'a, T>>,
     /// [`valid_mean`] of the noise-perturbed horizon (the origin of its fits).
     noisy_mean: f64,
 }
@@ -189,14 +189,14 @@ pub struct StudyPlan<'a> {
 /// Prepares the study of `attribute` on `depth` (positive down, CRS units) over `windows`
 /// (ascending, distinct, at least two): the horizon's noise estimate and the step tests;
 /// `None` when the noise cannot be estimated (no full 3 x 3 window).
-pub fn plan<'a>(
-    depth: ArrayView2<'a, f64>,
+pub fn plan<'a, T: Sample>(
+    depth: ArrayView2<'a, T>,
     geometry: &'a GridGeometry,
     windows: &[usize],
     attribute: &'a AttributeDef,
     min_valid: f64,
     tolerance: FlatTolerance,
-) -> Result<Option<StudyPlan<'a>>> {
+) -> Result<Option<StudyPlan<'a, T>>> {
     let Some(noise) = estimate_noise(depth, geometry)? else {
         return Ok(None);
     };
@@ -253,7 +253,7 @@ const NOISY_MEAN_ROWS: usize = 64;
 /// the per-cell choice and the rows handed out.
 const BATCH_CELL_BYTES: usize = 240;
 
-impl StudyPlan<'_> {
+impl<T: Sample> StudyPlan<'_, T> {
     /// Bytes the study holds per cell of a batch of rows (see [`StudyPlan::run`]).
     pub fn batch_cell_bytes(&self) -> usize {
         BATCH_CELL_BYTES + 4 * self.windows.len()
@@ -466,7 +466,7 @@ impl StudyPlan<'_> {
                 // Two draws a deviate.
                 rng.skip(2 * (r * cols) as u64);
                 (0..cols)
-                    .map(|c| self.depth[(r, c)] + self.noise.sigma * rng.gaussian())
+                    .map(|c| self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian())
                     .collect()
             })
             .collect();

@@ -4,7 +4,7 @@
 use crate::error::Result;
 use crate::grid::GridGeometry;
 use crate::stats::median_and_mad;
-use crate::surface::window::{WindowFit, WindowSpec};
+use crate::surface::window::{Sample, WindowFit, WindowSpec};
 use ndarray::ArrayView2;
 
 /// The horizon's noise estimate.
@@ -24,8 +24,8 @@ pub const NOISE_ESTIMATOR: &str =
 const RESIDUAL_BATCH_ROWS: usize = 256;
 
 /// Estimates the noise of `depth` (see the module notes); `None` without full 3 x 3 windows.
-pub fn estimate_noise(
-    depth: ArrayView2<f64>,
+pub fn estimate_noise<T: Sample>(
+    depth: ArrayView2<T>,
     geometry: &GridGeometry,
 ) -> Result<Option<NoiseEstimate>> {
     let spec = WindowSpec {
@@ -35,14 +35,14 @@ pub fn estimate_noise(
     let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
     let fit = WindowFit::new(depth, geometry, &spec, &[])?;
     // One residual a fitted cell, gathered batch by batch: the one grid-sized array held.
-    let fitted = depth.iter().filter(|v| v.is_finite()).count();
+    let fitted = depth.iter().filter(|v| v.widen().is_finite()).count();
     let mut residuals: Vec<f64> = Vec::with_capacity(fitted);
     let batch = RESIDUAL_BATCH_ROWS.max(fit.tile_rows());
     for first_row in (0..depth.nrows()).step_by(batch) {
         let tiles = fit.map_tiles(first_row..first_row + batch, |tile| {
             let at = |i: usize| (tile.first_row + i / tile.cols, i % tile.cols);
             (tile.cells.iter().enumerate())
-                .filter_map(|(i, c)| c.map(|(q, _)| depth[at(i)] - q.f))
+                .filter_map(|(i, c)| c.map(|(q, _)| depth[at(i)].widen() - q.f))
                 .collect::<Vec<f64>>()
         });
         residuals.extend(tiles.into_iter().flatten());
