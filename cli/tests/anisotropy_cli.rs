@@ -414,3 +414,39 @@ fn render_bad_inputs_fail_cleanly() {
     }
     assert!(attr.is_file());
 }
+
+#[test]
+fn quicklooks_of_grids_whose_rows_run_north_are_not_mirrored() {
+    // The same map stored north-up and with rows running north (as point-list exports are
+    // read): a picture shows the map, so the two quicklooks must be the same pixels. The
+    // values rise to the north-east so a mirror image would differ.
+    let dir = tempfile::tempdir().unwrap();
+    let down = north_up(COLS, ROWS);
+    let values = Array2::from_shape_fn((ROWS, COLS), |(r, c)| {
+        ((ROWS - r) as f32) * 3.0 + c as f32 + if r < 4 && c > 18 { 50.0 } else { 0.0 }
+    });
+    let up = down.rows_reversed();
+    assert!(up.mirrored_in_pictures() && !down.mirrored_in_pictures());
+    let flipped = values.slice(ndarray::s![..;-1, ..]).to_owned();
+    let pictures: Vec<Vec<u8>> = [("down", &down, values), ("up", &up, flipped)]
+        .into_iter()
+        .map(|(name, g, v)| {
+            let folder = dir.path().join(name);
+            std::fs::create_dir_all(&folder).unwrap();
+            let input = write_bands(&folder, "k.tif", g, vec![v]);
+            let (map, png) = (folder.join("map.tif"), folder.join("map.png"));
+            let o = flexure(&[
+                "render",
+                "--attribute",
+                input.to_str().unwrap(),
+                "--out",
+                map.to_str().unwrap(),
+                "--png",
+                png.to_str().unwrap(),
+            ]);
+            assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+            std::fs::read(&png).unwrap()
+        })
+        .collect();
+    assert!(pictures[0] == pictures[1], "the quicklooks differ");
+}

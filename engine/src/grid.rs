@@ -287,6 +287,25 @@ impl GridGeometry {
         Ok(map)
     }
 
+    /// Whether the grid drawn as a picture (columns to the right, rows downward) shows the map
+    /// mirrored: its pixel frame is right-handed in map coordinates, as when rows run north
+    /// while columns run east (point-list exports read in numbering order).
+    pub fn mirrored_in_pictures(&self) -> bool {
+        let g = &self.geo_transform;
+        g[1] * g[5] - g[2] * g[4] > 0.0
+    }
+
+    /// The same cells with the rows in reverse order (the last row first): cell (col, row)
+    /// of the result is cell (col, rows - 1 - row) of `self`.
+    pub fn rows_reversed(&self) -> GridGeometry {
+        let g = self.geo_transform;
+        let n = self.rows as f64;
+        GridGeometry {
+            geo_transform: [g[0] + n * g[2], g[1], -g[2], g[3] + n * g[5], g[4], -g[5]],
+            ..self.clone()
+        }
+    }
+
     /// One-line description: size, spacing and rotation.
     pub fn describe(&self) -> String {
         let (sx, sy) = self.spacing();

@@ -21,7 +21,7 @@ use crate::io::{
 };
 use crate::provenance::Provenance;
 use crate::stats::{quantile, Quantile};
-use ndarray::Array2;
+use ndarray::{s, Array2};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
@@ -336,6 +336,14 @@ impl RenderJob {
         segments: &[MapSegment],
         parts: &LegendParts,
     ) -> Result<StagedFile> {
+        // A grid whose rows run north would be drawn mirrored: its rows are drawn last first.
+        let flipped;
+        let (geometry, cells) = if geometry.mirrored_in_pictures() {
+            flipped = cells.slice(s![..;-1, ..]).to_owned();
+            (&geometry.rows_reversed(), &flipped)
+        } else {
+            (geometry, cells)
+        };
         let px = quicklook_pixels(geometry);
         let mut map = cells_to_pixmap(cells, px);
         draw_segments(&mut map, geometry, px, segments, 2.0);

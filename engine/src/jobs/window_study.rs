@@ -23,7 +23,7 @@ use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
 use crate::surface::study::{plan, ChosenRows, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
 use crate::surface::window::{narrow_exactly, Sample};
-use ndarray::{Array2, ArrayView2};
+use ndarray::{s, Array2, ArrayView2};
 use serde::Serialize;
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -132,7 +132,11 @@ impl WindowStudyJob {
             self.attribute,
             g.metres_per_unit,
         )?);
-        staged.push(self.stage_panel(&out.join("window_study_panel.png"), &s)?);
+        staged.push(self.stage_panel(
+            &out.join("window_study_panel.png"),
+            &s,
+            g.mirrored_in_pictures(),
+        )?);
         staged.extend(adaptive);
         commit_all(staged)?;
         Ok(WindowStudyReport {
@@ -271,7 +275,9 @@ impl WindowStudyJob {
             + "\n"
     }
 
-    fn stage_panel(&self, path: &Path, s: &Study) -> Result<StagedFile> {
+    /// The panel of maps; `mirrored`: the grid's rows run north ([`GridGeometry::mirrored_in_pictures`]),
+    /// so its maps are drawn last row first.
+    fn stage_panel(&self, path: &Path, s: &Study, mirrored: bool) -> Result<StagedFile> {
         let reference = s
             .windows
             .iter()
@@ -287,7 +293,13 @@ impl WindowStudyJob {
                     )
                 })?;
         // The samples are the cells the pictures show, one a pixel.
-        let tile = |m: &Array2<f64>| cells_to_pixmap(&colour_cells(m, &scale, None), (1.0, 1.0));
+        let tile = |m: &Array2<f64>| {
+            let rows = match mirrored {
+                true => m.slice(s![..;-1, ..]),
+                false => m.view(),
+            };
+            cells_to_pixmap(&colour_cells(&rows.to_owned(), &scale, None), (1.0, 1.0))
+        };
         let mut maps: Vec<(String, tiny_skia::Pixmap)> = s
             .windows
             .iter()
