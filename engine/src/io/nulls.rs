@@ -12,6 +12,7 @@
 //!   [`OUTLIER_MADS`] median absolute deviations from the median (Hampel's identifier, Hampel
 //!   1974, JASA 69:383, with a deliberately wide threshold), e.g. picking busts.
 
+use crate::stats::FiniteSample;
 use ndarray::Array2;
 
 /// Distance from the median, in median absolute deviations, beyond which a value is an
@@ -61,21 +62,23 @@ pub struct Outliers {
 /// The most frequent sentinel-shaped value that stands apart from the other values (see the
 /// module notes), with the number of cells holding it; `None` when there is none.
 pub fn undeclared_sentinel(values: &Array2<f64>) -> Option<(f64, usize)> {
-    let mut shaped: Vec<f64> = Vec::new();
-    let mut others: Vec<f64> = Vec::new();
-    for &v in values.iter().filter(|v| v.is_finite()) {
-        if looks_like_sentinel(v) {
-            shaped.push(v);
-        } else {
-            others.push(v);
-        }
-    }
-    if shaped.is_empty() || others.is_empty() {
+    let shaped: Vec<f64> = values
+        .iter()
+        .copied()
+        .filter(|&v| v.is_finite() && looks_like_sentinel(v))
+        .collect();
+    if shaped.is_empty() {
         return None;
     }
-    let lo = others.iter().copied().fold(f64::INFINITY, f64::min);
-    let hi = others.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let median = crate::stats::median(&mut others)?;
+    let others = || {
+        values
+            .iter()
+            .copied()
+            .filter(|&v| v.is_finite() && !looks_like_sentinel(v))
+    };
+    let lo = others().fold(f64::INFINITY, f64::min);
+    let hi = others().fold(f64::NEG_INFINITY, f64::max);
+    let median = FiniteSample::of(others).median()?;
     let margin = (0.5 * (hi - lo)).max(0.1 * median.abs());
     let apart = |v: f64| v.abs() >= 1e10 || v < lo - margin || v > hi + margin;
     count_distinct(shaped.into_iter().filter(|&v| apart(v)).collect())
@@ -110,11 +113,12 @@ pub fn typed(v: f64) -> String {
 /// Finite values further than [`OUTLIER_MADS`] median absolute deviations from the median;
 /// `None` when there are none or when more than half the values are equal (MAD 0).
 pub fn outliers(values: &Array2<f64>) -> Option<Outliers> {
-    let mut finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+    let mut finite = FiniteSample::of(|| values.iter().copied());
     if finite.len() < 3 {
         return None;
     }
-    let (median, mad) = crate::stats::median_and_mad(&mut finite)?;
+    let (median, mad) = finite.median_and_mad()?;
+    drop(finite);
     if mad <= 0.0 {
         return None;
     }

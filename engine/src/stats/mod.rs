@@ -84,29 +84,91 @@ pub fn quantile(values: &mut [f64], q: f64, method: Quantile) -> Option<f64> {
 /// values for an even count (the usual definition, as `numpy.median`; the [`Quantile::Linear`]
 /// quantile at 0.5); `None` when empty. Linear time (selection, not a full sort).
 pub fn median(values: &mut [f64]) -> Option<f64> {
+    median_by(values, |v| v)
+}
+
+/// The [`median`] of `key` over `values` (reordered in place).
+fn median_by<T: Copy>(values: &mut [T], key: impl Fn(T) -> f64) -> Option<f64> {
     let n = values.len();
     if n == 0 {
         return None;
     }
-    let (lower, upper, _) = values.select_nth_unstable_by(n / 2, f64::total_cmp);
-    let upper = *upper;
+    let (lower, upper, _) =
+        values.select_nth_unstable_by(n / 2, |a, b| key(*a).total_cmp(&key(*b)));
+    let upper = key(*upper);
     if n % 2 == 1 {
         return Some(upper);
     }
-    let below = lower.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let below = lower
+        .iter()
+        .map(|v| key(*v))
+        .fold(f64::NEG_INFINITY, f64::max);
     Some(0.5 * (below + upper))
 }
 
 /// The [`median`] of `values` and their median absolute deviation from it (MAD,
 /// `median |x - median|`, unscaled: 1.4826 MAD estimates the standard deviation of normal data,
-/// Hampel 1974, J. Amer. Statist. Assoc. 69:383); `None` when empty. `values` is overwritten
-/// with the absolute deviations (in no particular order), so a grid-sized sample needs no
-/// second copy.
+/// Hampel 1974, J. Amer. Statist. Assoc. 69:383); `None` when empty. `values` is reordered in
+/// place, so a grid-sized sample needs no second copy.
 pub fn median_and_mad(values: &mut [f64]) -> Option<(f64, f64)> {
-    let centre = median(values)?;
-    values.iter_mut().for_each(|v| *v = (*v - centre).abs());
-    let mad = median(values)?;
+    median_and_mad_by(values, |v| v)
+}
+
+fn median_and_mad_by<T: Copy>(values: &mut [T], key: impl Fn(T) -> f64) -> Option<(f64, f64)> {
+    let centre = median_by(values, &key)?;
+    let mad = median_by(values, |v| (key(v) - centre).abs())?;
     Some((centre, mad))
+}
+
+/// A grid-sized sample of finite values for order statistics, held as `f32` when every value
+/// is exactly a float32 (a grid read from float32: half the memory), else as `f64`; the
+/// statistics are the same either way (each value widens exactly).
+pub enum FiniteSample {
+    /// Every value is a float32.
+    Narrow(Vec<f32>),
+    /// Some value is not.
+    Wide(Vec<f64>),
+}
+
+impl FiniteSample {
+    /// The finite values of `values` (read twice: once to choose the storage).
+    pub fn of<I: Iterator<Item = f64>>(values: impl Fn() -> I) -> Self {
+        let finite = || values().filter(|v| v.is_finite());
+        if finite().all(|v| f64::from(v as f32) == v) {
+            Self::Narrow(finite().map(|v| v as f32).collect())
+        } else {
+            Self::Wide(finite().collect())
+        }
+    }
+
+    /// Number of values.
+    pub fn len(&self) -> usize {
+        match self {
+            Self::Narrow(v) => v.len(),
+            Self::Wide(v) => v.len(),
+        }
+    }
+
+    /// Whether there is no value.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// The [`median`] (the values are reordered).
+    pub fn median(&mut self) -> Option<f64> {
+        match self {
+            Self::Narrow(v) => median_by(v, f64::from),
+            Self::Wide(v) => median(v),
+        }
+    }
+
+    /// The [`median_and_mad`] (the values are reordered).
+    pub fn median_and_mad(&mut self) -> Option<(f64, f64)> {
+        match self {
+            Self::Narrow(v) => median_and_mad_by(v, f64::from),
+            Self::Wide(v) => median_and_mad(v),
+        }
+    }
 }
 
 /// SplitMix64's increment of the state per draw (the odd integer nearest 2^64 / golden ratio).
@@ -238,6 +300,35 @@ mod tests {
             Some((3.5, 1.75))
         );
         assert_eq!(median_and_mad(&mut []), None);
+    }
+
+    #[test]
+    fn finite_samples_give_the_same_statistics_in_either_storage() {
+        // The numpy figures above, through a sample: y holds float32 values (held narrow),
+        // y + 1e-9 does not (held wide); NaN and infinities are left out.
+        let y = [4.0, 1.0, f64::NAN, 9.0, 2.5, f64::INFINITY, 7.0, 3.0];
+        let mut narrow = FiniteSample::of(|| y.iter().copied());
+        assert!(matches!(narrow, FiniteSample::Narrow(_)));
+        assert_eq!(narrow.len(), 6);
+        assert_eq!(narrow.median_and_mad(), Some((3.5, 1.75)));
+        assert_eq!(narrow.median(), Some(3.5));
+        let shifted: Vec<f64> = y.iter().map(|v| v + 1e-9).collect();
+        let mut wide = FiniteSample::of(|| shifted.iter().copied());
+        assert!(matches!(wide, FiniteSample::Wide(_)));
+        let (m, mad) = wide.median_and_mad().unwrap();
+        assert!((m - (3.5 + 1e-9)).abs() < 1e-12 && (mad - 1.75).abs() < 1e-12);
+        // Random float32 data: both storages give the same bits as the f64 functions.
+        let mut rng = SeededNoise::new(5);
+        let data: Vec<f64> = (0..1001)
+            .map(|_| f64::from((100.0 * rng.gaussian()) as f32))
+            .collect();
+        let expected = median_and_mad(&mut data.clone());
+        assert_eq!(
+            FiniteSample::of(|| data.iter().copied()).median_and_mad(),
+            expected
+        );
+        assert_eq!(FiniteSample::Wide(data.clone()).median_and_mad(), expected);
+        assert!(FiniteSample::of(std::iter::empty).is_empty());
     }
 
     #[test]

@@ -625,8 +625,9 @@ fn check_magnitude(
 
 /// Median of the finite values (NaN when there are none).
 fn finite_median(values: &Array2<f64>) -> f64 {
-    let mut finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
-    crate::stats::median(&mut finite).unwrap_or(f64::NAN)
+    crate::stats::FiniteSample::of(|| values.iter().copied())
+        .median()
+        .unwrap_or(f64::NAN)
 }
 
 /// Average velocity for time-to-depth conversion.
