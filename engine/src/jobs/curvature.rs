@@ -13,7 +13,7 @@ use crate::io::{
 use crate::provenance::Provenance;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::surface::horizon::{Horizon, HorizonSource};
-use crate::surface::window::{narrow_exactly, FittedTile, Sample, WindowSet, WindowSpec};
+use crate::surface::window::{narrow_exactly, FittedTile, Sample, WindowFit, WindowSpec};
 use ndarray::{Array2, ArrayView2};
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -140,26 +140,25 @@ impl CurvatureJob {
         budget: u64,
         progress: &dyn Progress,
     ) -> Result<(Vec<WindowReport>, Vec<StagedFile>)> {
-        let specs: Vec<WindowSpec> = prepared.windows.iter().map(|&n| self.spec(n)).collect();
-        let fits = WindowSet::new(depth, geometry, &specs)?;
-        let batch_rows = batch_rows(
-            budget / 2,
-            geometry.cols,
-            self.attributes.len() * specs.len(),
-            fits.working_rows(),
-        );
+        let fits = prepared
+            .windows
+            .iter()
+            .map(|&n| WindowFit::new(depth, geometry, &self.spec(n), &[]))
+            .collect::<Result<Vec<_>>>()?;
+        let fit_rows = fits.iter().map(WindowFit::working_rows).max().unwrap_or(0);
+        let batch_rows = batch_rows(budget / 2, geometry.cols, self.attributes.len(), fit_rows);
         let mut outputs = prepared
             .windows
             .iter()
             .map(|&n| self.create_output(geometry, provenance, n))
             .collect::<Result<Vec<_>>>()?;
-        progress.begin((geometry.rows * specs.len()) as u64);
+        progress.begin((geometry.rows * fits.len()) as u64);
         for first_row in (0..geometry.rows).step_by(batch_rows) {
             let rows = first_row..(first_row + batch_rows).min(geometry.rows);
-            let windows = fits.map_tiles(rows.clone(), |_, tile| {
-                self.evaluate_tile(&tile, geometry.metres_per_unit, prepared.tolerance)
-            });
-            for (tiles, output) in windows.into_iter().zip(&mut outputs) {
+            for (fit, output) in fits.iter().zip(&mut outputs) {
+                let tiles = fit.map_tiles(rows.clone(), |tile| {
+                    self.evaluate_tile(&tile, geometry.metres_per_unit, prepared.tolerance)
+                });
                 output.write(tiles)?;
                 progress.advance(rows.len() as u64);
             }

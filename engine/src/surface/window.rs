@@ -355,108 +355,6 @@ impl<'a, T: Sample> WindowFit<'a, T> {
 /// [`TILE_ROWS`] and four halves, so the 2 x half halo rows of each tile's row pass add at most
 /// half the work for large windows, and runs of rows that start and end at multiples of 256
 /// (the GeoTIFF block height) split into whole tiles for every window up to 101.
-/// The fits of several windows of one grid in one run (ascending, distinct sizes), sharing
-/// each grid row's pass: the row sums of every window come from one pass of the widest
-/// ([`Fitter::row_sums`]), over tiles of the widest window's height. A cell's quadric is the
-/// same bits as in the window's own [`WindowFit`], whichever batch or tile it is fitted in.
-pub struct WindowSet<'a, T: Sample = f64> {
-    fits: Vec<WindowFit<'a, T>>,
-    tile_rows: usize,
-}
-
-impl<'a, T: Sample> WindowSet<'a, T> {
-    /// Prepares the fits of `values` over `specs` (sizes ascending and distinct), as
-    /// [`WindowFit::new`] does for one window (no noise functionals).
-    pub fn new(
-        values: ArrayView2<'a, T>,
-        geometry: &GridGeometry,
-        specs: &[WindowSpec],
-    ) -> Result<Self> {
-        if specs.is_empty() || specs.windows(2).any(|w| w[0].size >= w[1].size) {
-            return Err(crate::error::FlexureError::Parameter(
-                "internal: window sizes must be ascending and distinct".into(),
-            ));
-        }
-        let fits = specs
-            .iter()
-            .map(|spec| WindowFit::new(values, geometry, spec, &[]))
-            .collect::<Result<Vec<_>>>()?;
-        let tile_rows = fits
-            .iter()
-            .map(WindowFit::tile_rows)
-            .max()
-            .unwrap_or(TILE_ROWS);
-        Ok(Self { fits, tile_rows })
-    }
-
-    /// Grid rows one worker thread holds while it fits a tile: every window's row sums of
-    /// the tile and its halo and its fitted cells, each about 64 bytes a cell.
-    pub fn working_rows(&self) -> usize {
-        let widest = self.fits.last().map_or(0, |f| f.fitter.half);
-        self.fits.len() * (2 * self.tile_rows + 2 * widest)
-    }
-
-    /// Height of the fixed tiles (the widest window's).
-    pub fn tile_rows(&self) -> usize {
-        self.tile_rows
-    }
-
-    /// Fits the grid rows `rows` tile by tile in parallel for every window and maps each
-    /// window's tile with `each(window index, tile)`; per window, the results in row order.
-    pub fn map_tiles<R: Send>(
-        &self,
-        rows: std::ops::Range<usize>,
-        each: impl Fn(usize, FittedTile) -> R + Sync,
-    ) -> Vec<Vec<R>> {
-        let Some(widest) = self.fits.last() else {
-            return Vec::new();
-        };
-        let fitter = &widest.fitter;
-        let (big, end) = (fitter.half, rows.end.min(fitter.rows.grid_rows));
-        let halves: Vec<usize> = self.fits.iter().map(|f| f.fitter.half).collect();
-        let starts: Vec<usize> = (rows.start..end).step_by(self.tile_rows).collect();
-        let tiles: Vec<Vec<R>> = starts
-            .par_iter()
-            .map(|&r0| {
-                let r1 = (r0 + self.tile_rows).min(end);
-                let mut per_window: Vec<Vec<RowSums>> = halves.iter().map(|_| Vec::new()).collect();
-                for r in r0 as isize - big as isize..(r1 + big) as isize {
-                    for (k, sums) in fitter.row_sums(r, &halves).into_iter().enumerate() {
-                        per_window[k].push(sums);
-                    }
-                }
-                self.fits
-                    .iter()
-                    .zip(&per_window)
-                    .enumerate()
-                    .map(|(k, (fit, sums))| {
-                        let m = fit.fitter.half;
-                        let own = &sums[big - m..big - m + (r1 - r0) + 2 * m];
-                        each(
-                            k,
-                            FittedTile {
-                                first_row: r0,
-                                cols: fit.fitter.cols(),
-                                cells: fit.fitter.fit_rows(own, r0, r1),
-                            },
-                        )
-                    })
-                    .collect()
-            })
-            .collect();
-        let mut out: Vec<Vec<R>> = halves
-            .iter()
-            .map(|_| Vec::with_capacity(tiles.len()))
-            .collect();
-        for tile in tiles {
-            for (k, r) in tile.into_iter().enumerate() {
-                out[k].push(r);
-            }
-        }
-        out
-    }
-}
-
 fn tile_rows(half: usize) -> usize {
     TILE_ROWS.max(4 * half).next_power_of_two()
 }
@@ -597,6 +495,8 @@ impl CoefficientMap {
 struct Fitter<'a, T: Sample> {
     rows: GridRows<'a, T>,
     half: usize,
+    /// s = u/m for u = -m..=m.
+    offsets: Vec<f64>,
     /// Powers 0..=4 of t = v/m for v = -m..=m.
     row_powers: Vec<[f64; 5]>,
     full_count: f64,
@@ -615,45 +515,6 @@ struct Fitter<'a, T: Sample> {
 struct RowSums {
     mask: [Vec<f64>; 5],
     data: [Vec<f64>; 3],
-}
-
-impl RowSums {
-    fn zeros(cols: usize) -> Self {
-        Self {
-            mask: std::array::from_fn(|_| vec![0.0; cols]),
-            data: std::array::from_fn(|_| vec![0.0; cols]),
-        }
-    }
-
-    /// Adds the terms of integer offset `u`: u^p M(col + u) and u^p M z(col + u) at each col.
-    fn add_offset(&mut self, u: isize, mask_row: &[f64], data_row: &[f64]) {
-        let cols = mask_row.len();
-        let x = u as f64;
-        let powers = [1.0, x, x * x, x * x * x, x * x * x * x];
-        let lo = (-u).max(0) as usize;
-        let hi = (cols as isize - u.max(0)).max(0) as usize;
-        for col in lo..hi {
-            let src = (col as isize + u) as usize;
-            let (mv, zv) = (mask_row[src], data_row[src]);
-            for (line, w) in self.mask.iter_mut().zip(&powers) {
-                line[col] += w * mv;
-            }
-            for (line, w) in self.data.iter_mut().zip(&powers) {
-                line[col] += w * zv;
-            }
-        }
-    }
-
-    /// The sums of integer offsets turned into sums of s^p = (u/m)^p.
-    fn scaled(&self, m: usize) -> Self {
-        let m = m as f64;
-        let divisors = [1.0, m, m * m, m * m * m, m * m * m * m];
-        let scale = |line: &[f64], p: usize| line.iter().map(|v| v / divisors[p]).collect();
-        Self {
-            mask: std::array::from_fn(|p| scale(&self.mask[p], p)),
-            data: std::array::from_fn(|p| scale(&self.data[p], p)),
-        }
-    }
 }
 
 impl<'a, T: Sample> Fitter<'a, T> {
@@ -683,6 +544,7 @@ impl<'a, T: Sample> Fitter<'a, T> {
         Ok(Self {
             rows,
             half,
+            offsets: offsets.clone(),
             row_powers: offsets
                 .iter()
                 .map(|&t| [1.0, t, t * t, t * t * t, t * t * t * t])
@@ -714,31 +576,35 @@ impl<'a, T: Sample> Fitter<'a, T> {
         }
     }
 
-    /// Pass along grid row `row` for windows of half widths `halves` (ascending): per window,
-    /// the sums over u = -m..=m of s^p M and s^p M z with s = u/m. One pass serves every
-    /// window: the terms are added from the centre outwards with integer offsets u (exact
-    /// powers), and each window's sums are the running sums divided by m^p once its width is
-    /// reached, so nested windows share their inner terms.
-    fn row_sums(&self, row: isize, halves: &[usize]) -> Vec<RowSums> {
+    /// Pass along each grid row `row`: the sums over u of s^p M and s^p M z.
+    fn row_sums(&self, row: isize) -> RowSums {
         let cols = self.cols();
         let (mut mask_row, mut data_row) = (vec![0.0; cols], vec![0.0; cols]);
         for col in 0..cols {
             (mask_row[col], data_row[col]) = self.cell(row, col);
         }
-        let mut running = RowSums::zeros(cols);
-        let mut out = Vec::with_capacity(halves.len());
-        let mut next = 0isize;
-        for &m in halves {
-            while next <= m as isize {
-                let offsets = if next == 0 { [0, 0] } else { [-next, next] };
-                for &u in &offsets[usize::from(next == 0)..] {
-                    running.add_offset(u, &mask_row, &data_row);
+        let mut sums = RowSums {
+            mask: std::array::from_fn(|_| vec![0.0; cols]),
+            data: std::array::from_fn(|_| vec![0.0; cols]),
+        };
+        let m = self.half as isize;
+        for (iu, u) in (-m..=m).enumerate() {
+            let s = self.offsets[iu];
+            let powers = [1.0, s, s * s, s * s * s, s * s * s * s];
+            let lo = (-u).max(0) as usize;
+            let hi = (cols as isize - u.max(0)).max(0) as usize;
+            for col in lo..hi {
+                let src = (col as isize + u) as usize;
+                let (mv, zv) = (mask_row[src], data_row[src]);
+                for (line, w) in sums.mask.iter_mut().zip(&powers) {
+                    line[col] += w * mv;
                 }
-                next += 1;
+                for (line, w) in sums.data.iter_mut().zip(&powers) {
+                    line[col] += w * zv;
+                }
             }
-            out.push(running.scaled(m));
         }
-        out
+        sums
     }
 
     /// Fits output rows r0..r1 (quadric and noise power per cell).
@@ -746,14 +612,8 @@ impl<'a, T: Sample> Fitter<'a, T> {
         let m = self.half;
         let first = r0 as isize - m as isize;
         let sums: Vec<RowSums> = (first..(r1 + m) as isize)
-            .filter_map(|r| self.row_sums(r, &[m]).pop())
+            .map(|r| self.row_sums(r))
             .collect();
-        self.fit_rows(&sums, r0, r1)
-    }
-
-    /// Fits output rows r0..r1 from the row sums of grid rows r0 - m .. r1 + m.
-    fn fit_rows(&self, sums: &[RowSums], r0: usize, r1: usize) -> Vec<Option<(Quadric, f64)>> {
-        let m = self.half;
         let cols = self.cols();
         let mut out = Vec::with_capacity((r1 - r0) * cols);
         for row in r0..r1 {
@@ -1068,57 +928,6 @@ mod tests {
         let mut finer = wide.clone();
         finer[(3, 4)] += 1e-9;
         assert!(narrow_exactly(&finer).is_none());
-    }
-
-    #[test]
-    fn a_window_set_fits_each_window_as_its_own_fit_does() {
-        // Sharing the row passes must not change a bit: every window of a set against the
-        // window's own fit, with nulls, partial windows and runs of rows that split tiles.
-        let (rows, cols) = (150, 41);
-        let mut rng = crate::stats::SeededNoise::new(9);
-        let values = Array2::from_shape_fn((rows, cols), |(r, c)| {
-            let z = 2000.0 + 0.02 * (r * r) as f64 - 0.5 * c as f64 + rng.gaussian();
-            if (r * 7 + c * 3) % 17 == 0 {
-                f64::NAN
-            } else {
-                z
-            }
-        });
-        let g = GridGeometry {
-            cols,
-            rows,
-            ..square(12.5)
-        };
-        let specs: Vec<WindowSpec> = [3, 5, 9, 17]
-            .map(|size| WindowSpec {
-                size,
-                min_valid: 0.6,
-            })
-            .to_vec();
-        let set = WindowSet::new(values.view(), &g, &specs).unwrap();
-        let bits = |cells: Vec<Option<(Quadric, f64)>>| -> Vec<Option<[u64; 6]>> {
-            cells
-                .into_iter()
-                .map(|c| c.map(|(q, _)| [q.a, q.b, q.c, q.d, q.e, q.f].map(f64::to_bits)))
-                .collect()
-        };
-        let mut shared: Vec<Vec<Option<[u64; 6]>>> = vec![Vec::new(); specs.len()];
-        for run in [0..set.tile_rows(), set.tile_rows()..rows] {
-            for (k, tiles) in set.map_tiles(run, |_, t| t.cells).into_iter().enumerate() {
-                shared[k].extend(tiles.into_iter().flat_map(bits));
-            }
-        }
-        for (spec, shared) in specs.iter().zip(&shared) {
-            let own = WindowFit::new(values.view(), &g, spec, &[]).unwrap();
-            let alone: Vec<_> = own
-                .map_tiles(0..rows, |t| t.cells)
-                .into_iter()
-                .flat_map(bits)
-                .collect();
-            assert_eq!(&alone, shared, "window {}", spec.size);
-            assert!(alone.iter().any(Option::is_some) && alone.iter().any(Option::is_none));
-        }
-        assert!(WindowSet::new(values.view(), &g, &[specs[1], specs[0]]).is_err());
     }
 
     #[test]
