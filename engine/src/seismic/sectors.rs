@@ -35,9 +35,12 @@ pub fn sector_shifts(
             &mean
         }
     };
+    let Some(reference) = measure.against(centre, reference) else {
+        return vec![None; sectors.len()];
+    };
     sectors
         .iter()
-        .map(|trace| measure.measure(centre, reference, trace))
+        .map(|trace| reference.measure(trace))
         .collect()
 }
 

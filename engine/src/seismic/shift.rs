@@ -113,58 +113,101 @@ impl ShiftMeasure {
     /// Shift of `trace` against `reference` for a window centred at fractional sample index
     /// `centre`; both slices hold the samples [`samples_needed`](Self::samples_needed)`(centre)`
     /// in order. `None` when either trace has no energy in the window or the peak lies beyond
-    /// the largest shift.
+    /// the largest shift. To measure several traces against one reference, prepare it once
+    /// with [`ShiftMeasure::against`].
     pub fn measure(&self, centre: f64, reference: &[f32], trace: &[f32]) -> Option<Shift> {
+        self.against(centre, reference)?.measure(trace)
+    }
+
+    /// The tapered window of `reference` centred at fractional sample index `centre`, ready to
+    /// measure traces against (`reference` holds the samples
+    /// [`samples_needed`](Self::samples_needed)`(centre)`); `None` when the reference has no
+    /// energy in the window or the wrong length.
+    pub fn against(&self, centre: f64, reference: &[f32]) -> Option<TaperedReference<'_>> {
         let needed = self.samples_needed(centre);
         let len = needed.end.checked_sub(needed.start)? as usize;
-        if reference.len() != len || trace.len() != len {
+        if reference.len() != len {
             return None;
         }
-        let reach = self.lag_reach();
-        let window = self.window(centre);
         let half = self.half_window_ms / self.dt_ms;
-        // Window samples as offsets into the slices, with their taper weights.
-        let taps: Vec<(usize, f64)> = window
+        // Window samples as offsets into the slices with the taper weight times the reference
+        // sample, and the taper weights.
+        let (taps, weights): (Vec<(usize, f64)>, Vec<f64>) = self
+            .window(centre)
             .map(|j| {
                 let x = std::f64::consts::PI * (j as f64 - centre) / half;
-                ((j - needed.start) as usize, 0.5 * (1.0 + x.cos()))
+                let (i, w) = ((j - needed.start) as usize, 0.5 * (1.0 + x.cos()));
+                ((i, w * f64::from(reference[i])), w)
             })
-            .collect();
-        let reference_energy: f64 = taps
+            .unzip();
+        let energy: f64 = taps
             .iter()
-            .map(|&(i, w)| w * f64::from(reference[i]).powi(2))
+            .zip(&weights)
+            .map(|(&(i, _), w)| w * f64::from(reference[i]).powi(2))
             .sum();
-        if reference_energy.is_nan() || reference_energy <= 0.0 {
+        (energy > 0.0).then_some(TaperedReference {
+            measure: self,
+            len,
+            taps,
+            weights,
+            energy,
+        })
+    }
+}
+
+/// A reference trace's tapered window ([`ShiftMeasure::against`]), measured against once per
+/// trace.
+pub struct TaperedReference<'a> {
+    measure: &'a ShiftMeasure,
+    /// Samples every trace must hold.
+    len: usize,
+    /// Window samples as offsets into the slices, with taper weight times reference sample.
+    taps: Vec<(usize, f64)>,
+    /// The taper weight of each window sample.
+    weights: Vec<f64>,
+    /// Tapered energy of the reference.
+    energy: f64,
+}
+
+impl TaperedReference<'_> {
+    /// Shift of `trace` against the reference (see [`ShiftMeasure::measure`]).
+    pub fn measure(&self, trace: &[f32]) -> Option<Shift> {
+        if trace.len() != self.len {
             return None;
         }
+        let m = self.measure;
+        let reach = m.lag_reach();
         // Cross products and trace energies at each integer lag; both are interpolated
         // between lags (the cross products are a linear filter of the band-limited trace, the
         // energies a Hann-smoothed square), and their ratio is the correlation.
         let (cross, energy): (Vec<f64>, Vec<f64>) = (-reach..=reach)
             .map(|k| {
-                taps.iter().fold((0.0, 0.0), |(x, e), &(i, w)| {
-                    let s = f64::from(trace[(i as isize + k) as usize]);
-                    (x + w * f64::from(reference[i]) * s, e + w * s * s)
-                })
+                self.taps
+                    .iter()
+                    .zip(&self.weights)
+                    .fold((0.0, 0.0), |(x, e), (&(i, wr), w)| {
+                        let s = f64::from(trace[(i as isize + k) as usize]);
+                        (x + wr * s, e + w * s * s)
+                    })
             })
             .unzip();
         let correlation = |lag: f64| {
             let e = interpolate(&energy, reach, lag);
             if e > 0.0 {
-                interpolate(&cross, reach, lag) / (reference_energy * e).sqrt()
+                interpolate(&cross, reach, lag) / (self.energy * e).sqrt()
             } else {
                 0.0
             }
         };
-        let max_lag = self.max_lag as isize;
+        let max_lag = m.max_lag as isize;
         let best = (-max_lag..=max_lag)
             .max_by(|&a, &b| correlation(a as f64).total_cmp(&correlation(b as f64)))?;
         if correlation(best as f64).is_nan() || correlation(best as f64) <= 0.0 {
             return None;
         }
         let (lag, peak) = fine_peak(correlation, best);
-        let ms = lag * self.dt_ms;
-        (ms.abs() <= self.max_shift_ms).then_some(Shift {
+        let ms = lag * m.dt_ms;
+        (ms.abs() <= m.max_shift_ms).then_some(Shift {
             ms,
             quality: peak.min(1.0),
         })
