@@ -25,7 +25,7 @@ use crate::io::{
 use crate::provenance::Provenance;
 use crate::seismic::sectors::{sector_shifts, Reference};
 use crate::seismic::shift::{Shift, ShiftMeasure};
-use crate::stats::{self, Quantile};
+use crate::stats;
 use crate::surface::horizon::DeclaredUnit;
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -220,7 +220,7 @@ impl SectorTimesJob {
             azimuths: self.azimuths.clone(),
             sectors: self.volumes.clone(),
             bins: geometry.cols * geometry.rows,
-            tally: tally.clone(),
+            tally,
             quality_medians: outputs.quality_medians(),
             shift_medians: outputs.shift_medians(),
             notes,
@@ -429,7 +429,7 @@ fn check_base(top: &TimeHorizon, base: &TimeHorizon) -> Result<()> {
         .map(|(t, b)| b - t)
         .filter(|d| d.is_finite())
         .collect();
-    let median = stats::quantiles(&mut thickness, [0.5], Quantile::Linear).map(|[m]| m);
+    let median = stats::median(&mut thickness);
     match median {
         Some(m) if m > 0.0 => Ok(()),
         Some(m) => Err(FlexureError::input(
@@ -601,11 +601,7 @@ impl Outputs {
         provenance: &Provenance,
         interval: bool,
     ) -> Result<Self> {
-        let names: Vec<String> = job
-            .azimuths
-            .iter()
-            .map(|a| format!("sector_{}", format_number(*a)))
-            .collect();
+        let names: Vec<String> = job.azimuths.iter().map(|a| format!("sector_{a}")).collect();
         let bands = |unit: &'static str| -> Vec<BandSpec> {
             names
                 .iter()
@@ -635,8 +631,8 @@ impl Outputs {
         let mut times = create(TIMES_FILE, &bands("ms"), with(&times_items))?;
         let mut quality = create(QUALITY_FILE, &bands(""), with(&[(QUALITY_ITEM, "yes")]))?;
         for (b, a) in job.azimuths.iter().enumerate() {
-            times.set_band_metadata(b, AZIMUTH_ITEM, &format_number(*a))?;
-            quality.set_band_metadata(b, AZIMUTH_ITEM, &format_number(*a))?;
+            times.set_band_metadata(b, AZIMUTH_ITEM, &a.to_string())?;
+            quality.set_band_metadata(b, AZIMUTH_ITEM, &a.to_string())?;
         }
         let description = if interval {
             "interval_time"
@@ -743,12 +739,12 @@ impl Outputs {
         self.paths.clone()
     }
 
-    fn quality_medians(&mut self) -> Vec<Option<f64>> {
-        medians(&mut self.qualities, |v| v)
+    fn quality_medians(&self) -> Vec<Option<f64>> {
+        medians(&self.qualities, |v| v)
     }
 
-    fn shift_medians(&mut self) -> Vec<Option<f64>> {
-        medians(&mut self.shifts, f64::abs)
+    fn shift_medians(&self) -> Vec<Option<f64>> {
+        medians(&self.shifts, f64::abs)
     }
 
     fn finish(self) -> Result<Vec<StagedFile>> {
@@ -761,27 +757,15 @@ impl Outputs {
 }
 
 /// Median of `f` of each list (None when empty).
-fn medians(lists: &mut [Vec<f32>], f: fn(f64) -> f64) -> Vec<Option<f64>> {
+fn medians(lists: &[Vec<f32>], f: fn(f64) -> f64) -> Vec<Option<f64>> {
     lists
         .iter()
-        .map(|l| {
-            let mut v: Vec<f64> = l.iter().map(|&x| f(f64::from(x))).collect();
-            stats::quantiles(&mut v, [0.5], Quantile::Linear).map(|[m]| m)
-        })
+        .map(|l| stats::median(&mut l.iter().map(|&x| f(f64::from(x))).collect::<Vec<_>>()))
         .collect()
 }
 
-/// A number without trailing zeros (`30`, `22.5`).
-fn format_number(v: f64) -> String {
-    let text = format!("{v:.6}");
-    text.trim_end_matches('0').trim_end_matches('.').to_string()
-}
-
 fn join_numbers(v: &[f64]) -> String {
-    v.iter()
-        .map(|a| format_number(*a))
-        .collect::<Vec<_>>()
-        .join(",")
+    v.iter().map(f64::to_string).collect::<Vec<_>>().join(",")
 }
 
 /// What a sector-times run measured and wrote.
@@ -872,7 +856,7 @@ impl fmt::Display for SectorTimesReport {
             writeln!(
                 f,
                 "  sector {:>7} deg: measured {:>8}, failed {:>6}, median quality {}, median |shift| {} ms",
-                format_number(*a),
+                a,
                 self.tally.per_sector[s].0,
                 self.tally.per_sector[s].1,
                 show(self.quality_medians[s]),
