@@ -678,27 +678,23 @@ impl Outputs {
         for k in 0..cells {
             let (r, c) = (first_row + k / cols, k % cols);
             let at: Vec<&BinShifts> = measured.iter().map(|m| &m[k]).collect();
-            let lists: Vec<&Vec<Option<Shift>>> = match at.as_slice() {
-                _ if at.contains(&&BinShifts::NoTime) => {
+            let lists: Vec<&Vec<Option<Shift>>> = at
+                .iter()
+                .filter_map(|b| match b {
+                    BinShifts::Measured(s) => Some(s),
+                    _ => None,
+                })
+                .collect();
+            if lists.len() < at.len() {
+                if at.contains(&&BinShifts::NoTime) {
                     tally.no_time += 1;
-                    continue;
-                }
-                _ if at.contains(&&BinShifts::NoTrace) => {
+                } else if at.contains(&&BinShifts::NoTrace) {
                     tally.no_trace += 1;
-                    continue;
-                }
-                _ if at.contains(&&BinShifts::OutsideTraces) => {
+                } else {
                     tally.outside_traces += 1;
-                    continue;
                 }
-                _ => at
-                    .iter()
-                    .filter_map(|b| match b {
-                        BinShifts::Measured(s) => Some(s),
-                        _ => None,
-                    })
-                    .collect(),
-            };
+                continue;
+            }
             tally.measured_bins += 1;
             let t: Vec<f64> = levels.iter().map(|l| l.ms[(r, c)]).collect();
             reference[k] = match t.as_slice() {
