@@ -30,7 +30,8 @@ pub use band_rows::RowSource;
 use geotiff::{BandSpec, Layout};
 pub use geotiff::{Compression, GeoTiffWriter, TiffOptions};
 pub use staged::{
-    commit_all, discard_uncommitted, prepare_output_dir, temporary_path, Discarded, StagedFile,
+    commit_all, discard_uncommitted, prepare_output_dir, temporary_path, Discarded, RunTransaction,
+    StagedFile,
 };
 
 use crate::error::{FlexureError, Result};

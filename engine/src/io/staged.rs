@@ -17,6 +17,10 @@
 //! them is left uncommitted: a failed job leaves no new folder behind. [`prepare_output_dir`]
 //! checks early that a folder can be written, and leaves it as it found it.
 //!
+//! A [`RunTransaction`] widens the transaction to every job of a run (`flexure run`): each job
+//! commits as above, but backups and new folders are kept until the run finishes, and a run
+//! that fails anywhere undoes all its jobs' commits.
+//!
 //! Interrupted by a signal the command line handles (Ctrl-C, SIGTERM, SIGHUP), a job leaves no
 //! temporary file: the handler calls [`discard_uncommitted`], which lets a commit under way
 //! finish first, before the process exits. Interrupted hard (power loss, `kill -9`) between
@@ -28,6 +32,7 @@ use crate::error::{FlexureError, Result};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex, Weak};
+use std::thread::ThreadId;
 
 /// A complete output written under a temporary name beside its final path. [`commit`] (or
 /// [`commit_all`] with the job's other outputs) renames it into place; dropped uncommitted (an
@@ -112,6 +117,7 @@ fn commit_with(
     // A signal handler's discard waits for a commit (or its rollback) to finish.
     let _committing = COMMIT.lock().unwrap_or_else(|e| e.into_inner());
     refuse_collisions(&files)?;
+    refuse_earlier_outputs(&files)?;
     // (target, backup) of every existing target moved aside, and the targets renamed in.
     let mut backups: Vec<(PathBuf, PathBuf)> = Vec::new();
     let mut placed: Vec<PathBuf> = Vec::new();
@@ -135,12 +141,26 @@ fn commit_with(
     let outcome = step();
     match outcome {
         Ok(()) => {
-            for (_, backup) in &backups {
-                let _ = std::fs::remove_file(backup);
-            }
-            for f in &files {
-                for folder in &f.folders {
-                    folder.kept.store(true, Ordering::SeqCst);
+            let folders = files.iter().flat_map(|f| f.folders.iter().cloned());
+            let mut runs = RUN.lock().unwrap_or_else(|e| e.into_inner());
+            let this = std::thread::current().id();
+            match runs
+                .iter_mut()
+                .find(|(t, _)| *t == this)
+                .map(|(_, log)| log)
+            {
+                Some(log) => {
+                    log.placed.extend(placed);
+                    log.backups.extend(backups);
+                    log.folders.extend(folders);
+                }
+                None => {
+                    for (_, backup) in &backups {
+                        let _ = std::fs::remove_file(backup);
+                    }
+                    for folder in folders {
+                        folder.kept.store(true, Ordering::SeqCst);
+                    }
                 }
             }
             Ok(())
@@ -216,6 +236,130 @@ fn refuse_collisions(files: &[StagedFile]) -> Result<()> {
         seen.insert((folder, name), k);
     }
     Ok(())
+}
+
+/// Refuses, inside a [`RunTransaction`], a target an earlier job of the same run has written.
+fn refuse_earlier_outputs(files: &[StagedFile]) -> Result<()> {
+    let runs = RUN.lock().unwrap_or_else(|e| e.into_inner());
+    let this = std::thread::current().id();
+    let Some((_, log)) = runs.iter().find(|(t, _)| *t == this) else {
+        return Ok(());
+    };
+    let key = |p: &Path| {
+        let folder = std::fs::canonicalize(parent_of(p)).unwrap_or_else(|_| parent_of(p).into());
+        let name = p.file_name().unwrap_or_default().to_string_lossy();
+        folder.join(name.to_lowercase())
+    };
+    let earlier: std::collections::HashSet<PathBuf> = log.placed.iter().map(|p| key(p)).collect();
+    match files.iter().find(|f| earlier.contains(&key(&f.target))) {
+        Some(f) => Err(FlexureError::write(
+            &f.target,
+            "an earlier step of this run wrote this file; give the steps different output names (nothing of this run was kept)",
+        )),
+        None => Ok(()),
+    }
+}
+
+/// The commits of the jobs of one run, held open until the run ends (see [`RunTransaction`]).
+#[derive(Default)]
+struct RunLog {
+    /// Targets renamed into place, in commit order.
+    placed: Vec<PathBuf>,
+    /// (target, backup) of every previous version moved aside.
+    backups: Vec<(PathBuf, PathBuf)>,
+    /// Folders created for the run's outputs.
+    folders: Vec<Arc<CreatedFolder>>,
+}
+
+/// The open runs, by the thread that opened them (the thread whose job commits belong to it).
+static RUN: Mutex<Vec<(ThreadId, RunLog)>> = Mutex::new(Vec::new());
+
+/// Takes the log of the run `thread` opened, if any, out of [`RUN`].
+fn take_run(thread: ThreadId) -> Option<RunLog> {
+    let mut runs = RUN.lock().unwrap_or_else(|e| e.into_inner());
+    let k = runs.iter().position(|(t, _)| *t == thread)?;
+    Some(runs.swap_remove(k).1)
+}
+
+/// Several jobs run as one transaction (`flexure run`): while it is open, every job commits
+/// its outputs as usual ([`commit_all`]), so later jobs read them where they belong, but the
+/// previous versions of replaced files stay in their hidden backups and new folders stay
+/// provisional. [`RunTransaction::finish`] makes the whole run final; dropping it unfinished
+/// (any error, or Ctrl-C through [`discard_uncommitted`]) removes every output of the run,
+/// restores the previous versions and removes the folders the run created, so the output
+/// folder is as it was before the run. A later job of the run may not replace an earlier
+/// job's output. The run holds the commits made on the thread that began it.
+pub struct RunTransaction {
+    thread: ThreadId,
+    finished: bool,
+}
+
+impl RunTransaction {
+    /// Opens a run for the jobs this thread commits; one run at a time per thread.
+    pub fn begin() -> Result<Self> {
+        let thread = std::thread::current().id();
+        let mut runs = RUN.lock().unwrap_or_else(|e| e.into_inner());
+        if runs.iter().any(|(t, _)| *t == thread) {
+            return Err(FlexureError::Parameter(
+                "a run is already under way on this thread".into(),
+            ));
+        }
+        runs.push((thread, RunLog::default()));
+        Ok(Self {
+            thread,
+            finished: false,
+        })
+    }
+
+    /// The outputs committed so far by the run's jobs, in commit order.
+    pub fn outputs(&self) -> Vec<PathBuf> {
+        let runs = RUN.lock().unwrap_or_else(|e| e.into_inner());
+        runs.iter()
+            .find(|(t, _)| *t == self.thread)
+            .map(|(_, log)| log.placed.clone())
+            .unwrap_or_default()
+    }
+
+    /// Makes the run final: removes the backups of replaced files and keeps its folders.
+    pub fn finish(mut self) {
+        let _committing = COMMIT.lock().unwrap_or_else(|e| e.into_inner());
+        if let Some(log) = take_run(self.thread) {
+            for (_, backup) in &log.backups {
+                let _ = std::fs::remove_file(backup);
+            }
+            for folder in &log.folders {
+                folder.kept.store(true, Ordering::SeqCst);
+            }
+        }
+        self.finished = true;
+    }
+}
+
+impl Drop for RunTransaction {
+    fn drop(&mut self) {
+        if !self.finished {
+            let _committing = COMMIT.lock().unwrap_or_else(|e| e.into_inner());
+            if let Some(log) = take_run(self.thread) {
+                roll_back(log);
+            }
+        }
+    }
+}
+
+/// Undoes a run: its outputs go, previous versions come back, and the folders it created are
+/// removed (deepest first, when empty). The caller holds `COMMIT`.
+fn roll_back(mut log: RunLog) {
+    for target in log.placed.iter().rev() {
+        let _ = std::fs::remove_file(target);
+    }
+    for (target, backup) in log.backups.iter().rev() {
+        let _ = std::fs::rename(backup, target);
+    }
+    log.folders
+        .sort_by_key(|f| std::cmp::Reverse(f.path.components().count()));
+    for folder in log.folders {
+        drop(folder);
+    }
 }
 
 /// `DIR/.NAME.partial-PID.EXT`: a hidden sibling of the final path with the same extension
@@ -334,6 +478,8 @@ pub fn discard_uncommitted() -> Discarded {
     remove_all();
     std::thread::sleep(std::time::Duration::from_millis(100));
     remove_all();
+    let runs = std::mem::take(&mut *RUN.lock().unwrap_or_else(|e| e.into_inner()));
+    runs.into_iter().for_each(|(_, log)| roll_back(log));
     let registry = CREATED_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
     let mut folders: Vec<PathBuf> = registry
         .iter()
@@ -620,5 +766,57 @@ mod tests {
             .to_string();
         assert!(err.contains("choose a writable output folder"), "{err}");
         assert_eq!(snapshot(dir.path()).len(), 1);
+    }
+
+    #[test]
+    fn a_failed_run_undoes_every_earlier_commit_and_a_finished_run_keeps_them() {
+        // Common practice (all-or-nothing runs: earlier steps' commits are rolled back when a
+        // later step fails): after the drop, the folder is byte-identical to before the run.
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::write(dir.path().join("a.txt"), b"old a").unwrap();
+        let before = snapshot(dir.path());
+        {
+            let run = RunTransaction::begin().unwrap();
+            commit_all(vec![
+                staged(&dir.path().join("a.txt"), b"new a"),
+                staged(&dir.path().join("step1").join("b.txt"), b"new b"),
+            ])
+            .unwrap();
+            staged(&dir.path().join("step2").join("c.txt"), b"new c")
+                .commit()
+                .unwrap();
+            assert_eq!(run.outputs().len(), 3);
+            assert_eq!(std::fs::read(dir.path().join("a.txt")).unwrap(), b"new a");
+            // The run fails here: `run` drops unfinished.
+        }
+        assert_eq!(snapshot(dir.path()), before);
+
+        let run = RunTransaction::begin().unwrap();
+        commit_all(rerun(dir.path())).unwrap();
+        run.finish();
+        let after = snapshot(dir.path());
+        assert_eq!(
+            after.len(),
+            5,
+            "a, b, new/, new/c, d and no backup: {after:?}"
+        );
+        assert_eq!(after[Path::new("a.txt")], Some(b"new a".to_vec()));
+    }
+
+    #[test]
+    fn a_run_refuses_a_later_step_writing_an_earlier_steps_file() {
+        // Two steps of one run with the same output name would silently replace the first.
+        let dir = tempfile::tempdir().unwrap();
+        let run = RunTransaction::begin().unwrap();
+        staged(&dir.path().join("map.png"), b"first")
+            .commit()
+            .unwrap();
+        let err = staged(&dir.path().join("MAP.png"), b"second")
+            .commit()
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("an earlier step of this run"), "{err}");
+        drop(run);
+        assert!(snapshot(dir.path()).is_empty());
     }
 }
