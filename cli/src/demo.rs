@@ -44,6 +44,9 @@ use std::path::{Path, PathBuf};
 /// EPSG code of the demo CRS (WGS 84 / UTM zone 25N).
 pub const DEMO_EPSG: u32 = 32625;
 
+/// The demo's job file in the demo folder (run by `flexure demo`).
+pub const DEMO_JOB_FILE: &str = "tessary_demo.toml";
+
 /// Windows the demo runs.
 pub const DEMO_WINDOWS: [usize; 4] = [3, 5, 9, 17];
 

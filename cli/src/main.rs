@@ -1,8 +1,11 @@
 //! `flexure`: the command line of the flexure engine. Parses arguments, fills the engine's job
 //! options, runs the job and prints its report; errors are one line on stderr with exit code 1.
 
+mod job_file;
+mod run;
+
 use clap::{Parser, Subcommand, ValueEnum};
-use flexure_cli::demo::{run_demo, write_demo_data};
+use flexure_cli::demo::{write_demo_data, DEMO_JOB_FILE};
 use flexure_engine::draw::colour::Clip;
 use flexure_engine::error::FlexureError;
 use flexure_engine::io::points::ColumnRole;
@@ -16,7 +19,7 @@ use flexure_engine::jobs::{
 use flexure_engine::jobs::{
     SectorTimesJob, TimeUnit, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS, DEFAULT_TRACE_TOLERANCE,
 };
-use flexure_engine::surface::curvature::{attribute_by_id, ATTRIBUTES};
+use flexure_engine::surface::curvature::attribute_by_id;
 use flexure_engine::surface::horizon::{
     DeclaredUnit, Domain, HorizonSource, VelocitySource, VelocityUnit, ZUnit,
 };
@@ -68,16 +71,21 @@ enum Command {
     /// for `flexure anisotropy`.
     #[command(after_help = CAUTION)]
     SectorTimes(SectorTimesArgs),
-    /// Run the curvature, anisotropy, render, stages and plan jobs on the shipped demo data.
+    /// Run a job file: every step of a project (curvature, window study, sector times,
+    /// anisotropy, stages, plan, maps) as one all-or-nothing run, with manifest.json and
+    /// report.html beside the outputs.
+    #[command(after_help = RUN_HELP)]
+    Run(RunArgs),
+    /// Run the shipped demo job (demo_horizons/tessary_demo.toml) through `flexure run`.
     Demo {
         /// Folder for the results.
-        #[arg(long, default_value = "demo_output")]
+        #[arg(short = 'o', long, default_value = "demo_output")]
         out: PathBuf,
-        /// Folder holding the demo horizons.
+        /// Folder holding the demo horizons and the demo job file.
         #[arg(long, default_value = "demo_horizons")]
         data: PathBuf,
         /// Print nothing but errors.
-        #[arg(long)]
+        #[arg(short, long)]
         quiet: bool,
     },
     /// Regenerate the demo horizons from their analytic definition (deterministic).
@@ -86,6 +94,33 @@ enum Command {
         #[arg(long, default_value = "demo_horizons")]
         out: PathBuf,
     },
+}
+
+const RUN_HELP: &str = "A job file is TOML: `output = \"FOLDER\"`, an optional `title`, and one \
+table per step, named after its command ([[curvature]], [[window_study]], [[sector_times]], \
+[[anisotropy]], [[stages]], [[plan]], [[render]], [[grid]]), whose keys are the command's \
+options with _ for - (min_snr = 3.0), positional inputs by name (input, sectors, volumes), lists \
+as arrays and switches as true/false. Inputs are relative to the job file's folder; out and png \
+to the output folder; {output}/PATH names an earlier step's output. Steps run in the order \
+above. Outputs appear together when every step succeeded, with manifest.json (inputs and \
+outputs with SHA-256, options as resolved, notes, timings) and report.html; a failed run \
+leaves the output folder as it was.";
+
+/// Options of `flexure run`.
+#[derive(clap::Args)]
+struct RunArgs {
+    /// The job file (TOML).
+    job: PathBuf,
+    /// Output folder, instead of the job file's `output`.
+    #[arg(short = 'o', long)]
+    out: Option<PathBuf>,
+    /// Check the job file (keys, values, inputs) and print each step's command line, without
+    /// computing anything.
+    #[arg(long)]
+    check: bool,
+    /// Print nothing but errors.
+    #[arg(short, long)]
+    quiet: bool,
 }
 
 #[derive(Clone, Copy, ValueEnum)]
@@ -939,102 +974,123 @@ fn say(text: &str) {
     let _ = writeln!(std::io::stdout().lock(), "{text}");
 }
 
-fn run(cli: Cli) -> Result<(), FlexureError> {
-    match cli.command {
+/// What a command produced: its summary as printed, the notes of its readers, and whether the
+/// general caution belongs after it.
+struct Outcome {
+    text: String,
+    notes: Vec<String>,
+    caution: bool,
+}
+
+impl Outcome {
+    fn new(report: impl std::fmt::Display, notes: &[String], caution: bool) -> Self {
+        Self {
+            text: report.to_string(),
+            notes: notes.to_vec(),
+            caution,
+        }
+    }
+}
+
+/// Whether the command was asked to print nothing but errors.
+fn is_quiet(command: &Command) -> bool {
+    match command {
+        Command::Curvature(a) => a.horizon.quiet,
+        Command::WindowStudy(a) => a.horizon.quiet,
+        Command::Grid(a) => a.quiet,
+        Command::SectorTimes(a) => a.quiet,
+        Command::Anisotropy(a) => a.quiet,
+        Command::Render(a) => a.quiet,
+        Command::Stages(a) => a.quiet,
+        Command::Plan(a) => a.quiet,
+        Command::Run(a) => a.quiet,
+        Command::Demo { quiet, .. } => *quiet,
+        Command::DemoData { .. } => false,
+    }
+}
+
+/// Runs one command and returns what it produced (nothing printed).
+fn execute(command: Command, progress: &dyn Progress) -> Result<Outcome, FlexureError> {
+    Ok(match command {
         Command::Curvature(args) => {
-            let report = args.job()?.run(&Bar::new(args.horizon.quiet))?;
-            if !args.horizon.quiet {
-                say(&format!("{report}{CAUTION}"));
-            }
+            let r = args.job()?.run(progress)?;
+            Outcome::new(&r, &r.notes, true)
         }
         Command::Grid(args) => {
             let mut job = GridJob::new(&args.input, &args.out);
             job.read = args.read.options();
             job.tiff = args.tiff.options();
-            let report = job.run()?;
-            if !args.quiet {
-                say(&report.to_string());
-            }
+            let r = job.run()?;
+            Outcome::new(&r, &r.notes, false)
         }
         Command::SectorTimes(args) => {
-            let report = args.job().run(&Bar::new(args.quiet))?;
-            if !args.quiet {
-                say(&format!("{report}{CAUTION}"));
-            }
+            let r = args.job().run(progress)?;
+            Outcome::new(&r, &r.notes, true)
         }
         Command::Anisotropy(args) => {
-            let report = args.job()?.run()?;
-            if !args.quiet {
-                say(&format!("{report}{CAUTION}"));
-            }
+            let r = args.job()?.run()?;
+            Outcome::new(&r, &r.notes, true)
         }
         Command::Render(args) => {
-            let report = args.job()?.run()?;
-            if !args.quiet {
-                say(&format!("{report}{CAUTION}"));
-            }
+            let r = args.job()?.run()?;
+            Outcome::new(&r, &r.notes, true)
         }
-        Command::WindowStudy(args) => {
-            let report = args.job()?.run()?;
-            if !args.horizon.quiet {
-                say(&format!("{report}{CAUTION}"));
-            }
-        }
+        Command::WindowStudy(args) => Outcome::new(args.job()?.run()?, &[], true),
         Command::Stages(args) => {
-            let report = args.job()?.run()?;
-            if !args.quiet {
-                say(&report.to_string());
-            }
+            let r = args.job()?.run()?;
+            Outcome::new(&r, &r.notes, false)
         }
-        Command::Plan(args) => {
-            let report = args.job().run()?;
-            if !args.quiet {
-                say(&report.to_string());
-            }
-        }
+        Command::Plan(args) => Outcome::new(args.job().run()?, &[], false),
+        Command::Run(args) => run::run_job(&args, progress)?,
         Command::Demo { out, data, quiet } => {
-            let progress: Box<dyn Progress> = if quiet {
-                Box::new(Silent)
-            } else {
-                Box::new(Bar::new(false))
+            let args = RunArgs {
+                job: data.join(DEMO_JOB_FILE),
+                out: Some(out),
+                check: false,
+                quiet,
             };
-            let report = run_demo(&data, &out, progress.as_ref())?;
-            if !quiet {
-                let mut text: String = report.curvature.iter().map(|r| r.to_string()).collect();
-                text += &format!(
-                    "Curvature results are in {}; bands of each file: {}\n",
-                    out.join("curvature").display(),
-                    ATTRIBUTES
-                        .iter()
-                        .map(|a| a.id)
-                        .collect::<Vec<_>>()
-                        .join(", ")
-                );
-                text += &report.anisotropy.to_string();
-                text += &report.sector_times.to_string();
-                text += &report.seismic_anisotropy.to_string();
-                text += &format!("Maps in {}:\n", out.join("maps").display());
-                text += &report
-                    .maps
-                    .iter()
-                    .map(|m| m.to_string())
-                    .collect::<String>();
-                text += &report.stages.to_string();
-                text += &report.plan.to_string();
-                text += &report.window_study.to_string();
-                say(&(text + CAUTION));
-            }
+            run::run_job(&args, progress)?
         }
         Command::DemoData { out } => {
             let written: Vec<String> = write_demo_data(&out)?
                 .iter()
                 .map(|p| format!("wrote {}", p.display()))
                 .collect();
-            say(&written.join("\n"));
+            Outcome::new(written.join("\n") + "\n", &[], false)
         }
+    })
+}
+
+/// Runs the command line's command and prints its summary (and the caution once).
+fn run(cli: Cli) -> Result<(), FlexureError> {
+    let quiet = is_quiet(&cli.command);
+    let progress: Box<dyn Progress> = if quiet {
+        Box::new(Silent)
+    } else {
+        Box::new(Bar::new(false))
+    };
+    let outcome = execute(cli.command, progress.as_ref())?;
+    if !quiet {
+        let caution = if outcome.caution { CAUTION } else { "" };
+        say(&format!("{}{caution}", outcome.text).trim_end_matches('\n'));
     }
     Ok(())
 }
+
+/// The one-line message of a command-line usage error: clap's first line without its
+/// `error: ` prefix, and where to look for help.
+fn usage_message(e: &clap::Error) -> String {
+    let text = e.to_string();
+    let first = text
+        .lines()
+        .find(|l| !l.trim().is_empty())
+        .unwrap_or("invalid command line");
+    let first = first.trim().trim_start_matches("error: ");
+    format!("{first} (see flexure --help)")
+}
+
+/// Exit code of a command-line usage error (as clap and most Unix tools use).
+const USAGE_ERROR: u8 = 2;
 
 /// Exit code of a run ended by Ctrl-C, SIGTERM or SIGHUP (128 + SIGINT, the shell's usage).
 const INTERRUPTED: i32 = 130;
@@ -1052,7 +1108,19 @@ fn main() -> ExitCode {
     if let Err(e) = handler {
         eprintln!("flexure: warning: cannot catch Ctrl-C ({e}); an interrupted run may leave hidden .partial files");
     }
-    match run(Cli::parse()) {
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) if !e.use_stderr() => {
+            // --help and --version: printed as clap formats them, exit 0.
+            let _ = e.print();
+            return ExitCode::SUCCESS;
+        }
+        Err(e) => {
+            eprintln!("flexure: error: {}", usage_message(&e));
+            return ExitCode::from(USAGE_ERROR);
+        }
+    };
+    match run(cli) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("flexure: error: {e}");

@@ -6,6 +6,8 @@ mod curvature;
 mod grid;
 mod plan;
 mod render;
+mod run_record;
+mod run_report;
 mod sector_inputs;
 mod sector_times;
 mod stages;
@@ -21,6 +23,10 @@ pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
 pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
+pub use run_record::{
+    file_kind, write_run_files, FileRecord, RunRecord, StepRecord, MANIFEST_FILE,
+};
+pub use run_report::{report_html, REPORT_FILE};
 pub use sector_times::{
     SectorTimesJob, SectorTimesReport, TimeUnit, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
     DEFAULT_TRACE_TOLERANCE,
