@@ -26,6 +26,7 @@ lint: deps
 
 ## The whole test suite: formatting, lints, unit and integration tests, benches compile.
 test: lint
+	bash scripts/install-system-deps.sh --test
 	$(CARGO) test --workspace
 	$(CARGO) bench --workspace --no-run
 

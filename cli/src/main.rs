@@ -168,10 +168,10 @@ struct AnisotropyArgs {
     base: Option<PathBuf>,
     /// Sector-centre azimuths in degrees clockwise from north, one per sector, in order;
     /// default: the azimuths the bands declare (AZIMUTH_DEG metadata, from grid north).
-    #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
+    #[arg(long, value_delimiter = ',', allow_negative_numbers = true, value_parser = trimmed::<f64>)]
     azimuths: Vec<f64>,
     /// Output folder.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// Sector weights (e.g. fold): one number per sector, one weight grid per sector (or one
     /// raster with a band per sector), or `quality`: the correlation quality in
@@ -213,7 +213,7 @@ struct AnisotropyArgs {
     #[command(flatten)]
     tiff: TiffArgs,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -323,6 +323,16 @@ fn weight_source(items: &[String]) -> WeightSource {
     }
 }
 
+/// Parses one item of a comma-separated list, spaces around it allowed ("3, 5, 9").
+fn trimmed<T: std::str::FromStr>(item: &str) -> Result<T, String>
+where
+    T::Err: std::fmt::Display,
+{
+    item.trim()
+        .parse()
+        .map_err(|e| format!("`{}`: {e}", item.trim()))
+}
+
 /// Parses "X,Y".
 fn point(s: &str) -> Result<(f64, f64), String> {
     parse_numbers(s, 2).map(|p| (p[0], p[1]))
@@ -395,10 +405,10 @@ struct StagesArgs {
     #[command(flatten)]
     read: ReadArgs,
     /// Output folder.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -467,10 +477,10 @@ struct PlanArgs {
     #[command(flatten)]
     corridor: CorridorArgs,
     /// Output folder.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -518,7 +528,7 @@ struct RenderArgs {
     #[command(flatten)]
     tiff: TiffArgs,
     /// Colour limits LO,HI in the band's unit; default robust percentiles (2nd/98th).
-    #[arg(long, value_delimiter = ',', allow_negative_numbers = true)]
+    #[arg(long, value_delimiter = ',', allow_negative_numbers = true, value_parser = trimmed::<f64>)]
     clip: Option<Vec<f64>>,
     /// Draw a vector on every N-th anisotropy bin; default about 45 across the map.
     #[arg(long)]
@@ -533,13 +543,13 @@ struct RenderArgs {
     #[arg(long)]
     vector_scale: Option<f64>,
     /// RGBA GeoTIFF to write, on the attribute's grid.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// PNG quicklook with colour bar, vector scale, north arrow and extent.
     #[arg(long)]
     png: Option<PathBuf>,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -659,10 +669,10 @@ struct HorizonArgs {
     /// inline xline x y z, ...; see --columns), read onto its exact lattice.
     input: PathBuf,
     /// Output folder.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// Window edge lengths in cells, odd, 3 to 101.
-    #[arg(long, value_delimiter = ',', default_value = "3,5,9,17")]
+    #[arg(short, long, value_delimiter = ',', default_value = "3,5,9,17", value_parser = trimmed::<usize>)]
     windows: Vec<usize>,
     #[command(flatten)]
     domain: DomainArgs,
@@ -678,7 +688,7 @@ struct HorizonArgs {
     #[arg(long, value_parser = parse_memory)]
     memory: Option<u64>,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -753,14 +763,14 @@ struct GridArgs {
     /// Point list (x y z, inline xline x y z, sector columns, ...) or raster.
     input: PathBuf,
     /// GeoTIFF to write.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     #[command(flatten)]
     read: ReadArgs,
     #[command(flatten)]
     tiff: TiffArgs,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 
@@ -870,7 +880,8 @@ struct SectorTimesArgs {
         long,
         value_delimiter = ',',
         required = true,
-        allow_negative_numbers = true
+        allow_negative_numbers = true,
+        value_parser = trimmed::<f64>
     )]
     azimuths: Vec<f64>,
     /// Guide horizon in two-way time (ms, or a file declaring s), picked on the full-azimuth
@@ -914,7 +925,7 @@ struct SectorTimesArgs {
     #[arg(long, default_value_t = DEFAULT_TRACE_TOLERANCE)]
     trace_tolerance: f64,
     /// Output folder.
-    #[arg(long)]
+    #[arg(short = 'o', long)]
     out: PathBuf,
     /// Working memory for the trace windows of a batch of rows, e.g. 512M or 2G; default a
     /// quarter of the machine's memory, at most 1G.
@@ -925,7 +936,7 @@ struct SectorTimesArgs {
     #[command(flatten)]
     tiff: TiffArgs,
     /// Print nothing but errors.
-    #[arg(long)]
+    #[arg(short, long)]
     quiet: bool,
 }
 

@@ -113,12 +113,16 @@ pub fn fails_leaving_unchanged(args: &[&str], out: &Path) -> String {
     stderr
 }
 
-/// Runs a command that must fail cleanly (exit 1, one line starting `flexure: error: `, no
-/// panic) and returns its message.
+/// Runs a command that must fail cleanly (exit 1 for a run error, 2 for a usage error, one
+/// line starting `flexure: error: `, no panic) and returns its message.
 fn refusal(args: &[&str]) -> String {
     let o = flexure(args);
     let stderr = String::from_utf8_lossy(&o.stderr).to_string();
-    assert_eq!(o.status.code(), Some(1), "args {args:?}: stderr {stderr}");
+    assert!(
+        matches!(o.status.code(), Some(1 | 2)),
+        "args {args:?}: exit {:?}, stderr {stderr}",
+        o.status.code()
+    );
     assert!(!stderr.contains("panicked"), "{stderr}");
     assert_eq!(
         stderr.trim_end().lines().count(),

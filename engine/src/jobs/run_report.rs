@@ -130,7 +130,7 @@ fn step_section(page: &mut String, step: &StepRecord, output: &Path) {
         if lower.ends_with(".png") && !lower.contains("/roses/") {
             let _ = writeln!(
                 page,
-                "<figure><img src=\"{}\" alt=\"{}\" loading=\"lazy\"><figcaption>{}</figcaption></figure>",
+                "<figure><img src=\"{}\" alt=\"{}\"><figcaption>{}</figcaption></figure>",
                 escape(&url_path(file)),
                 escape(file),
                 escape(file)
