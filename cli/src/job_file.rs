@@ -39,7 +39,8 @@ pub const OUTPUT_PREFIX: &str = "{output}";
 
 /// Options that take a path or a keyword (a number, `quality`, `mean`): resolved as paths only
 /// when they look like one.
-const PATH_OR_KEYWORD: [(&str, &str); 2] = [("anisotropy", "weights"), ("sector_times", "reference")];
+const PATH_OR_KEYWORD: [(&str, &str); 2] =
+    [("anisotropy", "weights"), ("sector_times", "reference")];
 
 /// Options naming outputs, relative to the run's output folder.
 const OUTPUT_KEYS: [&str; 2] = ["out", "png"];
@@ -244,7 +245,8 @@ fn step(
                     format!("unknown key `{id}`; keys are {}", keys.join(", ")),
                 )
             })?;
-        let values = scalars(value).map_err(|what| (Some(value.span()), format!("`{id}`: {what}")))?;
+        let values =
+            scalars(value).map_err(|what| (Some(value.span()), format!("`{id}`: {what}")))?;
         let switch = matches!(arg.get_action(), ArgAction::SetTrue);
         if switch {
             match value.get_ref() {

@@ -1083,7 +1083,7 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
     let outcome = execute(cli.command, progress.as_ref())?;
     if !quiet {
         let caution = if outcome.caution { CAUTION } else { "" };
-        say(&format!("{}{caution}", outcome.text).trim_end_matches('\n'));
+        say(format!("{}{caution}", outcome.text).trim_end_matches('\n'));
     }
     Ok(())
 }

@@ -22,7 +22,9 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
     let parsed = job
         .steps
         .iter()
-        .map(|step| parse(step).and_then(|(cli, m)| check_step(step, &cli, &job).map(|()| (cli, m))))
+        .map(|step| {
+            parse(step).and_then(|(cli, m)| check_step(step, &cli, &job).map(|()| (cli, m)))
+        })
         .collect::<Result<Vec<_>, _>>()?;
     if args.check {
         return Ok(check_summary(&job));
@@ -38,7 +40,9 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
         let mut summary = outcome.text;
         for caution in [HTI_CAUTION, WELL_CAUTION] {
             if summary.contains(caution) {
-                summary = summary.replace(&format!("{caution}\n"), "").replace(caution, "");
+                summary = summary
+                    .replace(&format!("{caution}\n"), "")
+                    .replace(caution, "");
                 if !cautions.contains(&caution) {
                     cautions.push(caution);
                 }
@@ -259,7 +263,9 @@ fn run_summary(record: &RunRecord, job: &JobFile) -> String {
         text,
         "Report: {}; manifest: {}",
         job.output.join(REPORT_FILE).display(),
-        job.output.join(flexure_engine::jobs::MANIFEST_FILE).display()
+        job.output
+            .join(flexure_engine::jobs::MANIFEST_FILE)
+            .display()
     );
     text
 }

@@ -72,7 +72,10 @@ fn vector_content(path: &Path) -> Vec<String> {
                 .fields()
                 .map(|(n, v)| format!("{n}={v:?}"))
                 .collect();
-            let wkt = feature.geometry().map(|g| g.wkt().unwrap()).unwrap_or_default();
+            let wkt = feature
+                .geometry()
+                .map(|g| g.wkt().unwrap())
+                .unwrap_or_default();
             out.push(format!("{name}: {} {wkt}", fields.join(" ")));
         }
     }
@@ -113,12 +116,19 @@ fn the_demo_job_file_reproduces_the_library_demo_bit_for_bit() {
     assert_eq!(from_job, files_under(&library));
     for rel in &from_job {
         let (a, b) = (job.join(rel), library.join(rel));
-        let ext = rel.extension().unwrap_or_default().to_string_lossy().to_string();
+        let ext = rel
+            .extension()
+            .unwrap_or_default()
+            .to_string_lossy()
+            .to_string();
         match ext.as_str() {
             "tif" => assert!(raster_content(&a) == raster_content(&b), "{rel:?}"),
             "gpkg" | "geojson" => assert_eq!(vector_content(&a), vector_content(&b), "{rel:?}"),
             "json" => assert_eq!(json_without_provenance(&a), json_without_provenance(&b)),
-            _ => assert!(std::fs::read(&a).unwrap() == std::fs::read(&b).unwrap(), "{rel:?}"),
+            _ => assert!(
+                std::fs::read(&a).unwrap() == std::fs::read(&b).unwrap(),
+                "{rel:?}"
+            ),
         }
     }
 }
@@ -129,8 +139,7 @@ fn the_manifest_lists_every_output_with_the_checksum_sha256sum_computes() {
     // manifest lists exactly the files in the output folder (itself excepted).
     let out = demo_run().join("out");
     let manifest: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("manifest.json")).unwrap())
-            .unwrap();
+        serde_json::from_str(&std::fs::read_to_string(out.join("manifest.json")).unwrap()).unwrap();
     let listed: BTreeMap<String, String> = manifest["outputs"]
         .as_array()
         .unwrap()
@@ -163,9 +172,16 @@ fn the_manifest_lists_every_output_with_the_checksum_sha256sum_computes() {
     assert!(inputs.len() >= 16, "the demo's horizons, volumes and wells");
     for input in inputs {
         let path = input["path"].as_str().unwrap();
-        let o = std::process::Command::new("sha256sum").arg(path).output().unwrap();
+        let o = std::process::Command::new("sha256sum")
+            .arg(path)
+            .output()
+            .unwrap();
         let sum = String::from_utf8_lossy(&o.stdout);
-        assert_eq!(sum.split_whitespace().next(), input["sha256"].as_str(), "{path}");
+        assert_eq!(
+            sum.split_whitespace().next(),
+            input["sha256"].as_str(),
+            "{path}"
+        );
     }
     // The job as resolved: defaults filled (the anisotropy's default least sectors is 4).
     let steps = manifest["steps"].as_array().unwrap();
@@ -184,7 +200,10 @@ fn the_report_loads_in_a_real_browser_with_every_image() {
     let report = out.join("report.html");
     let check_dir = tempfile::tempdir().unwrap();
     let check = check_dir.path().join("check.html");
-    let url = format!("file://{}", std::fs::canonicalize(&report).unwrap().display());
+    let url = format!(
+        "file://{}",
+        std::fs::canonicalize(&report).unwrap().display()
+    );
     std::fs::write(
         &check,
         format!(
@@ -240,7 +259,12 @@ document.getElementById('r').addEventListener('load', function () {{
 /// Runs headless Chromium with `args`; fails the test with the set-up hint when it is missing.
 fn chromium(args: &[&str]) -> std::process::Output {
     let o = std::process::Command::new("chromium")
-        .args(["--headless", "--no-sandbox", "--disable-gpu", "--no-first-run"])
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--no-first-run",
+        ])
         .args(args)
         .output()
         .unwrap_or_else(|e| {
@@ -265,8 +289,9 @@ fn job_beside_demo_data(dir: &Path, text: &str) -> PathBuf {
 fn every_job_example_in_the_readme_passes_the_check() {
     // Reference: the README itself; each ```toml block starting `# flexure job` is a complete
     // job over the demo data.
-    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("../README.md"))
-        .unwrap();
+    let readme =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("../README.md"))
+            .unwrap();
     let blocks: Vec<&str> = readme
         .split("```toml\n")
         .skip(1)
@@ -293,7 +318,10 @@ fn run_text(dir: &Path, text: &str, extra: &[&str]) -> (Option<i32>, String) {
     let mut args = vec!["run", s(&job)];
     args.extend(extra);
     let o = flexure(&args);
-    (o.status.code(), String::from_utf8_lossy(&o.stderr).to_string())
+    (
+        o.status.code(),
+        String::from_utf8_lossy(&o.stderr).to_string(),
+    )
 }
 
 #[test]
@@ -356,7 +384,10 @@ fn usage_errors_exit_2_and_run_errors_exit_1_on_one_line() {
         (vec!["curvature"], 2),
         (vec!["curvature", "x.tif", "-o", "o", "--windows", "3,x"], 2),
         (vec!["no-such-command"], 2),
-        (vec!["curvature", "/no/such/file.tif", "-o", "/tmp/flexure-none"], 1),
+        (
+            vec!["curvature", "/no/such/file.tif", "-o", "/tmp/flexure-none"],
+            1,
+        ),
     ] {
         let o = flexure(&args);
         let stderr = String::from_utf8_lossy(&o.stderr);
@@ -375,6 +406,8 @@ fn lists_accept_spaces_after_commas_and_short_flags() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(o.stdout.is_empty());
     for w in ["03", "05"] {
-        assert!(out.join(format!("orrimund_shale_top_depth_w{w}.tif")).is_file());
+        assert!(out
+            .join(format!("orrimund_shale_top_depth_w{w}.tif"))
+            .is_file());
     }
 }

@@ -131,8 +131,11 @@ impl RunRecord {
 /// provisional with the rest of the run.
 pub fn write_run_files(record: &mut RunRecord, output: &Path) -> Result<()> {
     let report = output.join(super::run_report::REPORT_FILE);
-    super::stage_bytes(&report, super::run_report::report_html(record, output).as_bytes())?
-        .commit()?;
+    super::stage_bytes(
+        &report,
+        super::run_report::report_html(record, output).as_bytes(),
+    )?
+    .commit()?;
     record.outputs.push(FileRecord::of(
         &report,
         super::run_report::REPORT_FILE.to_string(),

@@ -192,7 +192,11 @@ fn table(page: &mut String, header: &[String], rows: &[&Vec<String>], columns: &
         page.push_str("<tr>");
         for (k, _) in &shown {
             let cell = row.get(*k).map(String::as_str).unwrap_or("");
-            let class = if cell.parse::<f64>().is_ok() { "" } else { " class=\"t\"" };
+            let class = if cell.parse::<f64>().is_ok() {
+                ""
+            } else {
+                " class=\"t\""
+            };
             let _ = write!(page, "<td{class}>{}</td>", escape(&rounded(cell)));
         }
         page.push_str("</tr>\n");
