@@ -2,12 +2,13 @@
 # Installs the Debian/Ubuntu packages flexure builds and tests against, when missing.
 # Needed: libgdal-dev (GDAL C library and headers), gdal-bin (gdalinfo, ogrinfo and gdal2xyz.py used by tests),
 # libopenblas-dev (LAPACK for the least-squares reference), pkg-config.
-# With --test also chromium (the browser test loads report.html headless).
+# With --test also chromium (the browser test loads report.html headless) and python3-numpy,
+# python3-scipy (reference statistics computed by scipy in the tests).
 # With --bench also python3-numpy and python3-scipy, for the numpy/scipy peer of the benchmarks.
 set -euo pipefail
 packages=(libgdal-dev gdal-bin libopenblas-dev pkg-config)
 if [ "${1:-}" = "--test" ]; then
-  packages+=(chromium)
+  packages+=(chromium python3-numpy python3-scipy)
 fi
 if [ "${1:-}" = "--bench" ]; then
   packages+=(python3-numpy python3-scipy python3-gdal)

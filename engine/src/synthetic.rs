@@ -237,6 +237,29 @@ impl Surface {
     }
 }
 
+/// A von Mises deviate with mean direction `mu` and concentration `kappa` (radians), by the
+/// rejection algorithm of Best & Fisher (1979), *Applied Statistics* 28(2), 152-157;
+/// uniform on the circle when `kappa` is below 1e-6.
+pub fn von_mises(rng: &mut crate::stats::SeededNoise, mu: f64, kappa: f64) -> f64 {
+    use std::f64::consts::PI;
+    if kappa < 1e-6 {
+        return mu + PI * (2.0 * rng.uniform() - 1.0);
+    }
+    let tau = 1.0 + (1.0 + 4.0 * kappa * kappa).sqrt();
+    let rho = (tau - (2.0 * tau).sqrt()) / (2.0 * kappa);
+    let r = (1.0 + rho * rho) / (2.0 * rho);
+    loop {
+        let (u1, u2, u3) = (rng.uniform(), rng.uniform(), rng.uniform());
+        let z = (PI * u1).cos();
+        let f = (1.0 + r * z) / (r + z);
+        let c = kappa * (r - f);
+        if c * (2.0 - c) - u2 > 0.0 || (c / u2).ln() + 1.0 - c >= 0.0 {
+            let theta = f.clamp(-1.0, 1.0).acos();
+            return if u3 > 0.5 { mu + theta } else { mu - theta };
+        }
+    }
+}
+
 /// Ricker wavelet (Ricker 1953; REFERENCES.md section 8) of peak frequency `peak_hz` at `t_ms`
 /// milliseconds from its centre: `(1 - 2 pi^2 f^2 t^2) exp(-pi^2 f^2 t^2)`, 1 at the centre.
 pub fn ricker(peak_hz: f64, t_ms: f64) -> f64 {

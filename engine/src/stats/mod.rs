@@ -14,6 +14,8 @@
 //! many to hold (the window study's maps) in [`sketch`].
 
 pub mod circular;
+pub mod mixture;
+pub mod rank;
 pub mod sketch;
 
 /// How a quantile is read at the Hyndman & Fan type-7 position `h = (n - 1) q` of the
