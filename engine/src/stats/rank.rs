@@ -99,16 +99,8 @@ pub fn rank_test(
     permutations: usize,
     seed: u64,
 ) -> Option<RankTest> {
-    let pooled = |pick: &dyn Fn(usize, &[f64], &[f64]) -> (Vec<f64>, Vec<f64>)| {
-        let (mut x, mut y) = (Vec::new(), Vec::new());
-        for (g, (gx, gy)) in groups.iter().enumerate() {
-            let (a, b) = pick(g, gx, gy);
-            x.extend(a);
-            y.extend(b);
-        }
-        (x, y)
-    };
-    let (x, y) = pooled(&|_, a, b| (a.to_vec(), b.to_vec()));
+    let x: Vec<f64> = groups.iter().flat_map(|(a, _)| a.iter().copied()).collect();
+    let y: Vec<f64> = groups.iter().flat_map(|(_, b)| b.iter().copied()).collect();
     let rho = spearman(&x, &y)?;
     let n = x
         .iter()
