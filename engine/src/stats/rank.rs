@@ -87,7 +87,8 @@ fn pearson(x: &[f64], y: &[f64]) -> Option<f64> {
     (sxx > 0.0 && syy > 0.0).then(|| (sxy / (sxx * syy).sqrt()).clamp(-1.0, 1.0))
 }
 
-/// Spearman's rho of `groups` (each a pair of equally long series: metric, outcome) pooled,
+/// Spearman's rho of `groups` (each a pair of series: metric, outcome; a longer side's extra
+/// values are ignored) pooled,
 /// with its bootstrap interval at `level` (e.g. 0.95) from `resamples` draws and its
 /// permutation p-value from `permutations` draws, seeded by `seed`. `None` when rho is
 /// undefined (fewer than 3 finite pairs, or a constant side).
@@ -99,8 +100,10 @@ pub fn rank_test(
     permutations: usize,
     seed: u64,
 ) -> Option<RankTest> {
-    let x: Vec<f64> = groups.iter().flat_map(|(a, _)| a.iter().copied()).collect();
-    let y: Vec<f64> = groups.iter().flat_map(|(_, b)| b.iter().copied()).collect();
+    let (x, y): (Vec<f64>, Vec<f64>) = groups
+        .iter()
+        .flat_map(|(a, b)| a.iter().copied().zip(b.iter().copied()))
+        .unzip();
     let rho = spearman(&x, &y)?;
     let n = x
         .iter()
