@@ -4,6 +4,7 @@
 mod anisotropy;
 mod curvature;
 mod grid;
+mod outcomes;
 mod plan;
 mod render;
 mod run_record;
@@ -21,6 +22,9 @@ pub use anisotropy::{
 };
 pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
+pub use outcomes::{
+    analyse, Level, OutcomeAnalysis, OutcomeTable, OutcomeTest, StageMetrics, OUTCOME_CAUTION,
+};
 pub use plan::{PlanJob, PlanReport};
 pub use render::{RenderJob, RenderReport};
 pub use run_record::{
