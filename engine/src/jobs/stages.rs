@@ -195,6 +195,7 @@ impl Corridor {
                 magnitude: anisotropy.magnitude[(r, c)],
                 azimuth_fast: anisotropy.azimuth_fast[(r, c)],
                 azimuth_stderr: anisotropy.azimuth_stderr[(r, c)],
+                magnitude_stderr: anisotropy.magnitude_stderr[(r, c)],
             })
             .collect();
         let stats = corridor_stats(&bins, path_azimuth(points));

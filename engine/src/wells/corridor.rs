@@ -11,7 +11,7 @@
 
 use crate::grid::GridGeometry;
 use crate::stats::circular::{axial_angle, summarise};
-use crate::stats::{quantiles, Quantile};
+use crate::stats::{quantile, quantiles, Quantile};
 use crate::wells::trajectory::inside;
 use ndarray::Array2;
 
@@ -24,6 +24,8 @@ pub struct BinSample {
     pub azimuth_fast: f64,
     /// Standard error of the azimuth, degrees (NaN when unknown).
     pub azimuth_stderr: f64,
+    /// Standard error of the magnitude, ms (NaN when unknown).
+    pub magnitude_stderr: f64,
 }
 
 /// Cells of `geometry` whose centres lie inside the ring `corridor`, row-major `(row, col)`, and
@@ -172,22 +174,37 @@ pub fn bilinear(geometry: &GridGeometry, values: &Array2<f64>, x: f64, y: f64) -
         + fv * ((1.0 - fu) * at(1, 0) + fu * at(1, 1))
 }
 
-/// Drilling score of a lateral at `azimuth` over `bins`, 0..1: the mean of
+/// Largest weight of one bin in the drilling score: a signal to noise ratio of 10.
+const MAX_SNR: f64 = 10.0;
+
+/// Weight of a bin in the drilling score: its squared signal to noise ratio
+/// `(B / stderr_B)^2`, capped at 100, so bins whose magnitude is indistinguishable from noise
+/// count little; 1 when the magnitude's error is unknown.
+fn bin_weight(b: &BinSample) -> f64 {
+    if !(b.magnitude.is_finite() && b.azimuth_fast.is_finite()) {
+        return 0.0;
+    }
+    if b.magnitude_stderr.is_finite() && b.magnitude_stderr > 0.0 {
+        (b.magnitude / b.magnitude_stderr).min(MAX_SNR).powi(2)
+    } else {
+        1.0
+    }
+}
+
+/// Drilling score of a lateral at `azimuth` over `bins`, 0..1: the weighted mean of
 /// `sin^2(azimuth - fast)` (1 when the lateral is perpendicular to the fast azimuth), each bin
-/// weighted by its magnitude over its azimuth variance (`B / (stderr^2 + 1)`, degrees^2, so
-/// strong, well-determined bins count most and an unknown error counts as 1 degree).
+/// weighted by its squared signal to noise ratio ([`bin_weight`]); NaN without a weighted bin.
 pub fn perpendicularity_score(bins: &[BinSample], azimuth: f64) -> f64 {
-    let (num, den) = bins.iter().fold((0.0, 0.0), |(n, d), b| {
-        let var = if b.azimuth_stderr.is_finite() {
-            b.azimuth_stderr.powi(2)
-        } else {
-            0.0
-        };
-        let w = b.magnitude / (var + 1.0);
-        if !(w.is_finite() && w > 0.0 && b.azimuth_fast.is_finite()) {
+    weighted_score(bins.iter().map(|b| (b, b.azimuth_fast)), azimuth)
+}
+
+fn weighted_score<'a>(bins: impl Iterator<Item = (&'a BinSample, f64)>, azimuth: f64) -> f64 {
+    let (num, den) = bins.fold((0.0, 0.0), |(n, d), (b, fast)| {
+        let w = bin_weight(b);
+        if w <= 0.0 {
             return (n, d);
         }
-        let s = (azimuth - b.azimuth_fast).to_radians().sin();
+        let s = (azimuth - fast).to_radians().sin();
         (n + w * s * s, d + w)
     });
     if den > 0.0 {
@@ -195,6 +212,60 @@ pub fn perpendicularity_score(bins: &[BinSample], azimuth: f64) -> f64 {
     } else {
         f64::NAN
     }
+}
+
+/// A drilling score with its interval.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ScoreInterval {
+    /// The score over every bin ([`perpendicularity_score`]).
+    pub score: f64,
+    /// Lower end of the interval.
+    pub low: f64,
+    /// Upper end.
+    pub high: f64,
+}
+
+/// The drilling score of a lateral at `azimuth` with a percentile interval at `level` from
+/// `draws` draws: each draw resamples the bins with replacement (bootstrap, Efron &
+/// Tibshirani 1993) and moves each drawn bin's fast azimuth by a normal deviate of its
+/// standard error, so both the sampling of the corridor and each bin's measurement noise widen
+/// the interval. Seeded: the same bits for the same inputs. `None` without a weighted bin.
+pub fn score_interval(
+    bins: &[BinSample],
+    azimuth: f64,
+    level: f64,
+    draws: usize,
+    seed: u64,
+) -> Option<ScoreInterval> {
+    let score = perpendicularity_score(bins, azimuth);
+    if !score.is_finite() {
+        return None;
+    }
+    let mut rng = crate::stats::SeededNoise::new(seed);
+    let n = bins.len();
+    let mut scores: Vec<f64> = (0..draws)
+        .map(|_| {
+            let drawn: Vec<(&BinSample, f64)> = (0..n)
+                .map(|_| {
+                    let b = &bins[((rng.uniform() * n as f64) as usize).min(n - 1)];
+                    let error = if b.azimuth_stderr.is_finite() {
+                        b.azimuth_stderr * rng.gaussian()
+                    } else {
+                        0.0
+                    };
+                    (b, b.azimuth_fast + error)
+                })
+                .collect();
+            weighted_score(drawn.into_iter(), azimuth)
+        })
+        .filter(|s| s.is_finite())
+        .collect();
+    let tail = (1.0 - level) / 2.0;
+    Some(ScoreInterval {
+        score,
+        low: quantile(&mut scores, tail, Quantile::Linear).unwrap_or(score),
+        high: quantile(&mut scores, 1.0 - tail, Quantile::Linear).unwrap_or(score),
+    })
 }
 
 #[cfg(test)]
@@ -207,7 +278,8 @@ mod tests {
             BinSample {
                 magnitude: 3.0,
                 azimuth_fast: fast,
-                azimuth_stderr: 2.0
+                azimuth_stderr: 2.0,
+                magnitude_stderr: 0.5,
             };
             n
         ]
