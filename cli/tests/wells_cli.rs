@@ -1044,3 +1044,93 @@ fn a_commit_that_fails_part_way_leaves_the_previous_run_and_a_rerun_replaces_it(
         assert_eq!(now[Path::new(name)], fresh[Path::new(name)], "{name}");
     }
 }
+
+/// (centre, radius) of every rose of a sheet SVG, in drawing order, from the white disc that
+/// opens each `<g class="rose">` (72 points on a circle and the first again).
+fn sheet_roses(svg: &str) -> Vec<((f64, f64), f64)> {
+    svg.split("<g class=\"rose\">")
+        .skip(1)
+        .map(|group| {
+            let start = group.find("points=\"").unwrap() + 8;
+            let end = start + group[start..].find('"').unwrap();
+            let points: Vec<(f64, f64)> = group[start..end]
+                .split(' ')
+                .map(|p| {
+                    let (x, y) = p.split_once(',').unwrap();
+                    (x.parse().unwrap(), y.parse().unwrap())
+                })
+                .collect();
+            let n = 72.0;
+            let cx = points[..72].iter().map(|p| p.0).sum::<f64>() / n;
+            let cy = points[..72].iter().map(|p| p.1).sum::<f64>() / n;
+            ((cx, cy), (points[0].1 - cy).abs())
+        })
+        .collect()
+}
+
+#[test]
+fn sheet_roses_sit_along_measured_depth_heel_to_toe() {
+    // 45 stages of uneven length (20 to 60 m) along the east-west well: each rose's centre on
+    // the sheet is linear in the stage's mid md as read from the stage table (a linear axis,
+    // common practice for well logs), increasing heel to toe, and no two roses overlap.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "long.csv", EAST_WEST);
+    let mut table = String::from("stage,md_top,md_base\n");
+    let mut md = 3000.0;
+    let mut mids = Vec::new();
+    for k in 0..45 {
+        let length = [20.0, 60.0, 35.0, 45.0][k % 4];
+        table += &format!("{},{md},{}\n", k + 1, md + length);
+        mids.push(md + length / 2.0);
+        md += length;
+    }
+    let stages = write(d, "long_stages.csv", &table);
+    let out = d.join("out");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            s(&well),
+            "--stages",
+            s(&stages),
+            "--min-bins",
+            "1",
+        ],
+    );
+    let svg = std::fs::read_to_string(out.join("long_sheet.svg")).unwrap();
+    let roses = sheet_roses(&svg);
+    assert_eq!(roses.len(), 45);
+    let (first, last) = (roses[0].0 .0, roses[44].0 .0);
+    for (k, ((x, _), _)) in roses.iter().enumerate() {
+        let expected = first + (last - first) * (mids[k] - mids[0]) / (mids[44] - mids[0]);
+        assert!(
+            (x - expected).abs() < 0.05,
+            "stage {}: x {x} vs {expected}",
+            k + 1
+        );
+        if k > 0 {
+            assert!(
+                *x > roses[k - 1].0 .0,
+                "stage {} left of its heel side",
+                k + 1
+            );
+        }
+    }
+    for (i, (a, ra)) in roses.iter().enumerate() {
+        for (b, rb) in &roses[i + 1..] {
+            let dist = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
+            assert!(dist >= ra + rb, "roses overlap: {a:?} {b:?}");
+        }
+    }
+    // The tracks and the md axis are there, with units.
+    for text in [
+        "class=\"track angle_to_well\"",
+        "class=\"track magnitude\"",
+        "measured depth (m), heel to toe",
+    ] {
+        assert!(svg.contains(text), "{text}");
+    }
+}
