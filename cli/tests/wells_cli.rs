@@ -221,6 +221,43 @@ fn azimuth_scan_recommends_the_perpendicular_to_the_fast_azimuth() {
     ] {
         assert!(out.join(f).is_file(), "{f}");
     }
+    // The chart's rings are labelled at round scores, at radii in proportion to the score
+    // (a linear radial scale), and its spokes every 30 degrees; the centre lies midway between
+    // the N and S labels (compass-rose layout, common practice).
+    let svg = std::fs::read_to_string(out.join("plan_scores.svg")).unwrap();
+    let at = |label: &str| -> (f64, f64) {
+        let end = svg
+            .find(&format!(">{label}</text>"))
+            .unwrap_or_else(|| panic!("no label {label}"));
+        let tag = &svg[svg[..end].rfind("<text").unwrap()..end];
+        let attr = |name: &str| -> f64 {
+            let start = tag.find(&format!("{name}=\"")).unwrap() + name.len() + 2;
+            tag[start..start + tag[start..].find('"').unwrap()]
+                .parse()
+                .unwrap()
+        };
+        (attr("x"), attr("y"))
+    };
+    let (n, south) = (at("N"), at("S"));
+    let centre = (n.0, (n.1 + south.1) / 2.0);
+    let radius = |label: &str| {
+        let (x, y) = at(label);
+        ((x - centre.0).powi(2) + (y - centre.1).powi(2)).sqrt()
+    };
+    let unit = radius("0.2") / 0.2;
+    for (label, score) in [("0.4", 0.4), ("0.6", 0.6), ("0.8", 0.8), ("1.0", 1.0)] {
+        assert!(
+            (radius(label) - unit * score).abs() < 0.5,
+            "ring {label}: radius {} vs {}",
+            radius(label),
+            unit * score
+        );
+    }
+    for label in [
+        "30°", "60°", "120°", "150°", "210°", "240°", "300°", "330°", "E", "W",
+    ] {
+        at(label);
+    }
 }
 
 #[test]
