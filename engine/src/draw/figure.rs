@@ -7,6 +7,7 @@
 
 use crate::draw::map::Text;
 use crate::draw::ticks::{nice_step, nice_ticks, tick_label};
+use crate::stats::circular::axial_angle;
 use tiny_skia::{Color, FillRule, LineCap, Paint, PathBuilder, Pixmap, Stroke, Transform};
 
 /// Horizontal placement of a text mark.
@@ -391,7 +392,8 @@ pub struct RoseParts {
 /// Draws a rose of axial `shares` (percent per sector over 0..180, drawn again at +180) centred
 /// at (`cx`, `cy`) with outer radius `radius` on `scale`: a white disc, the rings, the petals,
 /// the mean and well axes, with `parts.labels` each ring's share (in the direction of the
-/// smallest petal between 30 and 150 degrees, where it hides the least) and with
+/// smallest petal between 30 and 150 degrees farthest from the axes, where it hides the least)
+/// and with
 /// `parts.compass` N/E/S/W.
 pub fn draw_rose(
     fig: &mut Figure,
@@ -442,13 +444,25 @@ pub fn draw_rose(
         }
     }
     if let Some(size) = parts.labels {
-        // Between 30 and 150 degrees (and opposite), clear of a title above the rose.
+        // Between 30 and 150 degrees (clear of a title above the rose): the smallest petal,
+        // and of equal petals the one farthest from the mean and well axes.
+        let clearance = |az: f64| {
+            [parts.mean_axis, parts.well_axis]
+                .into_iter()
+                .flatten()
+                .filter(|a| a.is_finite())
+                .map(|a| axial_angle(az, a))
+                .fold(90.0, f64::min)
+        };
         let quiet = shares
             .iter()
             .enumerate()
-            .map(|(k, share)| ((k as f64 + 0.5) * width, share))
+            .map(|(k, &share)| ((k as f64 + 0.5) * width, share))
             .filter(|(az, _)| (30.0..=150.0).contains(az))
-            .min_by(|a, b| a.1.total_cmp(b.1))
+            .min_by(|a, b| {
+                a.1.total_cmp(&b.1)
+                    .then(clearance(b.0).total_cmp(&clearance(a.0)))
+            })
             .map_or(90.0, |(az, _)| az);
         for &ring in scale.rings() {
             let (x, y) = polar(cx, cy, scale.radius(ring, radius), quiet);
