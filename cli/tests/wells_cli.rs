@@ -221,6 +221,43 @@ fn azimuth_scan_recommends_the_perpendicular_to_the_fast_azimuth() {
     ] {
         assert!(out.join(f).is_file(), "{f}");
     }
+    // The chart's rings are labelled at round scores, at radii in proportion to the score
+    // (a linear radial scale), and its spokes every 30 degrees; the centre lies midway between
+    // the N and S labels (compass-rose layout, common practice).
+    let svg = std::fs::read_to_string(out.join("plan_scores.svg")).unwrap();
+    let at = |label: &str| -> (f64, f64) {
+        let end = svg
+            .find(&format!(">{label}</text>"))
+            .unwrap_or_else(|| panic!("no label {label}"));
+        let tag = &svg[svg[..end].rfind("<text").unwrap()..end];
+        let attr = |name: &str| -> f64 {
+            let start = tag.find(&format!("{name}=\"")).unwrap() + name.len() + 2;
+            tag[start..start + tag[start..].find('"').unwrap()]
+                .parse()
+                .unwrap()
+        };
+        (attr("x"), attr("y"))
+    };
+    let (n, south) = (at("N"), at("S"));
+    let centre = (n.0, (n.1 + south.1) / 2.0);
+    let radius = |label: &str| {
+        let (x, y) = at(label);
+        ((x - centre.0).powi(2) + (y - centre.1).powi(2)).sqrt()
+    };
+    let unit = radius("0.2") / 0.2;
+    for (label, score) in [("0.4", 0.4), ("0.6", 0.6), ("0.8", 0.8), ("1.0", 1.0)] {
+        assert!(
+            (radius(label) - unit * score).abs() < 0.5,
+            "ring {label}: radius {} vs {}",
+            radius(label),
+            unit * score
+        );
+    }
+    for label in [
+        "30°", "60°", "120°", "150°", "210°", "240°", "300°", "330°", "E", "W",
+    ] {
+        at(label);
+    }
 }
 
 #[test]
@@ -1042,5 +1079,95 @@ fn a_commit_that_fails_part_way_leaves_the_previous_run_and_a_rerun_replaces_it(
         "n2_sheet.svg",
     ] {
         assert_eq!(now[Path::new(name)], fresh[Path::new(name)], "{name}");
+    }
+}
+
+/// (centre, radius) of every rose of a sheet SVG, in drawing order, from the white disc that
+/// opens each `<g class="rose">` (72 points on a circle and the first again).
+fn sheet_roses(svg: &str) -> Vec<((f64, f64), f64)> {
+    svg.split("<g class=\"rose\">")
+        .skip(1)
+        .map(|group| {
+            let start = group.find("points=\"").unwrap() + 8;
+            let end = start + group[start..].find('"').unwrap();
+            let points: Vec<(f64, f64)> = group[start..end]
+                .split(' ')
+                .map(|p| {
+                    let (x, y) = p.split_once(',').unwrap();
+                    (x.parse().unwrap(), y.parse().unwrap())
+                })
+                .collect();
+            let n = 72.0;
+            let cx = points[..72].iter().map(|p| p.0).sum::<f64>() / n;
+            let cy = points[..72].iter().map(|p| p.1).sum::<f64>() / n;
+            ((cx, cy), (points[0].1 - cy).abs())
+        })
+        .collect()
+}
+
+#[test]
+fn sheet_roses_sit_along_measured_depth_heel_to_toe() {
+    // 45 stages of uneven length (20 to 60 m) along the east-west well: each rose's centre on
+    // the sheet is linear in the stage's mid md as read from the stage table (a linear axis,
+    // common practice for well logs), increasing heel to toe, and no two roses overlap.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let well = write(d, "long.csv", EAST_WEST);
+    let mut table = String::from("stage,md_top,md_base\n");
+    let mut md = 3000.0;
+    let mut mids = Vec::new();
+    for k in 0..45 {
+        let length = [20.0, 60.0, 35.0, 45.0][k % 4];
+        table += &format!("{},{md},{}\n", k + 1, md + length);
+        mids.push(md + length / 2.0);
+        md += length;
+    }
+    let stages = write(d, "long_stages.csv", &table);
+    let out = d.join("out");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            s(&well),
+            "--stages",
+            s(&stages),
+            "--min-bins",
+            "1",
+        ],
+    );
+    let svg = std::fs::read_to_string(out.join("long_sheet.svg")).unwrap();
+    let roses = sheet_roses(&svg);
+    assert_eq!(roses.len(), 45);
+    let (first, last) = (roses[0].0 .0, roses[44].0 .0);
+    for (k, ((x, _), _)) in roses.iter().enumerate() {
+        let expected = first + (last - first) * (mids[k] - mids[0]) / (mids[44] - mids[0]);
+        assert!(
+            (x - expected).abs() < 0.05,
+            "stage {}: x {x} vs {expected}",
+            k + 1
+        );
+        if k > 0 {
+            assert!(
+                *x > roses[k - 1].0 .0,
+                "stage {} left of its heel side",
+                k + 1
+            );
+        }
+    }
+    for (i, (a, ra)) in roses.iter().enumerate() {
+        for (b, rb) in &roses[i + 1..] {
+            let dist = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
+            assert!(dist >= ra + rb, "roses overlap: {a:?} {b:?}");
+        }
+    }
+    // The tracks and the md axis are there, with units.
+    for text in [
+        "class=\"track angle_to_well\"",
+        "class=\"track magnitude\"",
+        "measured depth (m), heel to toe",
+    ] {
+        assert!(svg.contains(text), "{text}");
     }
 }

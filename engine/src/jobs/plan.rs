@@ -8,7 +8,9 @@ use super::stages::{
     WELL_CAUTION,
 };
 use super::{stage_bytes, stage_figure, AnisotropyRaster};
-use crate::draw::figure::{polar, Anchor, Figure, Mark};
+use crate::draw::axis::GRID;
+use crate::draw::figure::{polar, Anchor, Figure, Mark, MEAN_AXIS, WELL_AXIS};
+use crate::draw::ticks::{nice_ticks, tick_label};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::vector::{
@@ -211,10 +213,17 @@ fn stage_candidates(
     stage_both_formats(dir, &g.crs_wkt, &layer)
 }
 
-/// Scores on a polar chart: radius = score (0..1) at each azimuth and its opposite.
+/// Azimuth step of the labelled spokes of the polar chart, degrees (the usual compass-rose
+/// division, common practice).
+const SPOKE_STEP: f64 = 30.0;
+
+/// Scores on a polar chart: radius linear in the score (0..1) at each azimuth and its opposite,
+/// rings at round scores (1-2-5 steps) labelled beside the fast axis (where scores are least),
+/// spokes every 30 degrees labelled in degrees from grid north, the best candidate (black) and
+/// the mean fast azimuth along it (orange).
 fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
-    let mut fig = Figure::new(480, 560);
-    let (cx, cy, r) = (240.0f32, 250.0f32, 180.0f32);
+    let mut fig = Figure::new(540, 640);
+    let (cx, cy, r) = (270.0f32, 290.0f32, 190.0f32);
     fig.text(
         cx,
         28.0,
@@ -222,19 +231,19 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
         "Drilling-azimuth score (1 = perpendicular to fast)",
         Anchor::Middle,
     );
-    for ring in [0.5f32, 1.0] {
-        fig.line(
-            (0..=72)
-                .map(|k| polar(cx, cy, r * ring, 5.0 * k as f64))
-                .collect(),
-            [0xbb, 0xbb, 0xbb],
-            1.0,
-        );
+    for az in (0..12).map(|k| k as f64 * SPOKE_STEP) {
+        fig.line(vec![(cx, cy), polar(cx, cy, r, az)], GRID, 1.0);
+        let (x, y) = polar(cx, cy, r + 20.0, az);
+        let label = match az as u32 {
+            0 => "N".to_string(),
+            90 => "E".to_string(),
+            180 => "S".to_string(),
+            270 => "W".to_string(),
+            _ => format!("{}°", tick_label(az, SPOKE_STEP)),
+        };
+        fig.text(x, y + 4.0, 12.0, label, Anchor::Middle);
     }
-    for (az, label) in [(0.0, "N"), (90.0, "E"), (180.0, "S"), (270.0, "W")] {
-        let (x, y) = polar(cx, cy, r + 16.0, az);
-        fig.text(x, y + 5.0, 12.0, label, Anchor::Middle);
-    }
+    let rings = nice_ticks(0.0, 1.0, 5);
     let mut points: Vec<(f32, f32)> = Vec::new();
     for offset in [0.0, 180.0] {
         for c in candidates {
@@ -247,46 +256,69 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
         fill: [0xc6, 0xdb, 0xef],
         stroke: Some([0x21, 0x71, 0xb5]),
     });
+    for &ring in rings.iter().filter(|&&v| v > 0.0) {
+        fig.line(
+            (0..=72)
+                .map(|k| polar(cx, cy, r * ring as f32, 5.0 * k as f64))
+                .collect(),
+            [0xbb, 0xbb, 0xbb],
+            1.0,
+        );
+    }
     let fast = best.corridor.stats.fast_azimuth;
     fig.line(
         vec![
             polar(cx, cy, r, best.azimuth),
             polar(cx, cy, r, best.azimuth + 180.0),
         ],
-        [0x20, 0x20, 0x20],
+        WELL_AXIS,
         2.5,
     );
     if fast.is_finite() {
         fig.line(
             vec![polar(cx, cy, r, fast), polar(cx, cy, r, fast + 180.0)],
-            [0xd9, 0x5f, 0x02],
+            MEAN_AXIS,
             2.0,
         );
     }
-    fig.text(
-        20.0,
-        470.0,
-        12.0,
-        format!(
-            "best {:.0} deg (score {:.2}); mean fast azimuth {:.1} deg (orange)",
-            best.azimuth, best.score, fast
+    // Ring labels just clockwise of the fast axis, where the scores are smallest.
+    let quiet = if fast.is_finite() {
+        fast + 12.0
+    } else {
+        best.azimuth + 90.0
+    };
+    let step = rings.get(1).map_or(0.2, |v| v - rings[0]);
+    for &ring in rings.iter().filter(|&&v| v > 0.0) {
+        let (x, y) = polar(cx, cy, r * ring as f32, quiet);
+        fig.text(x, y + 4.0, 11.0, tick_label(ring, step), Anchor::Middle);
+    }
+    let mut y = 530.0;
+    for (text, size) in [
+        (
+            format!(
+                "best {:.0} deg (score {:.2}, black); mean fast azimuth {:.1} deg (orange)",
+                best.azimuth, best.score, fast
+            ),
+            12.0,
         ),
-        Anchor::Start,
-    );
-    fig.text(
-        20.0,
-        492.0,
-        11.0,
-        "Anisotropy is a proxy for stress and fractures, not a measurement of them.",
-        Anchor::Start,
-    );
-    fig.text(
-        20.0,
-        510.0,
-        11.0,
-        "Decisions belong to licensed engineers and geoscientists under local regulations.",
-        Anchor::Start,
-    );
+        (
+            "rings: score (dimensionless, 0 to 1); azimuths in degrees from grid north".to_string(),
+            12.0,
+        ),
+        (
+            "Anisotropy is a proxy for stress and fractures, not a measurement of them."
+                .to_string(),
+            11.0,
+        ),
+        (
+            "Decisions belong to licensed engineers and geoscientists under local regulations."
+                .to_string(),
+            11.0,
+        ),
+    ] {
+        fig.text(20.0, y, size, text, Anchor::Start);
+        y += 22.0;
+    }
     fig
 }
 

@@ -8,7 +8,10 @@
 use super::anisotropy::AzimuthReference;
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
 use crate::bands::band_info;
-use crate::draw::figure::{rose, Anchor, Figure, Mark};
+use crate::draw::axis::{Axis, GRID};
+use crate::draw::figure::{
+    axial_shares, draw_rose, rose, Anchor, Figure, Mark, RoseParts, RoseScale, MEAN_AXIS, WELL_AXIS,
+};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::table::Table;
@@ -432,7 +435,16 @@ impl StagesJob {
             }
             let well_rows = &rows[first..];
             let (stage_rows, lateral) = well_rows.split_at(well_rows.len() - 1);
-            sheets.push((well.name.clone(), sheet(&well.name, stage_rows)));
+            sheets.push((
+                well.name.clone(),
+                sheet(
+                    &well.name,
+                    well.md_unit,
+                    stage_rows,
+                    &lateral[0],
+                    horizon.is_some(),
+                ),
+            ));
             reports.push(WellReport {
                 well: well.name.clone(),
                 stages: stage_rows.len(),
@@ -686,6 +698,15 @@ const STAGE_LEAD: [&str; 8] = [
 ];
 
 impl StageRow {
+    /// `value` (and `range`) over this stage's md interval, for a sheet track.
+    fn value(&self, value: f64, range: Option<(f64, f64)>) -> TrackValue {
+        TrackValue {
+            md: (self.md_top, self.md_base),
+            value,
+            range,
+        }
+    }
+
     /// The lead values, in [`STAGE_LEAD`] order.
     fn lead(&self) -> Vec<Property> {
         let (mean, min, max) = self.standoff;
@@ -860,98 +881,437 @@ fn stage_rose_figure(title: &str, c: &Corridor) -> Figure {
     )
 }
 
-/// One sheet per well: the stage roses in order along the lateral above a strip of
-/// angle_to_well and mean magnitude per stage.
-fn sheet(well: &str, stages: &[StageRow]) -> Figure {
-    let per_row = 6usize;
-    let cell = 200.0f32;
-    let rows = stages.len().div_ceil(per_row).max(1);
-    let strip_top = 60.0 + rows as f32 * (cell + 40.0);
-    let width = (per_row as f32 * cell + 80.0) as u32;
-    let mut fig = Figure::new(width, (strip_top + 360.0) as u32);
+/// Width of a well sheet and the left and right ends of its measured-depth axis, pixels.
+const SHEET_WIDTH: f32 = 1500.0;
+const MD_LEFT: f32 = 110.0;
+const MD_RIGHT: f32 = SHEET_WIDTH - 50.0;
+/// Largest and smallest rose radius on a sheet, pixels: roses shrink to the room between
+/// stages, and below the smallest are staggered over up to `MAX_LANES` rows instead.
+const ROSE_MAX: f32 = 56.0;
+const ROSE_MIN: f32 = 20.0;
+const MAX_LANES: usize = 4;
+/// Least gap between two roses of a row, pixels.
+const ROSE_GAP: f32 = 4.0;
+/// Height of a track's plot and the room above it for its title, pixels.
+const TRACK_HEIGHT: f32 = 110.0;
+const TRACK_TITLE: f32 = 30.0;
+
+/// How the roses of a sheet are placed: each centred at its stage's mid measured depth on the
+/// sheet's md axis, stage `k` in row `k % lanes`, all of radius `radius`, so that no two roses
+/// of a row overlap (rows are apart by a rose's height).
+#[derive(Clone, Copy, Debug, PartialEq)]
+struct RoseLayout {
+    lanes: usize,
+    radius: f32,
+}
+
+impl RoseLayout {
+    /// The layout for rose centres at `xs` (increasing, pixels) on a sheet `width` wide: one row
+    /// when the roses fit at `ROSE_MIN` or more, else the fewest rows (up to `MAX_LANES`) that
+    /// let them, else the rows giving the largest radius.
+    fn for_centres(xs: &[f32], width: f32) -> Self {
+        let radius = |lanes: usize| {
+            let edges = match (xs.first(), xs.last()) {
+                (Some(first), Some(last)) => first.min(width - last) - ROSE_GAP,
+                _ => ROSE_MAX,
+            };
+            xs.iter()
+                .zip(xs.iter().skip(lanes))
+                .map(|(a, b)| (b - a - ROSE_GAP) / 2.0)
+                .fold(ROSE_MAX.min(edges), f32::min)
+                .max(1.0)
+        };
+        let layouts = (1..=MAX_LANES).map(|lanes| Self {
+            lanes,
+            radius: radius(lanes),
+        });
+        layouts
+            .clone()
+            .find(|l| l.radius >= ROSE_MIN)
+            .unwrap_or_else(|| {
+                layouts
+                    .reduce(|a, b| if b.radius > a.radius { b } else { a })
+                    .expect("at least one row")
+            })
+    }
+}
+
+/// One track of a sheet: a value per stage drawn over the stage's md interval, with an optional
+/// range (shaded), on its own y axis.
+struct Track {
+    /// Title with unit.
+    title: String,
+    /// Class of the track's group in the figure (`track NAME`).
+    name: &'static str,
+    /// Fixed y interval, or `None` for the data's rounded range (zero included).
+    fixed: Option<(f64, f64)>,
+    /// Positive values drawn downwards (stand-off below the horizon).
+    down: bool,
+    /// One value per stage.
+    values: Vec<TrackValue>,
+    /// Line colour (the range is drawn in a light tint of it).
+    colour: [u8; 3],
+}
+
+/// A stage's value on a track: over its md interval (md top, md base), with an optional range
+/// (low, high) drawn shaded.
+struct TrackValue {
+    md: (f64, f64),
+    value: f64,
+    range: Option<(f64, f64)>,
+}
+
+impl Track {
+    /// The track's y axis between pixel rows `top` and `bottom`.
+    fn axis(&self, top: f32, bottom: f32) -> Axis {
+        let (from, to) = if self.down {
+            (top, bottom)
+        } else {
+            (bottom, top)
+        };
+        match self.fixed {
+            Some((lo, hi)) => Axis::new(lo, hi, from, to, 5),
+            None => {
+                let (lo, hi) = self
+                    .values
+                    .iter()
+                    .flat_map(|t| {
+                        let range = t.range.into_iter().flat_map(|(a, b)| [a, b]);
+                        [t.value].into_iter().chain(range)
+                    })
+                    .filter(|v| v.is_finite())
+                    .fold((0.0f64, 0.0f64), |(lo, hi), v| (lo.min(v), hi.max(v)));
+                Axis::rounded(lo, hi, from, to, 4)
+            }
+        }
+    }
+
+    /// Draws the track with its top at `top` under the md axis `md`.
+    fn draw(&self, fig: &mut Figure, md: &Axis, top: f32) {
+        let (plot_top, bottom) = (top + TRACK_TITLE, top + TRACK_TITLE + TRACK_HEIGHT);
+        let y = self.axis(plot_top, bottom);
+        let (left, right) = (MD_LEFT, MD_RIGHT);
+        fig.group(&format!("track {}", self.name), |fig| {
+            fig.text(left, top + 18.0, 13.0, self.title.clone(), Anchor::Start);
+            for &t in md.ticks() {
+                let x = md.at(t);
+                fig.line(vec![(x, plot_top), (x, bottom)], GRID, 1.0);
+            }
+            y.draw_vertical(fig, left, right);
+            fig.line(
+                vec![
+                    (left, plot_top),
+                    (right, plot_top),
+                    (right, bottom),
+                    (left, bottom),
+                ],
+                AXIS_LINE,
+                1.0,
+            );
+            let tint = self.colour.map(|c| ((u16::from(c) + 3 * 255) / 4) as u8);
+            for &TrackValue {
+                md: (top, base),
+                value,
+                range,
+            } in &self.values
+            {
+                let (x0, x1) = (md.at(top), md.at(base));
+                if let Some((a, b)) = range.filter(|(a, b)| a.is_finite() && b.is_finite()) {
+                    let (ya, yb) = (y.at(y.clamp(a)), y.at(y.clamp(b)));
+                    fig.marks.push(Mark::Polygon {
+                        points: vec![(x0, ya), (x1, ya), (x1, yb), (x0, yb)],
+                        fill: tint,
+                        stroke: None,
+                    });
+                }
+                if value.is_finite() {
+                    let yv = y.at(y.clamp(value));
+                    fig.line(vec![(x0, yv), (x1, yv)], self.colour, 2.5);
+                }
+            }
+        });
+    }
+}
+
+/// Colour of plot frames.
+const AXIS_LINE: [u8; 3] = crate::draw::axis::AXIS;
+
+/// One sheet per well: the stage roses placed along measured depth (heel left, toe right; x
+/// linear in each stage's mid md, staggered over rows when stages are close) on one radial
+/// scale, the stage intervals, and tracks sharing the md axis: angle to well, anisotropy
+/// magnitude, the first curvature band (mean, p10-p90) when curvature was given and the
+/// stand-off (mean, min-max; positive below, drawn down) when a horizon was given.
+fn sheet(
+    well: &str,
+    md_unit: MdUnit,
+    stages: &[StageRow],
+    lateral: &StageRow,
+    horizon_given: bool,
+) -> Figure {
+    let unit = md_unit.name();
+    let md_lo = stages
+        .iter()
+        .map(|s| s.md_top)
+        .fold(f64::INFINITY, f64::min);
+    let md_hi = stages
+        .iter()
+        .map(|s| s.md_base)
+        .fold(f64::NEG_INFINITY, f64::max);
+    let md = Axis::new(md_lo, md_hi, MD_LEFT, MD_RIGHT, 10);
+    let mid = |s: &StageRow| md.at(0.5 * (s.md_top + s.md_base));
+    let xs: Vec<f32> = stages.iter().map(mid).collect();
+    let layout = RoseLayout::for_centres(&xs, SHEET_WIDTH);
+    let r = layout.radius;
+    let label_size = (0.45 * r).clamp(9.0, 12.0);
+    let lane_height = 2.0 * r + label_size + 8.0;
+    let samples = |c: &Corridor| -> Vec<(f64, f64)> {
+        c.bins
+            .iter()
+            .map(|b| (b.azimuth_fast, b.magnitude))
+            .collect()
+    };
+    let shares: Vec<Vec<f64>> = stages
+        .iter()
+        .map(|s| axial_shares(&samples(&s.corridor), ROSE_PETALS))
+        .collect();
+    let scale = RoseScale::for_largest(shares.iter().flatten().copied().fold(0.0, f64::max));
+    let mut tracks = vec![
+        Track {
+            title: "angle to well (deg; 90 = perpendicular to the mean fast azimuth)".into(),
+            name: "angle_to_well",
+            fixed: Some((0.0, 90.0)),
+            down: false,
+            values: stages
+                .iter()
+                .map(|s| s.value(s.corridor.stats.angle_to_well, None))
+                .collect(),
+            colour: [0x20, 0x20, 0x20],
+        },
+        Track {
+            title: "anisotropy magnitude (ms; corridor mean)".into(),
+            name: "magnitude",
+            fixed: None,
+            down: false,
+            values: stages
+                .iter()
+                .map(|s| s.value(s.corridor.stats.magnitude_mean, None))
+                .collect(),
+            colour: PETAL_BLUE,
+        },
+    ];
+    if let Some((band, _)) = stages.first().and_then(|s| s.corridor.curvature.first()) {
+        let band_unit = band_info(band).map_or("", |b| b.unit);
+        tracks.push(Track {
+            title: format!("{band} ({band_unit}; corridor mean, p10 to p90 shaded)"),
+            name: "curvature",
+            fixed: None,
+            down: false,
+            values: stages
+                .iter()
+                .map(|s| {
+                    let (mean, p10, _, p90) = s.corridor.curvature[0].1;
+                    s.value(mean, Some((p10, p90)))
+                })
+                .collect(),
+            colour: [0x1b, 0x9e, 0x77],
+        });
+    }
+    if horizon_given {
+        tracks.push(Track {
+            title: format!(
+                "stand-off from the horizon ({unit}; positive below, drawn down; mean, min to max shaded)"
+            ),
+            name: "standoff",
+            fixed: None,
+            down: true,
+            values: stages
+                .iter()
+                .map(|s| {
+                    let (mean, min, max) = s.standoff;
+                    s.value(mean, Some((min, max)))
+                })
+                .collect(),
+            colour: [0x75, 0x70, 0xb3],
+        });
+    }
+    let roses_top = 135.0;
+    let strip_top = roses_top + layout.lanes as f32 * lane_height + 12.0;
+    let tracks_top = strip_top + 22.0;
+    let md_axis_y = tracks_top + tracks.len() as f32 * (TRACK_TITLE + TRACK_HEIGHT) + 10.0;
+    let flagged: Vec<&str> = stages
+        .iter()
+        .filter(|s| !s.corridor.flags.is_empty())
+        .map(|s| s.stage.as_str())
+        .collect();
+    let flag_lines = if flagged.is_empty() {
+        Vec::new()
+    } else {
+        wrap(
+            &format!(
+                "flagged (!): {}; the reasons are in stages.csv (flag)",
+                flagged.join(", ")
+            ),
+            200,
+        )
+    };
+    let height = md_axis_y + 100.0 + 18.0 * flag_lines.len() as f32;
+    let mut fig = Figure::new(SHEET_WIDTH as u32, height as u32);
     fig.text(
         20.0,
-        32.0,
+        30.0,
         18.0,
-        format!("{well}: stage roses (fast azimuth; orange mean, black well)"),
+        format!("{well}: stages along measured depth, heel (left) to toe (right)"),
         Anchor::Start,
     );
-    for (k, r) in stages.iter().enumerate() {
-        let rose = stage_rose_figure(&r.stage, &r.corridor);
-        let (col, row) = (k % per_row, k / per_row);
-        fig.place(
-            &rose,
-            40.0 + col as f32 * cell,
-            50.0 + row as f32 * (cell + 40.0),
-            cell / rose.width as f32,
+    let l = &lateral.corridor.stats;
+    fig.text(
+        20.0,
+        52.0,
+        12.0,
+        format!(
+            "lateral: fast azimuth {:.1} deg, well {:.1} deg, angle to well {:.1} deg, magnitude {:.2} ms, {} bins",
+            l.fast_azimuth, l.well_azimuth, l.angle_to_well, l.magnitude_mean, l.n_bins
+        ),
+        Anchor::Start,
+    );
+    sheet_legend(&mut fig, &scale);
+    // Leaders from each rose to its stage, under the roses' white discs.
+    for (k, &x) in xs.iter().enumerate() {
+        let cy = roses_top + (k % layout.lanes) as f32 * lane_height + label_size + 4.0 + r;
+        fig.line(vec![(x, cy), (x, strip_top)], [0xcc, 0xcc, 0xcc], 1.0);
+    }
+    for (k, (s, x)) in stages.iter().zip(&xs).enumerate() {
+        let cy = roses_top + (k % layout.lanes) as f32 * lane_height + label_size + 4.0 + r;
+        let stats = &s.corridor.stats;
+        let flagged = if s.corridor.flags.is_empty() {
+            ""
+        } else {
+            " !"
+        };
+        fig.group("rose", |fig| {
+            draw_rose(
+                fig,
+                (*x, cy),
+                r,
+                &shares[k],
+                &scale,
+                RoseParts {
+                    mean_axis: Some(stats.fast_azimuth),
+                    well_axis: Some(stats.well_azimuth),
+                    labels: (r >= 40.0).then_some(9.0),
+                    compass: false,
+                },
+            );
+            fig.text(
+                *x,
+                cy - r - 3.0,
+                label_size,
+                format!("{}{flagged}", s.stage),
+                Anchor::Middle,
+            );
+        });
+    }
+    for (k, s) in stages.iter().enumerate() {
+        let fill = if k % 2 == 0 {
+            [0xd0, 0xd0, 0xd0]
+        } else {
+            [0xa8, 0xa8, 0xa8]
+        };
+        let (x0, x1) = (md.at(s.md_top), md.at(s.md_base));
+        fig.marks.push(Mark::Polygon {
+            points: vec![
+                (x0, strip_top),
+                (x1, strip_top),
+                (x1, strip_top + 10.0),
+                (x0, strip_top + 10.0),
+            ],
+            fill,
+            stroke: None,
+        });
+    }
+    fig.text(MD_LEFT - 8.0, strip_top + 9.0, 11.0, "stages", Anchor::End);
+    for (k, track) in tracks.iter().enumerate() {
+        track.draw(
+            &mut fig,
+            &md,
+            tracks_top + k as f32 * (TRACK_TITLE + TRACK_HEIGHT),
         );
     }
-    bar_strip(
+    md.draw_horizontal(
         &mut fig,
-        strip_top,
-        "angle_to_well (deg, 90 = perpendicular)",
-        90.0,
-        stages.iter().map(|s| s.corridor.stats.angle_to_well),
+        md_axis_y,
+        &format!("measured depth ({unit}), heel to toe"),
     );
-    bar_strip(
-        &mut fig,
-        strip_top + 170.0,
-        "magnitude_mean (ms)",
-        f64::NAN,
-        stages.iter().map(|s| s.corridor.stats.magnitude_mean),
-    );
-    fig.text(20.0, strip_top + 350.0, 11.0, "Informs interpretation only; decisions belong to licensed professionals under local regulations.", Anchor::Start);
+    let mut y = md_axis_y + 66.0;
+    for line in flag_lines {
+        fig.text(20.0, y, 12.0, line, Anchor::Start);
+        y += 18.0;
+    }
+    fig.text(20.0, y, 11.0, "Anisotropy is a proxy for stress and fractures, not a measurement of them. Informs interpretation only; decisions belong to licensed professionals under local regulations.", Anchor::Start);
     fig
 }
 
-/// A labelled bar chart of `values` (one bar per stage) with its top at `max` (or the largest
-/// value when NaN).
-fn bar_strip(fig: &mut Figure, top: f32, label: &str, max: f64, values: impl Iterator<Item = f64>) {
-    let values: Vec<f64> = values.collect();
-    let max = if max.is_finite() {
-        max
-    } else {
-        values
-            .iter()
-            .copied()
-            .filter(|v| v.is_finite())
-            .fold(0.0, f64::max)
-            .max(1e-9)
-    };
-    let (left, height, width) = (60.0f32, 110.0f32, fig.width as f32 - 100.0);
-    fig.text(left, top + 14.0, 13.0, label, Anchor::Start);
-    let base = top + 24.0 + height;
-    fig.line(vec![(left, base), (left + width, base)], [0, 0, 0], 1.0);
-    fig.text(
-        left - 8.0,
-        top + 34.0,
-        10.0,
-        crate::draw::colour::short(max),
-        Anchor::Middle,
-    );
-    let step = width / values.len().max(1) as f32;
-    for (k, v) in values.iter().enumerate() {
-        let x = left + step * (k as f32 + 0.2);
-        if v.is_finite() {
-            let h = height * (v / max).clamp(0.0, 1.0) as f32;
-            fig.marks.push(Mark::Polygon {
-                points: vec![
-                    (x, base),
-                    (x + 0.6 * step, base),
-                    (x + 0.6 * step, base - h),
-                    (x, base - h),
-                ],
-                fill: [0x41, 0x86, 0xc8],
-                stroke: None,
-            });
+/// `text` in lines of at most `width` characters, broken at spaces (a longer word gets a line
+/// of its own).
+fn wrap(text: &str, width: usize) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    for word in text.split(' ') {
+        match lines.last_mut() {
+            Some(line) if line.len() + 1 + word.len() <= width => {
+                line.push(' ');
+                line.push_str(word);
+            }
+            _ => lines.push(word.to_string()),
         }
-        fig.text(
-            x + 0.3 * step,
-            base + 14.0,
-            10.0,
-            format!("{}", k + 1),
-            Anchor::Middle,
-        );
+    }
+    lines
+}
+
+/// Colour of petals and of the magnitude track.
+const PETAL_BLUE: [u8; 3] = [0x41, 0x86, 0xc8];
+
+/// The sheet's key, top right: a rose frame with the shared scale's labelled rings and what the
+/// petals and axes mean.
+fn sheet_legend(fig: &mut Figure, scale: &RoseScale) {
+    let (cx, cy, r) = (SHEET_WIDTH - 80.0, 72.0, 48.0);
+    let parts = RoseParts {
+        mean_axis: None,
+        well_axis: None,
+        labels: None,
+        compass: false,
+    };
+    draw_rose(fig, (cx, cy), r, &[], scale, parts);
+    for &ring in scale.rings() {
+        let y = cy - scale.radius(ring, r) - 2.0;
+        fig.text(cx, y, 10.0, scale.label(ring), Anchor::Middle);
+    }
+    fig.text(
+        cx - r - 8.0,
+        cy + 4.0,
+        11.0,
+        "rings (north up):",
+        Anchor::End,
+    );
+    let x = cx - r - 620.0;
+    let lines: [(&str, Option<[u8; 3]>); 3] = [
+        (
+            "petals: share of the stage's magnitude-weighted fast azimuths (area ~ share)",
+            None,
+        ),
+        ("mean fast azimuth", Some(MEAN_AXIS)),
+        ("well azimuth (stage name ! = flagged)", Some(WELL_AXIS)),
+    ];
+    for (k, (text, colour)) in lines.iter().enumerate() {
+        let y = 40.0 + 18.0 * k as f32;
+        match colour {
+            Some(c) => fig.line(vec![(x, y - 4.0), (x + 22.0, y - 4.0)], *c, 2.5),
+            None => fig.marks.push(Mark::Polygon {
+                points: vec![(x, y - 9.0), (x + 22.0, y - 9.0), (x + 22.0, y), (x, y)],
+                fill: PETAL_BLUE,
+                stroke: None,
+            }),
+        }
+        fig.text(x + 28.0, y, 11.0, *text, Anchor::Start);
     }
 }
 
@@ -993,5 +1353,181 @@ impl fmt::Display for StagesReport {
         }
         writeln!(f, "wrote stages.csv, stage_corridors.gpkg/.geojson, wells/<well>_path.csv, well_paths.gpkg/.geojson, roses/ and one sheet per well in {}", self.out_dir.display())?;
         writeln!(f, "{WELL_CAUTION}")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::wells::corridor::corridor_stats;
+
+    /// A stage row over `md_top..md_base` whose 20 bins all have fast azimuth `fast` and
+    /// `magnitude` ms, along a well at `well_azimuth`, with a stand-off of `standoff`.
+    fn row(name: &str, md: (f64, f64), fast: f64, magnitude: f64, standoff: f64) -> StageRow {
+        let bins = vec![
+            BinSample {
+                magnitude,
+                azimuth_fast: fast,
+                azimuth_stderr: 1.0,
+            };
+            20
+        ];
+        StageRow {
+            well: "w".into(),
+            stage: name.into(),
+            md_top: md.0,
+            md_base: md.1,
+            md_unit: MdUnit::Metre,
+            standoff: (standoff, standoff - 1.0, standoff + 1.0),
+            corridor: Corridor {
+                ring: Vec::new(),
+                stats: corridor_stats(&bins, 90.0),
+                bins,
+                curvature: Vec::new(),
+                flags: Vec::new(),
+            },
+        }
+    }
+
+    /// The marks of the group of `class`.
+    fn group<'a>(fig: &'a Figure, class: &str) -> &'a [Mark] {
+        fig.marks
+            .iter()
+            .find_map(|m| match m {
+                Mark::Group { class: c, marks } if c == class => Some(marks.as_slice()),
+                _ => None,
+            })
+            .unwrap_or_else(|| panic!("no group {class}"))
+    }
+
+    /// (value, row) of the tick labels of a track (right-aligned numbers left of its axis).
+    fn tick_labels(marks: &[Mark]) -> Vec<(f64, f32)> {
+        marks
+            .iter()
+            .filter_map(|m| match m {
+                Mark::Text {
+                    text,
+                    y,
+                    anchor: Anchor::End,
+                    ..
+                } => Some((text.parse().unwrap(), y - 4.0)),
+                _ => None,
+            })
+            .collect()
+    }
+
+    /// Rows of the horizontal value lines of `colour` in a track.
+    fn value_rows(marks: &[Mark], colour: [u8; 3]) -> Vec<f32> {
+        marks
+            .iter()
+            .filter_map(|m| match m {
+                Mark::Line {
+                    points, colour: c, ..
+                } if *c == colour && points.len() == 2 && points[0].1 == points[1].1 => {
+                    Some(points[0].1)
+                }
+                _ => None,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn track_values_land_on_their_ticks_and_ticks_are_round() {
+        // Fast 50 deg along a well at 90: angle to well 40 deg (axial difference, by hand);
+        // magnitudes 3 and 2 ms; stand-offs 10 and -5 m.
+        let stages = [
+            row("1", (1000.0, 1100.0), 50.0, 3.0, 10.0),
+            row("2", (1100.0, 1250.0), 50.0, 2.0, -5.0),
+        ];
+        let lateral = row("lateral", (1000.0, 1250.0), 50.0, 2.5, 2.5);
+        let fig = sheet("w", MdUnit::Metre, &stages, &lateral, true);
+        for (track, colour, value) in [
+            ("track angle_to_well", [0x20, 0x20, 0x20], 40.0),
+            ("track magnitude", PETAL_BLUE, 3.0),
+            ("track standoff", [0x75, 0x70, 0xb3], 10.0),
+        ] {
+            let marks = group(&fig, track);
+            let ticks = tick_labels(marks);
+            let at = ticks.iter().find(|(v, _)| *v == value);
+            let (_, tick_row) = at.unwrap_or_else(|| panic!("{track}: no tick at {value}"));
+            // The first stage's value line is at the row of the tick labelled with its value.
+            assert_eq!(value_rows(marks, colour)[0], *tick_row, "{track}");
+            // Round ticks: evenly spaced by 1, 2 or 5 times a power of ten (Heckbert 1990).
+            let step = ticks[1].0 - ticks[0].0;
+            let mantissa = step / 10f64.powf(step.log10().floor());
+            assert!(
+                [1.0, 2.0, 5.0].iter().any(|m| (mantissa - m).abs() < 1e-9),
+                "{track}: step {step}"
+            );
+            for pair in ticks.windows(2) {
+                assert!(((pair[1].0 - pair[0].0) - step).abs() < 1e-9, "{track}");
+                assert!((pair[0].0 / step - (pair[0].0 / step).round()).abs() < 1e-9);
+            }
+        }
+        // Stand-off is drawn positive down: 10 m below the horizon is below the zero line.
+        let standoff = tick_labels(group(&fig, "track standoff"));
+        let row_of = |v: f64| standoff.iter().find(|t| t.0 == v).unwrap().1;
+        assert!(row_of(10.0) > row_of(0.0));
+        // No curvature was given: no curvature track.
+        assert!(!fig
+            .marks
+            .iter()
+            .any(|m| matches!(m, Mark::Group { class, .. } if class == "track curvature")));
+    }
+
+    /// (centre, radius) of every rose of a sheet, from its white disc (72 points on a circle).
+    fn rose_discs(fig: &Figure) -> Vec<((f32, f32), f32)> {
+        fig.marks
+            .iter()
+            .filter_map(|m| match m {
+                Mark::Group { class, marks } if class == "rose" => match &marks[0] {
+                    Mark::Polygon { points, .. } => {
+                        let n = 72.0;
+                        let cx = points[..72].iter().map(|p| p.0).sum::<f32>() / n;
+                        let cy = points[..72].iter().map(|p| p.1).sum::<f32>() / n;
+                        Some(((cx, cy), (points[0].1 - cy).abs()))
+                    }
+                    _ => None,
+                },
+                _ => None,
+            })
+            .collect()
+    }
+
+    #[test]
+    fn roses_sit_at_their_mid_md_and_never_overlap_for_ten_to_sixty_stages() {
+        for n in [1usize, 10, 25, 45, 60] {
+            // Uneven stage lengths (20, 35, 50 m in turn) from md 3000.
+            let mut md = 3000.0;
+            let stages: Vec<StageRow> = (0..n)
+                .map(|k| {
+                    let length = [20.0, 35.0, 50.0][k % 3];
+                    md += length;
+                    row(&format!("{}", k + 1), (md - length, md), 50.0, 3.0, 0.0)
+                })
+                .collect();
+            let lateral = row("lateral", (3000.0, md), 50.0, 3.0, 0.0);
+            let fig = sheet("w", MdUnit::Metre, &stages, &lateral, false);
+            let discs = rose_discs(&fig);
+            assert_eq!(discs.len(), n);
+            // Centre x linear in mid md: the sheet's md axis runs from the first top (MD_LEFT)
+            // to the last base (MD_RIGHT).
+            for (s, ((x, _), _)) in stages.iter().zip(&discs) {
+                let mid = 0.5 * (s.md_top + s.md_base);
+                let expected =
+                    MD_LEFT + (MD_RIGHT - MD_LEFT) * ((mid - 3000.0) / (md - 3000.0)) as f32;
+                assert!((x - expected).abs() < 0.01, "{n} stages: {x} vs {expected}");
+            }
+            for (i, (a, ra)) in discs.iter().enumerate() {
+                assert!(*ra >= ROSE_MIN || n > 40, "{n} stages: radius {ra}");
+                for (b, rb) in &discs[i + 1..] {
+                    let d = ((a.0 - b.0).powi(2) + (a.1 - b.1).powi(2)).sqrt();
+                    assert!(
+                        d >= ra + rb,
+                        "{n} stages: roses overlap ({d} < {ra} + {rb})"
+                    );
+                }
+            }
+        }
     }
 }

@@ -9,15 +9,18 @@
 
 use super::curvature::{CurvatureJob, Prepared};
 use super::{batch_rows, default_memory_budget, stage_bytes, stage_figure, stage_png};
+use crate::draw::axis::{Axis, GRID};
 use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::figure::{Anchor, Figure, Mark};
 use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale, PictureCells};
+use crate::draw::ticks::tick_label;
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
 use crate::io::{commit_all, nodata_if_null, refuse_overwrite, GeoTiffWriter, StagedFile};
 use crate::provenance::Provenance;
 use crate::surface::curvature::{AttributeDef, DerivativeOrder, FlatTolerance};
+use crate::surface::horizon::ZUnit;
 use crate::surface::study::choice::POOL_RADIUS;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
@@ -126,11 +129,16 @@ impl WindowStudyJob {
                 &csv(&s, &out.join("window_study.csv"))?,
             )?,
         ];
+        let units = ChartUnits {
+            bin_m: spacing_m,
+            metres_per_unit: g.metres_per_unit,
+            z_unit: horizon.z_unit,
+        };
         staged.extend(stage_chart(
             &out.join("window_study_chart"),
             &s,
             self.attribute,
-            g.metres_per_unit,
+            &units,
         )?);
         staged.push(self.stage_panel(
             &out.join("window_study_panel.png"),
@@ -414,16 +422,47 @@ fn csv(s: &Study, path: &Path) -> Result<Vec<u8>> {
         .map_err(|e| FlexureError::write(path, e.to_string()))
 }
 
+/// How the chart states lengths: the grid's bin sizes in metres and the horizon's z unit
+/// (`None` for a time horizon, whose depth is in CRS units after conversion).
+struct ChartUnits {
+    /// Bin sizes along x and y, metres.
+    bin_m: (f64, f64),
+    /// Metres per CRS unit.
+    metres_per_unit: f64,
+    /// The horizon's z unit.
+    z_unit: Option<ZUnit>,
+}
+
+impl ChartUnits {
+    /// The horizon noise `sigma` (CRS units) as text in the horizon's z unit.
+    fn noise(&self, sigma: f64) -> String {
+        let metres = sigma * self.metres_per_unit;
+        match self.z_unit {
+            Some(u) => format!(
+                "horizon noise sd {} {}",
+                short(metres / u.metres()),
+                u.name()
+            ),
+            None => format!(
+                "horizon noise sd {} m (time horizon, as depth)",
+                short(metres)
+            ),
+        }
+    }
+}
+
 /// Noise (blue), detail lost (orange), RMS (grey) and difference from the adaptive map (purple)
-/// against window, log scale, with the recommendation marked; as SVG and PNG.
+/// against window, log scale labelled at round decades in the attribute's unit; windows on a
+/// linear axis in cells, with a second axis of window width in metres at round values; the
+/// recommendation marked and the horizon noise in the horizon's z unit; as SVG and PNG.
 fn stage_chart(
     base: &Path,
     s: &Study,
     attribute: &AttributeDef,
-    metres_per_unit: f64,
+    units: &ChartUnits,
 ) -> Result<Vec<StagedFile>> {
-    let (w, h) = (720u32, 510u32);
-    let (left, right, top, bottom) = (80.0f32, 690.0f32, 60.0f32, 380.0f32);
+    let (w, h) = (760u32, 580u32);
+    let (left, right, top, bottom) = (90.0f32, 720.0f32, 70.0f32, 380.0f32);
     let mut fig = Figure::new(w, h);
     fig.text(
         20.0,
@@ -433,6 +472,13 @@ fn stage_chart(
             "{}: noise and detail against window ({})",
             attribute.id, attribute.unit
         ),
+        Anchor::Start,
+    );
+    fig.text(
+        20.0,
+        top - 16.0,
+        12.0,
+        format!("{} ({}), log scale", attribute.id, attribute.unit),
         Anchor::Start,
     );
     let series: [(&str, [u8; 3], Vec<f64>); 4] = [
@@ -469,31 +515,44 @@ fn stage_chart(
             (a.min(v), b.max(v))
         });
     let (lo, hi) = (lo.floor(), hi.ceil().max(lo.floor() + 1.0));
-    let n = s.windows.len();
-    let x = |k: usize| left + (right - left) * k as f32 / (n - 1).max(1) as f32;
     let y = |v: f64| bottom - (bottom - top) * ((v.log10() - lo) / (hi - lo)) as f32;
+    let (first, last) = (
+        s.windows.first().map_or(1, |w| w.window) as f64,
+        s.windows.last().map_or(1, |w| w.window) as f64,
+    );
+    let cells = Axis::new(first, last.max(first + 1.0), left, right, 8);
+    let x = |window: usize| cells.at(window as f64);
+    for e in (lo as i32)..=(hi as i32) {
+        let decade = 10f64.powi(e);
+        let yy = y(decade);
+        fig.line(vec![(left - 4.0, yy), (right, yy)], GRID, 1.0);
+        fig.text(
+            left - 8.0,
+            yy + 4.0,
+            11.0,
+            tick_label(decade, decade),
+            Anchor::End,
+        );
+    }
     fig.line(
         vec![(left, top), (left, bottom), (right, bottom)],
         [0, 0, 0],
         1.0,
     );
-    for e in (lo as i32)..=(hi as i32) {
-        let yy = y(10f64.powi(e));
-        fig.line(vec![(left - 4.0, yy), (right, yy)], [0xdd, 0xdd, 0xdd], 1.0);
-        fig.text(left - 8.0, yy + 4.0, 11.0, format!("1e{e}"), Anchor::Middle);
-    }
-    for (k, wf) in s.windows.iter().enumerate() {
+    for wf in &s.windows {
+        let xx = x(wf.window);
+        fig.line(vec![(xx, bottom), (xx, bottom + 5.0)], [0, 0, 0], 1.0);
         fig.text(
-            x(k),
+            xx,
             bottom + 18.0,
             11.0,
             wf.window.to_string(),
             Anchor::Middle,
         );
         if wf.window == s.recommended {
-            fig.line(vec![(x(k), top), (x(k), bottom)], [0x20, 0x20, 0x20], 2.0);
+            fig.line(vec![(xx, top), (xx, bottom)], [0x20, 0x20, 0x20], 2.0);
             fig.text(
-                x(k),
+                xx,
                 top - 6.0,
                 12.0,
                 format!("recommended {}", wf.window),
@@ -503,22 +562,34 @@ fn stage_chart(
     }
     fig.text(
         (left + right) / 2.0,
-        bottom + 36.0,
+        bottom + 34.0,
         12.0,
-        "window (cells)",
+        "window (cells; the windows studied)",
         Anchor::Middle,
     );
+    let (bx, by) = units.bin_m;
+    let metres = Axis::new(first * bx, last.max(first + 1.0) * bx, left, right, 8);
+    let title = if (bx - by).abs() <= 1e-6 * bx {
+        format!("window width (m; bins {} m)", short(bx))
+    } else {
+        format!(
+            "window width along x (m; bins {} x {} m)",
+            short(bx),
+            short(by)
+        )
+    };
+    metres.draw_horizontal(&mut fig, bottom + 50.0, &title);
     for (i, (label, colour, values)) in series.iter().enumerate() {
         let points: Vec<(f32, f32)> = values
             .iter()
-            .enumerate()
-            .filter(|(_, v)| **v > 0.0 && v.is_finite())
-            .map(|(k, v)| (x(k), y(*v)))
+            .zip(&s.windows)
+            .filter(|(v, _)| **v > 0.0 && v.is_finite())
+            .map(|(v, wf)| (x(wf.window), y(*v)))
             .collect();
         if points.len() > 1 {
             fig.line(points, *colour, 2.0);
         }
-        let ly = bottom + 56.0 + 16.0 * i as f32;
+        let ly = bottom + 116.0 + 16.0 * i as f32;
         fig.marks.push(Mark::Line {
             points: vec![(left, ly - 4.0), (left + 24.0, ly - 4.0)],
             colour: *colour,
@@ -527,14 +598,11 @@ fn stage_chart(
         fig.text(left + 32.0, ly, 11.0, *label, Anchor::Start);
     }
     fig.text(
-        right - 230.0,
-        bottom + 56.0,
+        right,
+        bottom + 116.0,
         11.0,
-        format!(
-            "horizon noise sd {} m",
-            short(s.noise.sigma * metres_per_unit)
-        ),
-        Anchor::Start,
+        units.noise(s.noise.sigma),
+        Anchor::End,
     );
     stage_figure(base, &fig)
 }
@@ -604,5 +672,34 @@ impl fmt::Display for WindowStudyReport {
             writeln!(f, "wrote {}", p.display())?;
         }
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn horizon_noise_is_stated_in_the_horizons_z_unit() {
+        // The international foot is 0.3048 m exactly (its definition).
+        let units = |metres_per_unit, z_unit| ChartUnits {
+            bin_m: (25.0, 25.0),
+            metres_per_unit,
+            z_unit,
+        };
+        // A metre CRS with depths in feet: 0.6096 m of noise is 2 ft.
+        assert_eq!(
+            units(1.0, Some(ZUnit::Foot)).noise(0.6096),
+            "horizon noise sd 2 ft"
+        );
+        // A foot CRS with depths in feet: the value as it is.
+        assert_eq!(
+            units(0.3048, Some(ZUnit::Foot)).noise(1.5),
+            "horizon noise sd 1.5 ft"
+        );
+        // A time horizon is converted to depth in CRS units: stated in metres.
+        assert!(units(0.3048, None)
+            .noise(10.0)
+            .starts_with("horizon noise sd 3.048 m"));
     }
 }
