@@ -465,13 +465,22 @@ struct PlanArgs {
     /// anisotropy.tif, or the folder holding it.
     #[arg(long)]
     anisotropy: PathBuf,
-    /// Pad (heel of the lateral) X,Y in the grid's CRS.
+    /// Pad (surface location) X,Y in the grid's CRS.
     #[arg(long, value_parser = point, allow_negative_numbers = true)]
     pad: (f64, f64),
+    /// Landing point (heel) X,Y the laterals start from, when it is not under the pad.
+    #[arg(long, value_parser = point, allow_negative_numbers = true, conflicts_with = "heel_offset")]
+    heel: Option<(f64, f64)>,
+    /// Landing point as DISTANCE,AZIMUTH from the pad (CRS units, degrees from grid north).
+    #[arg(long, value_parser = point, allow_negative_numbers = true)]
+    heel_offset: Option<(f64, f64)>,
+    /// Bootstrap draws per candidate for its score interval.
+    #[arg(long, default_value_t = flexure_engine::jobs::SCORE_DRAWS)]
+    draws: usize,
     /// Lateral length, CRS units.
     #[arg(long)]
     lateral: f64,
-    /// Candidate azimuth step, degrees (0 to < 180).
+    /// Candidate azimuth step, degrees (candidates 0 to < 360 from the heel).
     #[arg(long, default_value_t = 5.0)]
     step: f64,
     #[command(flatten)]
@@ -487,6 +496,11 @@ struct PlanArgs {
 impl PlanArgs {
     fn job(&self) -> PlanJob {
         let mut job = PlanJob::new(&self.anisotropy, self.pad, self.lateral, &self.out);
+        job.heel = self.heel.or(self.heel_offset.map(|(distance, azimuth)| {
+            let (s, c) = azimuth.to_radians().sin_cos();
+            (self.pad.0 + distance * s, self.pad.1 + distance * c)
+        }));
+        job.draws = self.draws;
         job.curvature = self.corridor.curvature.clone();
         job.window = self.corridor.window;
         job.step = self.step;

@@ -212,7 +212,11 @@ fn azimuth_scan_recommends_the_perpendicular_to_the_fast_azimuth() {
     assert!(stdout.contains("best lateral azimuth 100.0"), "{stdout}");
     assert!(stdout.contains("proxy for stress"), "{stdout}");
     let rows = csv_rows(&out.join("plan.csv"));
-    assert_eq!(rows.len(), 36);
+    assert_eq!(
+        rows.len(),
+        72,
+        "every direction from the heel, every 5 degrees"
+    );
     for f in [
         "plan_scores.svg",
         "plan_scores.png",
@@ -802,6 +806,112 @@ fn thin_mixed_and_cancelling_corridors_are_flagged() {
         "{f3}"
     );
     assert_eq!(rows[3]["flag"], "");
+}
+
+/// Runs `flexure plan` from the grid centre over `a` and returns its stdout and plan.csv rows.
+fn scan(
+    a: &Path,
+    out: &Path,
+    extra: &[&str],
+) -> (String, Vec<std::collections::HashMap<String, String>>) {
+    let mut args = vec![
+        "plan",
+        "--anisotropy",
+        s(a),
+        "--pad",
+        "501500,3898500",
+        "--lateral",
+        "1200",
+        "--out",
+        s(out),
+    ];
+    args.extend(extra);
+    let o = flexure(&args);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    (
+        String::from_utf8_lossy(&o.stdout).to_string(),
+        csv_rows(&out.join("plan.csv")),
+    )
+}
+
+/// A deterministic pseudo-random number in [0, 1) for cell (r, c) and salt `k` (a hash; the
+/// tests need no particular generator).
+fn hashed(r: usize, c: usize, k: u64) -> f64 {
+    let mut x = (r as u64) << 32 ^ (c as u64) << 8 ^ k;
+    x = x.wrapping_mul(0x9E37_79B9_7F4A_7C15);
+    x ^= x >> 29;
+    x = x.wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    x ^= x >> 32;
+    (x >> 11) as f64 / (1u64 << 53) as f64
+}
+
+/// Noise-only bins: magnitudes about their own standard error, random fast azimuths with
+/// wide standard errors (what a fit of pure noise gives).
+fn noise(band: &str, r: usize, c: usize) -> f32 {
+    match band {
+        "magnitude" | "magnitude_unbiased" => (0.2 + 0.3 * hashed(r, c, 1)) as f32,
+        "azimuth_fast" => (180.0 * hashed(r, c, 2)) as f32,
+        "azimuth_slow" => ((180.0 * hashed(r, c, 2) + 90.0) % 180.0) as f32,
+        "magnitude_stderr" => 0.3,
+        "azimuth_stderr" => 35.0,
+        _ => uniform(band),
+    }
+}
+
+#[test]
+fn a_scan_picks_the_strong_side_of_the_pad_not_its_opposite() {
+    // Strong, well-measured anisotropy (fast 0, 3 ms, stderr 0.2 ms) east of the pad only
+    // (columns from 50 on; the pad is at column 50), noise-only bins west of it: the best
+    // lateral must run east (into the strong side, perpendicular to the fast azimuth), not
+    // west, though east and west are the same axis.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, r, c| {
+        if c >= 50 {
+            match b {
+                "azimuth_fast" => 0.0,
+                "azimuth_slow" => 90.0,
+                _ => uniform(b),
+            }
+        } else {
+            noise(b, r, c)
+        }
+    });
+    let (stdout, rows) = scan(&a, &d.join("plan"), &[]);
+    assert!(stdout.contains("best lateral azimuth 90.0"), "{stdout}");
+    let score = |az: &str| -> f64 {
+        rows.iter().find(|r| r["azimuth"] == az).unwrap()["score"]
+            .parse()
+            .unwrap()
+    };
+    assert!(
+        score("90") > score("270") + 0.2,
+        "east {} west {}",
+        score("90"),
+        score("270")
+    );
+}
+
+#[test]
+fn a_noise_only_field_gives_no_preferred_azimuth() {
+    // Noise-only bins everywhere: the scan must not name a confident best.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, noise);
+    let (stdout, _) = scan(&a, &d.join("plan"), &[]);
+    assert!(stdout.contains("no preferred azimuth"), "{stdout}");
+    assert!(!stdout.contains("best lateral azimuth"), "{stdout}");
+}
+
+#[test]
+fn the_heel_can_be_offset_from_the_pad() {
+    // --heel-offset 600,90 puts the heel 600 m east of the pad (elementary geometry): the
+    // candidate laterals start there.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy(d);
+    let (stdout, _) = scan(&a, &d.join("plan"), &["--heel-offset", "600,90"]);
+    assert!(stdout.contains("heel at (502100.0, 3898500.0)"), "{stdout}");
 }
 
 #[test]

@@ -1,7 +1,12 @@
-//! The drilling-azimuth scan (`PlanJob`): candidate laterals from a pad every `step` degrees,
-//! each judged by the corridor the stages job uses ([`super::stages`]), scored against the
-//! fast azimuth; writes the score table, a polar chart and the best and worst candidates as
-//! lines, all staged and committed together.
+//! The drilling-azimuth scan (`PlanJob`): candidate laterals in every direction (0 to < 360
+//! degrees every `step`) from the landing point (heel, by default the pad), since the two
+//! directions from a pad reach different rock; each judged by the corridor the stages job
+//! uses ([`super::stages`]) and scored against the fast azimuth with an interval from a
+//! bootstrap over its bins and their measurement noise ([`score_interval`]). When the best
+//! candidate's interval does not clear the worst's, or its bins' median signal to noise ratio
+//! is below [`MIN_MEDIAN_SNR`] (magnitudes indistinguishable from noise), the scan says "no
+//! preferred azimuth" rather than naming a best. Writes the score table, a polar chart and the best and worst
+//! candidates as lines, all staged and committed together.
 
 use super::stages::{
     corridor_table, number, Attributes, Corridor, CorridorRule, DEFAULT_HALF_WIDTH, MIN_BINS,
@@ -18,7 +23,7 @@ use crate::io::vector::{
 };
 use crate::io::{commit_all, prepare_output_dir, StagedFile};
 use crate::stats::circular::axial_angle;
-use crate::wells::corridor::perpendicularity_score;
+use crate::wells::corridor::{median_snr, score_interval, ScoreInterval};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
@@ -31,11 +36,15 @@ pub struct PlanJob {
     pub curvature: Option<PathBuf>,
     /// Window choosing the curvature file in a folder.
     pub window: Option<usize>,
-    /// Pad (heel) position, CRS units.
+    /// Pad (surface location), CRS units.
     pub pad: (f64, f64),
+    /// Landing point (heel) the laterals start from, CRS units; the pad when `None`.
+    pub heel: Option<(f64, f64)>,
+    /// Bootstrap draws per candidate for its score interval.
+    pub draws: usize,
     /// Lateral length, CRS units.
     pub lateral: f64,
-    /// Azimuth step, degrees (candidates 0 to < 180).
+    /// Azimuth step, degrees (candidates 0 to < 360).
     pub step: f64,
     /// Corridor half width each side of the lateral, metres.
     pub half_width: f64,
@@ -45,8 +54,13 @@ pub struct PlanJob {
     pub out_dir: PathBuf,
 }
 
-/// Share of the best score that still counts as a good azimuth.
-const GOOD_SHARE: f64 = 0.9;
+/// Level of the candidates' score intervals.
+pub const SCORE_LEVEL: f64 = 0.9;
+/// Least median signal to noise ratio of the best candidate's bins for a preferred azimuth
+/// (the anisotropy job's default for drawing a vector).
+pub const MIN_MEDIAN_SNR: f64 = 2.0;
+/// Default bootstrap draws per candidate.
+pub const SCORE_DRAWS: usize = 400;
 
 impl PlanJob {
     /// A scan with 5-degree steps and a 150 m half width.
@@ -61,6 +75,8 @@ impl PlanJob {
             curvature: None,
             window: None,
             pad,
+            heel: None,
+            draws: SCORE_DRAWS,
             lateral,
             step: 5.0,
             half_width: DEFAULT_HALF_WIDTH,
@@ -91,15 +107,23 @@ impl PlanJob {
             .as_deref()
             .map(|p| Attributes::read(p, self.window))
             .transpose()?;
-        let n = (180.0 / self.step).round() as usize;
+        let n = (360.0 / self.step).round() as usize;
         let candidates: Vec<Candidate> = (0..n)
             .map(|k| {
                 let azimuth = k as f64 * self.step;
                 let line = self.lateral_line(azimuth);
                 let c = Corridor::evaluate(&line, rule, &anisotropy, attributes.as_ref());
+                let score = score_interval(&c.bins, azimuth, SCORE_LEVEL, self.draws, k as u64)
+                    .unwrap_or(ScoreInterval {
+                        score: f64::NAN,
+                        low: f64::NAN,
+                        high: f64::NAN,
+                    });
                 Candidate {
                     azimuth,
-                    score: perpendicularity_score(&c.bins, azimuth),
+                    snr: median_snr(&c.bins),
+                    score: score.score,
+                    interval: (score.low, score.high),
                     line,
                     corridor: c,
                 }
@@ -111,20 +135,20 @@ impl PlanJob {
                 "no candidate lateral from the pad crosses a fitted bin: check --pad and --lateral",
             ));
         }
-        let scored = |c: &&Candidate| c.score.is_finite();
-        let by_score = |a: &&Candidate, b: &&Candidate| a.score.total_cmp(&b.score);
-        let (Some(best), Some(worst)) = (
-            candidates.iter().filter(scored).max_by(by_score),
-            candidates.iter().filter(scored).min_by(by_score),
-        ) else {
+        // Ties go to the smallest azimuth (the first in scan order).
+        let scored = || candidates.iter().filter(|c| c.score.is_finite());
+        let best = scored().reduce(|a, b| if b.score > a.score { b } else { a });
+        let worst = scored().reduce(|a, b| if b.score < a.score { b } else { a });
+        let (Some(best), Some(worst)) = (best, worst) else {
             return Err(FlexureError::input(
                 &anisotropy.path,
                 "every bin the candidate laterals cross has zero magnitude (no anisotropy to score against): check the anisotropy grid or move --pad",
             ));
         };
+        let preferred = best.interval.0 > worst.interval.1 && best.snr >= MIN_MEDIAN_SNR;
         let good: Vec<f64> = candidates
             .iter()
-            .filter(|c| c.score >= GOOD_SHARE * best.score)
+            .filter(|c| c.interval.1 >= best.interval.0)
             .map(|c| c.azimuth)
             .collect();
         prepare_output_dir(&self.out_dir)?;
@@ -133,7 +157,7 @@ impl PlanJob {
         let mut staged = vec![stage_bytes(&table, text.as_bytes())?];
         staged.extend(stage_figure(
             &self.out_dir.join("plan_scores"),
-            &polar_chart(&candidates, best),
+            &polar_chart(&candidates, best, preferred),
         )?);
         staged.extend(stage_candidates(
             &self.out_dir,
@@ -142,37 +166,54 @@ impl PlanJob {
         )?);
         commit_all(staged)?;
         Ok(PlanReport {
+            preferred,
             best_azimuth: best.azimuth,
             best_score: best.score,
+            best_interval: best.interval,
+            best_snr: best.snr,
             fast_azimuth: best.corridor.stats.fast_azimuth,
-            good_range: axial_range(&good, self.step),
+            good_ranges: circular_ranges(&good, self.step),
             worst_azimuth: worst.azimuth,
+            worst_interval: worst.interval,
+            heel: self.heel.unwrap_or(self.pad),
             out_dir: self.out_dir.clone(),
         })
     }
 
+    /// The lateral from the heel along `azimuth`.
     fn lateral_line(&self, azimuth: f64) -> Vec<(f64, f64)> {
+        let heel = self.heel.unwrap_or(self.pad);
         let (s, c) = azimuth.to_radians().sin_cos();
-        vec![
-            self.pad,
-            (self.pad.0 + self.lateral * s, self.pad.1 + self.lateral * c),
-        ]
+        vec![heel, (heel.0 + self.lateral * s, heel.1 + self.lateral * c)]
     }
 }
 
 struct Candidate {
     azimuth: f64,
     score: f64,
+    /// (low, high) of the score interval.
+    interval: (f64, f64),
+    /// Median signal to noise ratio of the corridor's bins.
+    snr: f64,
     line: Vec<(f64, f64)>,
     corridor: Corridor,
 }
 
 fn plan_table(candidates: &[Candidate]) -> std::result::Result<String, String> {
     corridor_table(
-        &["azimuth", "score"],
-        candidates
-            .iter()
-            .map(|c| (vec![number(c.azimuth), number(c.score)], &c.corridor)),
+        &["azimuth", "score", "score_low", "score_high", "median_snr"],
+        candidates.iter().map(|c| {
+            (
+                vec![
+                    number(c.azimuth),
+                    number(c.score),
+                    number(c.interval.0),
+                    number(c.interval.1),
+                    number(c.snr),
+                ],
+                &c.corridor,
+            )
+        }),
     )
 }
 
@@ -186,6 +227,8 @@ fn stage_candidates(
         ("pick", FieldKind::Text),
         ("azimuth", FieldKind::Real),
         ("score", FieldKind::Real),
+        ("score_low", FieldKind::Real),
+        ("score_high", FieldKind::Real),
         ("fast_azimuth", FieldKind::Real),
         ("angle_to_well", FieldKind::Real),
         ("n_bins", FieldKind::Integer),
@@ -198,6 +241,8 @@ fn stage_candidates(
                 Property::Text(pick.to_string()),
                 Property::Number(c.azimuth),
                 Property::Number(c.score),
+                Property::Number(c.interval.0),
+                Property::Number(c.interval.1),
                 Property::Number(c.corridor.stats.fast_azimuth),
                 Property::Number(c.corridor.stats.angle_to_well),
                 Property::Number(c.corridor.stats.n_bins as f64),
@@ -217,11 +262,12 @@ fn stage_candidates(
 /// division, common practice).
 const SPOKE_STEP: f64 = 30.0;
 
-/// Scores on a polar chart: radius linear in the score (0..1) at each azimuth and its opposite,
+/// Scores on a polar chart: radius linear in the score (0..1) at each azimuth drilled from the
+/// heel (the line) with its interval (shaded: dark up to the low end, light up to the high end),
 /// rings at round scores (1-2-5 steps) labelled beside the fast axis (where scores are least),
-/// spokes every 30 degrees labelled in degrees from grid north, the best candidate (black) and
-/// the mean fast azimuth along it (orange).
-fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
+/// spokes every 30 degrees labelled in degrees from grid north, the best candidate (black, when
+/// there is a preferred azimuth) and the mean fast azimuth along it (orange).
+fn polar_chart(candidates: &[Candidate], best: &Candidate, preferred: bool) -> Figure {
     let mut fig = Figure::new(540, 640);
     let (cx, cy, r) = (270.0f32, 290.0f32, 190.0f32);
     fig.text(
@@ -244,18 +290,29 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
         fig.text(x, y + 4.0, 12.0, label, Anchor::Middle);
     }
     let rings = nice_ticks(0.0, 1.0, 5);
-    let mut points: Vec<(f32, f32)> = Vec::new();
-    for offset in [0.0, 180.0] {
-        for c in candidates {
-            let s = if c.score.is_finite() { c.score } else { 0.0 };
-            points.push(polar(cx, cy, r * s as f32, c.azimuth + offset));
-        }
-    }
+    let outline = |value: &dyn Fn(&Candidate) -> f64| -> Vec<(f32, f32)> {
+        candidates
+            .iter()
+            .map(|c| {
+                let v = value(c);
+                let v = if v.is_finite() { v } else { 0.0 };
+                polar(cx, cy, r * v as f32, c.azimuth)
+            })
+            .collect()
+    };
     fig.marks.push(Mark::Polygon {
-        points,
-        fill: [0xc6, 0xdb, 0xef],
-        stroke: Some([0x21, 0x71, 0xb5]),
+        points: outline(&|c| c.interval.1),
+        fill: [0xde, 0xeb, 0xf7],
+        stroke: None,
     });
+    fig.marks.push(Mark::Polygon {
+        points: outline(&|c| c.interval.0),
+        fill: [0x9e, 0xca, 0xe1],
+        stroke: None,
+    });
+    let mut score = outline(&|c| c.score);
+    score.extend(score.first().copied());
+    fig.line(score, [0x21, 0x71, 0xb5], 1.5);
     for &ring in rings.iter().filter(|&&v| v > 0.0) {
         fig.line(
             (0..=72)
@@ -266,14 +323,13 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
         );
     }
     let fast = best.corridor.stats.fast_azimuth;
-    fig.line(
-        vec![
-            polar(cx, cy, r, best.azimuth),
-            polar(cx, cy, r, best.azimuth + 180.0),
-        ],
-        WELL_AXIS,
-        2.5,
-    );
+    if preferred {
+        fig.line(
+            vec![(cx, cy), polar(cx, cy, r, best.azimuth)],
+            WELL_AXIS,
+            2.5,
+        );
+    }
     if fast.is_finite() {
         fig.line(
             vec![polar(cx, cy, r, fast), polar(cx, cy, r, fast + 180.0)],
@@ -295,14 +351,21 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
     let mut y = 530.0;
     for (text, size) in [
         (
-            format!(
-                "best {:.0} deg (score {:.2}, black); mean fast azimuth {:.1} deg (orange)",
-                best.azimuth, best.score, fast
-            ),
+            if preferred {
+                format!(
+                    "best {:.0} deg from the heel (score {:.2}, black); mean fast azimuth {:.1} deg (orange)",
+                    best.azimuth, best.score, fast
+                )
+            } else {
+                format!("no preferred azimuth: the intervals overlap; mean fast azimuth {fast:.1} deg (orange)")
+            },
             12.0,
         ),
         (
-            "rings: score (dimensionless, 0 to 1); azimuths in degrees from grid north".to_string(),
+            format!(
+                "line: score (0 to 1) of the lateral drilled that way from the heel; shading: its {:.0}% interval",
+                100.0 * SCORE_LEVEL
+            ),
             12.0,
         ),
         (
@@ -322,61 +385,92 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate) -> Figure {
     fig
 }
 
-/// Smallest axial interval (from, to) holding every azimuth of `good` (sampled every `step`).
-fn axial_range(good: &[f64], step: f64) -> (f64, f64) {
+/// The runs of neighbouring azimuths in `good` (sampled every `step` over 0..360), each as
+/// (from, to) clockwise; a run through north wraps (e.g. (350, 10)); the whole circle is
+/// (0, 360).
+fn circular_ranges(good: &[f64], step: f64) -> Vec<(f64, f64)> {
     let mut sorted = good.to_vec();
     sorted.sort_by(f64::total_cmp);
-    let Some(&first) = sorted.first() else {
-        return (f64::NAN, f64::NAN);
-    };
-    // The largest gap between neighbours (cyclically) is outside the range.
-    let mut best_gap = (
-        sorted[0] + 180.0 - sorted[sorted.len() - 1],
-        sorted.len() - 1,
-    );
-    for k in 1..sorted.len() {
-        let gap = sorted[k] - sorted[k - 1];
-        if gap > best_gap.0 {
-            best_gap = (gap, k - 1);
+    if sorted.is_empty() {
+        return Vec::new();
+    }
+    let n_all = (360.0 / step).round() as usize;
+    if sorted.len() >= n_all {
+        return vec![(0.0, 360.0)];
+    }
+    let adjacent = |a: f64, b: f64| (b - a - step).abs() < step * 0.5;
+    let mut runs: Vec<(f64, f64)> = Vec::new();
+    for &az in &sorted {
+        match runs.last_mut() {
+            Some(run) if adjacent(run.1, az) => run.1 = az,
+            _ => runs.push((az, az)),
         }
     }
-    if best_gap.0 <= step * 1.5 && sorted.len() > 1 {
-        return (0.0, 180.0);
+    if runs.len() > 1 {
+        let (first, last) = (runs[0], runs[runs.len() - 1]);
+        if adjacent(last.1, first.0 + 360.0) {
+            runs[0] = (last.0, first.1);
+            runs.pop();
+        }
     }
-    let end = sorted[best_gap.1];
-    let start = sorted[(best_gap.1 + 1) % sorted.len()];
-    if sorted.len() == 1 {
-        (first, first)
-    } else {
-        (start, end)
-    }
+    runs
 }
 
 /// What the drilling-azimuth scan found.
 #[derive(Clone, Debug)]
 pub struct PlanReport {
-    /// Best candidate azimuth, degrees from grid north.
+    /// Whether the best candidate's score interval clears the worst's and its bins' median
+    /// signal to noise ratio reaches [`MIN_MEDIAN_SNR`]; otherwise there is no preferred
+    /// azimuth (isotropic, noisy or too little data).
+    pub preferred: bool,
+    /// Best candidate azimuth from the heel, degrees from grid north.
     pub best_azimuth: f64,
     /// Its score, 0..1.
     pub best_score: f64,
+    /// Its score interval.
+    pub best_interval: (f64, f64),
+    /// Median signal to noise ratio of its bins.
+    pub best_snr: f64,
     /// Mean fast azimuth along the best candidate.
     pub fast_azimuth: f64,
-    /// Azimuths within 10% of the best score, (from, to) clockwise (may wrap through 0).
-    pub good_range: (f64, f64),
+    /// Azimuths whose interval reaches the best's low end, as clockwise (from, to) runs.
+    pub good_ranges: Vec<(f64, f64)>,
     /// Worst candidate azimuth.
     pub worst_azimuth: f64,
+    /// Its score interval.
+    pub worst_interval: (f64, f64),
+    /// The landing point the laterals start from.
+    pub heel: (f64, f64),
     /// Output folder.
     pub out_dir: PathBuf,
 }
 
 impl fmt::Display for PlanReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        writeln!(f, "best lateral azimuth {:.1} deg from grid north (score {:.3}; mean fast azimuth {:.1}, angle {:.1} deg)", self.best_azimuth, self.best_score, self.fast_azimuth, axial_angle(self.best_azimuth, self.fast_azimuth))?;
+        let level = 100.0 * SCORE_LEVEL;
         writeln!(
             f,
-            "azimuths within 10% of the best score: {:.0} .. {:.0} deg; worst {:.0} deg",
-            self.good_range.0, self.good_range.1, self.worst_azimuth
+            "laterals from the heel at ({:.1}, {:.1}) in every direction",
+            self.heel.0, self.heel.1
         )?;
+        if self.preferred {
+            writeln!(f, "best lateral azimuth {:.1} deg from grid north (score {:.3}, {level:.0}% interval {:.3} .. {:.3}; mean fast azimuth {:.1}, angle {:.1} deg)", self.best_azimuth, self.best_score, self.best_interval.0, self.best_interval.1, self.fast_azimuth, axial_angle(self.best_azimuth, self.fast_azimuth))?;
+            let ranges: Vec<String> = self
+                .good_ranges
+                .iter()
+                .map(|(a, b)| format!("{a:.0} .. {b:.0}"))
+                .collect();
+            writeln!(
+                f,
+                "azimuths as good within the intervals: {} deg; worst {:.0} deg (score interval {:.3} .. {:.3})",
+                ranges.join(", "),
+                self.worst_azimuth,
+                self.worst_interval.0,
+                self.worst_interval.1
+            )?;
+        } else {
+            writeln!(f, "no preferred azimuth: the best candidate ({:.0} deg, score interval {:.3} .. {:.3}, median signal to noise {:.1}) does not clear the worst ({:.0} deg, {:.3} .. {:.3}) with a median signal to noise of at least {MIN_MEDIAN_SNR}; the anisotropy here is too weak, too noisy or too varied to choose a direction", self.best_azimuth, self.best_interval.0, self.best_interval.1, self.best_snr, self.worst_azimuth, self.worst_interval.0, self.worst_interval.1)?;
+        }
         writeln!(
             f,
             "wrote plan.csv, plan_scores.svg/png and plan_candidates.gpkg/geojson in {}",
@@ -388,12 +482,18 @@ impl fmt::Display for PlanReport {
 
 #[cfg(test)]
 mod tests {
-    use super::axial_range;
+    use super::circular_ranges;
 
     #[test]
-    fn axial_range_wraps_through_north() {
-        assert_eq!(axial_range(&[170.0, 175.0, 0.0, 5.0], 5.0), (170.0, 5.0));
-        assert_eq!(axial_range(&[90.0, 95.0, 100.0], 5.0), (90.0, 100.0));
-        assert_eq!(axial_range(&[90.0], 5.0), (90.0, 90.0));
+    fn ranges_of_good_azimuths_wrap_through_north() {
+        assert_eq!(
+            circular_ranges(&[350.0, 355.0, 0.0, 5.0, 170.0, 175.0], 5.0),
+            vec![(170.0, 175.0), (350.0, 5.0)]
+        );
+        assert_eq!(
+            circular_ranges(&[90.0, 95.0, 100.0], 5.0),
+            vec![(90.0, 100.0)]
+        );
+        assert_eq!(circular_ranges(&[90.0], 5.0), vec![(90.0, 90.0)]);
     }
 }

@@ -1369,6 +1369,7 @@ mod tests {
                 magnitude,
                 azimuth_fast: fast,
                 azimuth_stderr: 1.0,
+                magnitude_stderr: 0.2,
             };
             20
         ];

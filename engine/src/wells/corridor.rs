@@ -214,6 +214,18 @@ fn weighted_score<'a>(bins: impl Iterator<Item = (&'a BinSample, f64)>, azimuth:
     }
 }
 
+/// Median signal to noise ratio `B / stderr_B` of the bins whose magnitude error is known
+/// (NaN when none is).
+pub fn median_snr(bins: &[BinSample]) -> f64 {
+    let mut snr: Vec<f64> = bins
+        .iter()
+        .filter(|b| b.magnitude_stderr.is_finite() && b.magnitude_stderr > 0.0)
+        .map(|b| b.magnitude / b.magnitude_stderr)
+        .filter(|v| v.is_finite())
+        .collect();
+    crate::stats::median(&mut snr).unwrap_or(f64::NAN)
+}
+
 /// A drilling score with its interval.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct ScoreInterval {
