@@ -375,6 +375,9 @@ const RING: [u8; 3] = [0xbb, 0xbb, 0xbb];
 pub const MEAN_AXIS: [u8; 3] = [0xd9, 0x5f, 0x02];
 /// Colour of the well axis on roses.
 pub const WELL_AXIS: [u8; 3] = [0x20, 0x20, 0x20];
+/// Colour of the two trend axes of a corridor holding two azimuth populations (ColorBrewer
+/// Dark2 purple).
+pub const TREND_AXES: [u8; 3] = [0x75, 0x70, 0xb3];
 
 /// What a rose drawn by [`draw_rose`] shows besides its petals.
 #[derive(Clone, Copy, Debug)]
@@ -383,6 +386,9 @@ pub struct RoseParts {
     pub mean_axis: Option<f64>,
     /// Well axis (degrees), drawn black across the rose.
     pub well_axis: Option<f64>,
+    /// Two trend axes (degrees) when the samples hold two azimuth populations, drawn purple
+    /// instead of the mean axis.
+    pub trends: Option<[f64; 2]>,
     /// Text height of the ring labels, pixels; no labels when `None`.
     pub labels: Option<f32>,
     /// Whether N, E, S and W are written around the rose (at the ring label size).
@@ -431,8 +437,12 @@ pub fn draw_rose(
             });
         }
     }
+    let mean_axis = parts.mean_axis.filter(|_| parts.trends.is_none());
+    let [trend_a, trend_b] = parts.trends.map_or([None, None], |t| t.map(Some));
     for (axis, colour, w) in [
-        (parts.mean_axis, MEAN_AXIS, 2.5),
+        (mean_axis, MEAN_AXIS, 2.5),
+        (trend_a, TREND_AXES, 2.5),
+        (trend_b, TREND_AXES, 2.5),
         (parts.well_axis, WELL_AXIS, 1.5),
     ] {
         if let Some(a) = axis.filter(|a| a.is_finite()) {
@@ -478,14 +488,13 @@ pub fn draw_rose(
 }
 
 /// A rose of axial `samples` (orientation, weight) with `bins` petals over 0..180 on its own
-/// [`RoseScale`] (labelled rings, percent of the weight), the mean axis (orange) and the well
-/// axis (black) if given, title above and `notes` below.
+/// [`RoseScale`] (labelled rings, percent of the weight, N/E/S/W around it), the axes of
+/// `parts` (its labels and compass are set here), title above and `notes` below.
 pub fn rose(
     title: &str,
     samples: &[(f64, f64)],
     bins: usize,
-    mean_axis: Option<f64>,
-    well_axis: Option<f64>,
+    parts: RoseParts,
     notes: &[String],
 ) -> Figure {
     let (size, radius) = (360u32, ROSE_RADIUS);
@@ -495,10 +504,9 @@ pub fn rose(
     let shares = axial_shares(samples, bins);
     let scale = RoseScale::for_largest(shares.iter().copied().fold(0.0, f64::max));
     let parts = RoseParts {
-        mean_axis,
-        well_axis,
         labels: Some(12.0),
         compass: true,
+        ..parts
     };
     draw_rose(&mut fig, centre, radius, &shares, &scale, parts);
     let mut y = centre.1 + radius + 40.0;
@@ -532,8 +540,13 @@ mod tests {
             "stage 1",
             &[(30.0, 1.0), (35.0, 4.0)],
             36,
-            Some(120.0),
-            Some(90.0),
+            RoseParts {
+                mean_axis: Some(120.0),
+                well_axis: Some(90.0),
+                trends: None,
+                labels: None,
+                compass: false,
+            },
             &["n 2".into()],
         );
         let svg = fig.to_svg();

@@ -413,6 +413,7 @@ fn circular_ranges(good: &[f64], step: f64) -> Vec<(f64, f64)> {
             runs.pop();
         }
     }
+    runs.sort_by(|a, b| a.0.total_cmp(&b.0));
     runs
 }
 

@@ -19,6 +19,7 @@ use crate::io::vector::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
 };
 use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
+use crate::stats::mixture::{two_trends, TwoTrends};
 use crate::surface::horizon::{Horizon, HorizonSource};
 use crate::wells::corridor::{
     bilinear, cells_inside, circular_percentiles, corridor_stats, percentiles, BinSample,
@@ -173,6 +174,8 @@ pub(super) struct Corridor {
     ring: Vec<(f64, f64)>,
     pub(super) stats: CorridorStats,
     pub(super) bins: Vec<BinSample>,
+    /// Two azimuth populations, when the bins hold them ([`two_trends`]).
+    trends: Option<TwoTrends>,
     curvature: Vec<(String, (f64, f64, f64, f64))>,
     flags: Vec<String>,
 }
@@ -230,11 +233,23 @@ impl Corridor {
         if !bins.is_empty() && stats.fast_azimuth.is_nan() {
             flags.push("fast azimuths cancel: no mean axis".to_string());
         }
+        let samples: Vec<(f64, f64)> = bins.iter().map(|b| (b.azimuth_fast, b.magnitude)).collect();
+        let trends = two_trends(&samples);
+        if let Some(t) = &trends {
+            flags.push(format!(
+                "mixed_trends: {:.0} deg ({:.0}%) and {:.0} deg ({:.0}%)",
+                t.azimuths[0],
+                100.0 * t.shares[0],
+                t.azimuths[1],
+                100.0 * t.shares[1]
+            ));
+        }
         let curvature = attributes.map_or_else(Vec::new, |a| a.summarise(&ring));
         Self {
             ring,
             stats,
             bins,
+            trends,
             curvature,
             flags,
         }
@@ -260,6 +275,13 @@ impl Corridor {
             s.well_azimuth,
             s.angle_to_well,
         ];
+        let t = self.trends.as_ref();
+        v.extend([
+            t.map_or(f64::NAN, |t| t.azimuths[0]),
+            t.map_or(f64::NAN, |t| t.shares[0]),
+            t.map_or(f64::NAN, |t| t.azimuths[1]),
+            t.map_or(f64::NAN, |t| t.shares[1]),
+        ]);
         for (_, (mean, p10, p50, p90)) in &self.curvature {
             v.extend([*mean, *p10, *p50, *p90]);
         }
@@ -274,8 +296,9 @@ impl Corridor {
     }
 }
 
-/// Statistic columns of the stage table and the corridor layers.
-const STAT_COLUMNS: [&str; 10] = [
+/// Statistic columns of the stage table and the corridor layers (the two trends are empty
+/// unless the stage is flagged `mixed_trends`).
+const STAT_COLUMNS: [&str; 14] = [
     "n_bins",
     "fast_azimuth",
     "resultant_length",
@@ -286,6 +309,10 @@ const STAT_COLUMNS: [&str; 10] = [
     "magnitude_median",
     "well_azimuth",
     "angle_to_well",
+    "trend1_azimuth",
+    "trend1_share",
+    "trend2_azimuth",
+    "trend2_share",
 ];
 
 /// Options of the stages job.
@@ -875,8 +902,13 @@ fn stage_rose_figure(title: &str, c: &Corridor) -> Figure {
         title,
         &samples,
         ROSE_PETALS,
-        Some(s.fast_azimuth),
-        Some(s.well_azimuth),
+        RoseParts {
+            mean_axis: Some(s.fast_azimuth),
+            well_axis: Some(s.well_azimuth),
+            trends: c.trends.as_ref().map(|t| t.azimuths),
+            labels: None,
+            compass: true,
+        },
         &notes,
     )
 }
@@ -1198,6 +1230,7 @@ fn sheet(
                 RoseParts {
                     mean_axis: Some(stats.fast_azimuth),
                     well_axis: Some(stats.well_azimuth),
+                    trends: s.corridor.trends.as_ref().map(|t| t.azimuths),
                     labels: (r >= 40.0).then_some(9.0),
                     compass: false,
                 },
@@ -1277,6 +1310,7 @@ fn sheet_legend(fig: &mut Figure, scale: &RoseScale) {
     let parts = RoseParts {
         mean_axis: None,
         well_axis: None,
+        trends: None,
         labels: None,
         compass: false,
     };
@@ -1384,6 +1418,7 @@ mod tests {
                 ring: Vec::new(),
                 stats: corridor_stats(&bins, 90.0),
                 bins,
+                trends: None,
                 curvature: Vec::new(),
                 flags: Vec::new(),
             },
