@@ -218,3 +218,84 @@ fn write_band<T: GdalType + Copy>(
     band.write((0, 0), size, &mut Buffer::new(size, values))
         .map_err(|e| gdal_failure("write", e))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn rotated() -> GridGeometry {
+        GridGeometry::survey(
+            (1000.0, 5000.0),
+            115.0,
+            (25.0, 12.5),
+            (30, 20),
+            String::new(),
+        )
+    }
+
+    #[test]
+    fn north_up_pixels_take_the_cell_under_their_centre() {
+        // Each warped pixel must carry the colour of the grid cell its centre falls in,
+        // located independently through the inverse geotransform (elementary geometry);
+        // pixels within 2% of a cell edge are not checked (either neighbour is right there).
+        let g = rotated();
+        let cells = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| [r as u8, c as u8, 7, 255]);
+        let target = north_up_geometry(&g, 400.0);
+        assert_eq!(target.geo_transform[2], 0.0);
+        assert_eq!(target.geo_transform[4], 0.0);
+        let warped = warp_cells(&cells, &g, &target).unwrap();
+        let (mut inside, mut outside) = (0, 0);
+        for ((r, c), px) in warped.indexed_iter() {
+            let (x, y) = target.cell_centre(c, r);
+            let (col, row) = g.map_to_grid(x, y);
+            let near_edge = |v: f64| (v - v.round()).abs() < 0.02;
+            if near_edge(col) || near_edge(row) {
+                continue;
+            }
+            if col < 0.0 || row < 0.0 || col >= g.cols as f64 || row >= g.rows as f64 {
+                assert_eq!(px[3], 0, "pixel ({r}, {c}) outside the grid is transparent");
+                outside += 1;
+            } else {
+                assert_eq!(*px, [row as u8, col as u8, 7, 255], "pixel ({r}, {c})");
+                inside += 1;
+            }
+        }
+        assert!(
+            inside > 1000 && outside > 1000,
+            "{inside} inside, {outside} outside"
+        );
+    }
+
+    #[test]
+    fn contours_of_a_plane_lie_on_its_level_lines() {
+        // z = 0.5 x + 0.25 y on a rotated grid: the contour at level L is the straight line
+        // 0.5 x + 0.25 y = L (analytic); GDAL interpolates linearly between cell centres, which
+        // is exact on a plane. Vertices in the outer half cell (beyond the cell centres) are
+        // GDAL's closure of lines at the raster border, not interpolations, and are not checked.
+        let g = rotated();
+        let z = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+            let (x, y) = g.cell_centre(c, r);
+            0.5 * (x - 1000.0) + 0.25 * (y - 5000.0)
+        });
+        let lines = contour_lines(&z, &g, 20.0).unwrap();
+        assert!(lines.len() > 5);
+        let mut checked = 0;
+        for (level, line) in &lines {
+            assert_eq!(level.rem_euclid(20.0), 0.0, "level {level}");
+            for &(x, y) in line {
+                let (col, row) = g.map_to_grid(x, y);
+                let inside = |v: f64, n: usize| v >= 0.5 - 1e-9 && v <= n as f64 - 0.5 + 1e-9;
+                if !(inside(col, g.cols) && inside(row, g.rows)) {
+                    continue;
+                }
+                let v = 0.5 * (x - 1000.0) + 0.25 * (y - 5000.0);
+                assert!(
+                    (v - level).abs() < 1e-6,
+                    "vertex value {v} on contour {level}"
+                );
+                checked += 1;
+            }
+        }
+        assert!(checked > 100, "{checked} vertices checked");
+    }
+}

@@ -689,7 +689,10 @@ mod tests {
             band: "k_pos (1/km)".into(),
             scale,
             vectors: Some(("vectors".into(), 40.0)),
+            notes: vec!["wells".into()],
+            scale_bar: (5.0, "m".into()),
             north_in_picture: 25.0,
+            map_ticks: None,
             extent: vec!["extent".into()],
         };
         let page = quicklook(&map, &legend);
@@ -699,6 +702,51 @@ mod tests {
             .filter(|&(x, y)| page.pixel(x, y).unwrap().red() < 100)
             .count();
         assert!(dark > 20, "{dark} dark title pixels");
+    }
+
+    #[test]
+    fn scale_bars_are_round_and_fit() {
+        // The 1-2-5 rule (Heckbert 1990): the length is 1, 2 or 5 times a power of ten and
+        // between 40% and 100% of the room.
+        for room in [37.0, 200.0, 999.0, 1234.5, 0.8, 86_000.0] {
+            let length = scale_bar_length(room);
+            assert!(
+                length >= 0.4 * room && length <= room,
+                "{length} for {room}"
+            );
+            let mantissa = length / 10f64.powf(length.log10().floor());
+            assert!(
+                [1.0, 2.0, 5.0].iter().any(|m| (mantissa - m).abs() < 1e-9),
+                "{length}"
+            );
+        }
+        assert_eq!(distance_label(2000.0, "m"), "2 km");
+        assert_eq!(distance_label(500.0, "m"), "500 m");
+        assert_eq!(distance_label(2000.0, "ft"), "2000 ft");
+    }
+
+    #[test]
+    fn picture_geometry_subdivides_the_grid() {
+        // A grid subdivided K times has the grid's origin and each pixel term divided by K
+        // (elementary geometry): pixel (K i, K j) is cell (i, j)'s corner.
+        let g = GridGeometry::survey(
+            (1000.0, 5000.0),
+            115.0,
+            (25.0, 12.5),
+            (30, 20),
+            String::new(),
+        );
+        let p = picture_geometry(&g, (4.0, 4.0));
+        assert_eq!((p.cols, p.rows), (120, 80));
+        for (i, j) in [(0, 0), (3, 7), (30, 20)] {
+            let cell = g.geo_transform;
+            let (x, y) = (
+                cell[0] + i as f64 * cell[1] + j as f64 * cell[2],
+                cell[3] + i as f64 * cell[4] + j as f64 * cell[5],
+            );
+            let (c, r) = p.map_to_grid(x, y);
+            assert!((c - 4.0 * i as f64).abs() < 1e-9 && (r - 4.0 * j as f64).abs() < 1e-9);
+        }
     }
 
     #[test]
