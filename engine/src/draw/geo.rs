@@ -100,13 +100,23 @@ fn warp(
     ))
 }
 
+/// One contour line: its level (z units) and vertices (CRS units).
+#[derive(Clone, Debug, PartialEq)]
+pub struct ContourLine {
+    /// The value along the line.
+    pub level: f64,
+    /// Vertices (x, y), CRS units.
+    pub points: Vec<(f64, f64)>,
+}
+
 /// Contour lines of `z` (NaN nulls) on `geometry` at every multiple of `interval` (z units),
-/// from GDAL's contour generator; each line is its vertices in CRS units, with its level.
+/// from GDAL's contour generator (linear interpolation between cell centres; lines reaching
+/// the grid's border are closed at it).
 pub fn contour_lines(
     z: &Array2<f64>,
     geometry: &GridGeometry,
     interval: f64,
-) -> Result<Vec<(f64, Vec<(f64, f64)>)>> {
+) -> Result<Vec<ContourLine>> {
     capture_gdal_messages();
     take_gdal_messages();
     contours(z, geometry, interval)
@@ -117,7 +127,7 @@ fn contours(
     z: &Array2<f64>,
     geometry: &GridGeometry,
     interval: f64,
-) -> std::result::Result<Vec<(f64, Vec<(f64, f64)>)>, String> {
+) -> std::result::Result<Vec<ContourLine>, String> {
     /// Stands for a null cell in the in-memory raster GDAL contours.
     const NULL: f64 = -1.0e30;
     let (rows, cols) = z.dim();
@@ -159,7 +169,7 @@ fn contours(
     let status = unsafe {
         gdal_sys::GDALContourGenerateEx(
             band.c_rasterband(),
-            layer.c_layer() as *mut std::ffi::c_void,
+            layer.c_layer(),
             options.as_ptr(),
             None,
             std::ptr::null_mut(),
@@ -179,7 +189,10 @@ fn contours(
             .map_err(|e| gdal_failure("level", e))?
             .unwrap_or(f64::NAN);
         if let Some(g) = feature.geometry() {
-            lines.push((level, vertices(g)));
+            lines.push(ContourLine {
+                level,
+                points: vertices(g),
+            });
         }
     }
     gdal_outcome()?;
@@ -280,9 +293,9 @@ mod tests {
         let lines = contour_lines(&z, &g, 20.0).unwrap();
         assert!(lines.len() > 5);
         let mut checked = 0;
-        for (level, line) in &lines {
+        for ContourLine { level, points } in &lines {
             assert_eq!(level.rem_euclid(20.0), 0.0, "level {level}");
-            for &(x, y) in line {
+            for &(x, y) in points {
                 let (col, row) = g.map_to_grid(x, y);
                 let inside = |v: f64, n: usize| v >= 0.5 - 1e-9 && v <= n as f64 - 0.5 + 1e-9;
                 if !(inside(col, g.cols) && inside(row, g.rows)) {

@@ -343,7 +343,7 @@ impl RenderJob {
             check_contour_levels(path, &stored, interval, &unit)?;
             shade.contours = contour_lines(&stored, &g, interval)?
                 .into_iter()
-                .map(|(_, line)| line)
+                .map(|line| line.points)
                 .collect();
             shade.contour_note = Some(format!(
                 "contours every {} {} of {}",
