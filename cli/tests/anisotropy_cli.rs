@@ -403,6 +403,30 @@ fn render_bad_inputs_fail_cleanly() {
             vec!["render", "--attribute", a, "--out", m, "--png", m],
             "two outputs of this run have this file name: the map (--out) and the quicklook (--png)",
         ),
+        (
+            vec!["render", "--attribute", a, "--pixels-per-cell", "0", "--out", m],
+            "--pixels-per-cell must be at least 1",
+        ),
+        // A folder without the stages command's layers.
+        (
+            vec!["render", "--attribute", a, "--wells", d.to_str().unwrap(), "--out", m],
+            "holds neither well_paths nor stage_corridors",
+        ),
+        // A file that is no vector layer.
+        (
+            vec!["render", "--attribute", a, "--wells", blocker.to_str().unwrap(), "--out", m],
+            "cannot be opened as a vector file",
+        ),
+        (
+            vec!["render", "--attribute", a, "--contour-interval", "5", "--out", m],
+            "give --shade too",
+        ),
+        (
+            vec![
+                "render", "--attribute", a, "--shade", a, "--shade-velocity", "2500", "--out", m,
+            ],
+            "give --exaggeration too",
+        ),
     ];
     for (args, expect) in cases {
         let msg = fails(&args, &out);
