@@ -452,14 +452,21 @@ fn quicklooks_of_grids_whose_rows_run_north_are_not_mirrored() {
     let up = down.rows_reversed();
     assert!(up.mirrored_in_pictures() && !down.mirrored_in_pictures());
     let flipped = values.slice(ndarray::s![..;-1, ..]).to_owned();
-    let pictures: Vec<Vec<u8>> = [("down", &down, values), ("up", &up, flipped)]
+    // Both orientations: survey (the stored rows drawn last first) and north-up (warped).
+    for orientation in [None, Some("--north-up")] {
+        let pictures: Vec<Vec<u8>> = [
+            ("down", &down, values.clone()),
+            ("up", &up, flipped.clone()),
+        ]
         .into_iter()
         .map(|(name, g, v)| {
-            let folder = dir.path().join(name);
+            let folder = dir
+                .path()
+                .join(format!("{name}{}", orientation.unwrap_or("")));
             std::fs::create_dir_all(&folder).unwrap();
             let input = write_bands(&folder, "k.tif", g, vec![v]);
             let (map, png) = (folder.join("map.tif"), folder.join("map.png"));
-            let o = flexure(&[
+            let mut args = vec![
                 "render",
                 "--attribute",
                 input.to_str().unwrap(),
@@ -467,10 +474,16 @@ fn quicklooks_of_grids_whose_rows_run_north_are_not_mirrored() {
                 map.to_str().unwrap(),
                 "--png",
                 png.to_str().unwrap(),
-            ]);
+            ];
+            args.extend(orientation);
+            let o = flexure(&args);
             assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
             std::fs::read(&png).unwrap()
         })
         .collect();
-    assert!(pictures[0] == pictures[1], "the quicklooks differ");
+        assert!(
+            pictures[0] == pictures[1],
+            "the {orientation:?} quicklooks differ"
+        );
+    }
 }

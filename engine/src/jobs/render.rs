@@ -561,11 +561,18 @@ impl RenderJob {
             (cells_to_pixmap(cells, px), picture_geometry(geometry, px))
         };
         draw_overlay(&mut map, &picture, overlay, QUICKLOOK_WEIGHT);
-        let legend = self.legend(geometry, &picture, parts);
+        // Corners as a survey-orientation picture shows them (rows last first when mirrored).
+        let shown = if geometry.mirrored_in_pictures() {
+            geometry.rows_reversed()
+        } else {
+            geometry.clone()
+        };
+        let legend = self.legend(&shown, &picture, parts);
         stage_png(path, &quicklook(&map, &legend))
     }
 
-    /// The quicklook's texts for a map of `geometry` drawn as `picture` (one pixel per cell).
+    /// The quicklook's texts for a map of `geometry` (as a survey-orientation picture shows
+    /// it) drawn as `picture` (one pixel per cell).
     fn legend(
         &self,
         geometry: &GridGeometry,
@@ -623,6 +630,11 @@ impl RenderJob {
             )
         };
         let (cols, rows) = (geometry.cols, geometry.rows);
+        let corners = if self.north_up {
+            "survey grid corners as drawn without --north-up, CRS units"
+        } else {
+            "corners, CRS units"
+        };
         let orientation = if self.north_up {
             "drawn north-up (warped for display by GDAL; the map raster stays on the survey grid)"
         } else {
@@ -638,7 +650,7 @@ impl RenderJob {
             north_in_picture: (c1 - c0).atan2(-(r1 - r0)).to_degrees(),
             map_ticks: self.north_up.then_some(picture.geo_transform),
             extent: vec![
-                format!("grid corners, CRS units: first cell {}  end of first row {}  end of first column {}  last cell {}", corner(0, 0), corner(cols, 0), corner(0, rows), corner(cols, rows)),
+                format!("{corners}: top-left {}  top-right {}  bottom-left {}  bottom-right {}", corner(0, 0), corner(cols, 0), corner(0, rows), corner(cols, rows)),
                 format!("{}; {}; {orientation}", crs_name(geometry), geometry.describe()),
                 "flexure informs interpretation; it does not replace geomechanical studies, licensed professionals or local regulations.".into(),
             ],
