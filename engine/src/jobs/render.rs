@@ -925,3 +925,49 @@ impl fmt::Display for RenderReport {
         Ok(())
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn titles_name_the_horizon_a_curvature_output_records() {
+        // The curvature job's provenance (Provenance::of_inputs with the horizon first, plus
+        // its domain) names the horizon; a raster without it is named by its file stem.
+        let dir = tempfile::tempdir().unwrap();
+        let horizon = dir.path().join("top_marl.tif");
+        std::fs::write(&horizon, b"any bytes").unwrap();
+        let provenance = Provenance::of_inputs(&[horizon.as_path()])
+            .unwrap()
+            .with("domain", "depth");
+        let curvature = RasterInfo {
+            names: vec!["k_pos".into()],
+            units: vec!["1/km".into()],
+            metadata: provenance.items().to_vec(),
+        };
+        let attribute = Path::new("out/top_marl_w09.tif");
+        assert_eq!(source_name(&curvature, attribute), "horizon top_marl");
+        let other = RasterInfo {
+            metadata: Vec::new(),
+            ..curvature
+        };
+        assert_eq!(source_name(&other, attribute), "top_marl_w09");
+    }
+
+    #[test]
+    fn default_pixels_per_cell_aims_at_2000_pixels() {
+        // K = clamp(round(2000 / longer side), 1, 8).
+        let g = |cols, rows| GridGeometry {
+            cols,
+            rows,
+            geo_transform: [0.0, 25.0, 0.0, 0.0, 0.0, -25.0],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        assert_eq!(default_pixels_per_cell(&g(30, 20)), 8);
+        assert_eq!(default_pixels_per_cell(&g(180, 300)), 7);
+        assert_eq!(default_pixels_per_cell(&g(400, 100)), 5);
+        assert_eq!(default_pixels_per_cell(&g(1500, 900)), 1);
+        assert_eq!(default_pixels_per_cell(&g(8192, 8192)), 1);
+    }
+}
