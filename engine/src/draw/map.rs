@@ -287,19 +287,21 @@ pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
         .flat_map(|l| wrap_to(&text, l, 12.0, line_room))
         .collect();
     let top = 16 + TITLE_LINE * title.len() as u32 + 14;
-    let panel_height = 600;
+    let (panel, panel_height) = legend_panel(&text, legend);
     let body = (map.height() + under).max(panel_height);
     let height = top + body + MARGIN + FOOTER_LINE * footer.len() as u32;
     let mut page = Pixmap::new(width, height).expect("non-empty page");
     page.fill(Color::WHITE);
-    page.draw_pixmap(
-        left as i32,
-        top as i32,
-        map.as_ref(),
-        &tiny_skia::PixmapPaint::default(),
-        Transform::identity(),
-        None,
-    );
+    for (picture, x) in [(map, left), (&panel, left + map.width() + MARGIN)] {
+        page.draw_pixmap(
+            x as i32,
+            top as i32,
+            picture.as_ref(),
+            &tiny_skia::PixmapPaint::default(),
+            Transform::identity(),
+            None,
+        );
+    }
     for (k, line) in title.iter().enumerate() {
         let y = 16.0 + TITLE_SIZE + (TITLE_LINE * k as u32) as f32;
         text.draw(&mut page, line, MARGIN as f32, y, TITLE_SIZE);
@@ -307,45 +309,53 @@ pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
     if let Some(gt) = &legend.map_ticks {
         map_frame(&mut page, &text, gt, (left, top), map);
     }
-    let x0 = (left + map.width() + MARGIN) as f32;
-    let mut y = top as f32 + 14.0;
-    text.draw(&mut page, &legend.band, x0, y, 15.0);
-    y += 10.0;
-    y = colour_bar(&mut page, &text, &legend.scale, x0, y);
-    text.draw(&mut page, legend.scale.palette_name(), x0, y, 11.0);
-    y += 16.0;
-    let paragraph = |page: &mut Pixmap, y: &mut f32, s: &str| {
-        for line in wrap_to(&text, s, 11.0, (PANEL_WIDTH - MARGIN) as f32) {
-            text.draw(page, &line, x0, *y, 11.0);
-            *y += 15.0;
-        }
-    };
-    paragraph(&mut page, &mut y, &legend.scale.clip_note);
-    if let Some((note, bar)) = &legend.vectors {
-        y += 14.0;
-        segment_bar(&mut page, x0, y, *bar);
-        y += 22.0;
-        paragraph(&mut page, &mut y, note);
-    }
-    for note in &legend.notes {
-        y += 6.0;
-        paragraph(&mut page, &mut y, note);
-    }
-    y += 16.0;
-    y = scale_bar(&mut page, &text, &legend.scale_bar, x0, y);
-    north_arrow(
-        &mut page,
-        &text,
-        x0 + 40.0,
-        y + 60.0,
-        legend.north_in_picture,
-    );
     let mut fy = (top + body + MARGIN) as f32;
     for line in &footer {
         text.draw(&mut page, line, MARGIN as f32, fy, 12.0);
         fy += FOOTER_LINE as f32;
     }
     page
+}
+
+/// The legend panel on a transparent pixmap [`PANEL_WIDTH`] wide, and the height its
+/// contents take (so the page is made tall enough for them whatever the map's height).
+fn legend_panel(text: &Text, legend: &Legend) -> (Pixmap, u32) {
+    const ROOM: u32 = 4000;
+    let mut panel = Pixmap::new(PANEL_WIDTH, ROOM).expect("non-empty panel");
+    let x0 = 4.0;
+    let mut y = 14.0;
+    text.draw(&mut panel, &legend.band, x0, y, 15.0);
+    y += 10.0;
+    y = colour_bar(&mut panel, text, &legend.scale, x0, y);
+    text.draw(&mut panel, legend.scale.palette_name(), x0, y, 11.0);
+    y += 16.0;
+    let paragraph = |panel: &mut Pixmap, y: &mut f32, s: &str| {
+        for line in wrap_to(text, s, 11.0, (PANEL_WIDTH - MARGIN) as f32) {
+            text.draw(panel, &line, x0, *y, 11.0);
+            *y += 15.0;
+        }
+    };
+    paragraph(&mut panel, &mut y, &legend.scale.clip_note);
+    if let Some((note, bar)) = &legend.vectors {
+        y += 14.0;
+        segment_bar(&mut panel, x0, y, *bar);
+        y += 22.0;
+        paragraph(&mut panel, &mut y, note);
+    }
+    for note in &legend.notes {
+        y += 6.0;
+        paragraph(&mut panel, &mut y, note);
+    }
+    y += 16.0;
+    y = scale_bar(&mut panel, text, &legend.scale_bar, x0, y);
+    north_arrow(
+        &mut panel,
+        text,
+        x0 + 40.0,
+        y + 60.0,
+        legend.north_in_picture,
+    );
+    (panel, ((y + 130.0) as u32).min(ROOM))
 }
 
 /// A frame round a north-up map at `origin` on the page, with ticks and labels at round map
