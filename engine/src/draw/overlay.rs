@@ -1,6 +1,6 @@
 //! Marks drawn over a map picture, given in map coordinates (CRS units) and placed through the
 //! picture's own geotransform: horizon contours, anisotropy vectors, stage corridor outlines,
-//! well paths, stage numbers and well names. Every line is a near-black core over a thin light
+//! well paths, stage numbers, well names and contour levels. Every line is a near-black core over a thin light
 //! halo (anti-aliased, round caps), and every label near-black text over a white halo, so the
 //! marks read on every colour map while covering little of it.
 
@@ -43,6 +43,8 @@ pub struct Overlay {
     pub stage_labels: Vec<MapLabel>,
     /// Well names, beside the first point of each path.
     pub well_labels: Vec<MapLabel>,
+    /// Contour levels, centred on points of their lines.
+    pub contour_labels: Vec<MapLabel>,
 }
 
 /// Core width of vectors and corridor outlines at weight 1, pixels.
@@ -57,7 +59,8 @@ pub const LABEL_SIZE: f32 = 11.0;
 /// Draws `overlay` on `pixmap`, a picture whose pixel (i, j) is cell (i, j) of `picture`
 /// (the picture's geotransform maps its pixels to CRS units). `weight` scales the line widths
 /// and label size (1 for map rasters, more for quicklooks). Labels that would overlap one
-/// already written (well names first) or fall outside the picture are left out.
+/// already written (well names first, then stage numbers, then contour levels) or fall outside
+/// the picture are left out.
 pub fn draw_overlay(pixmap: &mut Pixmap, picture: &GridGeometry, overlay: &Overlay, weight: f32) {
     let to_pixel = |p: (f64, f64)| {
         let (col, row) = picture.map_to_grid(p.0, p.1);
@@ -122,7 +125,7 @@ pub fn draw_overlay(pixmap: &mut Pixmap, picture: &GridGeometry, overlay: &Overl
     for label in &overlay.well_labels {
         place(pixmap, label, false);
     }
-    for label in &overlay.stage_labels {
+    for label in overlay.stage_labels.iter().chain(&overlay.contour_labels) {
         place(pixmap, label, true);
     }
 }

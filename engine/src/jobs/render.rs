@@ -11,12 +11,13 @@ use crate::anisotropy::vectors::{
     default_vector_scale, segment, vector_bins, VectorAxis, VectorSample,
 };
 use crate::draw::colour::{short, Clip, ColourScale};
-use crate::draw::geo::{contour_lines, north_up_geometry, warp_cells};
+use crate::draw::geo::{contour_lines, north_up_geometry, warp_cells, ContourLine};
 use crate::draw::map::{
     cells_to_pixmap, colour_cells, hillshade, picture_geometry, picture_scale, pixmap_bands,
     quicklook, Legend,
 };
 use crate::draw::overlay::{draw_overlay, ring_centre, MapLabel, MapSegment, Overlay};
+use crate::draw::ticks::tick_label;
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::points::is_point_list;
@@ -45,6 +46,9 @@ const MAP_RASTER_SIZE: f64 = 2000.0;
 const MAX_DEFAULT_PIXELS_PER_CELL: usize = 8;
 /// Most pixels along either side of the map raster.
 const MAX_MAP_RASTER_SIDE: usize = 40_000;
+/// Least length of a contour line that gets a level label, as a share of the map's longer
+/// side.
+const LABELLED_CONTOUR_SHARE: f64 = 0.1;
 /// Most contour levels a `--contour-interval` may give over the shade horizon's range.
 const MAX_CONTOUR_LEVELS: f64 = 400.0;
 /// Line weight of overlays on the quicklook (map rasters: 1).
@@ -180,6 +184,7 @@ impl RenderJob {
         let cells = colour_cells(values, &scale, shade.light.as_ref());
         let overlay = Overlay {
             contours: shade.contours.clone(),
+            contour_labels: shade.contour_labels.clone(),
             vectors: vectors
                 .as_ref()
                 .map_or_else(Vec::new, |v| v.segments.clone()),
@@ -341,10 +346,9 @@ impl RenderJob {
         };
         if let Some(interval) = self.contour_interval {
             check_contour_levels(path, &stored, interval, &unit)?;
-            shade.contours = contour_lines(&stored, &g, interval)?
-                .into_iter()
-                .map(|line| line.points)
-                .collect();
+            let lines = contour_lines(&stored, &g, interval)?;
+            shade.contour_labels = contour_labels(&lines, &g, interval);
+            shade.contours = lines.into_iter().map(|line| line.points).collect();
             shade.contour_note = Some(format!(
                 "contours every {} {} of {}",
                 short(interval),
@@ -663,6 +667,7 @@ impl RenderJob {
 struct Shade {
     light: Option<Array2<f64>>,
     contours: Vec<Vec<(f64, f64)>>,
+    contour_labels: Vec<MapLabel>,
     how: Option<String>,
     contour_note: Option<String>,
     notes: Vec<String>,
@@ -685,6 +690,37 @@ fn check_raster_size(geometry: &GridGeometry, k: usize) -> Result<()> {
         )));
     }
     Ok(())
+}
+
+/// Level labels of the contour lines at least [`LABELLED_CONTOUR_SHARE`] of the map's longer
+/// side long, each at the vertex half way along its line; written with the decimals of the
+/// interval.
+fn contour_labels(lines: &[ContourLine], geometry: &GridGeometry, interval: f64) -> Vec<MapLabel> {
+    let (sx, sy) = geometry.spacing();
+    let longest = (geometry.cols as f64 * sx).max(geometry.rows as f64 * sy);
+    lines
+        .iter()
+        .filter_map(|line| {
+            let steps: Vec<f64> = line
+                .points
+                .windows(2)
+                .map(|w| (w[1].0 - w[0].0).hypot(w[1].1 - w[0].1))
+                .collect();
+            let length: f64 = steps.iter().sum();
+            if length < LABELLED_CONTOUR_SHARE * longest {
+                return None;
+            }
+            let mut run = 0.0;
+            let half = steps.iter().position(|s| {
+                run += s;
+                run >= length / 2.0
+            })?;
+            Some(MapLabel {
+                text: tick_label(line.level, interval),
+                at: line.points[half + 1],
+            })
+        })
+        .collect()
 }
 
 /// Refuses a contour interval that would draw more than [`MAX_CONTOUR_LEVELS`] levels.
@@ -952,6 +988,31 @@ mod tests {
             ..curvature
         };
         assert_eq!(source_name(&other, attribute), "top_marl_w09");
+    }
+
+    #[test]
+    fn long_contours_are_labelled_with_their_level_on_the_line() {
+        // z = x / 10 (m) over a 40 x 30 grid of 25 m bins: contours every 5 m are straight
+        // north-south lines 750 m long (analytic), longer than a tenth of the 1000 m map, so
+        // each is labelled once, at the middle of its line (y near the map's centre), with its
+        // level in the interval's decimals.
+        let g = GridGeometry {
+            cols: 40,
+            rows: 30,
+            geo_transform: [0.0, 25.0, 0.0, 750.0, 0.0, -25.0],
+            crs_wkt: String::new(),
+            metres_per_unit: 1.0,
+        };
+        let z = Array2::from_shape_fn((30, 40), |(r, c)| g.cell_centre(c, r).0 / 10.0);
+        let lines = contour_lines(&z, &g, 5.0).unwrap();
+        let labels = contour_labels(&lines, &g, 5.0);
+        assert_eq!(labels.len(), lines.len());
+        for (label, line) in labels.iter().zip(&lines) {
+            assert_eq!(label.text, format!("{}", line.level));
+            // On the level line x = 10 L, to GDAL's interpolation round-off (0.1 mm).
+            assert!((label.at.0 - 10.0 * line.level).abs() < 1e-4, "{label:?}");
+            assert!((label.at.1 - 375.0).abs() <= 25.0, "{label:?}");
+        }
     }
 
     #[test]
