@@ -20,7 +20,7 @@ pub use anisotropy::{
 pub use curvature::{CurvatureJob, CurvatureReport, WindowReport};
 pub use grid::{GridJob, GridReport};
 pub use plan::{PlanJob, PlanReport};
-pub use render::{RenderJob, RenderReport};
+pub use render::{default_pixels_per_cell, RenderJob, RenderReport};
 pub use sector_times::{
     SectorTimesJob, SectorTimesReport, TimeUnit, DEFAULT_HALF_WINDOW_MS, DEFAULT_MAX_SHIFT_MS,
     DEFAULT_TRACE_TOLERANCE,

@@ -673,10 +673,9 @@ struct Shade {
     notes: Vec<String>,
 }
 
-/// Pixels per cell of the map raster when none is given: about [`MAP_RASTER_SIZE`] pixels
-/// on the grid's longer side, at least 1 and at most [`MAX_DEFAULT_PIXELS_PER_CELL`] (so
-/// vectors and wells are drawn legibly on small grids and large grids stay one pixel per
-/// cell).
+/// Pixels per cell of the map raster when none is given: about 2000 pixels on the grid's
+/// longer side, `clamp(round(2000 / longer side), 1, 8)` (so vectors and wells are drawn
+/// legibly on small grids and large grids stay one pixel per cell).
 pub fn default_pixels_per_cell(geometry: &GridGeometry) -> usize {
     let longest = geometry.cols.max(geometry.rows).max(1) as f64;
     ((MAP_RASTER_SIZE / longest).round() as usize).clamp(1, MAX_DEFAULT_PIXELS_PER_CELL)
