@@ -559,9 +559,33 @@ struct RenderArgs {
     /// RGBA GeoTIFF to write, on the attribute's grid.
     #[arg(short = 'o', long)]
     out: PathBuf,
-    /// PNG quicklook with colour bar, vector scale, north arrow and extent.
+    /// PNG quicklook with colour bar, vector scale, scale bar, north arrow and extent.
     #[arg(long)]
     png: Option<PathBuf>,
+    /// Pixels per cell of the RGBA GeoTIFF (same origin and rotation, pixel size = bin / K);
+    /// default about 2000 pixels on the longer side, 1 to 8.
+    #[arg(long, value_name = "K")]
+    pixels_per_cell: Option<usize>,
+    /// Wells to draw on both outputs: a stages output folder (well_paths, stage_corridors) or
+    /// a GeoPackage/GeoJSON file of well paths (lines, field `well`) or stage corridors
+    /// (polygons, field `stage`). Repeatable.
+    #[arg(long, value_name = "PATH")]
+    wells: Vec<PathBuf>,
+    /// Draw the quicklook north-up (warped for display, map-coordinate ticks); default survey
+    /// orientation. The GeoTIFF always stays on the survey grid.
+    #[arg(long)]
+    north_up: bool,
+    /// Contour the shade horizon every INTERVAL, in its stored unit (e.g. ms or m).
+    #[arg(long, value_name = "INTERVAL")]
+    contour_interval: Option<f64>,
+    /// Vertical exaggeration of the relief shading, of the shade horizon as depth in metres
+    /// (feet are converted; a time horizon needs --shade-velocity, else it is refused);
+    /// default automatic (steepest 5% of slopes lit as 30 degrees).
+    #[arg(long)]
+    exaggeration: Option<f64>,
+    /// Average velocity (m/s) converting a time shade horizon to depth for --exaggeration.
+    #[arg(long, value_name = "M_PER_S")]
+    shade_velocity: Option<f64>,
     /// Print nothing but errors.
     #[arg(short, long)]
     quiet: bool,
@@ -590,6 +614,12 @@ impl RenderArgs {
         job.min_snr = self.min_snr;
         job.vector_scale = self.vector_scale;
         job.png = self.png.clone();
+        job.pixels_per_cell = self.pixels_per_cell;
+        job.wells = self.wells.clone();
+        job.north_up = self.north_up;
+        job.contour_interval = self.contour_interval;
+        job.exaggeration = self.exaggeration;
+        job.shade_velocity = self.shade_velocity;
         Ok(job)
     }
 }

@@ -403,6 +403,30 @@ fn render_bad_inputs_fail_cleanly() {
             vec!["render", "--attribute", a, "--out", m, "--png", m],
             "two outputs of this run have this file name: the map (--out) and the quicklook (--png)",
         ),
+        (
+            vec!["render", "--attribute", a, "--pixels-per-cell", "0", "--out", m],
+            "--pixels-per-cell must be at least 1",
+        ),
+        // A folder without the stages command's layers.
+        (
+            vec!["render", "--attribute", a, "--wells", d.to_str().unwrap(), "--out", m],
+            "holds neither well_paths nor stage_corridors",
+        ),
+        // A file that is no vector layer.
+        (
+            vec!["render", "--attribute", a, "--wells", blocker.to_str().unwrap(), "--out", m],
+            "cannot be opened as a vector file",
+        ),
+        (
+            vec!["render", "--attribute", a, "--contour-interval", "5", "--out", m],
+            "give --shade too",
+        ),
+        (
+            vec![
+                "render", "--attribute", a, "--shade", a, "--shade-velocity", "2500", "--out", m,
+            ],
+            "give --exaggeration too",
+        ),
     ];
     for (args, expect) in cases {
         let msg = fails(&args, &out);
@@ -428,14 +452,21 @@ fn quicklooks_of_grids_whose_rows_run_north_are_not_mirrored() {
     let up = down.rows_reversed();
     assert!(up.mirrored_in_pictures() && !down.mirrored_in_pictures());
     let flipped = values.slice(ndarray::s![..;-1, ..]).to_owned();
-    let pictures: Vec<Vec<u8>> = [("down", &down, values), ("up", &up, flipped)]
+    // Both orientations: survey (the stored rows drawn last first) and north-up (warped).
+    for orientation in [None, Some("--north-up")] {
+        let pictures: Vec<Vec<u8>> = [
+            ("down", &down, values.clone()),
+            ("up", &up, flipped.clone()),
+        ]
         .into_iter()
         .map(|(name, g, v)| {
-            let folder = dir.path().join(name);
+            let folder = dir
+                .path()
+                .join(format!("{name}{}", orientation.unwrap_or("")));
             std::fs::create_dir_all(&folder).unwrap();
             let input = write_bands(&folder, "k.tif", g, vec![v]);
             let (map, png) = (folder.join("map.tif"), folder.join("map.png"));
-            let o = flexure(&[
+            let mut args = vec![
                 "render",
                 "--attribute",
                 input.to_str().unwrap(),
@@ -443,10 +474,16 @@ fn quicklooks_of_grids_whose_rows_run_north_are_not_mirrored() {
                 map.to_str().unwrap(),
                 "--png",
                 png.to_str().unwrap(),
-            ]);
+            ];
+            args.extend(orientation);
+            let o = flexure(&args);
             assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
             std::fs::read(&png).unwrap()
         })
         .collect();
-    assert!(pictures[0] == pictures[1], "the quicklooks differ");
+        assert!(
+            pictures[0] == pictures[1],
+            "the {orientation:?} quicklooks differ"
+        );
+    }
 }

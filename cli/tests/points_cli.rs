@@ -614,7 +614,7 @@ fn centimetre_exports_share_the_grid_of_their_geotiff() {
 fn render_draws_a_named_column_of_a_point_list() {
     // A point list with two value columns, depth and twt: `render --band twt` draws the twt
     // column on the list's own lattice (30 x 20 nodes), read with the shared --crs; GDAL's
-    // reading of the RGBA map gives the size (gdal crate).
+    // reading of the RGBA map gives the size (gdal crate) at the given 2 pixels per cell.
     let dir = tempfile::tempdir().unwrap();
     let mut text = String::from("x,y,depth,twt\n");
     for r in 0..20 {
@@ -635,6 +635,8 @@ fn render_draws_a_named_column_of_a_point_list() {
         "twt",
         "--crs",
         "EPSG:32625",
+        "--pixels-per-cell",
+        "2",
         "--out",
         map.to_str().unwrap(),
     ]);
@@ -645,5 +647,5 @@ fn render_draws_a_named_column_of_a_point_list() {
         "{stdout}"
     );
     let ds = gdal::Dataset::open(&map).unwrap();
-    assert_eq!((ds.raster_size(), ds.raster_count()), ((30, 20), 4));
+    assert_eq!((ds.raster_size(), ds.raster_count()), ((60, 40), 4));
 }

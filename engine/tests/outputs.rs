@@ -317,10 +317,12 @@ fn write_f32(
 }
 
 #[test]
-fn rendered_map_is_on_the_attribute_grid_with_published_colours() {
+fn rendered_map_covers_the_attribute_grid_at_whole_pixels_per_cell_with_published_colours() {
     // ColorBrewer RdBu (colorbrewer2.org, 11 classes; from memory): zero is the centre colour
     // #f7f7f7, values beyond the positive clip the red end #67001f, beyond the negative clip
-    // the blue end #053061.
+    // the blue end #053061. The map raster covers the rotated attribute grid exactly: read
+    // back by GDAL, its origin is the grid's and its four pixel terms the grid's divided by K
+    // (the geotransform of a grid subdivided K times; elementary geometry).
     let dir = tempfile::tempdir().unwrap();
     let g = survey_geometry((500_000.0, 3_900_000.0), 115.0, (25.0, 12.5), (30, 20));
     let mut values = ndarray::Array2::from_shape_fn((20, 30), |(r, c)| {
@@ -336,59 +338,80 @@ fn rendered_map_is_on_the_attribute_grid_with_published_colours() {
         &g,
         vec![("k_mean", values.clone()), ("k_pos", values)],
     );
-    let out = dir.path().join("map.tif");
-    let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &out);
-    job.band = Some("k_pos".into());
-    job.png = Some(dir.path().join("map.png"));
-    job.run().unwrap();
-    let info = gdalinfo(&out);
-    let gt: Vec<f64> = info["geoTransform"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_f64().unwrap())
-        .collect();
-    assert_eq!(gt, g.geo_transform.to_vec());
-    assert!(info["coordinateSystem"]["wkt"]
-        .as_str()
-        .unwrap()
-        .contains("UTM zone 25N"));
-    let interp: Vec<&str> = info["bands"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|b| b["colorInterpretation"].as_str().unwrap())
-        .collect();
-    assert_eq!(interp, ["Red", "Green", "Blue", "Alpha"]);
-    let rgba = read_bands_as::<u8>(&out);
-    let at = |r: usize, c: usize| {
-        [
-            rgba[0][r * 30 + c],
-            rgba[1][r * 30 + c],
-            rgba[2][r * 30 + c],
-            rgba[3][r * 30 + c],
-        ]
-    };
-    assert_eq!(at(3, 4)[3], 0, "null cell is transparent");
-    assert_eq!(
-        at(5, 15),
-        [0xf7, 0xf7, 0xf7, 255],
-        "zero is the centre colour"
-    );
-    assert_eq!(
-        at(0, 0),
-        [0x67, 0x00, 0x1f, 255],
-        "beyond +clip is the red end"
-    );
-    assert_eq!(
-        at(0, 1),
-        [0x05, 0x30, 0x61, 255],
-        "beyond -clip is the blue end"
-    );
-    // The PNG decodes (the png crate via tiny-skia's reader is not ours to test; GDAL's PNG
-    // driver reads it).
-    let png = Dataset::open(dir.path().join("map.png")).unwrap();
-    assert_eq!(png.raster_count(), 4);
+    for given in [None, Some(3)] {
+        let out = dir.path().join("map.tif");
+        let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &out);
+        job.band = Some("k_pos".into());
+        job.png = Some(dir.path().join("map.png"));
+        job.pixels_per_cell = given;
+        let report = job.run().unwrap();
+        // Default: round(2000 / 30) = 67, clamped to 8 pixels per cell.
+        let k = given.unwrap_or(8);
+        assert_eq!(report.pixels_per_cell, k);
+        let info = gdalinfo(&out);
+        let gt: Vec<f64> = info["geoTransform"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
+        let a = g.geo_transform;
+        let kf = k as f64;
+        let expected = [a[0], a[1] / kf, a[2] / kf, a[3], a[4] / kf, a[5] / kf];
+        for (got, want) in gt.iter().zip(expected) {
+            assert!(
+                (got - want).abs() <= 1e-9 * want.abs().max(1.0),
+                "{gt:?} vs {expected:?}"
+            );
+        }
+        assert_eq!(info["size"], serde_json::json!([30 * k, 20 * k]));
+        assert!(info["coordinateSystem"]["wkt"]
+            .as_str()
+            .unwrap()
+            .contains("UTM zone 25N"));
+        let interp: Vec<&str> = info["bands"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|b| b["colorInterpretation"].as_str().unwrap())
+            .collect();
+        assert_eq!(interp, ["Red", "Green", "Blue", "Alpha"]);
+        assert_eq!(
+            info["metadata"][""]["FLEXURE_PIXELS_PER_CELL"],
+            serde_json::json!(k.to_string())
+        );
+        let rgba = read_bands_as::<u8>(&out);
+        // Every pixel of a cell has the cell's colour.
+        let at = |r: usize, c: usize| {
+            let pixels: Vec<[u8; 4]> = (0..k * k)
+                .map(|i| {
+                    let p = (r * k + i / k) * 30 * k + c * k + i % k;
+                    [rgba[0][p], rgba[1][p], rgba[2][p], rgba[3][p]]
+                })
+                .collect();
+            assert!(pixels.iter().all(|p| *p == pixels[0]), "cell ({r}, {c})");
+            pixels[0]
+        };
+        assert_eq!(at(3, 4)[3], 0, "null cell is transparent");
+        assert_eq!(
+            at(5, 15),
+            [0xf7, 0xf7, 0xf7, 255],
+            "zero is the centre colour"
+        );
+        assert_eq!(
+            at(0, 0),
+            [0x67, 0x00, 0x1f, 255],
+            "beyond +clip is the red end"
+        );
+        assert_eq!(
+            at(0, 1),
+            [0x05, 0x30, 0x61, 255],
+            "beyond -clip is the blue end"
+        );
+        // The PNG decodes (GDAL's PNG driver reads it).
+        let png = Dataset::open(dir.path().join("map.png")).unwrap();
+        assert_eq!(png.raster_count(), 4);
+    }
 }
 
 #[test]
@@ -431,17 +454,24 @@ fn vectors_change_a_few_pixels_along_the_given_azimuth() {
     job.every = Some(20);
     let report = job.run().unwrap();
     assert_eq!(report.vectors.unwrap().0, 10 * 8);
+    // Default pixels per cell: round(2000 / 200) = 10, clamped to 8.
+    let k = report.pixels_per_cell;
+    assert_eq!(k, 8);
+    let (width, height) = (cols * k, rows * k);
     let (a, b) = (read_bands_as::<u8>(&plain), read_bands_as::<u8>(&drawn));
-    let changed: Vec<(usize, usize)> = (0..rows * cols)
-        .filter(|&i| (0..3).any(|k| a[k][i] != b[k][i]))
-        .map(|i| (i / cols, i % cols))
+    let changed: Vec<(usize, usize)> = (0..width * height)
+        .filter(|&i| (0..3).any(|band| a[band][i] != b[band][i]))
+        .map(|i| (i / width, i % width))
         .collect();
-    let share = changed.len() as f64 / (rows * cols) as f64;
-    assert!(share > 0.005 && share < 0.25, "changed share {share}");
-    // Offsets from the nearest vector centre (centres at pixel 10 + 20 k, 10 + 20 m).
+    // Thin lines with a thin halo: the colours stay readable between them.
+    let share = changed.len() as f64 / (width * height) as f64;
+    assert!(share > 0.002 && share < 0.35, "changed share {share}");
+    // Offsets from the nearest vector centre (cell centres 10 + 20 n + 0.5, times K pixels).
+    let spacing = 20.0 * k as f64;
     let (mut sxx, mut syy, mut sxy) = (0.0, 0.0, 0.0);
     for &(r, c) in &changed {
-        let centre = |v: usize| 20.0 * ((v as f64 - 10.0) / 20.0).round() + 10.5;
+        let centre =
+            |v: usize| spacing * ((v as f64 - 10.5 * k as f64) / spacing).round() + 10.5 * k as f64;
         let (dx, dy) = (c as f64 + 0.5 - centre(c), -(r as f64 + 0.5 - centre(r)));
         sxx += dx * dx;
         syy += dy * dy;
@@ -451,6 +481,175 @@ fn vectors_change_a_few_pixels_along_the_given_azimuth() {
     let axis = 0.5 * (2.0 * sxy).atan2(syy - sxx);
     let azimuth = axis.to_degrees().rem_euclid(180.0);
     assert!((azimuth - 30.0).abs() < 3.0, "principal azimuth {azimuth}");
+}
+
+#[test]
+fn a_drawn_straight_well_changes_pixels_only_along_its_path() {
+    // A straight well path, stored as RFC 7946 GeoJSON (WGS84, so it is reprojected back onto
+    // the rotated UTM grid by GDAL/PROJ), drawn on a uniform map: every pixel it changes lies
+    // within the drawn line's half width (core and halo, plus a pixel of anti-aliasing) of the
+    // analytic segment, in the pixel frame GDAL reads back (point-to-segment distance;
+    // elementary geometry), and the pixels on the segment itself are changed.
+    use flexure_engine::io::vector::{
+        stage_features, FieldKind, GeometryKind, Layer, Property, VectorFeature, VectorFormat,
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let g = survey_geometry((500_000.0, 3_900_000.0), 70.0, (20.0, 10.0), (120, 90));
+    let attribute = dir.path().join("flat.tif");
+    write_f32(
+        &attribute,
+        &g,
+        vec![("k_pos", ndarray::Array2::zeros((90, 120)))],
+    );
+    let (p, q) = (g.cell_centre(15, 20), g.cell_centre(100, 70));
+    let well = dir.path().join("well.geojson");
+    let staged = stage_features(
+        &well,
+        VectorFormat::GeoJson,
+        &g.crs_wkt,
+        &Layer {
+            name: "well_paths",
+            kind: GeometryKind::Line,
+            fields: &[("md_end", FieldKind::Real)],
+            features: &[VectorFeature {
+                points: vec![p, q],
+                values: vec![Property::Number(1000.0)],
+            }],
+        },
+    )
+    .unwrap();
+    flexure_engine::io::commit_all(vec![staged]).unwrap();
+    let plain = dir.path().join("plain.tif");
+    let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &plain);
+    job.pixels_per_cell = Some(4);
+    job.run().unwrap();
+    let drawn = dir.path().join("drawn.tif");
+    job.out = drawn.clone();
+    job.wells = vec![well];
+    assert_eq!(job.run().unwrap().wells, (1, 0));
+    let gt = Dataset::open(&drawn).unwrap().geo_transform().unwrap();
+    let pixel_of = |(x, y): (f64, f64)| {
+        // Inverse of the 2 x 2 part of the geotransform read back.
+        let (dx, dy) = (x - gt[0], y - gt[3]);
+        let det = gt[1] * gt[5] - gt[2] * gt[4];
+        (
+            (gt[5] * dx - gt[2] * dy) / det,
+            (-gt[4] * dx + gt[1] * dy) / det,
+        )
+    };
+    let (a, b) = (pixel_of(p), pixel_of(q));
+    let distance = |(x, y): (f64, f64)| {
+        let (vx, vy) = (b.0 - a.0, b.1 - a.1);
+        let t = (((x - a.0) * vx + (y - a.1) * vy) / (vx * vx + vy * vy)).clamp(0.0, 1.0);
+        (x - a.0 - t * vx).hypot(y - a.1 - t * vy)
+    };
+    let (width, height) = (120 * 4, 90 * 4);
+    let (before, after) = (read_bands_as::<u8>(&plain), read_bands_as::<u8>(&drawn));
+    let changed = |i: usize| (0..3).any(|k| before[k][i] != after[k][i]);
+    let half_width = (flexure_engine::draw::overlay::WELL_LINE
+        + 2.0 * flexure_engine::draw::overlay::HALO) as f64
+        / 2.0;
+    let mut count = 0;
+    for i in (0..width * height).filter(|&i| changed(i)) {
+        let centre = ((i % width) as f64 + 0.5, (i / width) as f64 + 0.5);
+        assert!(
+            distance(centre) <= half_width + 1.0,
+            "pixel {centre:?} changed {} px from the path",
+            distance(centre)
+        );
+        count += 1;
+    }
+    let length = (b.0 - a.0).hypot(b.1 - a.1);
+    assert!(
+        count as f64 > 2.0 * length,
+        "{count} pixels changed along {length} px"
+    );
+    for k in 0..=100 {
+        let t = k as f64 / 100.0;
+        let (x, y) = (a.0 + t * (b.0 - a.0), a.1 + t * (b.1 - a.1));
+        assert!(
+            changed(y as usize * width + x as usize),
+            "pixel under the path at t = {t}"
+        );
+    }
+}
+
+#[test]
+fn exaggerated_shading_of_a_feet_horizon_is_the_shading_of_its_depth_in_metres() {
+    // A plane dipping east at 0.1 m/m, stored as depth in international feet (0.3048 m, exact
+    // by definition), shaded with vertical exaggeration 3: Horn's gradient is exact on a plane,
+    // so every interior cell's shade is the Lambert cosine between the plane's normal (0.3, 0,
+    // 1) (elevation falls east at 0.3 after exaggeration) and the light from azimuth 315,
+    // altitude 45 (Horn 1981), and the zero-valued attribute's RdBu centre colour #f7f7f7 is
+    // multiplied by 0.55 + 0.5 shade (the map's documented rule). A time horizon without a
+    // velocity is refused.
+    let dir = tempfile::tempdir().unwrap();
+    let g = north_up(40, 30, 10.0);
+    let attribute = dir.path().join("flat.tif");
+    write_f32(
+        &attribute,
+        &g,
+        vec![("k_pos", ndarray::Array2::zeros((30, 40)))],
+    );
+    let plane = ndarray::Array2::from_shape_fn((30, 40), |(_, c)| {
+        (0.1 * (c as f64 * 10.0) / 0.3048 + 5000.0) as f32
+    });
+    let horizon = dir.path().join("depth_ft.tif");
+    write_float_geotiff(
+        &horizon,
+        &g,
+        &[BandOut {
+            description: "depth",
+            unit: "ft",
+            values: plane.clone(),
+        }],
+        &[],
+    )
+    .unwrap();
+    let out = dir.path().join("shaded.tif");
+    let mut job = flexure_engine::jobs::RenderJob::new(&attribute, &out);
+    job.shade = Some(horizon);
+    job.exaggeration = Some(3.0);
+    job.pixels_per_cell = Some(1);
+    job.run().unwrap();
+    let (az, alt) = (315f64.to_radians(), 45f64.to_radians());
+    let light = [az.sin() * alt.cos(), az.cos() * alt.cos(), alt.sin()];
+    let normal: [f64; 3] = [0.3, 0.0, 1.0];
+    let norm = (normal[0] * normal[0] + normal[2] * normal[2]).sqrt();
+    let shade = (normal[0] * light[0] + normal[2] * light[2]) / norm;
+    let expected = (247.0 * (0.55 + 0.5 * shade)).round() as u8;
+    let red = read_bands_as::<u8>(&out).remove(0);
+    for r in 1..29 {
+        for c in 1..39 {
+            assert_eq!(red[r * 40 + c], expected, "cell ({r}, {c})");
+        }
+    }
+    // The same plane as two-way time at 2000 m/s (depth = t v / 2000 with t in ms: 0.1 ms
+    // per m east) shades the same; without a velocity it cannot be exaggerated.
+    let twt = dir.path().join("twt.tif");
+    let times = plane.mapv(|ft| (f64::from(ft) * 0.3048) as f32);
+    write_float_geotiff(
+        &twt,
+        &g,
+        &[BandOut {
+            description: "twt",
+            unit: "ms",
+            values: times,
+        }],
+        &[],
+    )
+    .unwrap();
+    job.shade = Some(twt);
+    let err = job.run().unwrap_err().to_string();
+    assert!(err.contains("--shade-velocity"), "{err}");
+    job.shade_velocity = Some(2000.0);
+    job.run().unwrap();
+    let red = read_bands_as::<u8>(&out).remove(0);
+    for r in 1..29 {
+        for c in 1..39 {
+            assert_eq!(red[r * 40 + c], expected, "time horizon, cell ({r}, {c})");
+        }
+    }
 }
 
 #[test]

@@ -12,13 +12,13 @@
 //! shape (rotated with the grid; the north arrow shows where north is).
 
 use crate::draw::colour::{short, ColourScale};
+use crate::draw::overlay::stroke_with_halo;
+use crate::draw::ticks::{nice_step, nice_ticks, tick_label};
 use crate::grid::GridGeometry;
 use crate::stats::{quantile, Quantile};
 use ab_glyph::{Font, FontRef, PxScale, ScaleFont};
 use ndarray::Array2;
-use tiny_skia::{
-    Color, LineCap, Paint, PathBuilder, Pixmap, PremultipliedColorU8, Rect, Stroke, Transform,
-};
+use tiny_skia::{Color, Paint, PathBuilder, Pixmap, PremultipliedColorU8, Rect, Stroke, Transform};
 
 /// DejaVu Sans (Bitstream Vera licence, shipped in `engine/assets/fonts`).
 const FONT: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
@@ -194,65 +194,47 @@ pub fn pixmap_bands(pixmap: &Pixmap) -> [Array2<u8>; 4] {
     std::array::from_fn(|k| Array2::from_shape_fn((h, w), |(r, c)| straight[r * w + c][k]))
 }
 
-/// A map segment to draw, end points in CRS units.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub struct MapSegment {
-    /// First end.
-    pub a: (f64, f64),
-    /// Second end.
-    pub b: (f64, f64),
-}
-
-/// Pixel position of map point `p` in a picture of `geometry` with `px` pixels per cell.
-pub fn map_to_pixel(geometry: &GridGeometry, px: (f64, f64), p: (f64, f64)) -> (f32, f32) {
-    let (col, row) = geometry.map_to_grid(p.0, p.1);
-    ((col * px.0) as f32, (row * px.1) as f32)
-}
-
-/// Draws axial segments anti-aliased: a light halo one pixel wider on each side under a
-/// near-black core `width` pixels wide, round caps.
-pub fn draw_segments(
-    pixmap: &mut Pixmap,
-    geometry: &GridGeometry,
-    px: (f64, f64),
-    segments: &[MapSegment],
-    width: f32,
-) {
-    let mut pb = PathBuilder::new();
-    for s in segments {
-        let (ax, ay) = map_to_pixel(geometry, px, s.a);
-        let (bx, by) = map_to_pixel(geometry, px, s.b);
-        pb.move_to(ax, ay);
-        pb.line_to(bx, by);
-    }
-    if let Some(path) = pb.finish() {
-        stroke_with_halo(pixmap, &path, width, width + 2.0);
+/// The geometry of a picture of `geometry`'s grid at `px` pixels per (column, row): one cell
+/// per pixel, the same origin and axes, its size [`picture_size`]; overlays are placed through
+/// it ([`crate::draw::overlay::draw_overlay`]). With whole `px` it is the grid subdivided
+/// exactly (the map raster's geotransform).
+pub fn picture_geometry(geometry: &GridGeometry, px: (f64, f64)) -> GridGeometry {
+    let g = geometry.geo_transform;
+    let (cols, rows) = picture_size((geometry.cols, geometry.rows), px);
+    GridGeometry {
+        cols: cols as usize,
+        rows: rows as usize,
+        geo_transform: [
+            g[0],
+            g[1] / px.0,
+            g[2] / px.1,
+            g[3],
+            g[4] / px.0,
+            g[5] / px.1,
+        ],
+        ..geometry.clone()
     }
 }
 
-/// Strokes `path` as a near-black core `width` pixels wide over a light halo `halo` wide,
-/// anti-aliased with round caps.
-fn stroke_with_halo(pixmap: &mut Pixmap, path: &tiny_skia::Path, width: f32, halo: f32) {
-    for (colour, w) in [
-        (Color::from_rgba8(255, 255, 255, 220), halo),
-        (Color::from_rgba8(20, 20, 20, 255), width),
-    ] {
-        let mut paint = Paint::default();
-        paint.set_color(colour);
-        paint.anti_alias = true;
-        let stroke = Stroke {
-            width: w,
-            line_cap: LineCap::Round,
-            ..Stroke::default()
-        };
-        pixmap.stroke_path(path, &paint, &stroke, Transform::identity(), None);
+/// A scale bar's length in map units: a round 1-2-5 value ([`nice_step`]) between 40% and
+/// 100% of `longest` (map units).
+pub fn scale_bar_length(longest: f64) -> f64 {
+    nice_step(0.4 * longest)
+}
+
+/// The label of a scale bar `length` map units long: in km from 1000 m up, else in the unit.
+pub fn distance_label(length: f64, unit: &str) -> String {
+    if unit == "m" && length >= 1000.0 {
+        format!("{} km", short(length / 1000.0))
+    } else {
+        format!("{} {unit}", short(length))
     }
 }
 
 /// What the quicklook frame says.
 #[derive(Clone, Debug)]
 pub struct Legend {
-    /// Title line (attribute and window).
+    /// Title (horizon, attribute and window); wrapped to the page width.
     pub title: String,
     /// Band identifier and unit, for the colour bar.
     pub band: String,
@@ -260,69 +242,203 @@ pub struct Legend {
     pub scale: ColourScale,
     /// Vector legend: (text, bar length in pixels) when vectors are drawn.
     pub vectors: Option<(String, f32)>,
+    /// Other overlay notes for the panel (wells, contours, shading), one paragraph each.
+    pub notes: Vec<String>,
+    /// Map units per picture pixel and the unit's name ("m", "ft"), for the scale bar.
+    pub scale_bar: (f64, String),
     /// Direction of grid north in the picture, degrees clockwise from picture up.
     pub north_in_picture: f64,
-    /// Lines describing the extent and grid.
+    /// Geotransform of a north-up picture, for map-coordinate ticks on its frame; `None` for
+    /// a picture in survey orientation (no ticks).
+    pub map_ticks: Option<[f64; 6]>,
+    /// Lines describing the extent and grid; wrapped to the page width.
     pub extent: Vec<String>,
 }
 
 const MARGIN: u32 = 24;
+/// Height of the title band of a panel of maps.
 const TITLE_HEIGHT: u32 = 56;
+const TITLE_SIZE: f32 = 20.0;
+const TITLE_LINE: u32 = 26;
 const PANEL_WIDTH: u32 = 300;
 const FOOTER_LINE: u32 = 20;
+/// Least page width, so titles and notes of tall narrow maps are not cramped.
+const MIN_PAGE_WIDTH: u32 = 900;
+/// Room for the y tick labels left of, and the x tick labels under, a north-up map.
+const TICK_ROOM: (u32, u32) = (78, 26);
 
-/// The quicklook: `map` on a white page with the title above, the legend panel (colour bar,
-/// palette and clip, vector scale, north arrow) to the right and the extent below.
+/// The quicklook: `map` on a white page with the title above, the legend panel (colour bar
+/// with round ticks, palette and clip, vector scale, notes, scale bar, north arrow) to the
+/// right and the extent below; a north-up map gets a frame with map-coordinate ticks at
+/// round values.
 pub fn quicklook(map: &Pixmap, legend: &Legend) -> Pixmap {
-    let footer = MARGIN + FOOTER_LINE * legend.extent.len() as u32;
-    let panel_height = 520;
-    let width = MARGIN + map.width() + MARGIN + PANEL_WIDTH;
-    let height = TITLE_HEIGHT + map.height().max(panel_height) + footer;
+    let text = Text::new();
+    let (left, under) = if legend.map_ticks.is_some() {
+        (MARGIN + TICK_ROOM.0, TICK_ROOM.1)
+    } else {
+        (MARGIN, 0)
+    };
+    let width = (left + map.width() + MARGIN + PANEL_WIDTH).max(MIN_PAGE_WIDTH);
+    let line_room = (width - 2 * MARGIN) as f32;
+    let title = wrap_to(&text, &legend.title, TITLE_SIZE, line_room);
+    let footer: Vec<String> = legend
+        .extent
+        .iter()
+        .flat_map(|l| wrap_to(&text, l, 12.0, line_room))
+        .collect();
+    let top = 16 + TITLE_LINE * title.len() as u32 + 14;
+    let (panel, panel_height) = legend_panel(&text, legend);
+    let body = (map.height() + under).max(panel_height);
+    let height = top + body + MARGIN + FOOTER_LINE * footer.len() as u32;
     let mut page = Pixmap::new(width, height).expect("non-empty page");
     page.fill(Color::WHITE);
-    page.draw_pixmap(
-        MARGIN as i32,
-        TITLE_HEIGHT as i32,
-        map.as_ref(),
-        &tiny_skia::PixmapPaint::default(),
-        Transform::identity(),
-        None,
-    );
-    let text = Text::new();
-    text.draw(&mut page, &legend.title, MARGIN as f32, 34.0, 20.0);
-    let x0 = (MARGIN + map.width() + MARGIN) as f32;
-    let mut y = TITLE_HEIGHT as f32 + 14.0;
-    text.draw(&mut page, &legend.band, x0, y, 15.0);
-    y += 10.0;
-    y = colour_bar(&mut page, &text, &legend.scale, x0, y);
-    text.draw(&mut page, legend.scale.palette_name(), x0, y, 11.0);
-    y += 16.0;
-    for line in wrap(&legend.scale.clip_note, 42) {
-        text.draw(&mut page, &line, x0, y, 11.0);
-        y += 15.0;
+    for (picture, x) in [(map, left), (&panel, left + map.width() + MARGIN)] {
+        page.draw_pixmap(
+            x as i32,
+            top as i32,
+            picture.as_ref(),
+            &tiny_skia::PixmapPaint::default(),
+            Transform::identity(),
+            None,
+        );
     }
-    if let Some((note, bar)) = &legend.vectors {
-        y += 14.0;
-        segment_bar(&mut page, x0, y, *bar);
-        y += 22.0;
-        for line in wrap(note, 42) {
-            text.draw(&mut page, &line, x0, y, 11.0);
-            y += 15.0;
-        }
+    for (k, line) in title.iter().enumerate() {
+        let y = 16.0 + TITLE_SIZE + (TITLE_LINE * k as u32) as f32;
+        text.draw(&mut page, line, MARGIN as f32, y, TITLE_SIZE);
     }
-    north_arrow(
-        &mut page,
-        &text,
-        x0 + 40.0,
-        y + 60.0,
-        legend.north_in_picture,
-    );
-    let mut fy = (TITLE_HEIGHT + map.height().max(panel_height) + MARGIN) as f32;
-    for line in &legend.extent {
+    if let Some(gt) = &legend.map_ticks {
+        map_frame(&mut page, &text, gt, (left, top), map);
+    }
+    let mut fy = (top + body + MARGIN) as f32;
+    for line in &footer {
         text.draw(&mut page, line, MARGIN as f32, fy, 12.0);
         fy += FOOTER_LINE as f32;
     }
     page
+}
+
+/// The legend panel on a transparent pixmap [`PANEL_WIDTH`] wide, and the height its
+/// contents take (so the page is made tall enough for them whatever the map's height).
+fn legend_panel(text: &Text, legend: &Legend) -> (Pixmap, u32) {
+    const ROOM: u32 = 4000;
+    let mut panel = Pixmap::new(PANEL_WIDTH, ROOM).expect("non-empty panel");
+    let x0 = 4.0;
+    let mut y = 14.0;
+    text.draw(&mut panel, &legend.band, x0, y, 15.0);
+    y += 10.0;
+    y = colour_bar(&mut panel, text, &legend.scale, x0, y);
+    text.draw(&mut panel, legend.scale.palette_name(), x0, y, 11.0);
+    y += 16.0;
+    let paragraph = |panel: &mut Pixmap, y: &mut f32, s: &str| {
+        for line in wrap_to(text, s, 11.0, (PANEL_WIDTH - MARGIN) as f32) {
+            text.draw(panel, &line, x0, *y, 11.0);
+            *y += 15.0;
+        }
+    };
+    paragraph(&mut panel, &mut y, &legend.scale.clip_note);
+    if let Some((note, bar)) = &legend.vectors {
+        y += 14.0;
+        segment_bar(&mut panel, x0, y, *bar);
+        y += 22.0;
+        paragraph(&mut panel, &mut y, note);
+    }
+    for note in &legend.notes {
+        y += 6.0;
+        paragraph(&mut panel, &mut y, note);
+    }
+    y += 16.0;
+    y = scale_bar(&mut panel, text, &legend.scale_bar, x0, y);
+    north_arrow(
+        &mut panel,
+        text,
+        x0 + 40.0,
+        y + 60.0,
+        legend.north_in_picture,
+    );
+    (panel, ((y + 130.0) as u32).min(ROOM))
+}
+
+/// A frame round a north-up map at `origin` on the page, with ticks and labels at round map
+/// coordinates: eastings under it, northings left of it (picture geotransform `gt`, axes east
+/// and north).
+fn map_frame(page: &mut Pixmap, text: &Text, gt: &[f64; 6], origin: (u32, u32), map: &Pixmap) {
+    let (ox, oy) = (origin.0 as f32, origin.1 as f32);
+    let (w, h) = (map.width() as f32, map.height() as f32);
+    let mut pb = PathBuilder::new();
+    if let Some(rect) = Rect::from_xywh(ox, oy, w, h) {
+        pb.push_rect(rect);
+    }
+    let (x0, x1) = (gt[0], gt[0] + map.width() as f64 * gt[1]);
+    let (y0, y1) = (gt[3] + map.height() as f64 * gt[5], gt[3]);
+    let xs = nice_ticks(x0, x1, ((w / 160.0).round() as usize).max(2));
+    let ys = nice_ticks(y0, y1, ((h / 120.0).round() as usize).max(2));
+    let step = |t: &[f64]| if t.len() > 1 { t[1] - t[0] } else { 1.0 };
+    let (sx, sy) = (step(&xs), step(&ys));
+    for &x in &xs {
+        let px = ox + ((x - gt[0]) / gt[1]) as f32;
+        pb.move_to(px, oy + h);
+        pb.line_to(px, oy + h + 6.0);
+        let label = tick_label(x, sx);
+        let lw = text.width(&label, 11.0);
+        text.draw(page, &label, px - lw / 2.0, oy + h + 19.0, 11.0);
+    }
+    for &y in &ys {
+        let py = oy + ((y - gt[3]) / gt[5]) as f32;
+        pb.move_to(ox, py);
+        pb.line_to(ox - 6.0, py);
+        let label = tick_label(y, sy);
+        let lw = text.width(&label, 11.0);
+        text.draw(page, &label, ox - 9.0 - lw, py + 4.0, 11.0);
+    }
+    if let Some(path) = pb.finish() {
+        let mut paint = Paint::default();
+        paint.set_color(Color::from_rgba8(40, 40, 40, 255));
+        let stroke = Stroke {
+            width: 1.0,
+            ..Stroke::default()
+        };
+        page.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
+    }
+}
+
+/// A scale bar of round length (at most 200 pixels) with its label; returns the y below it.
+fn scale_bar(
+    page: &mut Pixmap,
+    text: &Text,
+    (per_px, unit): &(f64, String),
+    x: f32,
+    y: f32,
+) -> f32 {
+    let length = scale_bar_length(200.0 * per_px);
+    let bar = (length / per_px) as f32;
+    for (k, shade) in [(0, [30, 30, 30]), (1, [255, 255, 255])] {
+        if let Some(r) = Rect::from_xywh(x + k as f32 * bar / 2.0, y, bar / 2.0, 6.0) {
+            fill_rect(page, r, shade);
+        }
+    }
+    let mut pb = PathBuilder::new();
+    if let Some(r) = Rect::from_xywh(x, y, bar, 6.0) {
+        pb.push_rect(r);
+    }
+    if let Some(path) = pb.finish() {
+        let mut paint = Paint::default();
+        paint.set_color(Color::from_rgba8(30, 30, 30, 255));
+        let stroke = Stroke {
+            width: 1.0,
+            ..Stroke::default()
+        };
+        page.stroke_path(&path, &paint, &stroke, Transform::identity(), None);
+    }
+    text.draw(page, "0", x - 3.0, y + 20.0, 11.0);
+    let label = distance_label(length, unit);
+    text.draw(
+        page,
+        &label,
+        x + bar - text.width(&label, 11.0) / 2.0,
+        y + 20.0,
+        11.0,
+    );
+    y + 30.0
 }
 
 /// Maps side by side (four per row) under a title, each labelled, with one colour bar for the
@@ -384,19 +500,18 @@ fn colour_bar(page: &mut Pixmap, text: &Text, scale: &ColourScale, x: f32, y: f3
             fill_rect(page, rect, rgb);
         }
     }
-    for k in 0..5 {
-        let t = 1.0 - k as f64 / 4.0;
-        let ty = y + bar_h * k as f32 / 4.0;
+    let ticks = nice_ticks(scale.lo, scale.hi, 5);
+    let step = if ticks.len() > 1 {
+        ticks[1] - ticks[0]
+    } else {
+        (scale.hi - scale.lo).abs()
+    };
+    for v in ticks {
+        let ty = y + bar_h * (1.0 - tick_position(scale, v)) as f32;
         if let Some(rect) = Rect::from_xywh(x + bar_w, ty - 0.5, 6.0, 1.0) {
             fill_rect(page, rect, [0, 0, 0]);
         }
-        text.draw(
-            page,
-            &short(value_at(scale, t)),
-            x + bar_w + 10.0,
-            ty + 5.0,
-            12.0,
-        );
+        text.draw(page, &tick_label(v, step), x + bar_w + 10.0, ty + 5.0, 12.0);
     }
     y + bar_h + 22.0
 }
@@ -414,6 +529,15 @@ fn value_at(scale: &ColourScale, t: f64) -> f64 {
     }
 }
 
+/// Where value `v` (within the clip) sits on the colour bar, 0 (low end) .. 1 (high end): the
+/// ramp position, except that a cyclic scale's period is its top end rather than wrapped to 0.
+fn tick_position(scale: &ColourScale, v: f64) -> f64 {
+    match scale.kind {
+        crate::bands::ScaleKind::Cyclic { .. } => (v - scale.lo) / (scale.hi - scale.lo),
+        _ => scale.position(v),
+    }
+}
+
 fn fill_rect(page: &mut Pixmap, rect: Rect, rgb: [u8; 3]) {
     let mut paint = Paint::default();
     paint.set_color(Color::from_rgba8(rgb[0], rgb[1], rgb[2], 255));
@@ -426,7 +550,7 @@ fn segment_bar(page: &mut Pixmap, x: f32, y: f32, length: f32) {
     pb.move_to(x, y);
     pb.line_to(x + length, y);
     if let Some(path) = pb.finish() {
-        stroke_with_halo(page, &path, 2.4, 5.0);
+        stroke_with_halo(page, &path, 2.0);
     }
 }
 
@@ -462,12 +586,13 @@ fn north_arrow(page: &mut Pixmap, text: &Text, cx: f32, cy: f32, north_deg: f64)
     text.draw(page, "grid north", cx + 52.0, cy + 5.0, 11.0);
 }
 
-/// Splits `s` into lines of at most about `width` characters at spaces.
-fn wrap(s: &str, width: usize) -> Vec<String> {
+/// Splits `s` at spaces into lines at most `room` pixels wide at `size` (a word longer than
+/// the room gets a line of its own).
+fn wrap_to(text: &Text, s: &str, size: f32, room: f32) -> Vec<String> {
     let mut lines: Vec<String> = Vec::new();
     for word in s.split_whitespace() {
         match lines.last_mut() {
-            Some(line) if line.len() + word.len() < width => {
+            Some(line) if text.width(&format!("{line} {word}"), size) <= room => {
                 line.push(' ');
                 line.push_str(word);
             }
@@ -497,8 +622,24 @@ impl Text {
             .sum()
     }
 
-    /// Draws `s` with its baseline at (`x`, `y`), `size` pixels high.
+    /// Draws `s` in black with its baseline at (`x`, `y`), `size` pixels high.
     pub(crate) fn draw(&self, page: &mut Pixmap, s: &str, x: f32, y: f32, size: f32) {
+        self.draw_in(page, s, (x, y), size, [0, 0, 0]);
+    }
+
+    /// Draws `s` in near-black over a white halo (the text drawn white one pixel around), so it
+    /// reads on any colour; baseline at (`x`, `y`).
+    pub(crate) fn draw_with_halo(&self, page: &mut Pixmap, s: &str, x: f32, y: f32, size: f32) {
+        for dx in [-1.0, 0.0, 1.0] {
+            for dy in [-1.0, 0.0, 1.0] {
+                self.draw_in(page, s, (x + dx, y + dy), size, [255, 255, 255]);
+            }
+        }
+        self.draw_in(page, s, (x, y), size, [15, 15, 15]);
+    }
+
+    /// Draws `s` in colour `rgb` with its baseline at `(x, y)`, `size` pixels high.
+    fn draw_in(&self, page: &mut Pixmap, s: &str, (x, y): (f32, f32), size: f32, rgb: [u8; 3]) {
         let scaled = self.font.as_scaled(PxScale::from(size));
         let (w, h) = (page.width() as i64, page.height() as i64);
         let width = page.width() as usize;
@@ -528,11 +669,11 @@ impl Text {
                 let i = py as usize * width + px as usize;
                 let old = pixels[i].demultiply();
                 let a = coverage.clamp(0.0, 1.0);
-                let mix = |v: u8| (v as f32 * (1.0 - a)).round() as u8;
+                let mix = |v: u8, to: u8| (v as f32 * (1.0 - a) + to as f32 * a).round() as u8;
                 pixels[i] = premultiplied([
-                    mix(old.red()),
-                    mix(old.green()),
-                    mix(old.blue()),
+                    mix(old.red(), rgb[0]),
+                    mix(old.green(), rgb[1]),
+                    mix(old.blue(), rgb[2]),
                     old.alpha().max((a * 255.0) as u8),
                 ]);
             });
@@ -558,7 +699,10 @@ mod tests {
             band: "k_pos (1/km)".into(),
             scale,
             vectors: Some(("vectors".into(), 40.0)),
+            notes: vec!["wells".into()],
+            scale_bar: (5.0, "m".into()),
             north_in_picture: 25.0,
+            map_ticks: None,
             extent: vec!["extent".into()],
         };
         let page = quicklook(&map, &legend);
@@ -568,6 +712,51 @@ mod tests {
             .filter(|&(x, y)| page.pixel(x, y).unwrap().red() < 100)
             .count();
         assert!(dark > 20, "{dark} dark title pixels");
+    }
+
+    #[test]
+    fn scale_bars_are_round_and_fit() {
+        // The 1-2-5 rule (Heckbert 1990): the length is 1, 2 or 5 times a power of ten and
+        // between 40% and 100% of the room.
+        for room in [37.0, 200.0, 999.0, 1234.5, 0.8, 86_000.0] {
+            let length = scale_bar_length(room);
+            assert!(
+                length >= 0.4 * room && length <= room,
+                "{length} for {room}"
+            );
+            let mantissa = length / 10f64.powf(length.log10().floor());
+            assert!(
+                [1.0, 2.0, 5.0].iter().any(|m| (mantissa - m).abs() < 1e-9),
+                "{length}"
+            );
+        }
+        assert_eq!(distance_label(2000.0, "m"), "2 km");
+        assert_eq!(distance_label(500.0, "m"), "500 m");
+        assert_eq!(distance_label(2000.0, "ft"), "2000 ft");
+    }
+
+    #[test]
+    fn picture_geometry_subdivides_the_grid() {
+        // A grid subdivided K times has the grid's origin and each pixel term divided by K
+        // (elementary geometry): pixel (K i, K j) is cell (i, j)'s corner.
+        let g = GridGeometry::survey(
+            (1000.0, 5000.0),
+            115.0,
+            (25.0, 12.5),
+            (30, 20),
+            String::new(),
+        );
+        let p = picture_geometry(&g, (4.0, 4.0));
+        assert_eq!((p.cols, p.rows), (120, 80));
+        for (i, j) in [(0, 0), (3, 7), (30, 20)] {
+            let cell = g.geo_transform;
+            let (x, y) = (
+                cell[0] + i as f64 * cell[1] + j as f64 * cell[2],
+                cell[3] + i as f64 * cell[4] + j as f64 * cell[5],
+            );
+            let (c, r) = p.map_to_grid(x, y);
+            assert!((c - 4.0 * i as f64).abs() < 1e-9 && (r - 4.0 * j as f64).abs() < 1e-9);
+        }
     }
 
     #[test]

@@ -1,7 +1,8 @@
-//! Vector output through GDAL's OGR drivers: line or polygon features with numeric properties, written
+//! Vector layers through GDAL's OGR drivers: output line or polygon features with numeric properties, written
 //! as an OGC GeoPackage in the grid's own CRS or as RFC 7946 GeoJSON (WGS84 longitude /
 //! latitude, reprojected by GDAL/PROJ). Files are staged under a temporary name, read back
-//! (feature count) and committed by the caller, as for rasters.
+//! (feature count) and committed by the caller, as for rasters. Input layers (wells drawn on maps)
+//! are read by [`read_features`], reprojected into the grid's CRS.
 
 use crate::error::{FlexureError, Result};
 use crate::io::{
@@ -9,7 +10,8 @@ use crate::io::{
 };
 use gdal::spatial_ref::{AxisMappingStrategy, CoordTransform, SpatialRef};
 use gdal::vector::{
-    Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType, OGRwkbGeometryType,
+    geometry_type_flatten, Feature, Geometry, LayerAccess, LayerOptions, OGRFieldType,
+    OGRwkbGeometryType,
 };
 use gdal::{Dataset, DriverManager};
 use std::path::Path;
@@ -247,6 +249,144 @@ fn geometry(kind: GeometryKind, points: &[(f64, f64)]) -> gdal::errors::Result<G
             polygon.add_geometry(ring)?;
             Ok(polygon)
         }
+    }
+}
+
+/// A line or polygon feature read from a vector file: its lines (a line string's vertices, or
+/// each ring of a polygon, closed) in the requested CRS, and its fields as text.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ReadFeature {
+    /// Whether the feature is a line (or lines) or a polygon (or polygons).
+    pub kind: GeometryKind,
+    /// Vertices (x, y) of each line or ring, CRS units.
+    pub lines: Vec<Vec<(f64, f64)>>,
+    /// (field name, value as text) of every non-null field.
+    pub fields: Vec<(String, String)>,
+}
+
+impl ReadFeature {
+    /// The text of field `name`, if set.
+    pub fn field(&self, name: &str) -> Option<&str> {
+        self.fields
+            .iter()
+            .find(|(n, _)| n == name)
+            .map(|(_, v)| v.as_str())
+    }
+}
+
+/// Reads every line and polygon feature of every layer of the vector file at `path` (any
+/// format OGR opens: GeoPackage, GeoJSON, shapefile, ...), reprojected by GDAL/PROJ from the
+/// layer's CRS into `crs_wkt` (a layer without a CRS, or an empty `crs_wkt`, keeps its
+/// coordinates as they are).
+/// Point features are skipped; a file with no line or polygon is refused.
+pub fn read_features(path: &Path, crs_wkt: &str) -> Result<Vec<ReadFeature>> {
+    capture_gdal_messages();
+    take_gdal_messages();
+    read_all(path, crs_wkt).map_err(|reason| FlexureError::input(path, reason))
+}
+
+fn read_all(path: &Path, crs_wkt: &str) -> std::result::Result<Vec<ReadFeature>, String> {
+    let ds = Dataset::open_ex(
+        path,
+        gdal::DatasetOptions {
+            open_flags: gdal::GdalOpenFlags::GDAL_OF_VECTOR,
+            ..Default::default()
+        },
+    )
+    .map_err(|e| {
+        gdal_failure(
+            "cannot be opened as a vector file (GeoPackage, GeoJSON, ...)",
+            e,
+        )
+    })?;
+    // A grid without a CRS takes the coordinates as they are.
+    let target = if crs_wkt.trim().is_empty() {
+        None
+    } else {
+        let mut t = SpatialRef::from_wkt(crs_wkt).map_err(|e| gdal_failure("grid CRS", e))?;
+        t.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+        Some(t)
+    };
+    let mut out = Vec::new();
+    for mut layer in ds.layers() {
+        let transform = match (layer.spatial_ref(), &target) {
+            (Some(mut srs), Some(target)) => {
+                srs.set_axis_mapping_strategy(AxisMappingStrategy::TraditionalGisOrder);
+                Some(CoordTransform::new(&srs, target).map_err(|e| {
+                    gdal_failure(
+                        &format!("layer {}: no transformation to the grid CRS", layer.name()),
+                        e,
+                    )
+                })?)
+            }
+            _ => None,
+        };
+        let names: Vec<String> = layer.defn().fields().map(|f| f.name()).collect();
+        for feature in layer.features() {
+            let Some(geometry) = feature.geometry() else {
+                continue;
+            };
+            let geometry = match &transform {
+                Some(t) => geometry
+                    .transform(t)
+                    .map_err(|e| gdal_failure("reprojection to the grid CRS", e))?,
+                None => geometry.clone(),
+            };
+            let mut lines = Vec::new();
+            let Some(kind) = collect_lines(&geometry, &mut lines) else {
+                continue;
+            };
+            let fields = names
+                .iter()
+                .enumerate()
+                .filter_map(|(i, n)| {
+                    feature
+                        .field_as_string(i)
+                        .ok()
+                        .flatten()
+                        .map(|v| (n.clone(), v))
+                })
+                .collect();
+            out.push(ReadFeature {
+                kind,
+                lines,
+                fields,
+            });
+        }
+    }
+    gdal_outcome()?;
+    if out.is_empty() {
+        return Err("holds no line or polygon feature to draw".into());
+    }
+    Ok(out)
+}
+
+/// Appends the lines of a (multi) line string or the rings of a (multi) polygon to `lines`;
+/// `None` for other geometry types.
+fn collect_lines(g: &Geometry, lines: &mut Vec<Vec<(f64, f64)>>) -> Option<GeometryKind> {
+    let vertices = |g: &Geometry| -> Vec<(f64, f64)> {
+        let mut points = Vec::new();
+        g.get_points(&mut points);
+        points.into_iter().map(|(x, y, _)| (x, y)).collect()
+    };
+    match geometry_type_flatten(g.geometry_type()) {
+        OGRwkbGeometryType::wkbLineString => {
+            lines.push(vertices(g));
+            Some(GeometryKind::Line)
+        }
+        OGRwkbGeometryType::wkbPolygon => {
+            lines.extend((0..g.geometry_count()).map(|i| vertices(&g.get_geometry(i))));
+            Some(GeometryKind::Polygon)
+        }
+        OGRwkbGeometryType::wkbMultiLineString
+        | OGRwkbGeometryType::wkbMultiPolygon
+        | OGRwkbGeometryType::wkbGeometryCollection => {
+            let kinds: Vec<GeometryKind> = (0..g.geometry_count())
+                .filter_map(|i| collect_lines(&g.get_geometry(i), lines))
+                .collect();
+            kinds.first().copied()
+        }
+        _ => None,
     }
 }
 

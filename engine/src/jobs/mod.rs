@@ -26,7 +26,7 @@ pub use outcomes::{
     analyse, Level, OutcomeAnalysis, OutcomeTable, OutcomeTest, StageMetrics, OUTCOME_CAUTION,
 };
 pub use plan::{PlanJob, PlanReport, MIN_MEDIAN_SNR, SCORE_DRAWS, SCORE_LEVEL};
-pub use render::{RenderJob, RenderReport};
+pub use render::{default_pixels_per_cell, RenderJob, RenderReport};
 pub use run_record::{
     file_kind, write_run_files, FileRecord, RunRecord, StepRecord, MANIFEST_FILE,
 };
