@@ -800,12 +800,24 @@ pub const DEMO_QUICKLOOKS: [&str; 4] = ["k_pos", "k_neg", "shape_index", "dip"];
 /// Window of the demo maps.
 pub const DEMO_MAP_WINDOW: usize = 9;
 
-/// The render jobs of the demo: quicklooks of the main attributes of every horizon shaded by
-/// the horizon itself, k_pos of the Kelvane Marl with its anisotropy vectors, and the
-/// anisotropy magnitude with its vectors; all into `out_dir/maps`.
+/// Contour interval of the demo maps in the horizon's unit: 20 m on the depth horizon, 10 ms
+/// on the time horizon.
+fn demo_contour_interval(h: &DemoHorizon) -> f64 {
+    if h.domain == Domain::Time {
+        10.0
+    } else {
+        20.0
+    }
+}
+
+/// The render jobs of the demo: north-up quicklooks of the main attributes of every horizon
+/// shaded by the horizon itself, with its contours and the demo wells and stage corridors,
+/// k_pos of the Kelvane Marl with its anisotropy vectors instead of contours, and the
+/// anisotropy magnitude with its vectors; all into `out_dir/maps` (after the stages job).
 pub fn demo_render_jobs(data_dir: &Path, out_dir: &Path) -> Vec<RenderJob> {
     let maps = out_dir.join("maps");
     let anisotropy = out_dir.join("anisotropy");
+    let stages = out_dir.join("stages");
     let sectors = demo_sectors();
     let mut jobs = Vec::new();
     for h in demo_horizons() {
@@ -817,8 +829,12 @@ pub fn demo_render_jobs(data_dir: &Path, out_dir: &Path) -> Vec<RenderJob> {
             job.band = Some(band.to_string());
             job.shade = Some(data_dir.join(h.file));
             job.png = Some(maps.join(format!("{name}.png")));
+            job.north_up = true;
+            job.wells = vec![stages.clone()];
             if h.file == sectors.horizon.file && band == "k_pos" {
                 job.anisotropy = Some(anisotropy.clone());
+            } else {
+                job.contour_interval = Some(demo_contour_interval(&h));
             }
             jobs.push(job);
         }
@@ -830,6 +846,8 @@ pub fn demo_render_jobs(data_dir: &Path, out_dir: &Path) -> Vec<RenderJob> {
     magnitude.band = Some("magnitude".into());
     magnitude.anisotropy = Some(anisotropy);
     magnitude.png = Some(maps.join("kelvane_marl_anisotropy_magnitude.png"));
+    magnitude.north_up = true;
+    magnitude.wells = vec![stages];
     jobs.push(magnitude);
     jobs
 }
@@ -891,13 +909,13 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
     let sector_times_job = demo_sector_times_job(&seismic, data_dir, out_dir);
     let sector_times = sector_times_job.run(progress)?;
     let seismic_anisotropy = demo_seismic_anisotropy_job(&sector_times_job, out_dir).run()?;
+    let window_study = demo_window_study_job(data_dir, out_dir).run()?;
+    let stages = demo_stages_job(data_dir, out_dir).run()?;
+    let plan = demo_plan_job(data_dir, out_dir).run()?;
     let maps = demo_render_jobs(data_dir, out_dir)
         .iter()
         .map(RenderJob::run)
         .collect::<Result<Vec<_>>>()?;
-    let stages = demo_stages_job(data_dir, out_dir).run()?;
-    let plan = demo_plan_job(data_dir, out_dir).run()?;
-    let window_study = demo_window_study_job(data_dir, out_dir).run()?;
     Ok(DemoReport {
         window_study,
         curvature,
