@@ -486,15 +486,23 @@ pub fn write_demo_data(dir: &Path) -> Result<Vec<PathBuf>> {
     let points = dir.join(DEMO_POINT_EXPORT);
     std::fs::write(&points, demo_point_export()).map_err(|e| FlexureError::write(&points, e))?;
     written.push(points);
-    for w in demo_wells() {
-        for (name, text) in [
-            (w.well_file(), w.well_csv()),
-            (w.stages_file(), w.stages_csv()),
-        ] {
-            let path = dir.join(name);
-            std::fs::write(&path, text).map_err(|e| FlexureError::write(&path, e))?;
-            written.push(path);
-        }
+    let tables = [
+        (DEMO_COMPLETIONS.to_string(), demo_completions()),
+        (DEMO_PRODUCTION.to_string(), demo_production()),
+    ];
+    for (name, text) in demo_wells()
+        .iter()
+        .flat_map(|w| {
+            [
+                (w.well_file(), w.well_csv()),
+                (w.stages_file(), w.stages_csv()),
+            ]
+        })
+        .chain(tables)
+    {
+        let path = dir.join(name);
+        std::fs::write(&path, text).map_err(|e| FlexureError::write(&path, e))?;
+        written.push(path);
     }
     Ok(written)
 }
@@ -733,6 +741,54 @@ impl DemoWell {
     }
 }
 
+/// The demo's completion table: one row per stage of every demo well (invented figures).
+pub const DEMO_COMPLETIONS: &str = "tessary_completions.csv";
+/// The demo's production table: one row per demo well (invented figures).
+pub const DEMO_PRODUCTION: &str = "tessary_production.csv";
+
+/// Acute angle (degrees) between a demo lateral and the invented regional fast azimuth of 50
+/// degrees, which the invented completion figures lean on.
+fn regional_angle(w: &DemoWell) -> f64 {
+    let d = (w.azimuth - 50.0).rem_euclid(180.0);
+    d.min(180.0 - d)
+}
+
+/// Text of [`DEMO_COMPLETIONS`]: per stage an invented breakdown pressure, average treating
+/// pressure, maximum slurry rate, proppant per metre and shut-in pressure, the rate rising
+/// and the pressures falling with the lateral's angle to the regional fast azimuth, plus
+/// seeded noise; written as a service company might (semicolons, units in brackets).
+pub fn demo_completions() -> String {
+    let mut rng = SeededNoise::new(21);
+    let mut text = String::from(
+        "Well;Stage;Breakdown pressure [MPa];Avg treating pressure [MPa];Max slurry rate [m3/min];Proppant [t/m];ISIP [MPa]\n",
+    );
+    for w in demo_wells() {
+        let angle = regional_angle(&w);
+        let stages = w.stages_csv().lines().count() - 1;
+        for k in 1..=stages {
+            text += &format!(
+                "{};{k};{:.1};{:.1};{:.2};{:.2};{:.1}\n",
+                w.name,
+                66.0 - 0.08 * angle + 2.0 * rng.gaussian(),
+                52.0 - 0.05 * angle + 1.5 * rng.gaussian(),
+                9.0 + 0.025 * angle + 0.4 * rng.gaussian(),
+                1.6 + 0.15 * rng.gaussian(),
+                47.0 + 1.5 * rng.gaussian()
+            );
+        }
+    }
+    text
+}
+
+/// Text of [`DEMO_PRODUCTION`]: an invented 180-day cumulative oil volume per well.
+pub fn demo_production() -> String {
+    let mut text = String::from("well,cum oil 180 d (m3)\n");
+    for (w, volume) in demo_wells().iter().zip([41_500.0, 23_800.0, 19_200.0]) {
+        text += &format!("{},{volume:.0}\n", w.name);
+    }
+    text
+}
+
 /// Pad and lateral length of the demo drilling-azimuth scan.
 pub const DEMO_PAD: (f64, f64) = (481_600.0, 3_901_700.0);
 /// Lateral length of the demo scan (m).
@@ -758,6 +814,9 @@ pub fn demo_stages_job(data_dir: &Path, out_dir: &Path) -> StagesJob {
     let mut job = StagesJob::new(out_dir.join("anisotropy"), wells, out_dir.join("stages"));
     job.curvature = Some(kelvane_curvature(data_dir, out_dir));
     job.md_unit = Some(MdUnit::Metre);
+    job.completions = Some(data_dir.join(DEMO_COMPLETIONS));
+    job.production = Some(data_dir.join(DEMO_PRODUCTION));
+    job.per_length = true;
     job.horizon = Some(demo_curvature_job(&demo_sectors().horizon, data_dir, out_dir).horizon);
     job
 }
@@ -888,7 +947,12 @@ pub fn run_demo(data_dir: &Path, out_dir: &Path, progress: &dyn Progress) -> Res
     let files = horizons
         .iter()
         .map(|h| h.file)
-        .chain([sectors.file, DEMO_POINT_EXPORT])
+        .chain([
+            sectors.file,
+            DEMO_POINT_EXPORT,
+            DEMO_COMPLETIONS,
+            DEMO_PRODUCTION,
+        ])
         .chain(well_files.iter().map(String::as_str))
         .chain(seismic_files.iter().map(String::as_str));
     for file in files {

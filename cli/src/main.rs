@@ -400,6 +400,18 @@ struct StagesArgs {
     /// below it); any grid in the anisotropy's CRS.
     #[arg(long)]
     horizon: Option<PathBuf>,
+    /// Completion table, one row per stage: well, stage and any numeric columns (pressures,
+    /// rates, proppant, ...; names and units as you write them), tested against the stage
+    /// metrics along the wells.
+    #[arg(long)]
+    completions: Option<PathBuf>,
+    /// Production table, one row per well: well and any numeric columns, tested against the
+    /// wells' mean stage metrics.
+    #[arg(long)]
+    production: Option<PathBuf>,
+    /// Divide production values by each well's completed length (its stages' total length).
+    #[arg(long, requires = "production")]
+    per_length: bool,
     #[command(flatten)]
     domain: DomainArgs,
     #[command(flatten)]
@@ -456,6 +468,9 @@ impl StagesArgs {
         job.reference = reference(self.azimuth_reference, self.convergence)?;
         job.horizon = self.horizon.as_deref().map(|h| self.domain.source(h));
         job.read = self.read.options();
+        job.completions = self.completions.clone();
+        job.production = self.production.clone();
+        job.per_length = self.per_length;
         Ok(job)
     }
 }

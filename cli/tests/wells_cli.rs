@@ -1281,3 +1281,145 @@ fn sheet_roses_sit_along_measured_depth_heel_to_toe() {
         assert!(svg.contains(text), "{text}");
     }
 }
+
+/// Twelve 150 m stages along [`EAST_WEST`].
+fn twelve_stages() -> String {
+    let mut text = String::from("stage,md_top,md_base\n");
+    for k in 0..12 {
+        text += &format!("{},{},{}\n", k + 1, 3000 + 150 * k, 3150 + 150 * k);
+    }
+    text
+}
+
+#[test]
+fn completion_outcomes_are_joined_and_tested_against_the_stage_metrics() {
+    // The fast azimuth turns from 0 to 90 deg west to east (1.5 deg per 30 m column), so along
+    // the east-west well the angle to well falls from 90 to 0 deg; a completion outcome made
+    // to rise with that angle (plus a small wobble) must come out with rho near 1 against
+    // angle_to_well. One well of 12 stages: the order-keeping test has only 12 circular
+    // shifts, so p cannot fall below 1/12 (its floor, by construction of the test). A stage
+    // missing from the table and a row of an unknown stage are reported; the production table
+    // of one well is too few for a test, and the output says so.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, _, c| {
+        let fast = (1.5 * (c as f32 - 20.0)).clamp(0.0, 90.0);
+        match b {
+            "azimuth_fast" => fast,
+            "azimuth_slow" => fast + 90.0,
+            _ => uniform(b),
+        }
+    });
+    let well = write(d, "ew.csv", EAST_WEST);
+    let stages = write(d, "ew_stages.csv", &twelve_stages());
+    let mut completions = String::from("Well;Stage No;Max rate (m3/min);Comment\n");
+    for k in 1..=11 {
+        // Stage k's mid-point is at x = 500600 + 150 (k - 0.5): angle = 90 - 1.5 (col - 20).
+        let col = (600.0 + 150.0 * (k as f64 - 0.5)) / 30.0;
+        let angle = (90.0 - 1.5 * (col - 20.0)).clamp(0.0, 90.0);
+        let wobble = if k % 2 == 0 { 0.05 } else { -0.05 };
+        completions += &format!("ew;{k:02};{:.3};ok\n", 5.0 + 0.05 * angle + wobble);
+    }
+    completions += "ew;99;7.0;typo\n";
+    let completions = write(d, "completions.csv", &completions);
+    let production = write(d, "production.csv", "well,cum oil 180 d (m3)\new,12000\n");
+    let out = d.join("st");
+    let stdout = stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            &format!("ew={}", s(&well)),
+            "--stages",
+            &format!("ew={}", s(&stages)),
+            "--completions",
+            s(&completions),
+            "--production",
+            s(&production),
+            "--per-length",
+        ],
+    );
+    let text = std::fs::read_to_string(out.join("outcomes.csv")).unwrap();
+    assert!(
+        text.starts_with("outcome,metric,level,n,rho,ci_low,ci_high,p_value\n"),
+        "{text}"
+    );
+    let rows = csv_rows(&out.join("outcomes.csv"));
+    let angle = rows
+        .iter()
+        .find(|r| r["metric"] == "angle_to_well" && r["level"] == "stage")
+        .unwrap();
+    assert_eq!(angle["outcome"], "Max rate (m3/min)");
+    assert_eq!(angle["n"], "11");
+    let rho: f64 = angle["rho"].parse().unwrap();
+    let p: f64 = angle["p_value"].parse().unwrap();
+    assert!(rho > 0.9, "{angle:?}");
+    assert!((1.0 / 12.0 - 1e-9..=0.1).contains(&p), "{angle:?}");
+    assert!(
+        rows.iter().all(|r| r["level"] == "stage"),
+        "no well-level test on one well"
+    );
+    assert!(
+        stdout.contains("no completion row for 1 stage(s): ew 12"),
+        "{stdout}"
+    );
+    assert!(stdout.contains("(ew 99)"), "{stdout}");
+    assert!(stdout.contains("'Comment' is not numeric"), "{stdout}");
+    assert!(stdout.contains("only 1 well(s)"), "{stdout}");
+    assert!(stdout.contains("not a forecast"), "{stdout}");
+    for f in [
+        "outcomes.json",
+        "outcome_stage_1.png",
+        "outcome_stage_1.svg",
+        "outcome_well_2.png",
+    ] {
+        assert!(out.join(f).is_file(), "{f}");
+    }
+    let sheet = std::fs::read_to_string(out.join("ew_sheet.svg")).unwrap();
+    assert!(
+        sheet.contains("Max rate (m3/min) (completion table)"),
+        "outcome track on the sheet"
+    );
+}
+
+#[test]
+fn a_corridor_with_two_fast_azimuth_populations_is_flagged_mixed() {
+    // Checkerboard of fast azimuths 20 and 100 deg (two equal populations 80 deg apart): every
+    // stage is flagged mixed_trends with both axes in the table, within 5 deg of the truth.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, r, c| {
+        let fast = if (r + c) % 2 == 0 { 20.0 } else { 100.0 };
+        match b {
+            "azimuth_fast" => fast,
+            "azimuth_slow" => (fast + 90.0) % 180.0,
+            _ => uniform(b),
+        }
+    });
+    let well = write(d, "ew.csv", EAST_WEST);
+    let stages = write(d, "ew_stages.csv", STAGES);
+    let out = d.join("st");
+    stages_ok(
+        &a,
+        &out,
+        &[
+            "--well",
+            &format!("ew={}", s(&well)),
+            "--stages",
+            &format!("ew={}", s(&stages)),
+        ],
+    );
+    let rows = csv_rows(&out.join("stages.csv"));
+    for r in rows.iter().filter(|r| r["stage"] != "lateral") {
+        assert!(r["flag"].contains("mixed_trends"), "{r:?}");
+        let mut axes: Vec<f64> = [&r["trend1_azimuth"], &r["trend2_azimuth"]]
+            .iter()
+            .map(|v| v.parse().unwrap())
+            .collect();
+        axes.sort_by(f64::total_cmp);
+        assert!(
+            (axes[0] - 20.0).abs() < 5.0 && (axes[1] - 100.0).abs() < 5.0,
+            "{axes:?}"
+        );
+    }
+}

@@ -10,6 +10,8 @@
 //! make a weak test, and the output says so: a correlation on a handful of wells is a local
 //! empirical relation, not a forecast.
 
+use crate::draw::figure::{Anchor, Figure, Mark};
+use crate::draw::scatter::{draw_panel, group_colour, Panel};
 use crate::error::{FlexureError, Result};
 use crate::io::table::{is_null_word, ColumnSpec, Table};
 use crate::stats::rank::{rank_test, Dependence, RankTest};
@@ -158,6 +160,20 @@ impl OutcomeTable {
     }
 }
 
+impl OutcomeTable {
+    /// The outcome values of `well`'s stage `stage` (stage-level tables), matched as the join
+    /// matches them.
+    pub fn stage_values(&self, well: &str, stage: &str) -> Option<&[f64]> {
+        self.rows
+            .iter()
+            .find(|r| {
+                well_key(&r.well) == well_key(well)
+                    && r.stage.as_deref().map(stage_key) == Some(stage_key(stage))
+            })
+            .map(|r| r.values.as_slice())
+    }
+}
+
 /// Well names match ignoring case and surrounding blanks.
 fn well_key(name: &str) -> String {
     name.trim().to_lowercase()
@@ -198,7 +214,8 @@ pub struct OutcomeTest {
     pub level: Level,
     /// Pairs tested.
     pub n: usize,
-    /// Spearman's rho.
+    /// Spearman's rho: at stage level each well's rho along the well, averaged weighted by
+    /// its stage count; at well level the rho across wells.
     pub rho: f64,
     /// Lower end of the 95% bootstrap interval.
     pub ci_low: f64,
@@ -208,11 +225,27 @@ pub struct OutcomeTest {
     pub p_value: f64,
 }
 
+/// The pairs behind the tests of one outcome column, for its scatter plot.
+#[derive(Clone, Debug, PartialEq)]
+pub struct OutcomePlot {
+    /// Outcome column (as tested).
+    pub outcome: String,
+    /// Stage or well level.
+    pub level: Level,
+    /// Per metric: its name and the (metric, outcome, well index) points.
+    pub panels: Vec<(String, Vec<(f64, f64, usize)>)>,
+}
+
 /// The outcome analysis of a stages run.
 #[derive(Clone, Debug, Default, PartialEq, Serialize)]
 pub struct OutcomeAnalysis {
     /// Every test, stage level first, in outcome then metric order.
     pub tests: Vec<OutcomeTest>,
+    /// The points of every outcome column, for the plots.
+    #[serde(skip)]
+    pub plots: Vec<OutcomePlot>,
+    /// Well names in the order of the plots' well indices.
+    pub wells: Vec<String>,
     /// Joins, skipped columns, thin results.
     pub notes: Vec<String>,
     /// Stage rows joined to a completion row.
@@ -314,7 +347,28 @@ fn stage_tests(
         })
         .collect();
     analysis.stages_joined = ordered.iter().map(Vec::len).sum();
+    analysis.wells = wells.iter().map(|w| w.to_string()).collect();
+    let (index, key) = (&index, &key);
     for (o, outcome) in table.names.iter().enumerate() {
+        analysis.plots.push(OutcomePlot {
+            outcome: outcome.clone(),
+            level: Level::Stage,
+            panels: metric_names
+                .iter()
+                .enumerate()
+                .map(|(m, metric)| {
+                    let points = ordered
+                        .iter()
+                        .enumerate()
+                        .flat_map(|(w, own)| {
+                            own.iter()
+                                .map(move |s| (s.values[m], index[&key(s)].values[o], w))
+                        })
+                        .collect();
+                    (metric.clone(), points)
+                })
+                .collect(),
+        });
         for (m, metric) in metric_names.iter().enumerate() {
             let groups: Vec<(Vec<f64>, Vec<f64>)> = ordered
                 .iter()
@@ -347,6 +401,7 @@ fn well_tests(
     analysis: &mut OutcomeAnalysis,
 ) {
     let mut joined = Vec::new();
+    let mut joined_wells = Vec::new();
     for row in &table.rows {
         let own: Vec<&StageMetrics> = stages
             .iter()
@@ -382,14 +437,42 @@ fn well_tests(
             .map(|v| if per_length { v / completed } else { *v })
             .collect();
         joined.push((means, outcomes));
+        joined_wells.push(row.well.clone());
     }
     analysis.wells_joined = joined.len();
+    if analysis.wells.is_empty() {
+        analysis.wells = joined_wells.clone();
+    }
+    let well_index = |name: &str| {
+        analysis
+            .wells
+            .iter()
+            .position(|w| well_key(w) == well_key(name))
+            .unwrap_or(0)
+    };
+    let indices: Vec<usize> = joined_wells.iter().map(|w| well_index(w)).collect();
     for (o, name) in table.names.iter().enumerate() {
         let outcome = if per_length {
             format!("{name} per completed length")
         } else {
             name.clone()
         };
+        analysis.plots.push(OutcomePlot {
+            outcome: outcome.clone(),
+            level: Level::Well,
+            panels: metric_names
+                .iter()
+                .enumerate()
+                .map(|(m, metric)| {
+                    let points = joined
+                        .iter()
+                        .zip(&indices)
+                        .map(|((x, y), &w)| (x[m], y[o], w))
+                        .collect();
+                    (format!("{metric} (well mean)"), points)
+                })
+                .collect(),
+        });
         for (m, metric) in metric_names.iter().enumerate() {
             let pairs: (Vec<f64>, Vec<f64>) = joined.iter().map(|(x, y)| (x[m], y[o])).unzip();
             let seed = seed_of(Level::Well, o, m);
@@ -438,7 +521,7 @@ fn push(
 fn note_thin(analysis: &mut OutcomeAnalysis, level: Level, units: usize, wells: usize) {
     let what = match level {
         Level::Stage => format!("{units} stages in {wells} well(s)"),
-        Level::Well => format!("{units} wells"),
+        Level::Well => format!("{units} well(s)"),
     };
     if units < FEW {
         analysis.notes.push(format!(
@@ -488,6 +571,94 @@ impl OutcomeAnalysis {
             .into_inner()
             .map_err(|e| FlexureError::Parameter(format!("outcomes.csv: {e}")))?;
         Ok(String::from_utf8_lossy(&bytes).to_string())
+    }
+}
+
+/// Plot size of one scatter panel and the room around it, pixels.
+const PANEL: (f32, f32) = (300.0, 190.0);
+const PANEL_ROOM: (f32, f32) = (100.0, 120.0);
+const PANELS_ACROSS: usize = 3;
+
+impl OutcomeAnalysis {
+    /// One figure per plotted outcome column: a scatter panel per metric (points coloured by
+    /// well, the least-squares line, rho with its interval and p-value), the wells' colour key
+    /// and the caution; named `outcome_<level>_<k>` (k counts the outcome columns).
+    pub fn figures(&self) -> Vec<(String, Figure)> {
+        self.plots
+            .iter()
+            .enumerate()
+            .map(|(k, plot)| {
+                let level = match plot.level {
+                    Level::Stage => "stage",
+                    Level::Well => "well",
+                };
+                (format!("outcome_{level}_{}", k + 1), self.figure(plot))
+            })
+            .collect()
+    }
+
+    fn figure(&self, plot: &OutcomePlot) -> Figure {
+        let rows = plot.panels.len().div_ceil(PANELS_ACROSS).max(1);
+        let width = 40.0 + PANELS_ACROSS as f32 * (PANEL.0 + PANEL_ROOM.0);
+        let top = 110.0;
+        let height = top + rows as f32 * (PANEL.1 + PANEL_ROOM.1) + 90.0;
+        let mut fig = Figure::new(width as u32, height as u32);
+        let what = match plot.level {
+            Level::Stage => "each point a stage",
+            Level::Well => "each point a well",
+        };
+        fig.text(
+            20.0,
+            28.0,
+            17.0,
+            format!("{} against the corridor metrics ({what})", plot.outcome),
+            Anchor::Start,
+        );
+        let mut x = 20.0;
+        for (w, name) in self.wells.iter().enumerate() {
+            fig.marks.push(Mark::Polygon {
+                points: vec![(x, 44.0), (x + 10.0, 44.0), (x + 10.0, 54.0), (x, 54.0)],
+                fill: group_colour(w),
+                stroke: None,
+            });
+            fig.text(x + 14.0, 53.0, 12.0, name.clone(), Anchor::Start);
+            x += 24.0 + 7.5 * name.len() as f32;
+        }
+        for (p, (metric, points)) in plot.panels.iter().enumerate() {
+            let test = self.tests.iter().find(|t| {
+                t.outcome == plot.outcome && &t.metric == metric && t.level == plot.level
+            });
+            let note = match test {
+                Some(t) => format!(
+                    "rho {:.2} [{:.2}, {:.2}], p {:.3}, n {}",
+                    t.rho, t.ci_low, t.ci_high, t.p_value, t.n
+                ),
+                None => "too few pairs for a test".to_string(),
+            };
+            let (col, row) = (p % PANELS_ACROSS, p / PANELS_ACROSS);
+            let origin = (
+                60.0 + col as f32 * (PANEL.0 + PANEL_ROOM.0),
+                top + row as f32 * (PANEL.1 + PANEL_ROOM.1),
+            );
+            draw_panel(
+                &mut fig,
+                &Panel {
+                    title: metric,
+                    note: &note,
+                    x_title: metric,
+                    y_title: &plot.outcome,
+                    points,
+                },
+                origin,
+                PANEL,
+            );
+        }
+        let mut y = height - 60.0;
+        for line in super::stages::wrap(OUTCOME_CAUTION, 150) {
+            fig.text(20.0, y, 11.0, line, Anchor::Start);
+            y += 16.0;
+        }
+        fig
     }
 }
 

@@ -6,6 +6,10 @@
 //! are refused early by name, and any left by the one check of the commit).
 
 use super::anisotropy::AzimuthReference;
+use super::outcomes::{
+    analyse, Level, OutcomeAnalysis, OutcomeTable, OutcomeTest, StageMetrics,
+    LEVEL as OUTCOME_LEVEL, OUTCOME_CAUTION,
+};
 use super::{stage_bytes, stage_figure, AnisotropyRaster, WellInput};
 use crate::bands::band_info;
 use crate::draw::axis::{Axis, GRID};
@@ -19,6 +23,7 @@ use crate::io::vector::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
 };
 use crate::io::{commit_all, prepare_output_dir, read_raster, ReadOptions, StagedFile};
+use crate::provenance::Provenance;
 use crate::stats::mixture::{two_trends, TwoTrends};
 use crate::surface::horizon::{Horizon, HorizonSource};
 use crate::wells::corridor::{
@@ -340,6 +345,12 @@ pub struct StagesJob {
     pub horizon: Option<HorizonSource>,
     /// How the horizon is read.
     pub read: ReadOptions,
+    /// Completion table: one row per stage (well, stage, numeric outcome columns).
+    pub completions: Option<PathBuf>,
+    /// Production table: one row per well (well, numeric outcome columns).
+    pub production: Option<PathBuf>,
+    /// Divide production values by each well's completed length (sum of its stage lengths).
+    pub per_length: bool,
     /// Output folder.
     pub out_dir: PathBuf,
 }
@@ -373,6 +384,9 @@ impl StagesJob {
             reference: AzimuthReference::Grid,
             horizon: None,
             read: ReadOptions::default(),
+            completions: None,
+            production: None,
+            per_length: false,
             out_dir: out_dir.into(),
         }
     }
@@ -387,6 +401,21 @@ impl StagesJob {
             ));
         }
         check_well_names(&self.wells)?;
+        if self.per_length && self.production.is_none() {
+            return Err(FlexureError::Parameter(
+                "--per-length divides production values: give --production FILE".into(),
+            ));
+        }
+        let completions = self
+            .completions
+            .as_deref()
+            .map(|p| OutcomeTable::read(p, Level::Stage))
+            .transpose()?;
+        let production = self
+            .production
+            .as_deref()
+            .map(|p| OutcomeTable::read(p, Level::Well))
+            .transpose()?;
         let anisotropy = AnisotropyRaster::read(&self.anisotropy)?;
         let rule = rule.on_grid(anisotropy.geometry.metres_per_unit);
         let attributes = self
@@ -462,6 +491,22 @@ impl StagesJob {
             }
             let well_rows = &rows[first..];
             let (stage_rows, lateral) = well_rows.split_at(well_rows.len() - 1);
+            let outcome_tracks: Vec<(String, Vec<f64>)> = completions
+                .iter()
+                .flat_map(|table| {
+                    table.names.iter().enumerate().map(move |(o, name)| {
+                        let values = stage_rows
+                            .iter()
+                            .map(|r| {
+                                table
+                                    .stage_values(&r.well, &r.stage)
+                                    .map_or(f64::NAN, |v| v[o])
+                            })
+                            .collect();
+                        (name.clone(), values)
+                    })
+                })
+                .collect();
             sheets.push((
                 well.name.clone(),
                 sheet(
@@ -470,6 +515,7 @@ impl StagesJob {
                     stage_rows,
                     &lateral[0],
                     horizon.is_some(),
+                    &outcome_tracks,
                 ),
             ));
             reports.push(WellReport {
@@ -513,12 +559,53 @@ impl StagesJob {
         let text = stage_table(&rows).map_err(|e| FlexureError::write(&table, e))?;
         staged.push(stage_bytes(&table, text.as_bytes())?);
         staged.extend(stage_corridors(&self.out_dir, "stage_corridors", g, &rows)?);
+        let outcomes = (completions.is_some() || production.is_some()).then(|| {
+            let (names, metrics) = stage_metrics(&rows, horizon.is_some());
+            analyse(
+                &names,
+                &metrics,
+                completions.as_ref(),
+                production.as_ref(),
+                self.per_length,
+            )
+        });
+        if let Some(analysis) = &outcomes {
+            staged.extend(self.stage_outcomes(analysis)?);
+        }
         commit_all(staged)?;
         Ok(StagesReport {
             out_dir: self.out_dir.clone(),
             wells: reports,
             notes,
+            outcomes,
         })
+    }
+
+    /// `outcomes.csv`, `outcomes.json` (with the inputs' provenance) and the scatter figures.
+    fn stage_outcomes(&self, analysis: &OutcomeAnalysis) -> Result<Vec<StagedFile>> {
+        let csv = self.out_dir.join("outcomes.csv");
+        let mut staged = vec![stage_bytes(&csv, analysis.csv()?.as_bytes())?];
+        let inputs: Vec<&Path> = [self.completions.as_deref(), self.production.as_deref()]
+            .into_iter()
+            .flatten()
+            .collect();
+        let json = serde_json::json!({
+            "tests": analysis.tests,
+            "notes": analysis.notes,
+            "stages_joined": analysis.stages_joined,
+            "wells_joined": analysis.wells_joined,
+            "confidence_level": OUTCOME_LEVEL,
+            "caution": OUTCOME_CAUTION,
+            "provenance": Provenance::of_inputs(&inputs)?.to_json(),
+        });
+        let path = self.out_dir.join("outcomes.json");
+        let text =
+            serde_json::to_string_pretty(&json).map_err(|e| FlexureError::write(&path, e))?;
+        staged.push(stage_bytes(&path, text.as_bytes())?);
+        for (name, fig) in analysis.figures() {
+            staged.extend(stage_figure(&self.out_dir.join(name), &fig)?);
+        }
+        Ok(staged)
     }
 
     /// Reads and checks one well and its stage table; notes on assumed units go to `notes`.
@@ -814,6 +901,49 @@ pub(super) fn number(v: f64) -> String {
     }
 }
 
+/// The stage metrics tested against outcomes, by name, and each stage's values (lateral rows
+/// left out): angle to well, magnitude, resultant length, stand-off (with a horizon) and the
+/// corridor mean of each curvature band.
+fn stage_metrics(rows: &[StageRow], horizon_given: bool) -> (Vec<String>, Vec<StageMetrics>) {
+    let mut names: Vec<String> = ["angle_to_well", "magnitude_mean", "resultant_length"]
+        .map(String::from)
+        .to_vec();
+    if horizon_given {
+        names.push("standoff_mean".into());
+    }
+    let bands: Vec<String> = rows
+        .first()
+        .map(|r| {
+            r.corridor
+                .curvature
+                .iter()
+                .map(|(b, _)| format!("{b}_mean"))
+                .collect()
+        })
+        .unwrap_or_default();
+    names.extend(bands);
+    let metrics = rows
+        .iter()
+        .filter(|r| r.stage != LATERAL)
+        .map(|r| {
+            let s = &r.corridor.stats;
+            let mut values = vec![s.angle_to_well, s.magnitude_mean, s.resultant_length];
+            if horizon_given {
+                values.push(r.standoff.0);
+            }
+            values.extend(r.corridor.curvature.iter().map(|(_, q)| q.0));
+            StageMetrics {
+                well: r.well.clone(),
+                stage: r.stage.clone(),
+                md_mid: 0.5 * (r.md_top + r.md_base),
+                length: r.md_base - r.md_top,
+                values,
+            }
+        })
+        .collect();
+    (names, metrics)
+}
+
 /// Corridor polygons of every row, GeoPackage and GeoJSON.
 fn stage_corridors(
     dir: &Path,
@@ -1071,14 +1201,16 @@ const AXIS_LINE: [u8; 3] = crate::draw::axis::AXIS;
 /// One sheet per well: the stage roses placed along measured depth (heel left, toe right; x
 /// linear in each stage's mid md, staggered over rows when stages are close) on one radial
 /// scale, the stage intervals, and tracks sharing the md axis: angle to well, anisotropy
-/// magnitude, the first curvature band (mean, p10-p90) when curvature was given and the
-/// stand-off (mean, min-max; positive below, drawn down) when a horizon was given.
+/// magnitude, the first curvature band (mean, p10-p90) when curvature was given, the
+/// stand-off (mean, min-max; positive below, drawn down) when a horizon was given, and each
+/// completion outcome column when a completion table was given.
 fn sheet(
     well: &str,
     md_unit: MdUnit,
     stages: &[StageRow],
     lateral: &StageRow,
     horizon_given: bool,
+    outcomes: &[(String, Vec<f64>)],
 ) -> Figure {
     let unit = md_unit.name();
     let md_lo = stages
@@ -1164,6 +1296,20 @@ fn sheet(
                 })
                 .collect(),
             colour: [0x75, 0x70, 0xb3],
+        });
+    }
+    for (name, values) in outcomes {
+        tracks.push(Track {
+            title: format!("{name} (completion table)"),
+            name: "outcome",
+            fixed: None,
+            down: false,
+            values: stages
+                .iter()
+                .zip(values)
+                .map(|(s, v)| s.value(*v, None))
+                .collect(),
+            colour: [0xa6, 0x76, 0x1d],
         });
     }
     let roses_top = 135.0;
@@ -1286,7 +1432,7 @@ fn sheet(
 
 /// `text` in lines of at most `width` characters, broken at spaces (a longer word gets a line
 /// of its own).
-fn wrap(text: &str, width: usize) -> Vec<String> {
+pub(super) fn wrap(text: &str, width: usize) -> Vec<String> {
     let mut lines: Vec<String> = Vec::new();
     for word in text.split(' ') {
         match lines.last_mut() {
@@ -1371,7 +1517,12 @@ pub struct StagesReport {
     pub wells: Vec<WellReport>,
     /// Units assumed and inputs not used (e.g. measured depths read as metres).
     pub notes: Vec<String>,
+    /// Outcome relations, when completion or production tables were given.
+    pub outcomes: Option<OutcomeAnalysis>,
 }
+
+/// Strongest outcome relations listed in the summary.
+const OUTCOMES_SHOWN: usize = 5;
 
 impl fmt::Display for StagesReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
@@ -1386,6 +1537,32 @@ impl fmt::Display for StagesReport {
             writeln!(f, "note: {note}")?;
         }
         writeln!(f, "wrote stages.csv, stage_corridors.gpkg/.geojson, wells/<well>_path.csv, well_paths.gpkg/.geojson, roses/ and one sheet per well in {}", self.out_dir.display())?;
+        if let Some(a) = &self.outcomes {
+            writeln!(
+                f,
+                "outcomes: {} tests ({} stages and {} wells joined); strongest by p-value:",
+                a.tests.len(),
+                a.stages_joined,
+                a.wells_joined
+            )?;
+            let mut ranked: Vec<&OutcomeTest> = a.tests.iter().collect();
+            ranked.sort_by(|x, y| x.p_value.total_cmp(&y.p_value));
+            for t in ranked.iter().take(OUTCOMES_SHOWN) {
+                writeln!(
+                    f,
+                    "  {} vs {} ({:?}): rho {:.2} [{:.2}, {:.2}], p {:.3}, n {}",
+                    t.outcome, t.metric, t.level, t.rho, t.ci_low, t.ci_high, t.p_value, t.n
+                )?;
+            }
+            for note in &a.notes {
+                writeln!(f, "  note: {note}")?;
+            }
+            writeln!(
+                f,
+                "  wrote outcomes.csv, outcomes.json and outcome_*.svg/png"
+            )?;
+            writeln!(f, "{OUTCOME_CAUTION}")?;
+        }
         writeln!(f, "{WELL_CAUTION}")
     }
 }
@@ -1476,7 +1653,7 @@ mod tests {
             row("2", (1100.0, 1250.0), 50.0, 2.0, -5.0),
         ];
         let lateral = row("lateral", (1000.0, 1250.0), 50.0, 2.5, 2.5);
-        let fig = sheet("w", MdUnit::Metre, &stages, &lateral, true);
+        let fig = sheet("w", MdUnit::Metre, &stages, &lateral, true, &[]);
         for (track, colour, value) in [
             ("track angle_to_well", [0x20, 0x20, 0x20], 40.0),
             ("track magnitude", PETAL_BLUE, 3.0),
@@ -1543,7 +1720,7 @@ mod tests {
                 })
                 .collect();
             let lateral = row("lateral", (3000.0, md), 50.0, 3.0, 0.0);
-            let fig = sheet("w", MdUnit::Metre, &stages, &lateral, false);
+            let fig = sheet("w", MdUnit::Metre, &stages, &lateral, false, &[]);
             let discs = rose_discs(&fig);
             assert_eq!(discs.len(), n);
             // Centre x linear in mid md: the sheet's md axis runs from the first top (MD_LEFT)

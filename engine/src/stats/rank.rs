@@ -2,7 +2,9 @@
 //! well, magnitude, ...), with an uncertainty that respects how the data were gathered.
 //!
 //! - Spearman's rho (Spearman 1904): Pearson's correlation of the ranks, ties given their
-//!   average rank (as `scipy.stats.spearmanr`).
+//!   average rank (as `scipy.stats.spearmanr`). Along wells, each well's rho, averaged with
+//!   weights equal to its stage count (a stratified statistic: differences between wells,
+//!   which a handful of wells cannot separate from well design or geology, stay out of it).
 //! - Confidence interval: percentile bootstrap (Efron & Tibshirani 1993, *An Introduction to
 //!   the Bootstrap*, ch. 13). Independent units (wells) are resampled as pairs; stages along a
 //!   well, which are not independent of their neighbours, by the circular block bootstrap of
@@ -88,7 +90,8 @@ fn pearson(x: &[f64], y: &[f64]) -> Option<f64> {
 }
 
 /// Spearman's rho of `groups` (each a pair of series: metric, outcome; a longer side's extra
-/// values are ignored) pooled,
+/// values are ignored): for ordered groups the average of the groups' own rhos weighted by
+/// their pairs (see [`statistic`]), for independent pairs the rho of all pairs,
 /// with its bootstrap interval at `level` (e.g. 0.95) from `resamples` draws and its
 /// permutation p-value from `permutations` draws, seeded by `seed`. `None` when rho is
 /// undefined (fewer than 3 finite pairs, or a constant side).
@@ -100,23 +103,23 @@ pub fn rank_test(
     permutations: usize,
     seed: u64,
 ) -> Option<RankTest> {
-    let (x, y): (Vec<f64>, Vec<f64>) = groups
+    let units = units(groups, dependence);
+    let identity: Vec<Vec<usize>> = units
         .iter()
-        .flat_map(|(a, b)| a.iter().copied().zip(b.iter().copied()))
-        .unzip();
-    let rho = spearman(&x, &y)?;
-    let n = x
+        .map(|u| (0..u.members.len()).collect())
+        .collect();
+    let parts = gather(&units, &identity, groups);
+    let rho = statistic(&parts)?;
+    let n = parts
         .iter()
-        .zip(&y)
+        .flat_map(|(x, y)| x.iter().zip(y))
         .filter(|(a, b)| a.is_finite() && b.is_finite())
         .count();
-    let units = units(groups, dependence);
     let mut rng = SeededNoise::new(seed);
     let mut boot: Vec<f64> = (0..resamples)
         .filter_map(|_| {
             let picks: Vec<Vec<usize>> = units.iter().map(|u| u.resample(&mut rng)).collect();
-            let (bx, by) = gather(&units, &picks, groups);
-            spearman(&bx, &by)
+            statistic(&gather(&units, &picks, groups))
         })
         .collect();
     let tail = (1.0 - level) / 2.0;
@@ -128,8 +131,9 @@ pub fn rank_test(
     let mut extreme = 0usize;
     for _ in 0..permutations {
         let picks: Vec<Vec<usize>> = units.iter().map(|u| u.permute(&mut rng)).collect();
-        let (px, py) = permuted(&units, &picks, groups);
-        if spearman(&px, &py).is_some_and(|r| r.abs() >= rho.abs() - 1e-12) {
+        if statistic(&permuted(&units, &picks, groups))
+            .is_some_and(|r| r.abs() >= rho.abs() - 1e-12)
+        {
             extreme += 1;
         }
     }
@@ -139,6 +143,25 @@ pub fn rank_test(
         ci,
         p_value: (1 + extreme) as f64 / (1 + permutations) as f64,
     })
+}
+
+/// The test statistic over the units' (metric, outcome) series: each unit's Spearman rho,
+/// averaged with weights equal to its finite pairs (one unit: its rho). For ordered groups
+/// (wells) this is the association along the wells; differences between wells, which
+/// circular shifts within wells cannot test, do not enter it.
+fn statistic(parts: &[(Vec<f64>, Vec<f64>)]) -> Option<f64> {
+    let (sum, weight) = parts
+        .iter()
+        .filter_map(|(x, y)| {
+            let n = x
+                .iter()
+                .zip(y)
+                .filter(|(a, b)| a.is_finite() && b.is_finite())
+                .count() as f64;
+            spearman(x, y).map(|r| (r * n, n))
+        })
+        .fold((0.0, 0.0), |(s, w), (r, n)| (s + r, w + n));
+    (weight > 0.0).then(|| sum / weight)
 }
 
 /// The resampling units: one series per group (ordered), or one unit holding every pair
@@ -218,36 +241,42 @@ fn value(groups: &[(Vec<f64>, Vec<f64>)], (g, i): (usize, usize), outcome: bool)
     }
 }
 
-/// The pairs of a bootstrap draw.
+/// Each unit's (metric, outcome) series of a bootstrap draw.
 fn gather(
     units: &[Unit],
     picks: &[Vec<usize>],
     groups: &[(Vec<f64>, Vec<f64>)],
-) -> (Vec<f64>, Vec<f64>) {
+) -> Vec<(Vec<f64>, Vec<f64>)> {
     units
         .iter()
         .zip(picks)
-        .flat_map(|(u, p)| p.iter().map(move |&k| u.members[k]))
-        .map(|m| (value(groups, m, false), value(groups, m, true)))
-        .unzip()
+        .map(|(u, p)| {
+            p.iter()
+                .map(|&k| u.members[k])
+                .map(|m| (value(groups, m, false), value(groups, m, true)))
+                .unzip()
+        })
+        .collect()
 }
 
-/// The metrics in place and the outcomes moved as a permutation draw says.
+/// Each unit's series with the metrics in place and the outcomes moved as a permutation draw
+/// says.
 fn permuted(
     units: &[Unit],
     picks: &[Vec<usize>],
     groups: &[(Vec<f64>, Vec<f64>)],
-) -> (Vec<f64>, Vec<f64>) {
+) -> Vec<(Vec<f64>, Vec<f64>)> {
     units
         .iter()
         .zip(picks)
-        .flat_map(|(u, p)| {
+        .map(|(u, p)| {
             u.members
                 .iter()
                 .zip(p)
-                .map(move |(&m, &k)| (value(groups, m, false), value(groups, u.members[k], true)))
+                .map(|(&m, &k)| (value(groups, m, false), value(groups, u.members[k], true)))
+                .unzip()
         })
-        .unzip()
+        .collect()
 }
 
 #[cfg(test)]
