@@ -15,7 +15,7 @@
 
 use clap::{ArgAction, ArgMatches, CommandFactory};
 use flexure_engine::error::FlexureError;
-use flexure_engine::jobs::Named;
+use flexure_engine::jobs::Named as NamedValue;
 use std::any::TypeId;
 use std::ffi::OsString;
 use std::path::{Path, PathBuf};
@@ -69,6 +69,8 @@ pub struct Step {
     pub argv: Vec<OsString>,
     /// Input paths the step names (resolved; outputs of earlier steps included).
     pub inputs: Vec<PathBuf>,
+    /// Output paths the step names (`out`, `png`), resolved.
+    pub outputs: Vec<PathBuf>,
 }
 
 impl Step {
@@ -85,7 +87,12 @@ impl Step {
 
 /// Reads the job file at `path`; `output` overrides the file's output folder.
 pub fn read_job(path: &Path, output: Option<&Path>) -> Result<JobFile, FlexureError> {
-    let text = std::fs::read_to_string(path).map_err(|e| FlexureError::read(path, e))?;
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        FlexureError::input(
+            path,
+            format!("cannot read the job file ({e}): check its name"),
+        )
+    })?;
     let at = |span: std::ops::Range<usize>, what: String| {
         let line = text[..span.start.min(text.len())].matches('\n').count() + 1;
         FlexureError::input(path, format!("line {line}: {what}"))
@@ -101,6 +108,7 @@ pub fn read_job(path: &Path, output: Option<&Path>) -> Result<JobFile, FlexureEr
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
         .unwrap_or(Path::new("."));
+    let folder = &std::path::absolute(folder).unwrap_or_else(|_| folder.to_path_buf());
     let mut declared_output = None;
     let mut title = None;
     let mut tables: Vec<(&'static str, Spanned<&DeTable>)> = Vec::new();
@@ -150,7 +158,7 @@ pub fn read_job(path: &Path, output: Option<&Path>) -> Result<JobFile, FlexureEr
         }
     }
     let output = match (output, declared_output) {
-        (Some(o), _) => o.to_path_buf(),
+        (Some(o), _) => std::path::absolute(o).unwrap_or_else(|_| o.to_path_buf()),
         (None, Some(o)) => o,
         (None, None) => {
             return Err(FlexureError::input(
@@ -198,17 +206,43 @@ struct Resolve<'a> {
 
 impl Resolve<'_> {
     /// An input path: `{output}/...` in the output folder, else relative to the job file.
-    fn input(&self, value: &str) -> PathBuf {
-        match value.strip_prefix(OUTPUT_PREFIX) {
-            Some(rest) => self.output.join(rest.trim_start_matches(['/', '\\'])),
+    fn input(&self, value: &str) -> Result<PathBuf, String> {
+        no_backslash(value)?;
+        Ok(match value.strip_prefix(OUTPUT_PREFIX) {
+            Some(rest) => self.output.join(rest.trim_start_matches('/')),
             None => self.folder.join(value),
-        }
+        })
     }
 
-    /// An output path, relative to the output folder.
-    fn output(&self, value: &str) -> PathBuf {
-        let value = value.strip_prefix(OUTPUT_PREFIX).unwrap_or(value);
-        self.output.join(value.trim_start_matches(['/', '\\']))
+    /// An output path, relative to the output folder and inside it.
+    fn output(&self, value: &str) -> Result<PathBuf, String> {
+        no_backslash(value)?;
+        let relative = match value.strip_prefix(OUTPUT_PREFIX) {
+            Some(rest) => Path::new(rest.trim_start_matches('/')),
+            None => Path::new(value),
+        };
+        let leaves = relative.is_absolute()
+            || relative
+                .components()
+                .any(|c| matches!(c, std::path::Component::ParentDir));
+        if leaves {
+            return Err(format!(
+                "'{value}' leaves the run's output folder: outputs are relative to it (give -o or `output` to move the run)"
+            ));
+        }
+        Ok(self.output.join(relative))
+    }
+}
+
+/// Job-file paths use `/` on every system; a backslash is refused (it would be part of a file
+/// name here).
+fn no_backslash(value: &str) -> Result<(), String> {
+    if value.contains('\\') {
+        Err(format!(
+            "'{value}' holds a backslash: write paths in job files with / (as on every system)"
+        ))
+    } else {
+        Ok(())
     }
 }
 
@@ -229,6 +263,7 @@ fn step(
     let mut argv: Vec<OsString> = vec!["flexure".into(), command_name.clone().into()];
     let mut positional: Vec<OsString> = Vec::new();
     let mut inputs = Vec::new();
+    let mut outputs = Vec::new();
     for (key, value) in table {
         let id = key.get_ref().as_ref();
         let arg = command
@@ -257,14 +292,19 @@ fn step(
             continue;
         }
         let role = path_role(kind, arg);
-        let values: Vec<String> = values
-            .into_iter()
-            .map(|v| {
-                let (text, path) = resolve(&v, role, context);
-                inputs.extend(path);
-                text
-            })
-            .collect();
+        let values = join_tuples(arg, values);
+        let mut resolved = Vec::new();
+        for v in values {
+            let (text, named) = resolve(&v, role, context)
+                .map_err(|what| (Some(value.span()), format!("`{id}`: {what}")))?;
+            match named {
+                Named::Input(p) => inputs.push(p),
+                Named::Output(p) => outputs.push(p),
+                Named::Nothing => {}
+            }
+            resolved.push(text);
+        }
+        let values = resolved;
         if arg.is_positional() {
             positional.extend(values.into_iter().map(OsString::from));
         } else if let Some(delimiter) = arg.get_value_delimiter() {
@@ -283,10 +323,57 @@ fn step(
         line,
         argv,
         inputs,
+        outputs,
     };
     step.matches()
-        .map_err(|e| (None, crate::usage_message(&e).replace("--", "")))?;
+        .map_err(|e| (None, in_job_terms(&crate::usage_message(&e), &command_name)))?;
     Ok(step)
+}
+
+/// An array given to an option that takes one value per occurrence and whose value is a tuple
+/// (`pad = [x, y]`, `wellhead = [x, y]`) is that one value, comma-joined; other arrays are one
+/// value per element.
+fn join_tuples(arg: &clap::Arg, values: Vec<String>) -> Vec<String> {
+    let tuple_types = [
+        TypeId::of::<(f64, f64)>(),
+        TypeId::of::<NamedValue<(f64, f64)>>(),
+        TypeId::of::<NamedValue<(f64, f64, f64)>>(),
+    ];
+    let numbers = values.iter().all(|v| v.trim().parse::<f64>().is_ok());
+    if values.len() > 1
+        && numbers
+        && tuple_types
+            .iter()
+            .any(|t| arg.get_value_parser().type_id() == *t)
+    {
+        vec![values.join(",")]
+    } else {
+        values
+    }
+}
+
+/// A command-line usage message in job-file terms: `--min-snr <MIN_SNR>` becomes `min_snr`,
+/// and the help pointer names the command whose options the step's keys are.
+fn in_job_terms(message: &str, command: &str) -> String {
+    let message = message.trim_end_matches(" (see flexure --help)");
+    let words: Vec<String> = message
+        .split(' ')
+        .filter(|w| !(w.starts_with('<') && w.ends_with('>')))
+        .map(|w| match w.strip_prefix("--") {
+            Some(name) => {
+                let (name, rest) = name.split_at(
+                    name.find(|c: char| !(c.is_ascii_alphanumeric() || c == '-'))
+                        .unwrap_or(name.len()),
+                );
+                format!("`{}`{rest}", name.replace('-', "_"))
+            }
+            None => w.replace("'--", "'"),
+        })
+        .collect();
+    format!(
+        "{} (keys are the options of `flexure {command} --help`)",
+        words.join(" ")
+    )
 }
 
 /// The long option name of `arg`.
@@ -320,43 +407,53 @@ fn path_role(kind: &str, arg: &clap::Arg) -> PathRole {
         PathRole::InputOrKeyword
     } else if value_type == TypeId::of::<PathBuf>() {
         PathRole::Input
-    } else if value_type == TypeId::of::<Named<PathBuf>>() {
+    } else if value_type == TypeId::of::<NamedValue<PathBuf>>() {
         PathRole::NamedInput
     } else {
         PathRole::None
     }
 }
 
-/// The value with its path resolved for `role`, and the input path it names, if any.
-fn resolve(value: &str, role: PathRole, context: &Resolve) -> (String, Option<PathBuf>) {
+/// The value with its path resolved for `role`, and the input or output path it names.
+fn resolve(value: &str, role: PathRole, context: &Resolve) -> Result<(String, Named), String> {
     let input = |v: &str| context.input(v);
-    match role {
-        PathRole::None => (value.to_string(), None),
-        PathRole::Output => (context.output(value).display().to_string(), None),
+    Ok(match role {
+        PathRole::None => (value.to_string(), Named::Nothing),
+        PathRole::Output => {
+            let p = context.output(value)?;
+            (p.display().to_string(), Named::Output(p))
+        }
         PathRole::Input => {
-            let p = input(value);
-            (p.display().to_string(), Some(p))
+            let p = input(value)?;
+            (p.display().to_string(), Named::Input(p))
         }
         PathRole::NamedInput => match value.split_once('=') {
             Some((name, file)) => {
-                let p = input(file);
-                (format!("{name}={}", p.display()), Some(p))
+                let p = input(file)?;
+                (format!("{name}={}", p.display()), Named::Input(p))
             }
             None => {
-                let p = input(value);
-                (p.display().to_string(), Some(p))
+                let p = input(value)?;
+                (p.display().to_string(), Named::Input(p))
             }
         },
         PathRole::InputOrKeyword => {
             let keyword = value.trim().parse::<f64>().is_ok() || !value.contains(['.', '/', '\\']);
             if keyword {
-                (value.to_string(), None)
+                (value.to_string(), Named::Nothing)
             } else {
-                let p = input(value);
-                (p.display().to_string(), Some(p))
+                let p = input(value)?;
+                (p.display().to_string(), Named::Input(p))
             }
         }
-    }
+    })
+}
+
+/// What a resolved value names.
+enum Named {
+    Nothing,
+    Input(PathBuf),
+    Output(PathBuf),
 }
 
 /// A value as the command line's text: scalars as written, arrays element by element, and an

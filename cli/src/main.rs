@@ -1113,6 +1113,12 @@ fn execute(command: Command, progress: &dyn Progress) -> Result<Outcome, Flexure
         Command::Plan(args) => Outcome::new(args.job().run()?, &[], false),
         Command::Run(args) => run::run_job(&args, progress)?,
         Command::Demo { out, data, quiet } => {
+            if !data.join(DEMO_JOB_FILE).is_file() {
+                return Err(FlexureError::input(
+                    data.join(DEMO_JOB_FILE),
+                    "demo job not found: run from the repository root or give --data DIR",
+                ));
+            }
             let args = RunArgs {
                 job: data.join(DEMO_JOB_FILE),
                 out: Some(out),
@@ -1151,12 +1157,23 @@ fn run(cli: Cli) -> Result<(), FlexureError> {
 /// `error: ` prefix, and where to look for help.
 fn usage_message(e: &clap::Error) -> String {
     let text = e.to_string();
-    let first = text
+    // The message is every line before clap's usage and tip lines, joined (a list of missing
+    // arguments follows its first line).
+    let lines: Vec<&str> = text
         .lines()
-        .find(|l| !l.trim().is_empty())
-        .unwrap_or("invalid command line");
-    let first = first.trim().trim_start_matches("error: ");
-    format!("{first} (see flexure --help)")
+        .map(str::trim)
+        .take_while(|l| !l.starts_with("Usage:") && !l.starts_with("For more information"))
+        .filter(|l| !l.is_empty() && !l.starts_with("tip:"))
+        .collect();
+    let message = if lines.is_empty() {
+        "invalid command line".to_string()
+    } else {
+        lines.join(" ")
+    };
+    format!(
+        "{} (see flexure --help)",
+        message.trim_start_matches("error: ")
+    )
 }
 
 /// Exit code of a command-line usage error (as clap and most Unix tools use).

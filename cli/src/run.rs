@@ -23,9 +23,10 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
         .steps
         .iter()
         .map(|step| {
-            parse(step).and_then(|(cli, m)| check_step(step, &cli, &job).map(|()| (cli, m)))
+            parse(&job, step).and_then(|(cli, m)| check_step(step, &cli, &job).map(|()| (cli, m)))
         })
         .collect::<Result<Vec<_>, _>>()?;
+    check_links(&job)?;
     if args.check {
         return Ok(check_summary(&job));
     }
@@ -36,7 +37,7 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
     for (step, (cli, matches)) in job.steps.iter().zip(parsed) {
         let t0 = Instant::now();
         let before = transaction.outputs().len();
-        let outcome = execute(cli.command, progress).map_err(|e| in_step(step, e))?;
+        let outcome = execute(cli.command, progress).map_err(|e| in_step(&job, step, e))?;
         let mut summary = outcome.text;
         for caution in [HTI_CAUTION, WELL_CAUTION] {
             if summary.contains(caution) {
@@ -92,8 +93,9 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
 }
 
 /// The step's command line parsed by the command's own parser.
-fn parse(step: &Step) -> Result<(Cli, ArgMatches), FlexureError> {
-    let usage = |e: clap::Error| in_step(step, FlexureError::Parameter(crate::usage_message(&e)));
+fn parse(job: &JobFile, step: &Step) -> Result<(Cli, ArgMatches), FlexureError> {
+    let usage =
+        |e: clap::Error| in_step(job, step, FlexureError::Parameter(crate::usage_message(&e)));
     let matches = step.matches().map_err(usage)?;
     let cli = Cli::from_arg_matches(&matches).map_err(usage)?;
     Ok((cli, matches))
@@ -110,10 +112,11 @@ fn check_step(step: &Step, cli: &Cli, job: &JobFile) -> Result<(), FlexureError>
         Command::Stages(a) => a.job().map(drop),
         _ => Ok(()),
     };
-    built.map_err(|e| in_step(step, e))?;
+    built.map_err(|e| in_step(job, step, e))?;
     for input in &step.inputs {
         if !input.starts_with(&job.output) && !input.exists() {
             return Err(in_step(
+                job,
                 step,
                 FlexureError::input(
                     input,
@@ -127,11 +130,59 @@ fn check_step(step: &Step, cli: &Cli, job: &JobFile) -> Result<(), FlexureError>
     Ok(())
 }
 
-fn in_step(step: &Step, e: FlexureError) -> FlexureError {
-    FlexureError::Parameter(format!("step {}: {e}", step.label()))
+fn in_step(job: &JobFile, step: &Step, e: FlexureError) -> FlexureError {
+    FlexureError::Parameter(format!(
+        "{}: step {}: {e}",
+        job.path.display(),
+        step.label()
+    ))
 }
 
-/// Every option of the step, defaults filled, as text (a list where the option takes several).
+/// Checks how the steps connect before anything runs: every `{output}/...` input lies in what
+/// an earlier step writes (its output folder or file), and no two steps name the same output
+/// file (render and grid outputs are files; other steps' outputs are folders they share).
+fn check_links(job: &JobFile) -> Result<(), FlexureError> {
+    let mut files: Vec<(&Path, &Step)> = Vec::new();
+    for (k, step) in job.steps.iter().enumerate() {
+        for input in step.inputs.iter().filter(|p| p.starts_with(&job.output)) {
+            let written = job.steps[..k]
+                .iter()
+                .any(|earlier| earlier.outputs.iter().any(|o| input.starts_with(o)));
+            if !written {
+                return Err(in_step(
+                    job,
+                    step,
+                    FlexureError::input(
+                        input,
+                        "no earlier step writes this: check the {output}/... path and the step that should write it (steps run grid, curvature, window_study, sector_times, anisotropy, stages, plan, render)",
+                    ),
+                ));
+            }
+        }
+        if matches!(step.kind, "render" | "grid") {
+            for output in &step.outputs {
+                if let Some((_, first)) = files.iter().find(|(p, _)| *p == output.as_path()) {
+                    return Err(in_step(
+                        job,
+                        step,
+                        FlexureError::input(
+                            output,
+                            format!(
+                                "step {} writes this file too: give the steps different output names",
+                                first.label()
+                            ),
+                        ),
+                    ));
+                }
+                files.push((output, step));
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Every option of the step, defaults filled (null where the command decides automatically),
+/// typed (a list where the option takes several).
 fn options(matches: &ArgMatches) -> BTreeMap<String, serde_json::Value> {
     let Some((name, sub)) = matches.subcommand() else {
         return BTreeMap::new();
@@ -147,10 +198,7 @@ fn options(matches: &ArgMatches) -> BTreeMap<String, serde_json::Value> {
         .map(|id| {
             let values: Vec<serde_json::Value> = sub
                 .get_raw(id)
-                .map(|raw| {
-                    raw.map(|v| serde_json::Value::String(v.to_string_lossy().to_string()))
-                        .collect()
-                })
+                .map(|raw| raw.map(|v| typed(&v.to_string_lossy())).collect())
                 .unwrap_or_default();
             let value = match values.len() {
                 0 => serde_json::Value::Null,
@@ -162,14 +210,26 @@ fn options(matches: &ArgMatches) -> BTreeMap<String, serde_json::Value> {
         .collect()
 }
 
-/// Input files the steps name, each once, outputs of the run left out; folders are listed by
+/// A command-line value as JSON: true/false as booleans, numbers as numbers, else text.
+fn typed(text: &str) -> serde_json::Value {
+    match text {
+        "true" => serde_json::Value::Bool(true),
+        "false" => serde_json::Value::Bool(false),
+        _ => text
+            .parse::<i64>()
+            .map(serde_json::Value::from)
+            .or_else(|_| text.parse::<f64>().map(serde_json::Value::from))
+            .ok()
+            .filter(|v| !v.is_null())
+            .unwrap_or_else(|| serde_json::Value::String(text.to_string())),
+    }
+}
+
+/// Input files the steps name, each once, this run's outputs left out; folders are listed by
 /// their files.
 fn inputs(job: &JobFile, outputs: &[PathBuf]) -> Result<Vec<FileRecord>, FlexureError> {
     let mut files: Vec<PathBuf> = Vec::new();
     for input in job.steps.iter().flat_map(|s| &s.inputs) {
-        if input.starts_with(&job.output) || outputs.contains(input) {
-            continue;
-        }
         if input.is_dir() {
             let mut inner: Vec<PathBuf> = std::fs::read_dir(input)
                 .map_err(|e| FlexureError::read(input, e))?
@@ -182,6 +242,9 @@ fn inputs(job: &JobFile, outputs: &[PathBuf]) -> Result<Vec<FileRecord>, Flexure
             files.push(input.clone());
         }
     }
+    // Files this run wrote are outputs; anything else read, even from the output folder (a
+    // previous run's file), is an input.
+    files.retain(|f| !outputs.contains(f));
     let mut seen = std::collections::HashSet::new();
     files
         .into_iter()

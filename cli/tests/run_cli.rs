@@ -186,7 +186,14 @@ fn the_manifest_lists_every_output_with_the_checksum_sha256sum_computes() {
     // The job as resolved: defaults filled (the anisotropy's default least sectors is 4).
     let steps = manifest["steps"].as_array().unwrap();
     let anisotropy = steps.iter().find(|s| s["step"] == "anisotropy").unwrap();
-    assert_eq!(anisotropy["options"]["min_sectors"], "4");
+    assert_eq!(anisotropy["options"]["min_sectors"], 4);
+    assert!(
+        anisotropy["options"]["out"]
+            .as_str()
+            .unwrap()
+            .starts_with('/'),
+        "absolute paths"
+    );
     assert_eq!(steps.len(), 18);
 }
 
@@ -342,6 +349,26 @@ fn unknown_keys_and_bad_values_are_refused_naming_the_line() {
             "output = \"o\"\n[[curvature]]\ninput = \"missing.tif\"\nout = \"c\"\n",
             "missing.tif",
         ),
+        (
+            "output = \"o\"\n[[curvature]]\ninput = \"orrimund_shale_top_depth.tif\"\nout = \"c\\\\w\"\n",
+            "holds a backslash",
+        ),
+        (
+            "output = \"o\"\n[[curvature]]\ninput = \"orrimund_shale_top_depth.tif\"\nout = \"../escape\"\n",
+            "leaves the run's output folder",
+        ),
+        (
+            "output = \"o\"\n[[render]]\nattribute = \"{output}/nostep/x.tif\"\nout = \"m.tif\"\n",
+            "no earlier step writes this",
+        ),
+        (
+            "output = \"o\"\n[[render]]\nattribute = \"orrimund_shale_top_depth.tif\"\nout = \"m.tif\"\n[[render]]\nattribute = \"orrimund_shale_top_depth.tif\"\nout = \"m.tif\"\n",
+            "step render (line 2) writes this file too",
+        ),
+        (
+            "output = \"o\"\n[[curvature]]\ninput = \"orrimund_shale_top_depth.tif\"\n",
+            "not provided: `out`",
+        ),
     ];
     for (text, expected) in cases {
         let dir = tempfile::tempdir().unwrap();
@@ -350,7 +377,13 @@ fn unknown_keys_and_bad_values_are_refused_naming_the_line() {
         assert_eq!(stderr.trim_end().lines().count(), 1, "{stderr}");
         assert!(stderr.starts_with("flexure: error: "), "{stderr}");
         assert!(stderr.contains(expected), "{text}\n{stderr}");
+        assert!(stderr.contains("job.toml"), "names the job file: {stderr}");
     }
+    // A bare coordinate pair for a one-well option is one value, as on the command line.
+    let dir = tempfile::tempdir().unwrap();
+    let text = "output = \"o\"\n[[stages]]\nanisotropy = \"kelvane_marl_sectors.tif\"\nwell = [\"tessary_3h.csv\"]\nstages = [\"tessary_3h_stages.csv\"]\nwellhead = [480900, 3902600]\nout = \"s\"\n";
+    let (code, stderr) = run_text(dir.path(), text, &["--check"]);
+    assert_eq!(code, Some(0), "{stderr}");
 }
 
 #[test]

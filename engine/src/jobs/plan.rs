@@ -59,6 +59,9 @@ pub const SCORE_LEVEL: f64 = 0.9;
 /// Least median signal to noise ratio of the best candidate's bins for a preferred azimuth
 /// (the anisotropy job's default for drawing a vector).
 pub const MIN_MEDIAN_SNR: f64 = 2.0;
+/// Seed of every candidate's draws (common random numbers: candidates are compared on the
+/// same draws).
+const SCORE_SEED: u64 = 0x5CA9;
 /// Default bootstrap draws per candidate.
 pub const SCORE_DRAWS: usize = 400;
 
@@ -113,7 +116,7 @@ impl PlanJob {
                 let azimuth = k as f64 * self.step;
                 let line = self.lateral_line(azimuth);
                 let c = Corridor::evaluate(&line, rule, &anisotropy, attributes.as_ref());
-                let score = score_interval(&c.bins, azimuth, SCORE_LEVEL, self.draws, k as u64)
+                let score = score_interval(&c.bins, azimuth, SCORE_LEVEL, self.draws, SCORE_SEED)
                     .unwrap_or(ScoreInterval {
                         score: f64::NAN,
                         low: f64::NAN,
@@ -263,7 +266,7 @@ fn stage_candidates(
 const SPOKE_STEP: f64 = 30.0;
 
 /// Scores on a polar chart: radius linear in the score (0..1) at each azimuth drilled from the
-/// heel (the line) with its interval (shaded: dark up to the low end, light up to the high end),
+/// heel (the line) with its interval (the shaded band between its low and high ends),
 /// rings at round scores (1-2-5 steps) labelled beside the fast axis (where scores are least),
 /// spokes every 30 degrees labelled in degrees from grid north, the best candidate (black, when
 /// there is a preferred azimuth) and the mean fast azimuth along it (orange).
@@ -300,13 +303,16 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate, preferred: bool) -> F
             })
             .collect()
     };
+    // The interval as a band between the low and high outlines (outer ring forward, inner
+    // ring back: one polygon whose non-zero fill is the band).
+    let mut band = outline(&|c| c.interval.1);
+    band.extend(band.first().copied());
+    let mut inner = outline(&|c| c.interval.0);
+    inner.extend(inner.first().copied());
+    inner.reverse();
+    band.extend(inner);
     fig.marks.push(Mark::Polygon {
-        points: outline(&|c| c.interval.1),
-        fill: [0xde, 0xeb, 0xf7],
-        stroke: None,
-    });
-    fig.marks.push(Mark::Polygon {
-        points: outline(&|c| c.interval.0),
+        points: band,
         fill: [0x9e, 0xca, 0xe1],
         stroke: None,
     });
@@ -363,7 +369,7 @@ fn polar_chart(candidates: &[Candidate], best: &Candidate, preferred: bool) -> F
         ),
         (
             format!(
-                "line: score (0 to 1) of the lateral drilled that way from the heel; shading: its {:.0}% interval",
+                "line: score (0 to 1) of the lateral drilled that way from the heel; shaded band: its {:.0}% interval",
                 100.0 * SCORE_LEVEL
             ),
             12.0,

@@ -72,7 +72,8 @@ pub struct StepRecord {
     pub step: String,
     /// Line of the step in the job file.
     pub line: usize,
-    /// Every option of the step as resolved (paths absolute, defaults filled), as text.
+    /// Every option of the step as resolved (paths absolute, defaults filled, null where the
+    /// command chooses automatically).
     pub options: BTreeMap<String, serde_json::Value>,
     /// Wall time of the step, seconds.
     pub seconds: f64,

@@ -229,7 +229,7 @@ pub fn median_snr(bins: &[BinSample]) -> f64 {
 /// A drilling score with its interval.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct ScoreInterval {
-    /// The score over every bin ([`perpendicularity_score`]).
+    /// The median score of the draws.
     pub score: f64,
     /// Lower end of the interval.
     pub low: f64,
@@ -237,11 +237,15 @@ pub struct ScoreInterval {
     pub high: f64,
 }
 
-/// The drilling score of a lateral at `azimuth` with a percentile interval at `level` from
-/// `draws` draws: each draw resamples the bins with replacement (bootstrap, Efron &
-/// Tibshirani 1993) and moves each drawn bin's fast azimuth by a normal deviate of its
-/// standard error, so both the sampling of the corridor and each bin's measurement noise widen
-/// the interval. Seeded: the same bits for the same inputs. `None` without a weighted bin.
+/// The drilling score of a lateral at `azimuth` given the measurement noise, with a
+/// percentile interval at `level` from `draws` draws: each draw resamples the bins with
+/// replacement (bootstrap, Efron & Tibshirani 1993) and moves each drawn bin's fast azimuth by
+/// a normal deviate of its standard error, so both the sampling of the corridor and each bin's
+/// measurement noise widen the interval. The score is the median of the draws (not the
+/// noise-free [`perpendicularity_score`]: azimuth errors pull sin^2 away from 0 and 1, and the
+/// score must lie inside its own interval). Seeded: the same bits for the same inputs; give
+/// every candidate of a scan the same seed, so they are compared on the same draws.
+/// `None` without a weighted bin.
 pub fn score_interval(
     bins: &[BinSample],
     azimuth: f64,
@@ -274,7 +278,7 @@ pub fn score_interval(
         .collect();
     let tail = (1.0 - level) / 2.0;
     Some(ScoreInterval {
-        score,
+        score: quantile(&mut scores, 0.5, Quantile::Linear).unwrap_or(score),
         low: quantile(&mut scores, tail, Quantile::Linear).unwrap_or(score),
         high: quantile(&mut scores, 1.0 - tail, Quantile::Linear).unwrap_or(score),
     })
@@ -403,5 +407,15 @@ mod tests {
             percentiles(&[1.0, 2.0, 3.0, 4.0, 5.0]),
             (3.0, 1.0, 3.0, 5.0)
         );
+    }
+
+    #[test]
+    fn a_score_lies_inside_its_interval_even_at_the_ends_of_its_range() {
+        // Azimuth errors pull sin^2 away from 1 when the lateral is perpendicular to the fast
+        // azimuth: the reported score (median of the draws) must still lie in its interval.
+        for azimuth in [100.0, 10.0, 55.0] {
+            let s = score_interval(&uniform(40, 10.0), azimuth, 0.9, 400, 1).unwrap();
+            assert!(s.low <= s.score && s.score <= s.high, "{azimuth}: {s:?}");
+        }
     }
 }
