@@ -225,6 +225,9 @@ pub struct OutcomeTest {
     pub p_value: f64,
 }
 
+/// A (metric, outcome, well index) point of a scatter plot.
+pub type GroupedPoint = (f64, f64, usize);
+
 /// The pairs behind the tests of one outcome column, for its scatter plot.
 #[derive(Clone, Debug, PartialEq)]
 pub struct OutcomePlot {
@@ -233,7 +236,7 @@ pub struct OutcomePlot {
     /// Stage or well level.
     pub level: Level,
     /// Per metric: its name and the (metric, outcome, well index) points.
-    pub panels: Vec<(String, Vec<(f64, f64, usize)>)>,
+    pub panels: Vec<(String, Vec<GroupedPoint>)>,
 }
 
 /// The outcome analysis of a stages run.
