@@ -603,7 +603,7 @@ impl OutcomeAnalysis {
     fn figure(&self, plot: &OutcomePlot) -> Figure {
         let rows = plot.panels.len().div_ceil(PANELS_ACROSS).max(1);
         let width = 40.0 + PANELS_ACROSS as f32 * (PANEL.0 + PANEL_ROOM.0);
-        let top = 110.0;
+        let top = 132.0;
         let height = top + rows as f32 * (PANEL.1 + PANEL_ROOM.1) + 90.0;
         let mut fig = Figure::new(width as u32, height as u32);
         let what = match plot.level {

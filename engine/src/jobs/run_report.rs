@@ -1,7 +1,7 @@
 //! `report.html`: one self-contained page to hand on after a run: the cautions, the job
 //! summary, each step's summary with its pictures (linked beside the page, relative paths), the
-//! stage tables per well, the best lateral azimuths of the scan, every note, and the inputs and
-//! outputs with their checksums. Plain HTML and CSS (no script, no network resource), readable
+//! stage tables per well, the strongest outcome relations, the best lateral azimuths of the
+//! scan, every note, and the inputs and outputs with their checksums. Plain HTML and CSS (no script, no network resource), readable
 //! on a laptop screen and printable.
 
 use super::run_record::{RunRecord, StepRecord};
@@ -39,14 +39,31 @@ const STAGE_COLUMNS: [(&str, &str); 11] = [
 ];
 
 /// Scan columns shown for the best candidates.
-const PLAN_COLUMNS: [(&str, &str); 6] = [
+const PLAN_COLUMNS: [(&str, &str); 8] = [
     ("azimuth", "lateral azimuth (deg)"),
     ("score", "score"),
+    ("score_low", "90% low"),
+    ("score_high", "90% high"),
     ("fast_azimuth", "fast azimuth (deg)"),
     ("angle_to_well", "angle to fast (deg)"),
     ("magnitude_mean", "magnitude (ms)"),
     ("flag", "flag"),
 ];
+
+/// Outcome-test columns shown in the report.
+const OUTCOME_COLUMNS: [(&str, &str); 8] = [
+    ("outcome", "outcome"),
+    ("metric", "stage metric"),
+    ("level", "level"),
+    ("n", "n"),
+    ("rho", "Spearman rho"),
+    ("ci_low", "95% low"),
+    ("ci_high", "95% high"),
+    ("p_value", "p"),
+];
+
+/// Outcome tests listed in the report.
+const OUTCOME_ROWS: usize = 10;
 
 /// Candidates of the scan listed in the report.
 const PLAN_ROWS: usize = 5;
@@ -142,6 +159,9 @@ fn step_section(page: &mut String, step: &StepRecord, output: &Path) {
         if step.step == "plan" && lower.ends_with(".csv") {
             plan_table(page, &output.join(file));
         }
+        if step.step == "stages" && lower.ends_with("outcomes.csv") {
+            outcome_table(page, &output.join(file));
+        }
     }
 }
 
@@ -176,6 +196,27 @@ fn plan_table(page: &mut String, path: &Path) {
     ranked.truncate(PLAN_ROWS);
     let _ = writeln!(page, "<h4>Best {PLAN_ROWS} candidates by score</h4>");
     table(page, &header, &ranked, &PLAN_COLUMNS);
+}
+
+/// The outcome relations with the smallest p-values.
+fn outcome_table(page: &mut String, path: &Path) {
+    let Some((header, rows)) = read_csv(path) else {
+        return;
+    };
+    let Some(p) = header.iter().position(|h| h == "p_value") else {
+        return;
+    };
+    let mut ranked: Vec<&Vec<String>> = rows.iter().collect();
+    let value = |r: &Vec<String>| r[p].parse::<f64>().unwrap_or(f64::INFINITY);
+    ranked.sort_by(|a, b| value(a).total_cmp(&value(b)));
+    ranked.truncate(OUTCOME_ROWS);
+    let _ = writeln!(
+        page,
+        "<h4>Outcome relations: the {OUTCOME_ROWS} smallest p-values of {} tests</h4>\n<p>{}</p>",
+        rows.len(),
+        escape(super::outcomes::OUTCOME_CAUTION)
+    );
+    table(page, &header, &ranked, &OUTCOME_COLUMNS);
 }
 
 fn table(page: &mut String, header: &[String], rows: &[&Vec<String>], columns: &[(&str, &str)]) {
