@@ -179,33 +179,10 @@ pub fn kappa_from_resultant(r: f64) -> f64 {
     }
 }
 
-/// ln I0(x) for x >= 0 (Abramowitz & Stegun 1964, 9.8.1 and 9.8.2; relative error below
-/// 2e-7).
-pub fn log_i0(x: f64) -> f64 {
-    if x <= 3.75 {
-        let t = (x / 3.75).powi(2);
-        (1.0 + t
-            * (3.515_622_9
-                + t * (3.089_942_4
-                    + t * (1.206_749_2 + t * (0.265_973_2 + t * (0.036_076_8 + t * 0.004_581_3))))))
-            .ln()
-    } else {
-        let t = 3.75 / x;
-        let poly = 0.398_942_28
-            + t * (0.013_285_92
-                + t * (0.002_253_19
-                    + t * (-0.001_575_65
-                        + t * (0.009_162_81
-                            + t * (-0.020_577_06
-                                + t * (0.026_355_37 + t * (-0.016_476_33 + t * 0.003_923_77)))))));
-        x - 0.5 * x.ln() + poly.ln()
-    }
-}
-
-/// A(kappa) = I1(kappa) / I0(kappa), the mean resultant length of a von Mises distribution
-/// (Abramowitz & Stegun 1964, 9.8.1-9.8.4).
-pub fn mean_resultant_length(kappa: f64) -> f64 {
-    let x = kappa;
+/// I0(x) and I1(x) for x >= 0 as (I0 / s, I1 / s, ln s) with the scale s = 1 for x <= 3.75
+/// and s = e^x / sqrt(x) above (Abramowitz & Stegun 1964, 9.8.1-9.8.4; relative error below
+/// 2e-7), so large arguments do not overflow.
+fn bessel_i0_i1(x: f64) -> (f64, f64, f64) {
     if x <= 3.75 {
         let t = (x / 3.75).powi(2);
         let i0 = 1.0
@@ -218,7 +195,7 @@ pub fn mean_resultant_length(kappa: f64) -> f64 {
                     + t * (0.514_988_69
                         + t * (0.150_849_34
                             + t * (0.026_587_33 + t * (0.003_015_32 + t * 0.000_324_11))))));
-        i1 / i0
+        (i0, i1, 0.0)
     } else {
         let t = 3.75 / x;
         let i0 = 0.398_942_28
@@ -235,8 +212,21 @@ pub fn mean_resultant_length(kappa: f64) -> f64 {
                         + t * (-0.010_315_55
                             + t * (0.022_829_67
                                 + t * (-0.028_953_12 + t * (0.017_876_54 - t * 0.004_200_59)))))));
-        i1 / i0
+        (i0, i1, x - 0.5 * x.ln())
     }
+}
+
+/// ln I0(x) for x >= 0 (see [`bessel_i0_i1`]).
+pub fn log_i0(x: f64) -> f64 {
+    let (i0, _, log_scale) = bessel_i0_i1(x);
+    i0.ln() + log_scale
+}
+
+/// A(kappa) = I1(kappa) / I0(kappa), the mean resultant length of a von Mises distribution
+/// (see [`bessel_i0_i1`]).
+pub fn mean_resultant_length(kappa: f64) -> f64 {
+    let (i0, i1, _) = bessel_i0_i1(kappa);
+    i1 / i0
 }
 
 #[cfg(test)]
