@@ -182,41 +182,80 @@ fn stage_tables(page: &mut String, path: &Path) {
     }
 }
 
-/// The best candidates of the scan by score.
-fn plan_table(page: &mut String, path: &Path) {
-    let Some((header, rows)) = read_csv(path) else {
-        return;
-    };
-    let Some(score) = header.iter().position(|h| h == "score") else {
-        return;
-    };
-    let mut ranked: Vec<&Vec<String>> = rows.iter().collect();
-    let value = |r: &Vec<String>| r[score].parse::<f64>().unwrap_or(f64::NEG_INFINITY);
-    ranked.sort_by(|a, b| value(b).total_cmp(&value(a)));
-    ranked.truncate(PLAN_ROWS);
-    let _ = writeln!(page, "<h4>Best {PLAN_ROWS} candidates by score</h4>");
-    table(page, &header, &ranked, &PLAN_COLUMNS);
+/// Which rows of a CSV the report lists: sorted by one numeric column, the first few.
+struct Ranking {
+    /// Column sorted on.
+    column: &'static str,
+    /// Largest first (else smallest first).
+    descending: bool,
+    /// Rows listed.
+    rows: usize,
+    /// Columns shown, with their headings.
+    columns: &'static [(&'static str, &'static str)],
 }
 
+/// The best candidates of the scan by score.
+const PLAN_RANKING: Ranking = Ranking {
+    column: "score",
+    descending: true,
+    rows: PLAN_ROWS,
+    columns: &PLAN_COLUMNS,
+};
+
 /// The outcome relations with the smallest p-values.
+const OUTCOME_RANKING: Ranking = Ranking {
+    column: "p_value",
+    descending: false,
+    rows: OUTCOME_ROWS,
+    columns: &OUTCOME_COLUMNS,
+};
+
+fn plan_table(page: &mut String, path: &Path) {
+    ranked_table(page, path, &PLAN_RANKING, |_| {
+        format!("<h4>Best {PLAN_ROWS} candidates by score</h4>")
+    });
+}
+
 fn outcome_table(page: &mut String, path: &Path) {
+    ranked_table(page, path, &OUTCOME_RANKING, |tests| {
+        format!(
+            "<h4>Outcome relations: the {OUTCOME_ROWS} smallest p-values of {tests} tests</h4>\n<p>{}</p>",
+            escape(super::outcomes::OUTCOME_CAUTION)
+        )
+    });
+}
+
+/// The rows of the CSV at `path` ranked as `ranking` says, under `heading(row count)`.
+fn ranked_table(
+    page: &mut String,
+    path: &Path,
+    ranking: &Ranking,
+    heading: impl Fn(usize) -> String,
+) {
     let Some((header, rows)) = read_csv(path) else {
         return;
     };
-    let Some(p) = header.iter().position(|h| h == "p_value") else {
+    let Some(k) = header.iter().position(|h| h == ranking.column) else {
         return;
     };
+    let missing = if ranking.descending {
+        f64::NEG_INFINITY
+    } else {
+        f64::INFINITY
+    };
+    let value = |r: &Vec<String>| r[k].parse::<f64>().unwrap_or(missing);
     let mut ranked: Vec<&Vec<String>> = rows.iter().collect();
-    let value = |r: &Vec<String>| r[p].parse::<f64>().unwrap_or(f64::INFINITY);
-    ranked.sort_by(|a, b| value(a).total_cmp(&value(b)));
-    ranked.truncate(OUTCOME_ROWS);
-    let _ = writeln!(
-        page,
-        "<h4>Outcome relations: the {OUTCOME_ROWS} smallest p-values of {} tests</h4>\n<p>{}</p>",
-        rows.len(),
-        escape(super::outcomes::OUTCOME_CAUTION)
-    );
-    table(page, &header, &ranked, &OUTCOME_COLUMNS);
+    ranked.sort_by(|a, b| {
+        let order = value(a).total_cmp(&value(b));
+        if ranking.descending {
+            order.reverse()
+        } else {
+            order
+        }
+    });
+    ranked.truncate(ranking.rows);
+    let _ = writeln!(page, "{}", heading(rows.len()));
+    table(page, &header, &ranked, ranking.columns);
 }
 
 fn table(page: &mut String, header: &[String], rows: &[&Vec<String>], columns: &[(&str, &str)]) {
