@@ -272,9 +272,10 @@ fn absolute(path: &Path) -> String {
 /// What `--check` prints: each step and its command line.
 fn check_summary(job: &JobFile) -> Outcome {
     let mut text = format!(
-        "job {} is valid: {} steps, outputs to {}\n",
+        "job {} is valid: {} step{}, outputs to {}\n",
         job.path.display(),
         job.steps.len(),
+        if job.steps.len() == 1 { "" } else { "s" },
         job.output.display()
     );
     for step in &job.steps {

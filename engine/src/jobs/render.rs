@@ -947,8 +947,8 @@ impl fmt::Display for RenderReport {
         }
         writeln!(
             f,
-            "  map raster at {} pixels per cell",
-            self.pixels_per_cell
+            "  map raster at {} x {} pixels per cell",
+            self.pixels_per_cell, self.pixels_per_cell
         )?;
         for n in &self.notes {
             writeln!(f, "  note: {n}")?;
