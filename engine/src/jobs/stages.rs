@@ -903,7 +903,9 @@ pub(super) fn number(v: f64) -> String {
 
 /// The stage metrics tested against outcomes, by name, and each stage's values (lateral rows
 /// left out): angle to well, magnitude, resultant length, stand-off (with a horizon) and the
-/// corridor mean of each curvature band.
+/// corridor mean of each curvature band except directions (dip azimuth: a rank correlation
+/// with a direction on a circle has no meaning, and its well mean would average angles as
+/// numbers).
 fn stage_metrics(rows: &[StageRow], horizon_given: bool) -> (Vec<String>, Vec<StageMetrics>) {
     let mut names: Vec<String> = ["angle_to_well", "magnitude_mean", "resultant_length"]
         .map(String::from)
@@ -911,17 +913,22 @@ fn stage_metrics(rows: &[StageRow], horizon_given: bool) -> (Vec<String>, Vec<St
     if horizon_given {
         names.push("standoff_mean".into());
     }
-    let bands: Vec<String> = rows
+    let is_direction = |band: &str| band_info(band).is_some_and(|b| b.scale.period().is_some());
+    let bands: Vec<usize> = rows
         .first()
         .map(|r| {
-            r.corridor
-                .curvature
-                .iter()
-                .map(|(b, _)| format!("{b}_mean"))
+            (0..r.corridor.curvature.len())
+                .filter(|&k| !is_direction(&r.corridor.curvature[k].0))
                 .collect()
         })
         .unwrap_or_default();
-    names.extend(bands);
+    if let Some(r) = rows.first() {
+        names.extend(
+            bands
+                .iter()
+                .map(|&k| format!("{}_mean", r.corridor.curvature[k].0)),
+        );
+    }
     let metrics = rows
         .iter()
         .filter(|r| r.stage != LATERAL)
@@ -931,7 +938,7 @@ fn stage_metrics(rows: &[StageRow], horizon_given: bool) -> (Vec<String>, Vec<St
             if horizon_given {
                 values.push(r.standoff.0);
             }
-            values.extend(r.corridor.curvature.iter().map(|(_, q)| q.0));
+            values.extend(bands.iter().map(|&k| r.corridor.curvature[k].1 .0));
             StageMetrics {
                 well: r.well.clone(),
                 stage: r.stage.clone(),
