@@ -32,7 +32,9 @@ pub const FEW: usize = 10;
 pub const OUTCOME_CAUTION: &str = "Outcome relations are rank correlations on these wells \
 only: a local empirical relation, not a forecast. With many outcome and metric pairs, about one \
 test in twenty falls below p = 0.05 by chance; neighbouring stages are not independent (the \
-tests keep each well's order), and a correlation does not say why.";
+tests keep each well's order), a trend along the well shared by a metric and an outcome (a \
+design change from heel to toe, a drift in the anisotropy) reads as a relation, and a \
+correlation does not say why.";
 
 const WELL: ColumnSpec = ColumnSpec {
     name: "well",

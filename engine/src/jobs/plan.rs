@@ -476,6 +476,9 @@ impl fmt::Display for PlanReport {
                 self.worst_interval.1
             )?;
         } else {
+            if self.best_snr.is_nan() {
+                writeln!(f, "no preferred azimuth: the anisotropy raster gives no magnitude standard errors, so the signal to noise ratio of its bins is unknown; rerun the anisotropy fit (it writes magnitude_stderr)")?;
+            }
             writeln!(f, "no preferred azimuth: the best candidate ({:.0} deg, score interval {:.3} .. {:.3}, median signal to noise {:.1}) does not clear the worst ({:.0} deg, {:.3} .. {:.3}) with a median signal to noise of at least {MIN_MEDIAN_SNR}; the anisotropy here is too weak, too noisy or too varied to choose a direction", self.best_azimuth, self.best_interval.0, self.best_interval.1, self.best_snr, self.worst_azimuth, self.worst_interval.0, self.worst_interval.1)?;
         }
         writeln!(
