@@ -904,6 +904,27 @@ fn a_noise_only_field_gives_no_preferred_azimuth() {
 }
 
 #[test]
+fn a_patchy_field_without_a_regional_trend_gives_no_preferred_azimuth() {
+    // Well-measured anisotropy (3 ms, stderr 0.2 ms and 2 deg) whose fast azimuth is random
+    // from one 150 m patch (5 x 5 bins) to the next, with no regional trend: neighbouring bins
+    // agree, so treating bins as independent would make any direction look certain (the
+    // review's Monte Carlo: a best was named in 20 of 20 such fields). The scan resamples
+    // stretches of corridor and must not name a best.
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let a = anisotropy_field(d, |b, r, c| {
+        let fast = (180.0 * hashed(r / 5, c / 5, 7)) as f32;
+        match b {
+            "azimuth_fast" => fast,
+            "azimuth_slow" => (fast + 90.0) % 180.0,
+            _ => uniform(b),
+        }
+    });
+    let (stdout, _) = scan(&a, &d.join("plan"), &[]);
+    assert!(stdout.contains("no preferred azimuth"), "{stdout}");
+}
+
+#[test]
 fn the_heel_can_be_offset_from_the_pad() {
     // --heel-offset 600,90 puts the heel 600 m east of the pad (elementary geometry): the
     // candidate laterals start there.

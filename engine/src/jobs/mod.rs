@@ -25,7 +25,10 @@ pub use grid::{GridJob, GridReport};
 pub use outcomes::{
     analyse, Level, OutcomeAnalysis, OutcomeTable, OutcomeTest, StageMetrics, OUTCOME_CAUTION,
 };
-pub use plan::{PlanJob, PlanReport, MIN_MEDIAN_SNR, SCORE_DRAWS, SCORE_LEVEL};
+pub use plan::{
+    Coherence, PlanJob, PlanReport, MAX_COHERENCE_P, MIN_MEDIAN_SNR, RANDOM_SCORE, SCORE_DRAWS,
+    SCORE_LEVEL,
+};
 pub use render::{default_pixels_per_cell, RenderJob, RenderReport};
 pub use run_record::{
     file_kind, write_run_files, FileRecord, RunRecord, StepRecord, MANIFEST_FILE,

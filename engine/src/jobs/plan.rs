@@ -2,10 +2,13 @@
 //! degrees every `step`) from the landing point (heel, by default the pad), since the two
 //! directions from a pad reach different rock; each judged by the corridor the stages job
 //! uses ([`super::stages`]) and scored against the fast azimuth with an interval from a
-//! bootstrap over its bins and their measurement noise ([`score_interval`]). When the best
-//! candidate's interval does not clear the worst's, or its bins' median signal to noise ratio
-//! is below [`MIN_MEDIAN_SNR`] (magnitudes indistinguishable from noise), the scan says "no
-//! preferred azimuth" rather than naming a best. Writes the score table, a polar chart and the best and worst
+//! bootstrap over stretches of its corridor and its bins' measurement noise
+//! ([`score_interval`]). When the best candidate's interval does not clear the worst's, or
+//! does not clear the score of randomly oriented fast azimuths ([`RANDOM_SCORE`]), or its bins'
+//! median signal to noise ratio is below [`MIN_MEDIAN_SNR`] (magnitudes indistinguishable from
+//! noise), or the fast azimuths within reach share no orientation tile by tile (a Rayleigh test
+//! at [`MAX_COHERENCE_P`]: the best of many candidates over a patchy field always looks good),
+//! the scan says "no preferred azimuth" rather than naming a best. Writes the score table, a polar chart and the best and worst
 //! candidates as lines, all staged and committed together.
 
 use super::stages::{
@@ -22,7 +25,7 @@ use crate::io::vector::{
     stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
 };
 use crate::io::{commit_all, prepare_output_dir, StagedFile};
-use crate::stats::circular::axial_angle;
+use crate::stats::circular::{axial_angle, rayleigh_p};
 use crate::wells::corridor::{median_snr, score_interval, ScoreInterval};
 use std::fmt;
 use std::path::{Path, PathBuf};
@@ -56,6 +59,87 @@ pub struct PlanJob {
 
 /// Level of the candidates' score intervals.
 pub const SCORE_LEVEL: f64 = 0.9;
+/// The score of a lateral across randomly oriented fast azimuths (the mean of sin^2): a
+/// preferred azimuth must score clearly above it.
+pub const RANDOM_SCORE: f64 = 0.5;
+/// Largest Rayleigh p-value of the regional coherence test for a preferred azimuth.
+pub const MAX_COHERENCE_P: f64 = 0.01;
+
+/// Whether the fast azimuths within reach of the heel share an orientation, tile by tile.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Coherence {
+    /// Mean resultant length (0..1) of the tiles' mean doubled fast-azimuth vectors.
+    pub resultant: f64,
+    /// Tiles with fitted bins.
+    pub tiles: usize,
+    /// Rayleigh p-value of uniformity over the tiles (Zar's approximation).
+    pub p: f64,
+}
+
+/// The regional coherence of the fast azimuths within `radius` of `heel`: bins (weighted by
+/// squared signal to noise ratio, capped as in the drilling score) are pooled into square
+/// tiles `tile` wide, each tile gives one mean doubled-angle vector (neighbouring bins are
+/// alike, so a tile, not a bin, is a unit), and the Rayleigh test (Mardia & Jupp 2000, 6.3.1)
+/// asks whether the tiles share an orientation. A field whose fast azimuth changes at random
+/// from patch to patch has no preferred drilling azimuth, however well each bin is measured.
+fn regional_coherence(
+    anisotropy: &AnisotropyRaster,
+    heel: (f64, f64),
+    radius: f64,
+    tile: f64,
+) -> Coherence {
+    let g = &anisotropy.geometry;
+    let mut tiles: std::collections::BTreeMap<(i64, i64), (f64, f64, f64)> =
+        std::collections::BTreeMap::new();
+    for r in 0..g.rows {
+        for c in 0..g.cols {
+            let (x, y) = g.cell_centre(c, r);
+            let (m, az, se) = (
+                anisotropy.magnitude[(r, c)],
+                anisotropy.azimuth_fast[(r, c)],
+                anisotropy.magnitude_stderr[(r, c)],
+            );
+            if (x - heel.0).hypot(y - heel.1) > radius || !(m.is_finite() && az.is_finite()) {
+                continue;
+            }
+            let w = if se.is_finite() && se > 0.0 {
+                (m / se).min(10.0).powi(2)
+            } else {
+                1.0
+            };
+            let (s2, c2) = (2.0 * az).to_radians().sin_cos();
+            let key = (
+                ((x - heel.0) / tile).floor() as i64,
+                ((y - heel.1) / tile).floor() as i64,
+            );
+            let t = tiles.entry(key).or_insert((0.0, 0.0, 0.0));
+            *t = (t.0 + w * s2, t.1 + w * c2, t.2 + w);
+        }
+    }
+    let vectors: Vec<(f64, f64)> = tiles
+        .values()
+        .filter(|t| t.2 > 0.0)
+        .map(|t| (t.0 / t.2, t.1 / t.2))
+        .collect();
+    let n = vectors.len();
+    if n == 0 {
+        return Coherence {
+            resultant: f64::NAN,
+            tiles: 0,
+            p: 1.0,
+        };
+    }
+    let (s, c) = vectors
+        .iter()
+        .fold((0.0, 0.0), |(s, c), v| (s + v.0, c + v.1));
+    let resultant = s.hypot(c) / n as f64;
+    Coherence {
+        resultant,
+        tiles: n,
+        p: rayleigh_p(n as f64, resultant),
+    }
+}
+
 /// Least median signal to noise ratio of the best candidate's bins for a preferred azimuth
 /// (the anisotropy job's default for drawing a vector).
 pub const MIN_MEDIAN_SNR: f64 = 2.0;
@@ -116,12 +200,20 @@ impl PlanJob {
                 let azimuth = k as f64 * self.step;
                 let line = self.lateral_line(azimuth);
                 let c = Corridor::evaluate(&line, rule, &anisotropy, attributes.as_ref());
-                let score = score_interval(&c.bins, azimuth, SCORE_LEVEL, self.draws, SCORE_SEED)
-                    .unwrap_or(ScoreInterval {
-                        score: f64::NAN,
-                        low: f64::NAN,
-                        high: f64::NAN,
-                    });
+                // Stretches one corridor width long are the bootstrap's units.
+                let score = score_interval(
+                    &c.bins,
+                    azimuth,
+                    SCORE_LEVEL,
+                    self.draws,
+                    SCORE_SEED,
+                    rule.width(),
+                )
+                .unwrap_or(ScoreInterval {
+                    score: f64::NAN,
+                    low: f64::NAN,
+                    high: f64::NAN,
+                });
                 Candidate {
                     azimuth,
                     snr: median_snr(&c.bins),
@@ -148,7 +240,17 @@ impl PlanJob {
                 "every bin the candidate laterals cross has zero magnitude (no anisotropy to score against): check the anisotropy grid or move --pad",
             ));
         };
-        let preferred = best.interval.0 > worst.interval.1 && best.snr >= MIN_MEDIAN_SNR;
+        let heel = self.heel.unwrap_or(self.pad);
+        let coherence = regional_coherence(
+            &anisotropy,
+            heel,
+            self.lateral + rule.width() / 2.0,
+            rule.width(),
+        );
+        let preferred = best.interval.0 > worst.interval.1
+            && best.interval.0 > RANDOM_SCORE
+            && best.snr >= MIN_MEDIAN_SNR
+            && coherence.p < MAX_COHERENCE_P;
         let good: Vec<f64> = candidates
             .iter()
             .filter(|c| c.interval.1 >= best.interval.0)
@@ -178,7 +280,8 @@ impl PlanJob {
             good_ranges: circular_ranges(&good, self.step),
             worst_azimuth: worst.azimuth,
             worst_interval: worst.interval,
-            heel: self.heel.unwrap_or(self.pad),
+            heel,
+            coherence,
             out_dir: self.out_dir.clone(),
         })
     }
@@ -426,9 +529,10 @@ fn circular_ranges(good: &[f64], step: f64) -> Vec<(f64, f64)> {
 /// What the drilling-azimuth scan found.
 #[derive(Clone, Debug)]
 pub struct PlanReport {
-    /// Whether the best candidate's score interval clears the worst's and its bins' median
-    /// signal to noise ratio reaches [`MIN_MEDIAN_SNR`]; otherwise there is no preferred
-    /// azimuth (isotropic, noisy or too little data).
+    /// Whether the best candidate's score interval clears the worst's and [`RANDOM_SCORE`],
+    /// its bins' median signal to noise ratio reaches [`MIN_MEDIAN_SNR`] and the region is
+    /// coherent ([`MAX_COHERENCE_P`]); otherwise there is no preferred azimuth (isotropic,
+    /// noisy, too varied or too little data).
     pub preferred: bool,
     /// Best candidate azimuth from the heel, degrees from grid north.
     pub best_azimuth: f64,
@@ -448,6 +552,8 @@ pub struct PlanReport {
     pub worst_interval: (f64, f64),
     /// The landing point the laterals start from.
     pub heel: (f64, f64),
+    /// Whether the fast azimuths within reach share an orientation.
+    pub coherence: Coherence,
     /// Output folder.
     pub out_dir: PathBuf,
 }
@@ -459,6 +565,15 @@ impl fmt::Display for PlanReport {
             f,
             "laterals from the heel at ({:.1}, {:.1}) in every direction",
             self.heel.0, self.heel.1
+        )?;
+        let c = &self.coherence;
+        writeln!(
+            f,
+            "regional coherence of the fast azimuths within reach: resultant {:.2} over {} tiles, Rayleigh p {:.1e}{}",
+            c.resultant,
+            c.tiles,
+            c.p,
+            if c.p < MAX_COHERENCE_P { "" } else { " (no shared orientation)" }
         )?;
         if self.preferred {
             writeln!(f, "best lateral azimuth {:.1} deg from grid north (score {:.3}, {level:.0}% interval {:.3} .. {:.3}; mean fast azimuth {:.1}, angle {:.1} deg)", self.best_azimuth, self.best_score, self.best_interval.0, self.best_interval.1, self.fast_azimuth, axial_angle(self.best_azimuth, self.fast_azimuth))?;
@@ -479,7 +594,7 @@ impl fmt::Display for PlanReport {
             if self.best_snr.is_nan() {
                 writeln!(f, "no preferred azimuth: the anisotropy raster gives no magnitude standard errors, so the signal to noise ratio of its bins is unknown; rerun the anisotropy fit (it writes magnitude_stderr)")?;
             }
-            writeln!(f, "no preferred azimuth: the best candidate ({:.0} deg, score interval {:.3} .. {:.3}, median signal to noise {:.1}) does not clear the worst ({:.0} deg, {:.3} .. {:.3}) with a median signal to noise of at least {MIN_MEDIAN_SNR}; the anisotropy here is too weak, too noisy or too varied to choose a direction", self.best_azimuth, self.best_interval.0, self.best_interval.1, self.best_snr, self.worst_azimuth, self.worst_interval.0, self.worst_interval.1)?;
+            writeln!(f, "no preferred azimuth: the best candidate ({:.0} deg, score interval {:.3} .. {:.3}, median signal to noise {:.1}) does not clear the worst ({:.0} deg, {:.3} .. {:.3}) and {RANDOM_SCORE} (random orientation) with a median signal to noise of at least {MIN_MEDIAN_SNR}; the anisotropy here is too weak, too noisy or too varied to choose a direction", self.best_azimuth, self.best_interval.0, self.best_interval.1, self.best_snr, self.worst_azimuth, self.worst_interval.0, self.worst_interval.1)?;
         }
         writeln!(
             f,

@@ -66,6 +66,11 @@ pub(super) struct CorridorRule {
 }
 
 impl CorridorRule {
+    /// Width of the corridor (both sides), in the rule's unit.
+    pub(super) fn width(&self) -> f64 {
+        2.0 * self.half_width
+    }
+
     /// The rule for a half width in metres (checked), in metres.
     pub(super) fn new(half_width_m: f64, min_bins: usize) -> Result<Self> {
         if !(half_width_m.is_finite() && half_width_m > 0.0) {
@@ -200,9 +205,23 @@ impl Corridor {
             .copied()
             .filter(|&(r, c)| anisotropy.sample(r, c).is_some())
             .collect();
+        let (start, end) = match (points.first(), points.last()) {
+            (Some(&a), Some(&b)) => (a, b),
+            _ => ((f64::NAN, f64::NAN), (f64::NAN, f64::NAN)),
+        };
+        let length = (end.0 - start.0).hypot(end.1 - start.1);
+        let along = |r: usize, c: usize| {
+            let (x, y) = anisotropy.geometry.cell_centre(c, r);
+            if length > 0.0 {
+                ((x - start.0) * (end.0 - start.0) + (y - start.1) * (end.1 - start.1)) / length
+            } else {
+                f64::NAN
+            }
+        };
         let bins: Vec<BinSample> = fitted
             .iter()
             .map(|&(r, c)| BinSample {
+                along: along(r, c),
                 magnitude: anisotropy.magnitude[(r, c)],
                 azimuth_fast: anisotropy.azimuth_fast[(r, c)],
                 azimuth_stderr: anisotropy.azimuth_stderr[(r, c)],
@@ -1588,6 +1607,7 @@ mod tests {
                 azimuth_fast: fast,
                 azimuth_stderr: 1.0,
                 magnitude_stderr: 0.2,
+                along: f64::NAN,
             };
             20
         ];

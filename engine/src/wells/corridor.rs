@@ -26,6 +26,9 @@ pub struct BinSample {
     pub azimuth_stderr: f64,
     /// Standard error of the magnitude, ms (NaN when unknown).
     pub magnitude_stderr: f64,
+    /// Distance of the bin's centre along the path from its start (projected on the line from
+    /// its first to its last point), CRS units; NaN when unknown.
+    pub along: f64,
 }
 
 /// Cells of `geometry` whose centres lie inside the ring `corridor`, row-major `(row, col)`, and
@@ -214,6 +217,24 @@ fn weighted_score<'a>(bins: impl Iterator<Item = (&'a BinSample, f64)>, azimuth:
     }
 }
 
+/// The bins grouped into consecutive stretches of `block` along the path (indices, in order of
+/// position); bins without a position, or a block that is not positive, make one group each.
+fn blocks_along(bins: &[BinSample], block: f64) -> Vec<Vec<usize>> {
+    let mut groups: std::collections::BTreeMap<i64, Vec<usize>> = std::collections::BTreeMap::new();
+    let mut alone = Vec::new();
+    for (k, b) in bins.iter().enumerate() {
+        if b.along.is_finite() && block > 0.0 {
+            groups
+                .entry((b.along / block).floor() as i64)
+                .or_default()
+                .push(k);
+        } else {
+            alone.push(vec![k]);
+        }
+    }
+    groups.into_values().chain(alone).collect()
+}
+
 /// Median signal to noise ratio `B / stderr_B` of the bins whose magnitude error is known
 /// (NaN when none is).
 pub fn median_snr(bins: &[BinSample]) -> f64 {
@@ -238,9 +259,11 @@ pub struct ScoreInterval {
 }
 
 /// The drilling score of a lateral at `azimuth` given the measurement noise, with a
-/// percentile interval at `level` from `draws` draws: each draw resamples the bins with
-/// replacement (bootstrap, Efron & Tibshirani 1993) and moves each drawn bin's fast azimuth by
-/// a normal deviate of its standard error, so both the sampling of the corridor and each bin's
+/// percentile interval at `level` from `draws` draws: each draw resamples stretches of the
+/// corridor `block` long (CRS units; neighbouring bins are alike, so whole stretches are the
+/// units: a moving-block bootstrap in space, after Künsch 1989 and Efron & Tibshirani 1993)
+/// with replacement and moves each drawn bin's fast azimuth by a normal deviate of its
+/// standard error, so both the sampling of the corridor and each bin's
 /// measurement noise widen the interval. The score is the median of the draws (not the
 /// noise-free [`perpendicularity_score`]: azimuth errors pull sin^2 away from 0 and 1, and the
 /// score must lie inside its own interval). Seeded: the same bits for the same inputs; give
@@ -252,26 +275,30 @@ pub fn score_interval(
     level: f64,
     draws: usize,
     seed: u64,
+    block: f64,
 ) -> Option<ScoreInterval> {
     let score = perpendicularity_score(bins, azimuth);
     if !score.is_finite() {
         return None;
     }
+    let blocks = blocks_along(bins, block);
     let mut rng = crate::stats::SeededNoise::new(seed);
-    let n = bins.len();
+    let n = blocks.len();
     let mut scores: Vec<f64> = (0..draws)
         .map(|_| {
-            let drawn: Vec<(&BinSample, f64)> = (0..n)
-                .map(|_| {
-                    let b = &bins[((rng.uniform() * n as f64) as usize).min(n - 1)];
+            let mut drawn: Vec<(&BinSample, f64)> = Vec::with_capacity(bins.len());
+            for _ in 0..n {
+                let members = &blocks[((rng.uniform() * n as f64) as usize).min(n - 1)];
+                for &k in members {
+                    let b = &bins[k];
                     let error = if b.azimuth_stderr.is_finite() {
                         b.azimuth_stderr * rng.gaussian()
                     } else {
                         0.0
                     };
-                    (b, b.azimuth_fast + error)
-                })
-                .collect();
+                    drawn.push((b, b.azimuth_fast + error));
+                }
+            }
             weighted_score(drawn.into_iter(), azimuth)
         })
         .filter(|s| s.is_finite())
@@ -296,6 +323,7 @@ mod tests {
                 azimuth_fast: fast,
                 azimuth_stderr: 2.0,
                 magnitude_stderr: 0.5,
+                along: f64::NAN,
             };
             n
         ]
@@ -414,7 +442,7 @@ mod tests {
         // Azimuth errors pull sin^2 away from 1 when the lateral is perpendicular to the fast
         // azimuth: the reported score (median of the draws) must still lie in its interval.
         for azimuth in [100.0, 10.0, 55.0] {
-            let s = score_interval(&uniform(40, 10.0), azimuth, 0.9, 400, 1).unwrap();
+            let s = score_interval(&uniform(40, 10.0), azimuth, 0.9, 400, 1, 0.0).unwrap();
             assert!(s.low <= s.score && s.score <= s.high, "{azimuth}: {s:?}");
         }
     }
