@@ -258,7 +258,7 @@ impl Corridor {
             flags.push("fast azimuths cancel: no mean axis".to_string());
         }
         let samples: Vec<(f64, f64)> = bins.iter().map(|b| (b.azimuth_fast, b.magnitude)).collect();
-        let trends = two_trends(&samples);
+        let trends = two_trends(&samples, &grid_neighbours(&fitted));
         if let Some(t) = &trends {
             flags.push(format!(
                 "mixed_trends: {:.0} deg ({:.0}%) and {:.0} deg ({:.0}%)",
@@ -318,6 +318,25 @@ impl Corridor {
             .flat_map(|(n, _)| ["mean", "p10", "p50", "p90"].map(|q| format!("{n}_{q}")))
             .collect()
     }
+}
+
+/// Pairs of indices into `cells` (row, column) that are grid neighbours (right or below).
+fn grid_neighbours(cells: &[(usize, usize)]) -> Vec<(usize, usize)> {
+    let index: std::collections::HashMap<(usize, usize), usize> = cells
+        .iter()
+        .enumerate()
+        .map(|(k, &cell)| (cell, k))
+        .collect();
+    cells
+        .iter()
+        .enumerate()
+        .flat_map(|(k, &(r, c))| {
+            [(r, c + 1), (r + 1, c)]
+                .into_iter()
+                .filter_map(|n| index.get(&n).map(|&j| (k, j)))
+                .collect::<Vec<_>>()
+        })
+        .collect()
 }
 
 /// Statistic columns of the stage table and the corridor layers (the two trends are empty
@@ -587,6 +606,18 @@ impl StagesJob {
                 production.as_ref(),
                 self.per_length,
             )
+        });
+        let mixed = rows
+            .iter()
+            .filter(|r| r.stage != LATERAL && r.corridor.trends.is_some())
+            .count();
+        let outcomes = outcomes.map(|mut a| {
+            if mixed > 0 {
+                a.notes.push(format!(
+                    "{mixed} stage(s) hold two fast-azimuth populations (mixed_trends): their mean fast azimuth and angle to well summarise them weakly"
+                ));
+            }
+            a
         });
         if let Some(analysis) = &outcomes {
             staged.extend(self.stage_outcomes(analysis)?);

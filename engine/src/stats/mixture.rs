@@ -48,8 +48,11 @@ impl Component {
 }
 
 /// Two trends in the axial `samples` (azimuth in degrees, weight > 0), when the data favour
-/// them (see the module notes); `None` for one trend or fewer than 8 samples.
-pub fn two_trends(samples: &[(f64, f64)]) -> Option<TwoTrends> {
+/// them (see the module notes); `None` for one trend or fewer than 8 samples. The likelihoods
+/// count the effective number of independent samples: Kish's count for the weights, times
+/// [`spatial_factor`] over the `neighbours` pairs (neighbouring bins of a map are alike; an
+/// empty list treats the samples as independent).
+pub fn two_trends(samples: &[(f64, f64)], neighbours: &[(usize, usize)]) -> Option<TwoTrends> {
     let data: Vec<(f64, f64)> = samples
         .iter()
         .filter(|(a, w)| a.is_finite() && w.is_finite() && *w > 0.0)
@@ -58,11 +61,14 @@ pub fn two_trends(samples: &[(f64, f64)]) -> Option<TwoTrends> {
     if data.len() < 8 {
         return None;
     }
-    // Weights scaled to sum to the sample count, so the likelihood counts samples.
+    // Weights scaled to sum to the effective sample count, so the likelihood counts
+    // independent samples: Kish's (sum w)^2 / sum w^2 for unequal weights, shrunk for the
+    // likeness of neighbouring samples.
     let total: f64 = data.iter().map(|(_, w)| w).sum();
-    let scale = data.len() as f64 / total;
+    let kish = total * total / data.iter().map(|(_, w)| w * w).sum::<f64>();
+    let n = (kish * spatial_factor(samples, neighbours)).max(2.0);
+    let scale = n / total;
     let data: Vec<(f64, f64)> = data.iter().map(|&(a, w)| (a, w * scale)).collect();
-    let n = data.len() as f64;
     let one = fit_one(&data, None);
     let log_l1: f64 = data.iter().map(|&(a, w)| w * one.log_density(a)).sum();
     let (two, shares, log_l2) = fit_two(&data, one.mean);
@@ -85,6 +91,52 @@ pub fn two_trends(samples: &[(f64, f64)]) -> Option<TwoTrends> {
             bic_gain,
         }
     })
+}
+
+/// The share of the samples' count that is independent information, from the lag-one
+/// correlation rho of their doubled-angle unit vectors over the `neighbours` pairs (indices
+/// into `samples`, e.g. grid neighbours): (1 - rho) / (1 + rho) for rho > 0, as for a
+/// first-order autoregressive series (e.g. Bayley & Hammersley 1946; Zwiers & von Storch
+/// 1995), 1 without neighbours or for rho <= 0.
+pub fn spatial_factor(samples: &[(f64, f64)], neighbours: &[(usize, usize)]) -> f64 {
+    let unit: Vec<(f64, f64)> = samples
+        .iter()
+        .map(|&(a, _)| (2.0 * a).to_radians().sin_cos())
+        .collect();
+    let finite: Vec<&(f64, f64)> = unit.iter().filter(|u| u.0.is_finite()).collect();
+    if finite.is_empty() || neighbours.is_empty() {
+        return 1.0;
+    }
+    let n = finite.len() as f64;
+    let mean = (
+        finite.iter().map(|u| u.0).sum::<f64>() / n,
+        finite.iter().map(|u| u.1).sum::<f64>() / n,
+    );
+    let centred = |k: usize| (unit[k].0 - mean.0, unit[k].1 - mean.1);
+    let variance = finite
+        .iter()
+        .map(|u| (u.0 - mean.0).powi(2) + (u.1 - mean.1).powi(2))
+        .sum::<f64>()
+        / n;
+    let pairs: Vec<f64> = neighbours
+        .iter()
+        .filter(|&&(i, j)| {
+            i < unit.len() && j < unit.len() && unit[i].0.is_finite() && unit[j].0.is_finite()
+        })
+        .map(|&(i, j)| {
+            let (a, b) = (centred(i), centred(j));
+            a.0 * b.0 + a.1 * b.1
+        })
+        .collect();
+    if pairs.is_empty() || variance <= 0.0 {
+        return 1.0;
+    }
+    let rho = (pairs.iter().sum::<f64>() / pairs.len() as f64 / variance).clamp(-1.0, 0.99);
+    if rho > 0.0 {
+        (1.0 - rho) / (1.0 + rho)
+    } else {
+        1.0
+    }
 }
 
 /// Weighted maximum-likelihood von Mises fit; `resp` weighs each sample further.
