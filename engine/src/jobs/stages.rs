@@ -1434,7 +1434,7 @@ fn sheet(
                     mean_axis: Some(stats.fast_azimuth),
                     well_axis: Some(stats.well_azimuth),
                     trends: s.corridor.trends.as_ref().map(|t| t.azimuths),
-                    labels: (r >= 40.0).then_some(9.0),
+                    labels: None,
                     compass: false,
                 },
             );
