@@ -186,18 +186,18 @@ fn fit_two(data: &[(f64, f64)], centre: f64) -> ([Component; 2], [f64; 2], f64) 
 
 fn em(data: &[(f64, f64)], mut components: [Component; 2]) -> ([Component; 2], [f64; 2], f64) {
     let mut shares: [f64; 2] = [0.5, 0.5];
-    let mut resp = vec![[0.5, 0.5]; data.len()];
     let mut log_l = f64::NEG_INFINITY;
     for _ in 0..EM_ITERATIONS {
-        // E step: responsibilities, with the log-likelihood of the current fit.
-        let mut total = 0.0;
-        for (r, &(a, w)) in resp.iter_mut().zip(data) {
-            let l = [0, 1].map(|j| shares[j].ln() + components[j].log_density(a));
-            let top = l[0].max(l[1]);
-            let sum = (l[0] - top).exp() + (l[1] - top).exp();
-            *r = [0, 1].map(|j| (l[j] - top).exp() / sum);
-            total += w * (top + sum.ln());
-        }
+        // E step: responsibilities under the current fit.
+        let resp: Vec<[f64; 2]> = data
+            .iter()
+            .map(|&(a, _)| {
+                let l = [0, 1].map(|j| shares[j].ln() + components[j].log_density(a));
+                let top = l[0].max(l[1]);
+                let sum = (l[0] - top).exp() + (l[1] - top).exp();
+                [0, 1].map(|j| (l[j] - top).exp() / sum)
+            })
+            .collect();
         // M step: shares and each component's weighted fit.
         let weight: f64 = data.iter().map(|(_, w)| w).sum();
         for j in 0..2 {
@@ -206,13 +206,30 @@ fn em(data: &[(f64, f64)], mut components: [Component; 2]) -> ([Component; 2], [
             shares[j] = share.clamp(1e-6, 1.0 - 1e-6);
             components[j] = fit_one(data, Some(&rj));
         }
-        if total - log_l < 1e-9 {
-            log_l = log_l.max(total);
+        // The log-likelihood of the fit just made, so the one returned belongs to it.
+        let total = mixture_log_likelihood(data, &components, &shares);
+        let converged = total - log_l < 1e-9;
+        log_l = total;
+        if converged {
             break;
         }
-        log_l = total;
     }
     (components, shares, log_l)
+}
+
+/// Weighted log-likelihood of a two-component mixture.
+fn mixture_log_likelihood(
+    data: &[(f64, f64)],
+    components: &[Component; 2],
+    shares: &[f64; 2],
+) -> f64 {
+    data.iter()
+        .map(|&(a, w)| {
+            let l = [0, 1].map(|j| shares[j].ln() + components[j].log_density(a));
+            let top = l[0].max(l[1]);
+            w * (top + ((l[0] - top).exp() + (l[1] - top).exp()).ln())
+        })
+        .sum()
 }
 
 /// The concentration kappa with A(kappa) = r (Best & Fisher 1981; Fisher 1993, eq. 4.40).
