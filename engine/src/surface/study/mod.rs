@@ -57,6 +57,7 @@
 //! one batch is held, however many windows; the horizon noise estimate's residuals (one a
 //! fitted cell, before the fits) are the only grid-sized array.
 
+pub mod busts;
 pub mod choice;
 pub mod noise;
 pub mod thresholds;
