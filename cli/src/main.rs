@@ -844,12 +844,23 @@ struct CurvatureArgs {
     /// Replace existing outputs even when they hold other bands than this run writes.
     #[arg(long)]
     overwrite: bool,
+    /// Find picking busts (picks far off the surface fitted around them, at a false-alarm
+    /// rate of 1e-5 a cell) and set them null before fitting; writes <input-stem>_busts.csv,
+    /// .gpkg and .geojson. Off by default.
+    #[arg(long)]
+    despike: bool,
+    /// With --despike, also write the despiked horizon as <input-stem>_despiked.tif
+    /// (positive-down depth, busts null).
+    #[arg(long, requires = "despike")]
+    write_despiked: bool,
 }
 
 impl CurvatureArgs {
     fn job(&self) -> Result<CurvatureJob, FlexureError> {
         let mut job = self.horizon.job();
         job.overwrite = self.overwrite;
+        job.despike = self.despike;
+        job.write_despiked = self.write_despiked;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes

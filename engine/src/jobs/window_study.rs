@@ -7,7 +7,7 @@
 //! the panel keeps only the cells its pictures show. Outputs are staged and committed
 //! together.
 
-use super::curvature::{CurvatureJob, Prepared};
+use super::curvature::{bust_file_names, stage_busts, CurvatureJob, Prepared};
 use super::{batch_rows, default_memory_budget, stage_bytes, stage_figure, stage_png};
 use crate::draw::axis::{Axis, GRID};
 use crate::draw::colour::{short, Clip, ColourScale};
@@ -21,6 +21,7 @@ use crate::io::{commit_all, nodata_if_null, refuse_overwrite, GeoTiffWriter, Sta
 use crate::provenance::Provenance;
 use crate::surface::curvature::{AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::horizon::ZUnit;
+use crate::surface::study::busts::{Busts, BUST_TEST};
 use crate::surface::study::choice::POOL_RADIUS;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
@@ -30,6 +31,9 @@ use ndarray::{s, Array2, ArrayView2};
 use serde::Serialize;
 use std::fmt;
 use std::path::{Path, PathBuf};
+
+/// Name of the bust files (`.csv`, `.gpkg`, `.geojson`).
+const BUSTS_NAME: &str = "window_study_busts";
 
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
@@ -68,16 +72,21 @@ impl WindowStudyJob {
                     .into(),
             ));
         }
-        let prepared = self.fit.prepare()?;
+        let prepared = self.fit.prepare(true)?;
         let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
             mut horizon,
             tolerance,
+            busts,
         } = prepared;
+        let busts = busts.expect("the study's horizon is despiked");
         notices.extend(horizon.notes.iter().cloned());
         let out = &self.fit.out_dir;
-        let names = ["window_study.json", "window_study.csv"];
+        let names = ["window_study.json", "window_study.csv"]
+            .map(String::from)
+            .into_iter()
+            .chain(bust_file_names(BUSTS_NAME));
         for name in names {
             refuse_overwrite(&out.join(name), &self.fit.horizon.inputs())?;
         }
@@ -122,7 +131,8 @@ impl WindowStudyJob {
         let mut staged = vec![
             stage_bytes(
                 &out.join("window_study.json"),
-                self.json(&s, spacing_m, &notices, &provenance).as_bytes(),
+                self.json(&s, &busts, spacing_m, &notices, &provenance)
+                    .as_bytes(),
             )?,
             stage_bytes(
                 &out.join("window_study.csv"),
@@ -146,6 +156,7 @@ impl WindowStudyJob {
             g.mirrored_in_pictures(),
         )?);
         staged.extend(adaptive);
+        staged.extend(stage_busts(out, BUSTS_NAME, g, &busts)?);
         commit_all(staged)?;
         Ok(WindowStudyReport {
             attribute: self.attribute.id,
@@ -153,6 +164,7 @@ impl WindowStudyJob {
             noise_sigma: s.noise.sigma * g.metres_per_unit,
             windows: s.windows.clone(),
             recommended: s.recommended,
+            busts: busts.cells.len(),
             out_dir: out.clone(),
             adaptive: adaptive_path,
             notices,
@@ -241,6 +253,7 @@ impl WindowStudyJob {
     fn json(
         &self,
         s: &Study,
+        busts: &Busts,
         spacing_m: (f64, f64),
         notices: &[String],
         provenance: &Provenance,
@@ -253,6 +266,11 @@ impl WindowStudyJob {
             horizon_noise_unit: "CRS length unit (positive-down depth)",
             noise_estimator: NOISE_ESTIMATOR,
             noise_cells: s.noise.n,
+            busts: busts.cells.len(),
+            bust_test: BUST_TEST,
+            bust_false_alarm_rate: busts.false_alarm,
+            bust_threshold_scales: busts.threshold,
+            bust_scale: busts.scale,
             rule: WINDOW_RULE,
             compared_derivatives: format!("{:?}", self.attribute.order).to_lowercase(),
             derivative_noise_unit: match self.attribute.order {
@@ -349,6 +367,13 @@ struct StudyJson<'a> {
     horizon_noise_unit: &'a str,
     noise_estimator: &'a str,
     noise_cells: usize,
+    /// Picking busts found and set null before the fits.
+    busts: usize,
+    bust_test: &'a str,
+    bust_false_alarm_rate: f64,
+    bust_threshold_scales: f64,
+    /// Robust scale of the bust test's residuals (CRS length unit).
+    bust_scale: f64,
     rule: &'a str,
     compared_derivatives: String,
     derivative_noise_unit: &'a str,
@@ -620,6 +645,8 @@ pub struct WindowStudyReport {
     pub windows: Vec<WindowFigures>,
     /// Recommended window.
     pub recommended: usize,
+    /// Picking busts found and set null before the fits (listed in `window_study_busts.*`).
+    pub busts: usize,
     /// Output folder.
     pub out_dir: PathBuf,
     /// Adaptive map written, if any.
@@ -637,6 +664,11 @@ impl fmt::Display for WindowStudyReport {
             f,
             "horizon noise sd {:.3} m ({NOISE_ESTIMATOR})",
             self.noise_sigma
+        )?;
+        writeln!(
+            f,
+            "picking busts set null before the fits: {} (window_study_busts.csv/.gpkg/.geojson)",
+            self.busts
         )?;
         writeln!(
             f,

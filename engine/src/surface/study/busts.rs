@@ -97,8 +97,9 @@ pub fn despike(
         let mut new = local_peaks(&u, limit);
         if let Some(previous) = found.cells.len().checked_sub(last_pass) {
             let near = |&(r, c): &(usize, usize)| {
-                (found.cells[previous..].iter())
-                    .any(|b| b.row.abs_diff(r) <= BUST_WINDOW / 2 && b.col.abs_diff(c) <= BUST_WINDOW / 2)
+                (found.cells[previous..].iter()).any(|b| {
+                    b.row.abs_diff(r) <= BUST_WINDOW / 2 && b.col.abs_diff(c) <= BUST_WINDOW / 2
+                })
             };
             new.retain(near);
         }
@@ -241,7 +242,11 @@ mod tests {
                 assert!((b.offset.abs() - size).abs() < 4.0 * sigma, "{b:?}");
             }
             // The noise scale is recovered within 10% (Hampel's MAD is robust to the busts).
-            assert!((busts.scale / sigma - 1.0).abs() < 0.1, "scale {}", busts.scale);
+            assert!(
+                (busts.scale / sigma - 1.0).abs() < 0.1,
+                "scale {}",
+                busts.scale
+            );
         }
     }
 
