@@ -59,6 +59,7 @@
 
 pub mod busts;
 pub mod choice;
+pub mod footprint;
 pub mod noise;
 pub mod thresholds;
 
@@ -329,7 +330,7 @@ impl<T: Sample> StudyPlan<'_, T> {
             .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
             .map_or(self.windows[0], |f| f.window);
         Ok(Study {
-            noise: self.noise,
+            noise: self.noise.clone(),
             windows: figures,
             steps: self.steps.clone(),
             recommended,
