@@ -70,6 +70,7 @@ use crate::stats::SeededNoise;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::window::{valid_mean, GridRows, Quadric, Sample, WindowFit, WindowSpec};
 use choice::{pooled_ratio, Choice, POOL_RADIUS};
+use footprint::GridAxis;
 use ndarray::{s, Array2, ArrayView2};
 use noise::{estimate_noise, NoiseEstimate};
 use rayon::prelude::*;
@@ -205,7 +206,13 @@ pub fn plan<'a, T: Sample>(
     let NoiseModel {
         steps,
         derivative_noise_sd,
-    } = noise_model(geometry, windows, attribute.order, noise.sigma)?;
+    } = noise_model(
+        geometry,
+        windows,
+        attribute.order,
+        noise.sigma,
+        &noise.footprints,
+    )?;
     let per_km = match attribute.order {
         DerivativeOrder::First => 1.0,
         DerivativeOrder::Second => 1000.0 / geometry.metres_per_unit,
@@ -376,7 +383,8 @@ impl<T: Sample> StudyPlan<'_, T> {
             }
             sums[k].distribution.merge(&clean.distribution);
             let ratio = previous.as_ref().map(|(prev, prev_power)| {
-                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2);
+                let footprint = self.steps[k - 1].footprint_change;
+                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2) + footprint;
                 pooled_ratio(prev, &clean.vectors, &expected, inner.clone())
             });
             let first = clean.vectors[0].slice(s![inner.clone(), ..]);
@@ -456,7 +464,8 @@ impl<T: Sample> StudyPlan<'_, T> {
         band.remove(0)
     }
 
-    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level
+    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level and
+    /// the footprint found (stripes of its period and amplitude, phase 0 at index 0)
     /// (row-major): cell `i` (row-major over the grid) takes the stream's `i`-th deviate, so
     /// any band of rows is the same as in the whole perturbed horizon.
     fn noisy_rows(&self, rows: Range<usize>) -> Vec<f64> {
@@ -468,7 +477,19 @@ impl<T: Sample> StudyPlan<'_, T> {
                 // Two draws a deviate.
                 rng.skip(2 * (r * cols) as u64);
                 (0..cols)
-                    .map(|c| self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian())
+                    .map(|c| {
+                        let stripes: f64 = (self.noise.footprints.iter())
+                            .map(|f| {
+                                let i = match f.axis {
+                                    GridAxis::Columns => c,
+                                    GridAxis::Rows => r,
+                                };
+                                let w = std::f64::consts::TAU / f.period_cells;
+                                f.amplitude * (w * i as f64).cos()
+                            })
+                            .sum();
+                        self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian() + stripes
+                    })
                     .collect()
             })
             .collect();
