@@ -63,6 +63,9 @@ pub mod footprint;
 pub mod noise;
 pub mod thresholds;
 
+#[cfg(test)]
+mod acceptance;
+
 use crate::error::Result;
 use crate::grid::GridGeometry;
 use crate::stats::sketch::Distribution;
@@ -76,7 +79,7 @@ use noise::{estimate_noise, NoiseEstimate};
 use rayon::prelude::*;
 use serde::{Serialize, Serializer};
 use std::ops::Range;
-use thresholds::{noise_model, NoiseModel, StepTest};
+use thresholds::{noise_model, NoiseModel, StepTest, FOOTPRINT_MARGIN};
 
 /// Half width of the noise band of `share_within_noise`, in attribute noise standard
 /// deviations.
@@ -383,9 +386,9 @@ impl<T: Sample> StudyPlan<'_, T> {
             }
             sums[k].distribution.merge(&clean.distribution);
             let ratio = previous.as_ref().map(|(prev, prev_power)| {
-                let footprint = self.steps[k - 1].footprint_change;
-                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2) + footprint;
-                pooled_ratio(prev, &clean.vectors, &expected, inner.clone())
+                let known = (1.0 + FOOTPRINT_MARGIN) * self.steps[k - 1].footprint_change;
+                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2);
+                pooled_ratio(prev, &clean.vectors, &expected, known, inner.clone())
             });
             let first = clean.vectors[0].slice(s![inner.clone(), ..]);
             choice.step(
@@ -716,13 +719,18 @@ mod tests {
         }
     }
 
-    fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Run {
+    pub(super) fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Run {
         run_in_batches(z, g, windows, attr, z.nrows())
     }
 
     /// True RMS error of each window's map and (last) of the adaptive map against the analytic
     /// attribute of the surface, away from the grid's edges (16 cells).
-    fn true_errors(s: &Run, g: &GridGeometry, surface: &Surface, attr: &str) -> Vec<f64> {
+    pub(super) fn true_errors(
+        s: &Run,
+        g: &GridGeometry,
+        surface: &Surface,
+        attr: &str,
+    ) -> Vec<f64> {
         let attr = attribute_by_id(attr).unwrap();
         let truth = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);

@@ -45,17 +45,20 @@ const RESIDUAL_BATCH_ROWS: usize = 256;
 /// Window edge length of the fits whose residuals' spectrum is read for footprint.
 const SPECTRUM_WINDOW: usize = 9;
 
-/// The centre residual `z - f` of every cell's full `size` x `size` fit, row-major (NaN where
-/// none), gathered batch by batch: a grid-sized array.
+/// Least share of valid cells in the spectrum's fits: scattered nulls (busts set null) would
+/// leave few full 9 x 9 windows, and a window with a few nulls filters nearly as a full one.
+const SPECTRUM_MIN_VALID: f64 = 0.9;
+
+/// The centre residual `z - f` of every cell's `size` x `size` fit with at least `min_valid`
+/// of the window valid, row-major (NaN where none), gathered batch by batch: a grid-sized
+/// array.
 fn centre_residuals<T: Sample>(
     depth: ArrayView2<T>,
     geometry: &GridGeometry,
     size: usize,
+    min_valid: f64,
 ) -> Result<Vec<f64>> {
-    let spec = WindowSpec {
-        size,
-        min_valid: 1.0,
-    };
+    let spec = WindowSpec { size, min_valid };
     let fit = WindowFit::new(depth, geometry, &spec, &[])?;
     let mut grid: Vec<f64> = Vec::with_capacity(depth.len());
     let batch = RESIDUAL_BATCH_ROWS.max(fit.tile_rows());
@@ -77,7 +80,7 @@ pub fn estimate_noise<T: Sample>(
     geometry: &GridGeometry,
 ) -> Result<Option<NoiseEstimate>> {
     let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
-    let mut residuals: Vec<f64> = centre_residuals(depth, geometry, 3)?
+    let mut residuals: Vec<f64> = centre_residuals(depth, geometry, 3, 1.0)?
         .into_iter()
         .filter(|v| v.is_finite())
         .collect();
@@ -90,8 +93,11 @@ pub fn estimate_noise<T: Sample>(
     // Stripes constant along one axis are fitted exactly by a 3 x 3 quadric (three values
     // along the other axis, three coefficients), so the spectrum reads 9 x 9 residuals (whose gain for stripes of 2 to 6 cells is 0.7 to 1.3).
     let size = SPECTRUM_WINDOW.min(depth.nrows()).min(depth.ncols());
-    let grid = Array2::from_shape_vec(depth.dim(), centre_residuals(depth, geometry, size)?)
-        .expect("rows x cols residuals");
+    let grid = Array2::from_shape_vec(
+        depth.dim(),
+        centre_residuals(depth, geometry, size, SPECTRUM_MIN_VALID)?,
+    )
+    .expect("rows x cols residuals");
     let mut residual_kernel =
         -crate::surface::window::full_window_kernels(geometry, size)?[5].clone();
     residual_kernel[(size / 2, size / 2)] += 1.0;
