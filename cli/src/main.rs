@@ -883,12 +883,28 @@ struct WindowStudyArgs {
     /// Also write the adaptive-window map and the chosen-window grid.
     #[arg(long)]
     adaptive: bool,
+    /// The smallest structure of interest, metres across: the adaptive map and the
+    /// recommendation take no window smaller than the largest window that fits within it.
+    #[arg(long, value_name = "METRES", value_parser = positive_metres)]
+    min_feature: Option<f64>,
+}
+
+/// A positive length in metres.
+fn positive_metres(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(v) if v > 0.0 && v.is_finite() => Ok(v),
+        _ => Err(format!(
+            "'{s}' is not a positive length in metres, e.g. 300"
+        )),
+    }
 }
 
 impl WindowStudyArgs {
     fn job(&self) -> Result<WindowStudyJob, FlexureError> {
+        let mut fit = self.horizon.job();
+        fit.min_feature_m = self.min_feature;
         Ok(WindowStudyJob {
-            fit: self.horizon.job(),
+            fit,
             attribute: attribute_by_id(self.attribute.trim()).map_err(FlexureError::Parameter)?,
             adaptive: self.adaptive,
         })

@@ -49,6 +49,10 @@ pub struct CurvatureJob {
     /// writing their locations (`<stem>_busts.csv`, `.gpkg`, `.geojson`). Off by default for
     /// `curvature`; the window study always does it.
     pub despike: bool,
+    /// The window study only: the smallest structure of interest, metres across; the adaptive
+    /// map and the recommendation take no window smaller than the largest window that fits
+    /// within it ([`crate::surface::study::StudyPlan::set_min_feature`]).
+    pub min_feature_m: Option<f64>,
     /// With `despike`, also write the despiked horizon (`<stem>_despiked.tif`: positive-down
     /// depth in CRS units, busts null).
     pub write_despiked: bool,
@@ -74,6 +78,7 @@ impl CurvatureJob {
             tiff: TiffOptions::default(),
             despike: false,
             write_despiked: false,
+            min_feature_m: None,
         }
     }
 

@@ -12,7 +12,9 @@ use super::{batch_rows, default_memory_budget, stage_bytes, stage_figure, stage_
 use crate::draw::axis::{Axis, GRID};
 use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::figure::{Anchor, Figure, Mark};
-use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale, PictureCells};
+use crate::draw::map::{
+    cells_to_pixmap, colour_cells, panel, picture_scale, wrap_to, PictureCells, Text,
+};
 use crate::draw::ticks::tick_label;
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -23,6 +25,7 @@ use crate::surface::curvature::{AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::horizon::ZUnit;
 use crate::surface::study::busts::{Busts, BUST_TEST};
 use crate::surface::study::choice::POOL_RADIUS;
+use crate::surface::study::footprint::Footprint;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
 use crate::surface::study::{plan, ChosenRows, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
@@ -140,6 +143,7 @@ impl WindowStudyJob {
             )?,
         ];
         let units = ChartUnits {
+            min_feature_m: self.fit.min_feature_m,
             bin_m: spacing_m,
             metres_per_unit: g.metres_per_unit,
             z_unit: horizon.z_unit,
@@ -165,6 +169,8 @@ impl WindowStudyJob {
             windows: s.windows.clone(),
             recommended: s.recommended,
             busts: busts.cells.len(),
+            noise_model: s.noise_model(),
+            reason: s.reason(),
             out_dir: out.clone(),
             adaptive: adaptive_path,
             notices,
@@ -212,7 +218,7 @@ impl WindowStudyJob {
         adaptive_path: &Option<PathBuf>,
     ) -> Result<(Study, Option<StagedFile>)> {
         let budget = self.fit.memory.unwrap_or_else(default_memory_budget);
-        let plan = plan(
+        let mut plan = plan(
             depth,
             g,
             windows,
@@ -226,6 +232,9 @@ impl WindowStudyJob {
                 "no full 3 x 3 window: cannot estimate the noise",
             )
         })?;
+        if let Some(metres) = self.fit.min_feature_m {
+            plan.set_min_feature(metres);
+        }
         let mut writer = match adaptive_path {
             Some(path) => Some(self.create_adaptive(path, g, provenance, &plan.steps)?),
             None => None,
@@ -291,6 +300,11 @@ impl WindowStudyJob {
                 })
                 .collect(),
             recommended_window: s.recommended,
+            noise_model: s.noise_model(),
+            footprints: &s.noise.footprints,
+            min_feature_m: self.fit.min_feature_m,
+            min_window: s.min_window,
+            reason: s.reason(),
             notices,
             provenance: provenance.to_json(),
         };
@@ -383,6 +397,14 @@ struct StudyJson<'a> {
     noise_band_sd: f64,
     windows: Vec<JsonWindow<'a>>,
     recommended_window: usize,
+    /// The noise model the tests used, in words.
+    noise_model: String,
+    footprints: &'a [Footprint],
+    min_feature_m: Option<f64>,
+    /// The smallest window the adaptive map and the recommendation could take.
+    min_window: usize,
+    /// Why the recommended window was chosen.
+    reason: String,
     notices: &'a [String],
     provenance: serde_json::Value,
 }
@@ -450,6 +472,8 @@ fn csv(s: &Study, path: &Path) -> Result<Vec<u8>> {
 /// How the chart states lengths: the grid's bin sizes in metres and the horizon's z unit
 /// (`None` for a time horizon, whose depth is in CRS units after conversion).
 struct ChartUnits {
+    /// The smallest feature of interest, metres, when given.
+    min_feature_m: Option<f64>,
     /// Bin sizes along x and y, metres.
     bin_m: (f64, f64),
     /// Metres per CRS unit.
@@ -486,7 +510,7 @@ fn stage_chart(
     attribute: &AttributeDef,
     units: &ChartUnits,
 ) -> Result<Vec<StagedFile>> {
-    let (w, h) = (760u32, 580u32);
+    let (w, h) = (760u32, 640u32);
     let (left, right, top, bottom) = (90.0f32, 720.0f32, 70.0f32, 380.0f32);
     let mut fig = Figure::new(w, h);
     fig.text(
@@ -574,6 +598,16 @@ fn stage_chart(
             wf.window.to_string(),
             Anchor::Middle,
         );
+        if wf.window == s.min_window && Some(wf.window) != s.windows.first().map(|w| w.window) {
+            fig.line(vec![(xx, top), (xx, bottom)], [0xbb, 0x44, 0x44], 1.0);
+            fig.text(
+                xx,
+                top + 12.0,
+                11.0,
+                format!("smallest allowed {}", wf.window),
+                Anchor::Middle,
+            );
+        }
         if wf.window == s.recommended {
             fig.line(vec![(xx, top), (xx, bottom)], [0x20, 0x20, 0x20], 2.0);
             fig.text(
@@ -629,6 +663,28 @@ fn stage_chart(
         units.noise(s.noise.sigma),
         Anchor::End,
     );
+    let mut notes = vec![format!("noise model: {}", s.noise_model())];
+    if let Some(m) = units.min_feature_m {
+        notes.push(format!(
+            "smallest feature of interest {} m: no window below {}",
+            short(m),
+            s.min_window
+        ));
+    }
+    notes.push(s.reason());
+    let font = Text::new();
+    let wrapped: Vec<String> = (notes.iter())
+        .flat_map(|n| wrap_to(&font, n, 10.0, w as f32 - 40.0))
+        .collect();
+    for (i, line) in wrapped.iter().take(6).enumerate() {
+        fig.text(
+            20.0,
+            bottom + 190.0 + 14.0 * i as f32,
+            10.0,
+            line.clone(),
+            Anchor::Start,
+        );
+    }
     stage_figure(base, &fig)
 }
 
@@ -647,6 +703,10 @@ pub struct WindowStudyReport {
     pub recommended: usize,
     /// Picking busts found and set null before the fits (listed in `window_study_busts.*`).
     pub busts: usize,
+    /// The noise model used, in words ([`Study::noise_model`]).
+    pub noise_model: String,
+    /// Why the recommended window was chosen ([`Study::reason`]).
+    pub reason: String,
     /// Output folder.
     pub out_dir: PathBuf,
     /// Adaptive map written, if any.
@@ -670,6 +730,7 @@ impl fmt::Display for WindowStudyReport {
             "picking busts set null before the fits: {} (window_study_busts.csv/.gpkg/.geojson)",
             self.busts
         )?;
+        writeln!(f, "noise model: {}", self.noise_model)?;
         writeln!(
             f,
             "{:>8} {:>16} {:>22} {:>18} {:>15}",
@@ -699,6 +760,7 @@ impl fmt::Display for WindowStudyReport {
             "recommended window for {}: {} cells",
             self.attribute, self.recommended
         )?;
+        writeln!(f, "why: {}", self.reason)?;
         writeln!(f, "wrote window_study.json, window_study.csv, window_study_chart.svg/png, window_study_panel.png in {}", self.out_dir.display())?;
         if let Some(p) = &self.adaptive {
             writeln!(f, "wrote {}", p.display())?;
@@ -715,6 +777,7 @@ mod tests {
     fn horizon_noise_is_stated_in_the_horizons_z_unit() {
         // The international foot is 0.3048 m exactly (its definition).
         let units = |metres_per_unit, z_unit| ChartUnits {
+            min_feature_m: None,
             bin_m: (25.0, 25.0),
             metres_per_unit,
             z_unit,

@@ -153,11 +153,57 @@ pub struct Study {
     pub steps: Vec<StepTest>,
     /// The recommended single window.
     pub recommended: usize,
+    /// The smallest window the adaptive map and the recommendation may take (the first
+    /// window, or the one `--min-feature` allows).
+    pub min_window: usize,
     /// The attribute at each window and (last) the adaptive map, at the sampled cells
     /// (`[sample row, sample column]`, NaN = null).
     pub samples: Vec<Array2<f64>>,
     /// The distribution of the attribute's values at each window (sketched).
     pub distributions: Vec<Distribution>,
+}
+
+impl Study {
+    /// The noise model in words: `white`, or the footprint counted with it (axis, period and
+    /// amplitude of each).
+    pub fn noise_model(&self) -> String {
+        let stripes: Vec<String> = (self.noise.footprints.iter())
+            .map(|f| {
+                format!(
+                    "stripes along {:?} (azimuth {:.0} deg), period {:.2} cells ({:.0} m), amplitude {:.3}",
+                    f.axis, f.azimuth_deg, f.period_cells, f.period_m, f.amplitude
+                )
+                .to_lowercase()
+            })
+            .collect();
+        match stripes.is_empty() {
+            true => "white".to_string(),
+            false => format!("white + footprint: {}", stripes.join("; ")),
+        }
+    }
+
+    /// Why the recommended window was chosen, in one sentence.
+    pub fn reason(&self) -> String {
+        let closest = (self.windows.iter())
+            .find(|w| w.window == self.recommended)
+            .map_or(f64::NAN, |w| w.rms_from_adaptive);
+        let floor = match self.min_window == self.windows.first().map_or(0, |w| w.window) {
+            true => String::new(),
+            false => format!(
+                "; windows below {} excluded by the smallest feature of interest",
+                self.min_window
+            ),
+        };
+        format!(
+            "window {} is the single window closest to the adaptive map (RMS difference {:.4});              the adaptive map kept larger windows wherever the derivatives' change stayed within              the {} noise model{floor}",
+            self.recommended,
+            closest,
+            match self.noise.footprints.is_empty() {
+                true => "white",
+                false => "white + footprint",
+            }
+        )
+    }
 }
 
 /// The per-cell results of one batch of rows, row-major from grid row `first_row`.
@@ -190,6 +236,8 @@ pub struct StudyPlan<'a, T: Sample = f64> {
     clean: Vec<WindowFit<'a, T>>,
     /// [`valid_mean`] of the noise-perturbed horizon (the origin of its fits).
     noisy_mean: f64,
+    /// Index of the smallest window the choice may take.
+    floor: usize,
 }
 
 /// Prepares the study of `attribute` on `depth` (positive down, CRS units) over `windows`
@@ -244,6 +292,7 @@ pub fn plan<'a, T: Sample>(
         derivative_noise_sd: derivative_noise_sd.iter().map(|sd| sd * per_km).collect(),
         clean,
         noisy_mean: 0.0,
+        floor: 0,
     };
     // Summed over the whole perturbed horizon in row-major order, as a fit of it held whole
     // would, a chunk of rows at a time.
@@ -266,6 +315,19 @@ const NOISY_MEAN_ROWS: usize = 64;
 const BATCH_CELL_BYTES: usize = 240;
 
 impl<T: Sample> StudyPlan<'_, T> {
+    /// Keeps the adaptive map and the recommendation from windows smaller than the smallest
+    /// structure of interest, `metres` across: the smallest window allowed is the largest
+    /// whose longer side (cells times the larger bin, in metres) is at most `metres` (the first
+    /// window when none is). Returns that window.
+    pub fn set_min_feature(&mut self, metres: f64) -> usize {
+        let (sx, sy) = self.geometry.spacing();
+        let bin_m = sx.max(sy) * self.geometry.metres_per_unit;
+        self.floor = (self.windows.iter())
+            .rposition(|&w| w as f64 * bin_m <= metres)
+            .unwrap_or(0);
+        self.windows[self.floor]
+    }
+
     /// Bytes the study holds per cell of a batch of rows (see [`StudyPlan::run`]).
     pub fn batch_cell_bytes(&self) -> usize {
         BATCH_CELL_BYTES + 4 * self.windows.len()
@@ -335,7 +397,7 @@ impl<T: Sample> StudyPlan<'_, T> {
             })?;
         }
         let figures = self.figures(&sums, rows * cols);
-        let recommended = figures
+        let recommended = figures[self.floor..]
             .iter()
             .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
             .map_or(self.windows[0], |f| f.window);
@@ -344,6 +406,7 @@ impl<T: Sample> StudyPlan<'_, T> {
             windows: figures,
             steps: self.steps.clone(),
             recommended,
+            min_window: self.windows[self.floor],
             samples,
             distributions: sums.into_iter().map(|s| s.distribution).collect(),
         })
@@ -391,12 +454,16 @@ impl<T: Sample> StudyPlan<'_, T> {
                 pooled_ratio(prev, &clean.vectors, &expected, known, inner.clone())
             });
             let first = clean.vectors[0].slice(s![inner.clone(), ..]);
-            choice.step(
-                k,
-                first,
-                ratio.as_ref(),
-                k.checked_sub(1).map(|j| &self.steps[j]),
-            );
+            // Windows below the floor are not offered; the floor is the first one.
+            if k >= self.floor {
+                let tested = k > self.floor;
+                choice.step(
+                    k,
+                    first,
+                    ratio.as_ref().filter(|_| tested),
+                    k.checked_sub(1).map(|j| &self.steps[j]).filter(|_| tested),
+                );
+            }
             previous = Some((clean.vectors, clean.power));
             maps.push(clean.map);
         }

@@ -1,6 +1,7 @@
-//! `--despike` end to end: `flexure curvature --despike --write-despiked` and `flexure
-//! window-study` on a noisy dome with planted picking busts; the bust files read back through
-//! GDAL (OGR) and the csv crate.
+//! The window study's handling of real-horizon artefacts end to end: `flexure curvature
+//! --despike --write-despiked` and `flexure window-study` on a noisy dome with planted picking
+//! busts (the bust files read back through GDAL/OGR), footprint stripes reported in the JSON,
+//! and `--min-feature`.
 
 mod common;
 
@@ -133,4 +134,68 @@ fn window_study_reports_the_busts_it_left_out() {
         points_in(&out.join("window_study_busts.geojson")),
         found.len()
     );
+}
+
+#[test]
+fn window_study_reports_footprint_and_keeps_to_the_min_feature() {
+    // A dome with 0.3 m of white noise and stripes of 0.5 m every 4 columns (planted: the
+    // reference); --min-feature 240 m on 25 m bins allows no window below 9 (9 x 25 = 225 m
+    // fits within 240 m, 15 x 25 = 375 m does not).
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = SeededNoise::new(44);
+    let z = Array2::from_shape_fn((80, 90), |(r, c)| {
+        let (x, y) = (c as f64 - 45.0, r as f64 - 40.0);
+        let stripes = 0.5 * (std::f64::consts::TAU * c as f64 / 4.0 + 0.4).cos();
+        (2000.0 + 0.01 * (x * x + y * y) + 0.3 * rng.gaussian() + stripes) as f32
+    });
+    let input = write_bands(dir.path(), "dome.tif", &north_up(90, 80), vec![z]);
+    let out = dir.path().join("study");
+    let o = flexure(&[
+        "window-study",
+        input.to_str().unwrap(),
+        "--windows",
+        "3,5,9,15",
+        "--adaptive",
+        "--min-feature",
+        "240",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        stdout.contains("noise model: white + footprint"),
+        "{stdout}"
+    );
+    let json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("window_study.json")).unwrap())
+            .unwrap();
+    let f = &json["footprints"][0];
+    assert_eq!(f["axis"], "columns");
+    assert!(
+        (f["period_cells"].as_f64().unwrap() / 4.0 - 1.0).abs() < 0.03,
+        "{f}"
+    );
+    assert!(
+        (f["amplitude"].as_f64().unwrap() / 0.5 - 1.0).abs() < 0.2,
+        "{f}"
+    );
+    assert_eq!(json["min_window"], 9);
+    assert_eq!(json["min_feature_m"], 240.0);
+    assert!(json["recommended_window"].as_u64().unwrap() >= 9);
+    assert!(json["noise_model"]
+        .as_str()
+        .unwrap()
+        .starts_with("white + footprint"));
+    assert!(json["reason"].as_str().unwrap().contains("below 9"));
+    // The chosen-window band, read by GDAL, holds no window below 9.
+    let ds = gdal::Dataset::open(out.join("dome_k_pos_adaptive.tif")).unwrap();
+    let b = ds.rasterband(2).unwrap();
+    let nodata = b.no_data_value();
+    let chosen = b.read_as::<f64>((0, 0), b.size(), b.size(), None).unwrap();
+    assert!(chosen
+        .data()
+        .iter()
+        .filter(|v| Some(**v) != nodata && v.is_finite())
+        .all(|&w| w == 9.0 || w == 15.0));
 }
