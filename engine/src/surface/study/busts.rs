@@ -91,7 +91,7 @@ pub fn despike(
         found.scale =
             crate::stats::median_and_mad(&mut finite).map_or(f64::NAN, |(_, mad)| 1.4826 * mad);
         let limit = threshold * found.scale;
-        if !(limit > 0.0) {
+        if limit.is_nan() || limit <= 0.0 {
             break;
         }
         let mut new = local_peaks(&u, limit);
@@ -156,7 +156,7 @@ fn local_peaks(u: &Array2<f64>, limit: f64) -> Vec<(usize, usize)> {
     let (rows, cols) = u.dim();
     let mut out = Vec::new();
     for ((r, c), &v) in u.indexed_iter() {
-        if !(v.abs() > limit) {
+        if v.is_nan() || v.abs() <= limit {
             continue;
         }
         let beaten = (r.saturating_sub(1)..(r + 2).min(rows))

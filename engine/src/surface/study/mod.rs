@@ -1025,6 +1025,34 @@ mod tests {
         same_results(&one, &two);
     }
 
+    #[test]
+    fn busts_and_footprint_give_the_same_bits_with_one_or_two_threads() {
+        // Determinism (DEVELOPERS.md) through the bust test, the footprint's spectrum and the
+        // footprint-aware steps: planted stripes and busts, one and two threads.
+        let g = grid(100);
+        let (mut z, _) = horizon(&g, vec![fold((1200.0, 8700.0), 30.0, 300.0, true)], 0.3, 64);
+        footprint::tests::add_stripes(&mut z, GridAxis::Rows, 3.0, 0.5, 0.2);
+        for r in (5..95).step_by(17) {
+            z[(r, (3 * r) % 100)] += 6.0;
+        }
+        let in_pool = |threads: usize| {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap()
+                .install(|| {
+                    let mut z = z.clone();
+                    let b = busts::despike(&mut z, &g, busts::BUST_FALSE_ALARM).unwrap();
+                    (b, run(&z, &g, &[3, 5, 9, 15], "k_mean"))
+                })
+        };
+        let ((b1, one), (b2, two)) = (in_pool(1), in_pool(2));
+        assert_eq!(format!("{b1:?}"), format!("{b2:?}"));
+        assert!(!one.noise.footprints.is_empty() && b1.cells.len() >= 6);
+        assert_eq!(format!("{:?}", one.noise), format!("{:?}", two.noise));
+        same_results(&one, &two);
+    }
+
     /// Two runs gave the same bits: per-cell results, figures, steps and samples.
     fn same_results(one: &Run, two: &Run) {
         assert_eq!(one.chosen, two.chosen);

@@ -80,10 +80,8 @@ pub fn estimate_noise<T: Sample>(
     geometry: &GridGeometry,
 ) -> Result<Option<NoiseEstimate>> {
     let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
-    let mut residuals: Vec<f64> = centre_residuals(depth, geometry, 3, 1.0)?
-        .into_iter()
-        .filter(|v| v.is_finite())
-        .collect();
+    let mut residuals = centre_residuals(depth, geometry, 3, 1.0)?;
+    residuals.retain(|v| v.is_finite());
     if residuals.is_empty() {
         return Ok(None);
     }
