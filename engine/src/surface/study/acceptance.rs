@@ -117,8 +117,9 @@ fn the_issues_three_horizons() {
     // The horizons the issue reported (folds 300 to 700 m, 0.3 m of picking noise, plus 0.6 m
     // stripes every 4 bins along one axis, or 0.2% of the picks off by 8 m), on which the
     // study used to recommend windows 5 and 3 against a best of 21: now within one step of the
-    // least-true-error window (analytic reference, as above). Without the bust test the bust
-    // case recommends 3 against a best of 15.
+    // least-true-error window (analytic reference, as above). Checked to fail without the new
+    // parts: without the bust test the bust case recommends 3 against a best of 15, without
+    // the footprint model the first stripes case 5 against 15.
     for (k, (stripes, busts)) in [
         (None, None),
         (Some((GridAxis::Columns, 4.0, 0.6)), None),
