@@ -853,6 +853,10 @@ struct CurvatureArgs {
     /// (positive-down depth, busts null).
     #[arg(long, requires = "despike")]
     write_despiked: bool,
+    /// Remove a periodic acquisition footprint found on the horizon (stripes along a grid axis)
+    /// by a notch before fitting; a note says what was removed. Off by default.
+    #[arg(long)]
+    footprint_filter: bool,
 }
 
 impl CurvatureArgs {
@@ -861,6 +865,7 @@ impl CurvatureArgs {
         job.overwrite = self.overwrite;
         job.despike = self.despike;
         job.write_despiked = self.write_despiked;
+        job.footprint_filter = self.footprint_filter;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes
@@ -887,6 +892,10 @@ struct WindowStudyArgs {
     /// recommendation take no window smaller than the largest window that fits within it.
     #[arg(long, value_name = "METRES", value_parser = positive_metres)]
     min_feature: Option<f64>,
+    /// Remove a periodic acquisition footprint by a notch before the study (otherwise it is
+    /// counted as noise); a note says what was removed. Off by default.
+    #[arg(long)]
+    footprint_filter: bool,
 }
 
 /// A positive length in metres.
@@ -903,6 +912,7 @@ impl WindowStudyArgs {
     fn job(&self) -> Result<WindowStudyJob, FlexureError> {
         let mut fit = self.horizon.job();
         fit.min_feature_m = self.min_feature;
+        fit.footprint_filter = self.footprint_filter;
         Ok(WindowStudyJob {
             fit,
             attribute: attribute_by_id(self.attribute.trim()).map_err(FlexureError::Parameter)?,

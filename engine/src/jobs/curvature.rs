@@ -18,6 +18,8 @@ use crate::provenance::Provenance;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::surface::horizon::{Horizon, HorizonSource};
 use crate::surface::study::busts::{self, Busts, BUST_FALSE_ALARM, BUST_TEST};
+use crate::surface::study::footprint::notch;
+use crate::surface::study::noise::estimate_noise;
 use crate::surface::window::{narrow_exactly, FittedTile, Sample, WindowFit, WindowSpec};
 use ndarray::{Array2, ArrayView2};
 use std::fmt;
@@ -49,6 +51,10 @@ pub struct CurvatureJob {
     /// writing their locations (`<stem>_busts.csv`, `.gpkg`, `.geojson`). Off by default for
     /// `curvature`; the window study always does it.
     pub despike: bool,
+    /// Remove periodic footprint found on the horizon (after any despiking) by a notch along
+    /// its axis before fitting ([`crate::surface::study::footprint::notch`]); a note says what
+    /// was removed. Off by default.
+    pub footprint_filter: bool,
     /// The window study only: the smallest structure of interest, metres across; the adaptive
     /// map and the recommendation take no window smaller than the largest window that fits
     /// within it ([`crate::surface::study::StudyPlan::set_min_feature`]).
@@ -79,6 +85,7 @@ impl CurvatureJob {
             despike: false,
             write_despiked: false,
             min_feature_m: None,
+            footprint_filter: false,
         }
     }
 
@@ -327,6 +334,28 @@ impl CurvatureJob {
             )?),
             false => None,
         };
+        if self.footprint_filter {
+            let found = estimate_noise(horizon.depth.view(), &horizon.geometry)?
+                .map(|n| n.footprints)
+                .unwrap_or_default();
+            notch(&mut horizon.depth, &found);
+            let removed: Vec<String> = (found.iter())
+                .map(|f| {
+                    format!(
+                        "along {:?}, period {:.2} cells, amplitude {:.3}",
+                        f.axis, f.period_cells, f.amplitude
+                    )
+                    .to_lowercase()
+                })
+                .collect();
+            horizon.notes.push(match removed.is_empty() {
+                true => "footprint filter applied: no periodic footprint found".to_string(),
+                false => format!(
+                    "footprint filter applied: notch removed {}",
+                    removed.join("; ")
+                ),
+            });
+        }
         let geometry = &horizon.geometry;
         let (sx, sy) = geometry.spacing();
         let tolerance = FlatTolerance::for_grid(
