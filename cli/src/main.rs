@@ -844,12 +844,28 @@ struct CurvatureArgs {
     /// Replace existing outputs even when they hold other bands than this run writes.
     #[arg(long)]
     overwrite: bool,
+    /// Find picking busts (picks far off the surface fitted around them, at a false-alarm
+    /// rate of 1e-5 a cell) and set them null before fitting; writes <input-stem>_busts.csv,
+    /// .gpkg and .geojson. Off by default.
+    #[arg(long)]
+    despike: bool,
+    /// With --despike, also write the despiked horizon as <input-stem>_despiked.tif
+    /// (positive-down depth, busts null).
+    #[arg(long, requires = "despike")]
+    write_despiked: bool,
+    /// Remove a periodic acquisition footprint found on the horizon (stripes along a grid axis)
+    /// by a notch before fitting; a note says what was removed. Off by default.
+    #[arg(long)]
+    footprint_filter: bool,
 }
 
 impl CurvatureArgs {
     fn job(&self) -> Result<CurvatureJob, FlexureError> {
         let mut job = self.horizon.job();
         job.overwrite = self.overwrite;
+        job.despike = self.despike;
+        job.write_despiked = self.write_despiked;
+        job.footprint_filter = self.footprint_filter;
         if !self.attributes.is_empty() {
             job.attributes = self
                 .attributes
@@ -872,12 +888,33 @@ struct WindowStudyArgs {
     /// Also write the adaptive-window map and the chosen-window grid.
     #[arg(long)]
     adaptive: bool,
+    /// The smallest structure of interest, metres across: the adaptive map and the
+    /// recommendation take no window smaller than the largest window that fits within it.
+    #[arg(long, value_name = "METRES", value_parser = positive_metres)]
+    min_feature: Option<f64>,
+    /// Remove a periodic acquisition footprint by a notch before the study (otherwise it is
+    /// counted as noise); a note says what was removed. Off by default.
+    #[arg(long)]
+    footprint_filter: bool,
+}
+
+/// A positive length in metres.
+fn positive_metres(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(v) if v > 0.0 && v.is_finite() => Ok(v),
+        _ => Err(format!(
+            "'{s}' is not a positive length in metres, e.g. 300"
+        )),
+    }
 }
 
 impl WindowStudyArgs {
     fn job(&self) -> Result<WindowStudyJob, FlexureError> {
+        let mut fit = self.horizon.job();
+        fit.min_feature_m = self.min_feature;
+        fit.footprint_filter = self.footprint_filter;
         Ok(WindowStudyJob {
-            fit: self.horizon.job(),
+            fit,
             attribute: attribute_by_id(self.attribute.trim()).map_err(FlexureError::Parameter)?,
             adaptive: self.adaptive,
         })

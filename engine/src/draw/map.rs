@@ -588,7 +588,7 @@ fn north_arrow(page: &mut Pixmap, text: &Text, cx: f32, cy: f32, north_deg: f64)
 
 /// Splits `s` at spaces into lines at most `room` pixels wide at `size` (a word longer than
 /// the room gets a line of its own).
-fn wrap_to(text: &Text, s: &str, size: f32, room: f32) -> Vec<String> {
+pub(crate) fn wrap_to(text: &Text, s: &str, size: f32, room: f32) -> Vec<String> {
     let mut lines: Vec<String> = Vec::new();
     for word in s.split_whitespace() {
         match lines.last_mut() {

@@ -68,6 +68,9 @@ pub enum GeometryKind {
     Line,
     /// Each feature's points are the closed outer ring of a polygon.
     Polygon,
+    /// Each feature is the point of its first vertex (written only; the readers take lines
+    /// and polygons).
+    Point,
 }
 
 impl GeometryKind {
@@ -75,6 +78,7 @@ impl GeometryKind {
         match self {
             GeometryKind::Line => OGRwkbGeometryType::wkbLineString,
             GeometryKind::Polygon => OGRwkbGeometryType::wkbPolygon,
+            GeometryKind::Point => OGRwkbGeometryType::wkbPoint,
         }
     }
 }
@@ -232,18 +236,25 @@ fn fill_layer(
     Ok(())
 }
 
-/// An OGR line string or single-ring polygon through `points`.
+/// An OGR line string or single-ring polygon through `points`, or the point of the first.
 fn geometry(kind: GeometryKind, points: &[(f64, f64)]) -> gdal::errors::Result<Geometry> {
     let ring_kind = match kind {
         GeometryKind::Line => OGRwkbGeometryType::wkbLineString,
         GeometryKind::Polygon => OGRwkbGeometryType::wkbLinearRing,
+        GeometryKind::Point => {
+            let mut point = Geometry::empty(OGRwkbGeometryType::wkbPoint)?;
+            if let Some(&p) = points.first() {
+                point.add_point_2d(p);
+            }
+            return Ok(point);
+        }
     };
     let mut ring = Geometry::empty(ring_kind)?;
     for &p in points {
         ring.add_point_2d(p);
     }
     match kind {
-        GeometryKind::Line => Ok(ring),
+        GeometryKind::Line | GeometryKind::Point => Ok(ring),
         GeometryKind::Polygon => {
             let mut polygon = Geometry::empty(OGRwkbGeometryType::wkbPolygon)?;
             polygon.add_geometry(ring)?;

@@ -6,13 +6,20 @@ use super::{batch_rows, default_memory_budget, Progress};
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
 use crate::io::geotiff::{set_block_cache, BandSpec, Layout};
+use crate::io::vector::{
+    stage_both_formats, FieldKind, GeometryKind, Layer, Property, VectorFeature,
+};
 use crate::io::{
     commit_all, nodata_if_null, prepare_output_dir, read_info, refuse_overwrite, GeoTiffWriter,
     ReadOptions, StagedFile, TiffOptions,
 };
+use crate::io::{stage_float_geotiff, BandOut};
 use crate::provenance::Provenance;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
 use crate::surface::horizon::{Horizon, HorizonSource};
+use crate::surface::study::busts::{self, Busts, BUST_FALSE_ALARM, BUST_TEST};
+use crate::surface::study::footprint::notch;
+use crate::surface::study::noise::estimate_noise;
 use crate::surface::window::{narrow_exactly, FittedTile, Sample, WindowFit, WindowSpec};
 use ndarray::{Array2, ArrayView2};
 use std::fmt;
@@ -40,6 +47,21 @@ pub struct CurvatureJob {
     pub memory: Option<u64>,
     /// How output GeoTIFFs are compressed and laid out.
     pub tiff: TiffOptions,
+    /// Find picking busts ([`crate::surface::study::busts`]) and set them null before fitting,
+    /// writing their locations (`<stem>_busts.csv`, `.gpkg`, `.geojson`). Off by default for
+    /// `curvature`; the window study always does it.
+    pub despike: bool,
+    /// Remove periodic footprint found on the horizon (after any despiking) by a notch along
+    /// its axis before fitting ([`crate::surface::study::footprint::notch`]); a note says what
+    /// was removed. Off by default.
+    pub footprint_filter: bool,
+    /// The window study only: the smallest structure of interest, metres across; the adaptive
+    /// map and the recommendation take no window smaller than the largest window that fits
+    /// within it ([`crate::surface::study::StudyPlan::set_min_feature`]).
+    pub min_feature_m: Option<f64>,
+    /// With `despike`, also write the despiked horizon (`<stem>_despiked.tif`: positive-down
+    /// depth in CRS units, busts null).
+    pub write_despiked: bool,
 }
 
 impl CurvatureJob {
@@ -60,6 +82,10 @@ impl CurvatureJob {
             overwrite: false,
             memory: None,
             tiff: TiffOptions::default(),
+            despike: false,
+            write_despiked: false,
+            min_feature_m: None,
+            footprint_filter: false,
         }
     }
 
@@ -81,14 +107,50 @@ impl CurvatureJob {
     pub fn run(&self, progress: &dyn Progress) -> Result<CurvatureReport> {
         let budget = self.memory.unwrap_or_else(default_memory_budget);
         set_block_cache(budget / 4);
-        let mut prepared = self.prepare()?;
+        let mut prepared = self.prepare(self.despike)?;
         let input_null_share = prepared.horizon.input_null_share;
         for &n in &prepared.windows {
             let path = self.output_path(n);
             refuse_overwrite(&path, &self.horizon.inputs())?;
             self.refuse_replacing_other_bands(&path)?;
         }
+        let stem = stem(&self.horizon.path);
+        let mut extra = Vec::new();
+        if let Some(busts) = &prepared.busts {
+            for name in bust_file_names(&format!("{stem}_busts")) {
+                refuse_overwrite(&self.out_dir.join(name), &self.horizon.inputs())?;
+            }
+            let note = format!(
+                "despiked: {} picking busts set null ({})",
+                busts.cells.len(),
+                BUST_TEST
+            );
+            prepared.horizon.notes.push(note);
+            extra.extend(stage_busts(
+                &self.out_dir,
+                &format!("{stem}_busts"),
+                &prepared.horizon.geometry,
+                busts,
+            )?);
+        }
         let provenance = self.provenance(&prepared)?;
+        if prepared.busts.is_some() && self.write_despiked {
+            let path = self.out_dir.join(format!("{stem}_despiked.tif"));
+            refuse_overwrite(&path, &self.horizon.inputs())?;
+            let band = BandOut {
+                description: "depth_despiked",
+                unit: "CRS length unit, positive down",
+                values: prepared.horizon.depth.clone(),
+            };
+            let meta = provenance.clone().with("despike", BUST_TEST);
+            extra.push(stage_float_geotiff(
+                &path,
+                &prepared.horizon.geometry,
+                &[band],
+                meta.items(),
+                self.tiff,
+            )?);
+        }
         if prepared.windows != self.windows {
             let windows = join_windows(&prepared.windows);
             let note = format!("windows sorted and duplicates removed: {windows}");
@@ -119,7 +181,7 @@ impl CurvatureJob {
                 progress,
             )?,
         };
-        commit_all(staged)?;
+        commit_all(staged.into_iter().chain(extra).collect())?;
         Ok(CurvatureReport {
             input: self.horizon.path.clone(),
             grid: prepared.horizon.geometry.describe(),
@@ -244,9 +306,9 @@ impl CurvatureJob {
 
     /// Checks the options and reads the horizon as positive-down depth: the sorted, distinct
     /// windows, the horizon and the flat tolerance; prepares the output folder.
-    pub(crate) fn prepare(&self) -> Result<Prepared> {
+    pub(crate) fn prepare(&self, despike: bool) -> Result<Prepared> {
         let windows = self.checked_windows()?;
-        let horizon = self.horizon.load(&self.read)?;
+        let mut horizon = self.horizon.load(&self.read)?;
         let geometry = &horizon.geometry;
         if horizon.input_null_share >= 1.0 {
             return Err(FlexureError::input(
@@ -264,6 +326,37 @@ impl CurvatureJob {
             ));
         }
         prepare_output_dir(&self.out_dir)?;
+        let busts = match despike {
+            true => Some(busts::despike(
+                &mut horizon.depth,
+                &horizon.geometry,
+                BUST_FALSE_ALARM,
+            )?),
+            false => None,
+        };
+        if self.footprint_filter {
+            let found = estimate_noise(horizon.depth.view(), &horizon.geometry)?
+                .map(|n| n.footprints)
+                .unwrap_or_default();
+            notch(&mut horizon.depth, &found);
+            let removed: Vec<String> = (found.iter())
+                .map(|f| {
+                    format!(
+                        "along {:?}, period {:.2} cells, amplitude {:.3}",
+                        f.axis, f.period_cells, f.amplitude
+                    )
+                    .to_lowercase()
+                })
+                .collect();
+            horizon.notes.push(match removed.is_empty() {
+                true => "footprint filter applied: no periodic footprint found".to_string(),
+                false => format!(
+                    "footprint filter applied: notch removed {}",
+                    removed.join("; ")
+                ),
+            });
+        }
+        let geometry = &horizon.geometry;
         let (sx, sy) = geometry.spacing();
         let tolerance = FlatTolerance::for_grid(
             excursion(&horizon.depth),
@@ -274,6 +367,7 @@ impl CurvatureJob {
             windows,
             horizon,
             tolerance,
+            busts,
         })
     }
 
@@ -371,6 +465,86 @@ pub(crate) struct Prepared {
     pub(crate) horizon: Horizon,
     /// Round-off tolerance of the attributes.
     pub(crate) tolerance: FlatTolerance,
+    /// The picking busts found and set null in the depth, when asked for.
+    pub(crate) busts: Option<Busts>,
+}
+
+/// The files [`stage_busts`] writes for `name`.
+pub(crate) fn bust_file_names(name: &str) -> [String; 3] {
+    ["csv", "gpkg", "geojson"].map(|ext| format!("{name}.{ext}"))
+}
+
+/// Stages the busts' locations in `dir`: `name.csv` (row, col, x, y in CRS units, offset in
+/// the depth unit, score in robust scales) and a point layer `name` as GeoPackage and GeoJSON
+/// with the same fields.
+pub(crate) fn stage_busts(
+    dir: &Path,
+    name: &str,
+    geometry: &GridGeometry,
+    busts: &Busts,
+) -> Result<Vec<StagedFile>> {
+    #[derive(serde::Serialize)]
+    struct Row {
+        row: usize,
+        col: usize,
+        x: f64,
+        y: f64,
+        offset: f64,
+        score: f64,
+    }
+    let csv_path = dir.join(format!("{name}.csv"));
+    // The header written even when there is no bust.
+    let mut writer = csv::WriterBuilder::new()
+        .has_headers(false)
+        .from_writer(Vec::new());
+    writer
+        .write_record(["row", "col", "x", "y", "offset", "score"])
+        .map_err(|e| FlexureError::write(&csv_path, e))?;
+    let mut features = Vec::with_capacity(busts.cells.len());
+    for b in &busts.cells {
+        let (x, y) = geometry.cell_centre(b.col, b.row);
+        let row = Row {
+            row: b.row,
+            col: b.col,
+            x,
+            y,
+            offset: b.offset,
+            score: b.score,
+        };
+        writer
+            .serialize(&row)
+            .map_err(|e| FlexureError::write(&csv_path, e))?;
+        features.push(VectorFeature {
+            points: vec![(x, y)],
+            values: [b.row as f64, b.col as f64, b.offset, b.score]
+                .map(Property::Number)
+                .to_vec(),
+        });
+    }
+    let bytes = writer
+        .into_inner()
+        .map_err(|e| FlexureError::write(&csv_path, e.to_string()))?;
+    let layer = Layer {
+        name,
+        kind: GeometryKind::Point,
+        fields: &[
+            ("row", FieldKind::Integer),
+            ("col", FieldKind::Integer),
+            ("offset", FieldKind::Real),
+            ("score", FieldKind::Real),
+        ],
+        features: &features,
+    };
+    let mut staged = vec![super::stage_bytes(&csv_path, &bytes)?];
+    staged.extend(stage_both_formats(dir, &geometry.crs_wkt, &layer)?);
+    Ok(staged)
+}
+
+/// The file stem of `path`.
+fn stem(path: &Path) -> String {
+    path.file_stem()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_default()
 }
 
 /// One tile's attribute values, band by band (nulls as the nodata value), each band's range of

@@ -764,6 +764,7 @@ fn read_wells(files: &[PathBuf], geometry: &GridGeometry) -> Result<Overlay> {
                 }
                 // The whole-lateral summary's corridor only encloses the stage corridors.
                 GeometryKind::Polygon if feature.field("stage") == Some(LATERAL) => {}
+                GeometryKind::Point => {}
                 GeometryKind::Polygon => {
                     if let (Some(stage), Some(at)) = (feature.field("stage"), ring_centre(first)) {
                         overlay.stage_labels.push(MapLabel {

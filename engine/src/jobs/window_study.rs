@@ -7,12 +7,14 @@
 //! the panel keeps only the cells its pictures show. Outputs are staged and committed
 //! together.
 
-use super::curvature::{CurvatureJob, Prepared};
+use super::curvature::{bust_file_names, stage_busts, CurvatureJob, Prepared};
 use super::{batch_rows, default_memory_budget, stage_bytes, stage_figure, stage_png};
 use crate::draw::axis::{Axis, GRID};
 use crate::draw::colour::{short, Clip, ColourScale};
 use crate::draw::figure::{Anchor, Figure, Mark};
-use crate::draw::map::{cells_to_pixmap, colour_cells, panel, picture_scale, PictureCells};
+use crate::draw::map::{
+    cells_to_pixmap, colour_cells, panel, picture_scale, wrap_to, PictureCells, Text,
+};
 use crate::draw::ticks::tick_label;
 use crate::error::{FlexureError, Result};
 use crate::grid::GridGeometry;
@@ -21,7 +23,9 @@ use crate::io::{commit_all, nodata_if_null, refuse_overwrite, GeoTiffWriter, Sta
 use crate::provenance::Provenance;
 use crate::surface::curvature::{AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::horizon::ZUnit;
+use crate::surface::study::busts::{Busts, BUST_TEST};
 use crate::surface::study::choice::POOL_RADIUS;
+use crate::surface::study::footprint::Footprint;
 use crate::surface::study::noise::NOISE_ESTIMATOR;
 use crate::surface::study::thresholds::{StepTest, PROPAGATION_ALPHA};
 use crate::surface::study::{plan, ChosenRows, Study, WindowFigures, NOISE_BAND, WINDOW_RULE};
@@ -30,6 +34,9 @@ use ndarray::{s, Array2, ArrayView2};
 use serde::Serialize;
 use std::fmt;
 use std::path::{Path, PathBuf};
+
+/// Name of the bust files (`.csv`, `.gpkg`, `.geojson`).
+const BUSTS_NAME: &str = "window_study_busts";
 
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
@@ -68,16 +75,21 @@ impl WindowStudyJob {
                     .into(),
             ));
         }
-        let prepared = self.fit.prepare()?;
+        let prepared = self.fit.prepare(true)?;
         let provenance = self.fit.provenance(&prepared)?;
         let Prepared {
             windows,
             mut horizon,
             tolerance,
+            busts,
         } = prepared;
+        let busts = busts.expect("the study's horizon is despiked");
         notices.extend(horizon.notes.iter().cloned());
         let out = &self.fit.out_dir;
-        let names = ["window_study.json", "window_study.csv"];
+        let names = ["window_study.json", "window_study.csv"]
+            .map(String::from)
+            .into_iter()
+            .chain(bust_file_names(BUSTS_NAME));
         for name in names {
             refuse_overwrite(&out.join(name), &self.fit.horizon.inputs())?;
         }
@@ -122,7 +134,8 @@ impl WindowStudyJob {
         let mut staged = vec![
             stage_bytes(
                 &out.join("window_study.json"),
-                self.json(&s, spacing_m, &notices, &provenance).as_bytes(),
+                self.json(&s, &busts, spacing_m, &notices, &provenance)
+                    .as_bytes(),
             )?,
             stage_bytes(
                 &out.join("window_study.csv"),
@@ -130,6 +143,7 @@ impl WindowStudyJob {
             )?,
         ];
         let units = ChartUnits {
+            min_feature_m: self.fit.min_feature_m,
             bin_m: spacing_m,
             metres_per_unit: g.metres_per_unit,
             z_unit: horizon.z_unit,
@@ -146,6 +160,7 @@ impl WindowStudyJob {
             g.mirrored_in_pictures(),
         )?);
         staged.extend(adaptive);
+        staged.extend(stage_busts(out, BUSTS_NAME, g, &busts)?);
         commit_all(staged)?;
         Ok(WindowStudyReport {
             attribute: self.attribute.id,
@@ -153,6 +168,9 @@ impl WindowStudyJob {
             noise_sigma: s.noise.sigma * g.metres_per_unit,
             windows: s.windows.clone(),
             recommended: s.recommended,
+            busts: busts.cells.len(),
+            noise_model: s.noise_model(),
+            reason: s.reason(),
             out_dir: out.clone(),
             adaptive: adaptive_path,
             notices,
@@ -200,7 +218,7 @@ impl WindowStudyJob {
         adaptive_path: &Option<PathBuf>,
     ) -> Result<(Study, Option<StagedFile>)> {
         let budget = self.fit.memory.unwrap_or_else(default_memory_budget);
-        let plan = plan(
+        let mut plan = plan(
             depth,
             g,
             windows,
@@ -214,6 +232,9 @@ impl WindowStudyJob {
                 "no full 3 x 3 window: cannot estimate the noise",
             )
         })?;
+        if let Some(metres) = self.fit.min_feature_m {
+            plan.set_min_feature(metres);
+        }
         let mut writer = match adaptive_path {
             Some(path) => Some(self.create_adaptive(path, g, provenance, &plan.steps)?),
             None => None,
@@ -241,6 +262,7 @@ impl WindowStudyJob {
     fn json(
         &self,
         s: &Study,
+        busts: &Busts,
         spacing_m: (f64, f64),
         notices: &[String],
         provenance: &Provenance,
@@ -253,6 +275,11 @@ impl WindowStudyJob {
             horizon_noise_unit: "CRS length unit (positive-down depth)",
             noise_estimator: NOISE_ESTIMATOR,
             noise_cells: s.noise.n,
+            busts: busts.cells.len(),
+            bust_test: BUST_TEST,
+            bust_false_alarm_rate: busts.false_alarm,
+            bust_threshold_scales: busts.threshold,
+            bust_scale: busts.scale,
             rule: WINDOW_RULE,
             compared_derivatives: format!("{:?}", self.attribute.order).to_lowercase(),
             derivative_noise_unit: match self.attribute.order {
@@ -273,6 +300,11 @@ impl WindowStudyJob {
                 })
                 .collect(),
             recommended_window: s.recommended,
+            noise_model: s.noise_model(),
+            footprints: &s.noise.footprints,
+            min_feature_m: self.fit.min_feature_m,
+            min_window: s.min_window,
+            reason: s.reason(),
             notices,
             provenance: provenance.to_json(),
         };
@@ -349,6 +381,13 @@ struct StudyJson<'a> {
     horizon_noise_unit: &'a str,
     noise_estimator: &'a str,
     noise_cells: usize,
+    /// Picking busts found and set null before the fits.
+    busts: usize,
+    bust_test: &'a str,
+    bust_false_alarm_rate: f64,
+    bust_threshold_scales: f64,
+    /// Robust scale of the bust test's residuals (CRS length unit).
+    bust_scale: f64,
     rule: &'a str,
     compared_derivatives: String,
     derivative_noise_unit: &'a str,
@@ -358,6 +397,14 @@ struct StudyJson<'a> {
     noise_band_sd: f64,
     windows: Vec<JsonWindow<'a>>,
     recommended_window: usize,
+    /// The noise model the tests used, in words.
+    noise_model: String,
+    footprints: &'a [Footprint],
+    min_feature_m: Option<f64>,
+    /// The smallest window the adaptive map and the recommendation could take.
+    min_window: usize,
+    /// Why the recommended window was chosen.
+    reason: String,
     notices: &'a [String],
     provenance: serde_json::Value,
 }
@@ -425,6 +472,8 @@ fn csv(s: &Study, path: &Path) -> Result<Vec<u8>> {
 /// How the chart states lengths: the grid's bin sizes in metres and the horizon's z unit
 /// (`None` for a time horizon, whose depth is in CRS units after conversion).
 struct ChartUnits {
+    /// The smallest feature of interest, metres, when given.
+    min_feature_m: Option<f64>,
     /// Bin sizes along x and y, metres.
     bin_m: (f64, f64),
     /// Metres per CRS unit.
@@ -461,7 +510,7 @@ fn stage_chart(
     attribute: &AttributeDef,
     units: &ChartUnits,
 ) -> Result<Vec<StagedFile>> {
-    let (w, h) = (760u32, 580u32);
+    let (w, h) = (760u32, 640u32);
     let (left, right, top, bottom) = (90.0f32, 720.0f32, 70.0f32, 380.0f32);
     let mut fig = Figure::new(w, h);
     fig.text(
@@ -549,6 +598,16 @@ fn stage_chart(
             wf.window.to_string(),
             Anchor::Middle,
         );
+        if wf.window == s.min_window && Some(wf.window) != s.windows.first().map(|w| w.window) {
+            fig.line(vec![(xx, top), (xx, bottom)], [0xbb, 0x44, 0x44], 1.0);
+            fig.text(
+                xx,
+                top + 12.0,
+                11.0,
+                format!("smallest allowed {}", wf.window),
+                Anchor::Middle,
+            );
+        }
         if wf.window == s.recommended {
             fig.line(vec![(xx, top), (xx, bottom)], [0x20, 0x20, 0x20], 2.0);
             fig.text(
@@ -604,6 +663,28 @@ fn stage_chart(
         units.noise(s.noise.sigma),
         Anchor::End,
     );
+    let mut notes = vec![format!("noise model: {}", s.noise_model())];
+    if let Some(m) = units.min_feature_m {
+        notes.push(format!(
+            "smallest feature of interest {} m: no window below {}",
+            short(m),
+            s.min_window
+        ));
+    }
+    notes.push(s.reason());
+    let font = Text::new();
+    let wrapped: Vec<String> = (notes.iter())
+        .flat_map(|n| wrap_to(&font, n, 10.0, w as f32 - 40.0))
+        .collect();
+    for (i, line) in wrapped.iter().take(6).enumerate() {
+        fig.text(
+            20.0,
+            bottom + 190.0 + 14.0 * i as f32,
+            10.0,
+            line.clone(),
+            Anchor::Start,
+        );
+    }
     stage_figure(base, &fig)
 }
 
@@ -620,6 +701,12 @@ pub struct WindowStudyReport {
     pub windows: Vec<WindowFigures>,
     /// Recommended window.
     pub recommended: usize,
+    /// Picking busts found and set null before the fits (listed in `window_study_busts.*`).
+    pub busts: usize,
+    /// The noise model used, in words ([`Study::noise_model`]).
+    pub noise_model: String,
+    /// Why the recommended window was chosen ([`Study::reason`]).
+    pub reason: String,
     /// Output folder.
     pub out_dir: PathBuf,
     /// Adaptive map written, if any.
@@ -638,6 +725,12 @@ impl fmt::Display for WindowStudyReport {
             "horizon noise sd {:.3} m ({NOISE_ESTIMATOR})",
             self.noise_sigma
         )?;
+        writeln!(
+            f,
+            "picking busts set null before the fits: {} (window_study_busts.csv/.gpkg/.geojson)",
+            self.busts
+        )?;
+        writeln!(f, "noise model: {}", self.noise_model)?;
         writeln!(
             f,
             "{:>8} {:>16} {:>22} {:>18} {:>15}",
@@ -667,6 +760,7 @@ impl fmt::Display for WindowStudyReport {
             "recommended window for {}: {} cells",
             self.attribute, self.recommended
         )?;
+        writeln!(f, "why: {}", self.reason)?;
         writeln!(f, "wrote window_study.json, window_study.csv, window_study_chart.svg/png, window_study_panel.png in {}", self.out_dir.display())?;
         if let Some(p) = &self.adaptive {
             writeln!(f, "wrote {}", p.display())?;
@@ -683,6 +777,7 @@ mod tests {
     fn horizon_noise_is_stated_in_the_horizons_z_unit() {
         // The international foot is 0.3048 m exactly (its definition).
         let units = |metres_per_unit, z_unit| ChartUnits {
+            min_feature_m: None,
             bin_m: (25.0, 25.0),
             metres_per_unit,
             z_unit,

@@ -18,8 +18,9 @@ use std::ops::Range;
 /// generated folds 100 to 1200 m wide on 25 m cells with 0.05 to 2 m of noise).
 pub const POOL_RADIUS: usize = 6;
 
-/// The pooled squared change between two windows' derivative vectors as a ratio to its pooled
-/// expectation under noise alone, `expected` per cell (NaN where either window has no fit),
+/// The pooled squared change between two windows' derivative vectors, less `known` (the
+/// footprint's share, taken as known), as a ratio to its pooled expectation under white noise
+/// alone, `expected` per cell (NaN where either window has no fit),
 /// for the band rows `rows` (all arrays hold the same band of the grid, cut at the grid's
 /// edges; `rows` must lie [`POOL_RADIUS`] inside the band's cuts that are not grid edges).
 /// For nested least-squares fits the larger window is efficient, so the variance of the change
@@ -29,6 +30,7 @@ pub(super) fn pooled_ratio(
     smaller: &Vectors,
     larger: &Vectors,
     expected: &Array2<f64>,
+    known: f64,
     rows: Range<usize>,
 ) -> Array2<f64> {
     let squares = (0..3).fold(Array2::zeros(smaller[0].dim()), |acc, k| {
@@ -40,6 +42,7 @@ pub(super) fn pooled_ratio(
     ndarray::Zip::from(&pooled)
         .and(&mean)
         .map_collect(|&v, &e| {
+            let v = (v - known).max(0.0);
             if e > 0.0 {
                 v / e
             } else if v > 0.0 {

@@ -57,9 +57,14 @@
 //! one batch is held, however many windows; the horizon noise estimate's residuals (one a
 //! fitted cell, before the fits) are the only grid-sized array.
 
+pub mod busts;
 pub mod choice;
+pub mod footprint;
 pub mod noise;
 pub mod thresholds;
+
+#[cfg(test)]
+mod acceptance;
 
 use crate::error::Result;
 use crate::grid::GridGeometry;
@@ -68,12 +73,13 @@ use crate::stats::SeededNoise;
 use crate::surface::curvature::{evaluate_cells, AttributeDef, DerivativeOrder, FlatTolerance};
 use crate::surface::window::{valid_mean, GridRows, Quadric, Sample, WindowFit, WindowSpec};
 use choice::{pooled_ratio, Choice, POOL_RADIUS};
+use footprint::GridAxis;
 use ndarray::{s, Array2, ArrayView2};
 use noise::{estimate_noise, NoiseEstimate};
 use rayon::prelude::*;
 use serde::{Serialize, Serializer};
 use std::ops::Range;
-use thresholds::{noise_model, NoiseModel, StepTest};
+use thresholds::{noise_model, NoiseModel, StepTest, FOOTPRINT_MARGIN};
 
 /// Half width of the noise band of `share_within_noise`, in attribute noise standard
 /// deviations.
@@ -147,11 +153,57 @@ pub struct Study {
     pub steps: Vec<StepTest>,
     /// The recommended single window.
     pub recommended: usize,
+    /// The smallest window the adaptive map and the recommendation may take (the first
+    /// window, or the one `--min-feature` allows).
+    pub min_window: usize,
     /// The attribute at each window and (last) the adaptive map, at the sampled cells
     /// (`[sample row, sample column]`, NaN = null).
     pub samples: Vec<Array2<f64>>,
     /// The distribution of the attribute's values at each window (sketched).
     pub distributions: Vec<Distribution>,
+}
+
+impl Study {
+    /// The noise model in words: `white`, or the footprint counted with it (axis, period and
+    /// amplitude of each).
+    pub fn noise_model(&self) -> String {
+        let stripes: Vec<String> = (self.noise.footprints.iter())
+            .map(|f| {
+                format!(
+                    "stripes along {:?} (azimuth {:.0} deg), period {:.2} cells ({:.0} m), amplitude {:.3}",
+                    f.axis, f.azimuth_deg, f.period_cells, f.period_m, f.amplitude
+                )
+                .to_lowercase()
+            })
+            .collect();
+        match stripes.is_empty() {
+            true => "white".to_string(),
+            false => format!("white + footprint: {}", stripes.join("; ")),
+        }
+    }
+
+    /// Why the recommended window was chosen, in one sentence.
+    pub fn reason(&self) -> String {
+        let closest = (self.windows.iter())
+            .find(|w| w.window == self.recommended)
+            .map_or(f64::NAN, |w| w.rms_from_adaptive);
+        let floor = match self.min_window == self.windows.first().map_or(0, |w| w.window) {
+            true => String::new(),
+            false => format!(
+                "; windows below {} excluded by the smallest feature of interest",
+                self.min_window
+            ),
+        };
+        format!(
+            "window {} is the single window closest to the adaptive map (RMS difference {:.4});              the adaptive map kept larger windows wherever the derivatives' change stayed within              the {} noise model{floor}",
+            self.recommended,
+            closest,
+            match self.noise.footprints.is_empty() {
+                true => "white",
+                false => "white + footprint",
+            }
+        )
+    }
 }
 
 /// The per-cell results of one batch of rows, row-major from grid row `first_row`.
@@ -184,6 +236,8 @@ pub struct StudyPlan<'a, T: Sample = f64> {
     clean: Vec<WindowFit<'a, T>>,
     /// [`valid_mean`] of the noise-perturbed horizon (the origin of its fits).
     noisy_mean: f64,
+    /// Index of the smallest window the choice may take.
+    floor: usize,
 }
 
 /// Prepares the study of `attribute` on `depth` (positive down, CRS units) over `windows`
@@ -203,7 +257,13 @@ pub fn plan<'a, T: Sample>(
     let NoiseModel {
         steps,
         derivative_noise_sd,
-    } = noise_model(geometry, windows, attribute.order, noise.sigma)?;
+    } = noise_model(
+        geometry,
+        windows,
+        attribute.order,
+        noise.sigma,
+        &noise.footprints,
+    )?;
     let per_km = match attribute.order {
         DerivativeOrder::First => 1.0,
         DerivativeOrder::Second => 1000.0 / geometry.metres_per_unit,
@@ -232,6 +292,7 @@ pub fn plan<'a, T: Sample>(
         derivative_noise_sd: derivative_noise_sd.iter().map(|sd| sd * per_km).collect(),
         clean,
         noisy_mean: 0.0,
+        floor: 0,
     };
     // Summed over the whole perturbed horizon in row-major order, as a fit of it held whole
     // would, a chunk of rows at a time.
@@ -254,6 +315,19 @@ const NOISY_MEAN_ROWS: usize = 64;
 const BATCH_CELL_BYTES: usize = 240;
 
 impl<T: Sample> StudyPlan<'_, T> {
+    /// Keeps the adaptive map and the recommendation from windows smaller than the smallest
+    /// structure of interest, `metres` across: the smallest window allowed is the largest
+    /// whose longer side (cells times the larger bin, in metres) is at most `metres` (the first
+    /// window when none is). Returns that window.
+    pub fn set_min_feature(&mut self, metres: f64) -> usize {
+        let (sx, sy) = self.geometry.spacing();
+        let bin_m = sx.max(sy) * self.geometry.metres_per_unit;
+        self.floor = (self.windows.iter())
+            .rposition(|&w| w as f64 * bin_m <= metres)
+            .unwrap_or(0);
+        self.windows[self.floor]
+    }
+
     /// Bytes the study holds per cell of a batch of rows (see [`StudyPlan::run`]).
     pub fn batch_cell_bytes(&self) -> usize {
         BATCH_CELL_BYTES + 4 * self.windows.len()
@@ -323,15 +397,16 @@ impl<T: Sample> StudyPlan<'_, T> {
             })?;
         }
         let figures = self.figures(&sums, rows * cols);
-        let recommended = figures
+        let recommended = figures[self.floor..]
             .iter()
             .min_by(|a, b| a.rms_from_adaptive.total_cmp(&b.rms_from_adaptive))
             .map_or(self.windows[0], |f| f.window);
         Ok(Study {
-            noise: self.noise,
+            noise: self.noise.clone(),
             windows: figures,
             steps: self.steps.clone(),
             recommended,
+            min_window: self.windows[self.floor],
             samples,
             distributions: sums.into_iter().map(|s| s.distribution).collect(),
         })
@@ -374,16 +449,21 @@ impl<T: Sample> StudyPlan<'_, T> {
             }
             sums[k].distribution.merge(&clean.distribution);
             let ratio = previous.as_ref().map(|(prev, prev_power)| {
+                let known = (1.0 + FOOTPRINT_MARGIN) * self.steps[k - 1].footprint_change;
                 let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2);
-                pooled_ratio(prev, &clean.vectors, &expected, inner.clone())
+                pooled_ratio(prev, &clean.vectors, &expected, known, inner.clone())
             });
             let first = clean.vectors[0].slice(s![inner.clone(), ..]);
-            choice.step(
-                k,
-                first,
-                ratio.as_ref(),
-                k.checked_sub(1).map(|j| &self.steps[j]),
-            );
+            // Windows below the floor are not offered; the floor is the first one.
+            if k >= self.floor {
+                let tested = k > self.floor;
+                choice.step(
+                    k,
+                    first,
+                    ratio.as_ref().filter(|_| tested),
+                    k.checked_sub(1).map(|j| &self.steps[j]).filter(|_| tested),
+                );
+            }
             previous = Some((clean.vectors, clean.power));
             maps.push(clean.map);
         }
@@ -454,7 +534,8 @@ impl<T: Sample> StudyPlan<'_, T> {
         band.remove(0)
     }
 
-    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level
+    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level and
+    /// the footprint found (stripes of its period and amplitude, phase 0 at index 0)
     /// (row-major): cell `i` (row-major over the grid) takes the stream's `i`-th deviate, so
     /// any band of rows is the same as in the whole perturbed horizon.
     fn noisy_rows(&self, rows: Range<usize>) -> Vec<f64> {
@@ -466,7 +547,19 @@ impl<T: Sample> StudyPlan<'_, T> {
                 // Two draws a deviate.
                 rng.skip(2 * (r * cols) as u64);
                 (0..cols)
-                    .map(|c| self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian())
+                    .map(|c| {
+                        let stripes: f64 = (self.noise.footprints.iter())
+                            .map(|f| {
+                                let i = match f.axis {
+                                    GridAxis::Columns => c,
+                                    GridAxis::Rows => r,
+                                };
+                                let w = std::f64::consts::TAU / f.period_cells;
+                                f.amplitude * (w * i as f64).cos()
+                            })
+                            .sum();
+                        self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian() + stripes
+                    })
                     .collect()
             })
             .collect();
@@ -693,13 +786,18 @@ mod tests {
         }
     }
 
-    fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Run {
+    pub(super) fn run(z: &Array2<f64>, g: &GridGeometry, windows: &[usize], attr: &str) -> Run {
         run_in_batches(z, g, windows, attr, z.nrows())
     }
 
     /// True RMS error of each window's map and (last) of the adaptive map against the analytic
     /// attribute of the surface, away from the grid's edges (16 cells).
-    fn true_errors(s: &Run, g: &GridGeometry, surface: &Surface, attr: &str) -> Vec<f64> {
+    pub(super) fn true_errors(
+        s: &Run,
+        g: &GridGeometry,
+        surface: &Surface,
+        attr: &str,
+    ) -> Vec<f64> {
         let attr = attribute_by_id(attr).unwrap();
         let truth = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);
@@ -924,6 +1022,34 @@ mod tests {
                 .install(|| run(&z, &g, &[3, 5, 9, 15], "k_pos"))
         };
         let (one, two) = (in_pool(1), in_pool(2));
+        same_results(&one, &two);
+    }
+
+    #[test]
+    fn busts_and_footprint_give_the_same_bits_with_one_or_two_threads() {
+        // Determinism (DEVELOPERS.md) through the bust test, the footprint's spectrum and the
+        // footprint-aware steps: planted stripes and busts, one and two threads.
+        let g = grid(100);
+        let (mut z, _) = horizon(&g, vec![fold((1200.0, 8700.0), 30.0, 300.0, true)], 0.3, 64);
+        footprint::tests::add_stripes(&mut z, GridAxis::Rows, 3.0, 0.5, 0.2);
+        for r in (5..95).step_by(17) {
+            z[(r, (3 * r) % 100)] += 6.0;
+        }
+        let in_pool = |threads: usize| {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap()
+                .install(|| {
+                    let mut z = z.clone();
+                    let b = busts::despike(&mut z, &g, busts::BUST_FALSE_ALARM).unwrap();
+                    (b, run(&z, &g, &[3, 5, 9, 15], "k_mean"))
+                })
+        };
+        let ((b1, one), (b2, two)) = (in_pool(1), in_pool(2));
+        assert_eq!(format!("{b1:?}"), format!("{b2:?}"));
+        assert!(!one.noise.footprints.is_empty() && b1.cells.len() >= 6);
+        assert_eq!(format!("{:?}", one.noise), format!("{:?}", two.noise));
         same_results(&one, &two);
     }
 

@@ -1,19 +1,38 @@
 //! The horizon's noise: the normalised median absolute deviation of the centre residuals of
-//! full 3 x 3 quadric fits, corrected for the centre's leverage (see the study's notes).
+//! full 3 x 3 quadric fits, corrected for the centre's leverage (see the study's notes), and
+//! the periodic footprint in those residuals ([`super::footprint`]). Where footprint is found,
+//! the white part of the noise is read from the residuals' spectrum outside its peaks, since
+//! the stripes would swell the median absolute deviation.
 
+use super::footprint::{self, AxisGeometry, Footprint};
 use crate::error::Result;
 use crate::grid::GridGeometry;
 use crate::stats::median_and_mad;
 use crate::surface::window::{Sample, WindowFit, WindowSpec};
-use ndarray::ArrayView2;
+use ndarray::{Array2, ArrayView2};
 
 /// The horizon's noise estimate.
-#[derive(Clone, Copy, Debug, PartialEq)]
+#[derive(Clone, Debug, PartialEq)]
 pub struct NoiseEstimate {
-    /// Standard deviation of the picking noise, in the depth unit (CRS units).
+    /// Standard deviation of the white part of the picking noise, in the depth unit (CRS
+    /// units).
     pub sigma: f64,
     /// Residuals used.
     pub n: usize,
+    /// Periodic footprint found, strongest first (noise too, of known covariance).
+    pub footprints: Vec<Footprint>,
+}
+
+impl NoiseEstimate {
+    /// The noise model's name for reports: `white`, or `white + footprint` when stripes were
+    /// found.
+    pub fn model_name(&self) -> &'static str {
+        if self.footprints.is_empty() {
+            "white"
+        } else {
+            "white + footprint"
+        }
+    }
 }
 
 /// Name of the noise estimator, for reports.
@@ -23,37 +42,87 @@ pub const NOISE_ESTIMATOR: &str =
 /// Rows per batch of the residuals' fit.
 const RESIDUAL_BATCH_ROWS: usize = 256;
 
-/// Estimates the noise of `depth` (see the module notes); `None` without full 3 x 3 windows.
-pub fn estimate_noise<T: Sample>(
+/// Window edge length of the fits whose residuals' spectrum is read for footprint.
+const SPECTRUM_WINDOW: usize = 9;
+
+/// Least share of valid cells in the spectrum's fits: scattered nulls (busts set null) would
+/// leave few full 9 x 9 windows, and a window with a few nulls filters nearly as a full one.
+const SPECTRUM_MIN_VALID: f64 = 0.9;
+
+/// The centre residual `z - f` of every cell's `size` x `size` fit with at least `min_valid`
+/// of the window valid, row-major (NaN where none), gathered batch by batch: a grid-sized
+/// array.
+fn centre_residuals<T: Sample>(
     depth: ArrayView2<T>,
     geometry: &GridGeometry,
-) -> Result<Option<NoiseEstimate>> {
-    let spec = WindowSpec {
-        size: 3,
-        min_valid: 1.0,
-    };
-    let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
+    size: usize,
+    min_valid: f64,
+) -> Result<Vec<f64>> {
+    let spec = WindowSpec { size, min_valid };
     let fit = WindowFit::new(depth, geometry, &spec, &[])?;
-    // One residual a fitted cell, gathered batch by batch: the one grid-sized array held.
-    let fitted = depth.iter().filter(|v| v.widen().is_finite()).count();
-    let mut residuals: Vec<f64> = Vec::with_capacity(fitted);
+    let mut grid: Vec<f64> = Vec::with_capacity(depth.len());
     let batch = RESIDUAL_BATCH_ROWS.max(fit.tile_rows());
     for first_row in (0..depth.nrows()).step_by(batch) {
         let tiles = fit.map_tiles(first_row..first_row + batch, |tile| {
             let at = |i: usize| (tile.first_row + i / tile.cols, i % tile.cols);
             (tile.cells.iter().enumerate())
-                .filter_map(|(i, c)| c.map(|(q, _)| depth[at(i)].widen() - q.f))
+                .map(|(i, c)| c.map_or(f64::NAN, |(q, _)| depth[at(i)].widen() - q.f))
                 .collect::<Vec<f64>>()
         });
-        residuals.extend(tiles.into_iter().flatten());
+        grid.extend(tiles.into_iter().flatten());
     }
+    Ok(grid)
+}
+
+/// Estimates the noise of `depth` (see the module notes); `None` without full 3 x 3 windows.
+pub fn estimate_noise<T: Sample>(
+    depth: ArrayView2<T>,
+    geometry: &GridGeometry,
+) -> Result<Option<NoiseEstimate>> {
+    let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
+    let mut residuals = centre_residuals(depth, geometry, 3, 1.0)?;
+    residuals.retain(|v| v.is_finite());
     if residuals.is_empty() {
         return Ok(None);
     }
     let (_, mad) = median_and_mad(&mut residuals).unwrap_or((f64::NAN, f64::NAN));
+    let n = residuals.len();
+    drop(residuals);
+    // Stripes constant along one axis are fitted exactly by a 3 x 3 quadric (three values
+    // along the other axis, three coefficients), so the spectrum reads 9 x 9 residuals (whose gain for stripes of 2 to 6 cells is 0.7 to 1.3).
+    let size = SPECTRUM_WINDOW.min(depth.nrows()).min(depth.ncols());
+    let grid = Array2::from_shape_vec(
+        depth.dim(),
+        centre_residuals(depth, geometry, size, SPECTRUM_MIN_VALID)?,
+    )
+    .expect("rows x cols residuals");
+    let mut residual_kernel =
+        -crate::surface::window::full_window_kernels(geometry, size)?[5].clone();
+    residual_kernel[(size / 2, size / 2)] += 1.0;
+    let g = &geometry.geo_transform;
+    let (sx, sy) = geometry.spacing();
+    let axes = AxisGeometry {
+        residual_kernel,
+        axes: [
+            (
+                geometry.column_axis_azimuth(),
+                sx * geometry.metres_per_unit,
+            ),
+            (
+                g[2].atan2(g[5]).to_degrees().rem_euclid(360.0),
+                sy * geometry.metres_per_unit,
+            ),
+        ],
+    };
+    let reading = footprint::detect(&grid, &axes);
+    let sigma = match (reading.footprints.is_empty(), reading.white_variance) {
+        (false, Some(v)) => v.sqrt(),
+        _ => 1.4826 * mad / (1.0 - leverage).sqrt(),
+    };
     Ok(Some(NoiseEstimate {
-        sigma: 1.4826 * mad / (1.0 - leverage).sqrt(),
-        n: residuals.len(),
+        sigma,
+        n,
+        footprints: reading.footprints,
     }))
 }
 
