@@ -7,7 +7,8 @@
 //! WGS 84 / UTM zone 25N (EPSG:32625) and placed over open ocean so no real place is depicted.
 //! - `orrimund_shale_top_depth.tif`: depth in metres, north-up 25 m bins; a dome, an anticline
 //!   and a syncline on a regional dip, cut by a fault with a null gap, a patch of missing picks,
-//!   and 0.4 m of white picking noise.
+//!   0.4 m of white picking noise, a mild acquisition footprint (0.2 m stripes with a 4-bin
+//!   period across the columns) and 40 picking busts of 5 to 8 m.
 //! - `kelvane_marl_twt.tif`: two-way time in ms (average velocity 3200 m/s) on a survey grid
 //!   rotated 25 degrees with 25 m x 12.5 m bins, with 0.25 ms of noise.
 //! - `kelvane_marl_sectors.tif`: the Kelvane Marl picked on eight azimuth sectors (one band per
@@ -71,6 +72,12 @@ pub struct DemoHorizon {
     pub fault_gap: f64,
     /// Rectangles of missing picks, (col0, row0, col1, row1) exclusive ends.
     pub gaps: Vec<(usize, usize, usize, usize)>,
+    /// Acquisition footprint of the noisy version: stripes along the rows, (amplitude in the
+    /// stored unit, period in columns).
+    pub footprint: Option<(f64, f64)>,
+    /// Picking busts of the noisy version: (count, least and largest offset in the stored
+    /// unit, either sign), at seeded cells.
+    pub busts: (usize, f64, f64),
     /// Seed of the noise.
     pub seed: u64,
 }
@@ -144,6 +151,8 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             noise_sd: 0.4,
             fault_gap: 30.0,
             gaps: vec![(20, 150, 36, 166)],
+            footprint: Some((0.2, 4.0)),
+            busts: (40, 5.0, 8.0),
             seed: 11,
         },
         DemoHorizon {
@@ -159,6 +168,8 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
             noise_sd: 0.25,
             fault_gap: 30.0,
             gaps: vec![],
+            footprint: None,
+            busts: (0, 0.0, 0.0),
             seed: 12,
         },
     ]
@@ -166,7 +177,7 @@ pub fn demo_horizons() -> Vec<DemoHorizon> {
 
 impl DemoHorizon {
     /// Stored values (depth m or two-way time ms), with nulls in fault gaps and pick gaps and,
-    /// if `noise`, the seeded picking noise.
+    /// if `noise`, the seeded picking noise, the footprint stripes and the busts.
     pub fn values(&self, noise: bool) -> Array2<f64> {
         let g = &self.geometry;
         let mut rng = SeededNoise::new(self.seed);
@@ -174,7 +185,7 @@ impl DemoHorizon {
             Some(v) => 2000.0 * z / v,
             None => z,
         };
-        Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
+        let mut values = Array2::from_shape_fn((g.rows, g.cols), |(r, c)| {
             let (x, y) = g.cell_centre(c, r);
             let jitter = rng.gaussian() * self.noise_sd;
             let in_gap = self
@@ -184,9 +195,36 @@ impl DemoHorizon {
             if in_gap || self.surface.fault_distance(x, y) < self.fault_gap {
                 f64::NAN
             } else {
-                to_stored(self.surface.eval(x, y).z) + if noise { jitter } else { 0.0 }
+                let stripes = self.footprint.map_or(0.0, |(amplitude, period)| {
+                    amplitude * (2.0 * std::f64::consts::PI * c as f64 / period).cos()
+                });
+                to_stored(self.surface.eval(x, y).z) + if noise { jitter + stripes } else { 0.0 }
             }
-        })
+        });
+        if noise {
+            for (r, c, offset) in self.bust_cells() {
+                if values[(r, c)].is_finite() {
+                    values[(r, c)] += offset;
+                }
+            }
+        }
+        values
+    }
+
+    /// The busts of the noisy version: (row, column, offset), seeded apart from the noise.
+    pub fn bust_cells(&self) -> Vec<(usize, usize, f64)> {
+        let g = &self.geometry;
+        let mut rng = SeededNoise::new(self.seed + 1000);
+        let (count, least, largest) = self.busts;
+        (0..count)
+            .map(|_| {
+                let r = ((rng.uniform() * g.rows as f64) as usize).min(g.rows - 1);
+                let c = ((rng.uniform() * g.cols as f64) as usize).min(g.cols - 1);
+                let size = least + (largest - least) * rng.uniform();
+                let sign = if rng.uniform() < 0.5 { -1.0 } else { 1.0 };
+                (r, c, sign * size)
+            })
+            .collect()
     }
 }
 

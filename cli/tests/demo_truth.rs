@@ -164,3 +164,40 @@ fn demo_sector_volumes_return_their_anisotropy_field() {
     assert!(b < 0.10, "median magnitude error {b}");
     assert!(az < 3.0, "median fast azimuth error {az}");
 }
+
+#[test]
+fn the_demo_busts_are_found_where_they_were_planted() {
+    // The generator's own bust list is the reference: at least 90% of the busts planted on
+    // valid cells of the Orrimund Shale top (away from its null gaps, where the test does not
+    // look) are found at their cell, and at most two cells are flagged beyond them.
+    use flexure_engine::surface::study::busts::{despike, BUST_FALSE_ALARM};
+    let h = demo_horizons().remove(0);
+    let mut depth = h.values(true);
+    let clean = h.values(false);
+    let planted: Vec<(usize, usize)> = h
+        .bust_cells()
+        .iter()
+        .map(|&(r, c, _)| (r, c))
+        .filter(|&(r, c)| {
+            let (r0, c0) = (r.saturating_sub(2), c.saturating_sub(2));
+            (r0..(r + 3).min(clean.nrows()))
+                .all(|rr| (c0..(c + 3).min(clean.ncols())).all(|cc| clean[(rr, cc)].is_finite()))
+        })
+        .collect();
+    let found = despike(&mut depth, &h.geometry, BUST_FALSE_ALARM).unwrap();
+    let hits = planted
+        .iter()
+        .filter(|&&(r, c)| found.cells.iter().any(|b| (b.row, b.col) == (r, c)))
+        .count();
+    assert!(planted.len() >= 30, "{}", planted.len());
+    assert!(
+        hits * 10 >= planted.len() * 9,
+        "{hits} of {}",
+        planted.len()
+    );
+    assert!(
+        found.cells.len() <= hits + 2,
+        "{} flagged",
+        found.cells.len()
+    );
+}

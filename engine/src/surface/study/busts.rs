@@ -33,7 +33,7 @@ pub const MAX_PASSES: usize = 4;
 pub const BUST_WINDOW: usize = 5;
 
 /// Name of the bust test, for reports.
-pub const BUST_TEST: &str = "5 x 5 quadric-fit centre residual / sqrt(1 - leverage) beyond the two-sided Gaussian quantile of the false-alarm rate times 1.4826 MAD, largest in its 3 x 3 neighbourhood; refitted without the busts found (up to 4 passes)";
+pub const BUST_TEST: &str = "5 x 5 quadric-fit centre residual / sqrt(1 - leverage) beyond the two-sided Gaussian quantile of the false-alarm rate times 1.4826 MAD, largest in its 3 x 3 neighbourhood, in windows clear of the input's nulls (fault gaps); refitted without the busts found (up to 4 passes)";
 
 /// One bust.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
@@ -83,6 +83,10 @@ pub fn despike(
     if depth.nrows() < BUST_WINDOW || depth.ncols() < BUST_WINDOW {
         return Ok(found);
     }
+    // Cells whose window reaches a null of the input (a fault gap, missing picks) are not
+    // tested: a quadric fitted across a gap models neither fault block, and its residuals
+    // there are misfit, not busts.
+    let testable = clear_of_nulls(depth);
     // Busts found by the previous pass (none before the first).
     let mut last_pass = usize::MAX;
     for _ in 0..MAX_PASSES {
@@ -95,6 +99,7 @@ pub fn despike(
             break;
         }
         let mut new = local_peaks(&u, limit);
+        new.retain(|&cell| testable[cell]);
         if let Some(previous) = found.cells.len().checked_sub(last_pass) {
             let near = |&(r, c): &(usize, usize)| {
                 (found.cells[previous..].iter()).any(|b| {
@@ -148,6 +153,25 @@ fn standardised_residuals(
     let (u, offsets): (Vec<f64>, Vec<f64>) = tiles.into_iter().flatten().unzip();
     let grid = |v| Array2::from_shape_vec(depth.dim(), v).expect("rows x cols residuals");
     Ok((grid(u), grid(offsets)))
+}
+
+/// Whether each cell's `BUST_WINDOW` window holds no null inside the grid (a summed-area table
+/// of the nulls).
+fn clear_of_nulls(depth: &Array2<f64>) -> Array2<bool> {
+    let (rows, cols) = depth.dim();
+    let mut sum = Array2::<u32>::zeros((rows + 1, cols + 1));
+    for r in 0..rows {
+        for c in 0..cols {
+            sum[(r + 1, c + 1)] =
+                u32::from(depth[(r, c)].is_nan()) + sum[(r, c + 1)] + sum[(r + 1, c)] - sum[(r, c)];
+        }
+    }
+    let half = BUST_WINDOW / 2;
+    Array2::from_shape_fn((rows, cols), |(r, c)| {
+        let (r0, r1) = (r.saturating_sub(half), (r + half + 1).min(rows));
+        let (c0, c1) = (c.saturating_sub(half), (c + half + 1).min(cols));
+        sum[(r1, c1)] + sum[(r0, c0)] == sum[(r0, c1)] + sum[(r1, c0)]
+    })
 }
 
 /// Cells (row, column) whose `|u|` exceeds `limit` and is the largest in their 3 x 3
