@@ -315,7 +315,8 @@ mod tests {
         // horizon with 0.3 m noise: a line of large residuals is structure, so at most 2 cells
         // along each feature may be called busts (the review of this test found 80 to 293).
         let n = 160;
-        let features: [(&str, fn(usize) -> f64); 3] = [
+        type Feature = (&'static str, fn(usize) -> f64);
+        let features: [Feature; 3] = [
             ("fault", |c| if c >= 80 { 15.0 } else { 0.0 }),
             ("hinge", |c| 0.4 * (c as f64 - 80.0).abs()),
             ("channel", |c| if (80..82).contains(&c) { 3.0 } else { 0.0 }),
