@@ -33,6 +33,7 @@ use flexure_engine::jobs::{
     RenderJob, RenderReport, SectorTimesJob, SectorTimesReport, StagesJob, StagesReport,
     WeightSource, WellInput, WindowStudyJob, WindowStudyReport,
 };
+use flexure_engine::stats::circular::axial_angle;
 use flexure_engine::stats::SeededNoise;
 use flexure_engine::surface::curvature::attribute_by_id;
 use flexure_engine::surface::horizon::{Domain, VelocitySource};
@@ -784,13 +785,6 @@ pub const DEMO_COMPLETIONS: &str = "tessary_completions.csv";
 /// The demo's production table: one row per demo well (invented figures).
 pub const DEMO_PRODUCTION: &str = "tessary_production.csv";
 
-/// Acute angle (degrees) between a demo lateral and the invented regional fast azimuth of 50
-/// degrees, which the invented completion figures lean on.
-fn regional_angle(w: &DemoWell) -> f64 {
-    let d = (w.azimuth - 50.0).rem_euclid(180.0);
-    d.min(180.0 - d)
-}
-
 /// Text of [`DEMO_COMPLETIONS`]: per stage an invented breakdown pressure, average treating
 /// pressure, maximum slurry rate, proppant per metre and shut-in pressure, the rate rising
 /// and the pressures falling with the lateral's angle to the regional fast azimuth, plus
@@ -801,7 +795,9 @@ pub fn demo_completions() -> String {
         "Well;Stage;Breakdown pressure [MPa];Avg treating pressure [MPa];Max slurry rate [m3/min];Proppant [t/m];ISIP [MPa]\n",
     );
     for w in demo_wells() {
-        let angle = regional_angle(&w);
+        // The invented completion figures lean on the lateral's acute angle to the invented
+        // regional fast azimuth of 50 degrees.
+        let angle = axial_angle(w.azimuth, 50.0);
         let stages = w.stages_csv().lines().count() - 1;
         for k in 1..=stages {
             text += &format!(

@@ -71,17 +71,14 @@ pub struct Step {
     pub inputs: Vec<PathBuf>,
     /// Output paths the step names (`out`, `png`), resolved.
     pub outputs: Vec<PathBuf>,
+    /// The command line as its command's parser read it (defaults filled).
+    pub matches: ArgMatches,
 }
 
 impl Step {
     /// `kind (line N)`, for messages.
     pub fn label(&self) -> String {
         format!("{} (line {})", self.kind, self.line)
-    }
-
-    /// The step's options as parsed, defaults filled, by option name (one value or a list).
-    pub fn matches(&self) -> Result<ArgMatches, clap::Error> {
-        crate::Cli::command().try_get_matches_from(&self.argv)
     }
 }
 
@@ -318,16 +315,17 @@ fn step(
         argv.push("--".into());
         argv.extend(positional);
     }
-    let step = Step {
+    let matches = crate::Cli::command()
+        .try_get_matches_from(&argv)
+        .map_err(|e| (None, in_job_terms(&crate::usage_message(&e), &command_name)))?;
+    Ok(Step {
         kind,
         line,
         argv,
         inputs,
         outputs,
-    };
-    step.matches()
-        .map_err(|e| (None, in_job_terms(&crate::usage_message(&e), &command_name)))?;
-    Ok(step)
+        matches,
+    })
 }
 
 /// An array given to an option that takes one value per occurrence and whose value is a tuple

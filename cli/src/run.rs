@@ -22,9 +22,7 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
     let parsed = job
         .steps
         .iter()
-        .map(|step| {
-            parse(&job, step).and_then(|(cli, m)| check_step(step, &cli, &job).map(|()| (cli, m)))
-        })
+        .map(|step| parse(&job, step).and_then(|cli| check_step(step, &cli, &job).map(|()| cli)))
         .collect::<Result<Vec<_>, _>>()?;
     check_links(&job)?;
     if args.check {
@@ -34,7 +32,7 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
     let started = Instant::now();
     let mut steps = Vec::new();
     let mut cautions: Vec<&str> = Vec::new();
-    for (step, (cli, matches)) in job.steps.iter().zip(parsed) {
+    for (step, cli) in job.steps.iter().zip(parsed) {
         let t0 = Instant::now();
         let before = transaction.outputs().len();
         let outcome = execute(cli.command, progress).map_err(|e| in_step(&job, step, e))?;
@@ -52,7 +50,7 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
         steps.push(StepRecord {
             step: step.kind.to_string(),
             line: step.line,
-            options: options(&matches),
+            options: options(&step.matches),
             seconds: t0.elapsed().as_secs_f64(),
             summary,
             notes: outcome.notes,
@@ -92,13 +90,10 @@ pub fn run_job(args: &RunArgs, progress: &dyn Progress) -> Result<Outcome, Flexu
     })
 }
 
-/// The step's command line parsed by the command's own parser.
-fn parse(job: &JobFile, step: &Step) -> Result<(Cli, ArgMatches), FlexureError> {
-    let usage =
-        |e: clap::Error| in_step(job, step, FlexureError::Parameter(crate::usage_message(&e)));
-    let matches = step.matches().map_err(usage)?;
-    let cli = Cli::from_arg_matches(&matches).map_err(usage)?;
-    Ok((cli, matches))
+/// The step's command, from the options the job file reader parsed.
+fn parse(job: &JobFile, step: &Step) -> Result<Cli, FlexureError> {
+    Cli::from_arg_matches(&step.matches)
+        .map_err(|e| in_step(job, step, FlexureError::Parameter(crate::usage_message(&e))))
 }
 
 /// Checks a step before anything runs: its options build the engine's job, and every input

@@ -26,7 +26,7 @@ use crate::io::vector::{
 };
 use crate::io::{commit_all, prepare_output_dir, StagedFile};
 use crate::stats::circular::{axial_angle, rayleigh_p};
-use crate::wells::corridor::{median_snr, score_interval, ScoreInterval};
+use crate::wells::corridor::{median_snr, score_interval, snr_weight, ScoreInterval};
 use std::fmt;
 use std::path::{Path, PathBuf};
 
@@ -102,11 +102,7 @@ fn regional_coherence(
             if (x - heel.0).hypot(y - heel.1) > radius || !(m.is_finite() && az.is_finite()) {
                 continue;
             }
-            let w = if se.is_finite() && se > 0.0 {
-                (m / se).min(10.0).powi(2)
-            } else {
-                1.0
-            };
+            let w = snr_weight(m, se);
             let (s2, c2) = (2.0 * az).to_radians().sin_cos();
             let key = (
                 ((x - heel.0) / tile).floor() as i64,

@@ -110,7 +110,7 @@ pub fn rank_test(
         .iter()
         .map(|u| (0..u.members.len()).collect())
         .collect();
-    let parts = gather(&units, &identity, groups);
+    let parts = series(&units, &identity, groups, Draw::Bootstrap);
     let rho = statistic(&parts)?;
     // Pairs of the units that contribute a rho (a well with fewer than 3 pairs or a constant
     // side does not).
@@ -124,7 +124,7 @@ pub fn rank_test(
     let mut boot: Vec<f64> = (0..resamples)
         .filter_map(|_| {
             let picks: Vec<Vec<usize>> = units.iter().map(|u| u.resample(&mut rng)).collect();
-            statistic(&gather(&units, &picks, groups))
+            statistic(&series(&units, &picks, groups, Draw::Bootstrap))
         })
         .collect();
     let tail = (1.0 - level) / 2.0;
@@ -136,7 +136,7 @@ pub fn rank_test(
     let mut extreme = 0usize;
     for _ in 0..permutations {
         let picks: Vec<Vec<usize>> = units.iter().map(|u| u.permute(&mut rng)).collect();
-        if statistic(&permuted(&units, &picks, groups))
+        if statistic(&series(&units, &picks, groups, Draw::Permutation))
             .is_some_and(|r| r.abs() >= rho.abs() - 1e-12)
         {
             extreme += 1;
@@ -246,39 +246,34 @@ fn value(groups: &[(Vec<f64>, Vec<f64>)], (g, i): (usize, usize), outcome: bool)
     }
 }
 
-/// Each unit's (metric, outcome) series of a bootstrap draw.
-fn gather(
+/// How a draw pairs the series: a bootstrap draw takes whole (metric, outcome) pairs at the
+/// picked positions; a permutation draw keeps the metrics in place and moves the outcomes.
+#[derive(Clone, Copy, PartialEq)]
+enum Draw {
+    Bootstrap,
+    Permutation,
+}
+
+/// Each unit's (metric, outcome) series for the picked positions of a draw.
+fn series(
     units: &[Unit],
     picks: &[Vec<usize>],
     groups: &[(Vec<f64>, Vec<f64>)],
+    draw: Draw,
 ) -> Vec<(Vec<f64>, Vec<f64>)> {
     units
         .iter()
         .zip(picks)
         .map(|(u, p)| {
             p.iter()
-                .map(|&k| u.members[k])
-                .map(|m| (value(groups, m, false), value(groups, m, true)))
-                .unzip()
-        })
-        .collect()
-}
-
-/// Each unit's series with the metrics in place and the outcomes moved as a permutation draw
-/// says.
-fn permuted(
-    units: &[Unit],
-    picks: &[Vec<usize>],
-    groups: &[(Vec<f64>, Vec<f64>)],
-) -> Vec<(Vec<f64>, Vec<f64>)> {
-    units
-        .iter()
-        .zip(picks)
-        .map(|(u, p)| {
-            u.members
-                .iter()
-                .zip(p)
-                .map(|(&m, &k)| (value(groups, m, false), value(groups, u.members[k], true)))
+                .enumerate()
+                .map(|(i, &k)| {
+                    let metric_at = if draw == Draw::Bootstrap { k } else { i };
+                    (
+                        value(groups, u.members[metric_at], false),
+                        value(groups, u.members[k], true),
+                    )
+                })
                 .unzip()
         })
         .collect()

@@ -180,18 +180,23 @@ pub fn bilinear(geometry: &GridGeometry, values: &Array2<f64>, x: f64, y: f64) -
 /// Largest weight of one bin in the drilling score: a signal to noise ratio of 10.
 const MAX_SNR: f64 = 10.0;
 
-/// Weight of a bin in the drilling score: its squared signal to noise ratio
-/// `(B / stderr_B)^2`, capped at 100, so bins whose magnitude is indistinguishable from noise
-/// count little; 1 when the magnitude's error is unknown.
+/// Weight of an anisotropy bin of magnitude `magnitude` and standard error `stderr` (ms): its
+/// squared signal to noise ratio `(B / stderr_B)^2`, capped at 100, so bins whose magnitude is
+/// indistinguishable from noise count little; 1 when the magnitude's error is unknown.
+pub fn snr_weight(magnitude: f64, stderr: f64) -> f64 {
+    if stderr.is_finite() && stderr > 0.0 {
+        (magnitude / stderr).min(MAX_SNR).powi(2)
+    } else {
+        1.0
+    }
+}
+
+/// Weight of a bin in the drilling score ([`snr_weight`]); 0 without a magnitude or azimuth.
 fn bin_weight(b: &BinSample) -> f64 {
     if !(b.magnitude.is_finite() && b.azimuth_fast.is_finite()) {
         return 0.0;
     }
-    if b.magnitude_stderr.is_finite() && b.magnitude_stderr > 0.0 {
-        (b.magnitude / b.magnitude_stderr).min(MAX_SNR).powi(2)
-    } else {
-        1.0
-    }
+    snr_weight(b.magnitude, b.magnitude_stderr)
 }
 
 /// Drilling score of a lateral at `azimuth` over `bins`, 0..1: the weighted mean of
