@@ -12,9 +12,14 @@
 //!   valid cells only (exact masked least squares through the 6 x 6 normal equations built from
 //!   the mask's moments). No value is padded, reflected or smeared into a gap.
 //! - Every moment is a separable correlation (a power of the column offset times a power of the
-//!   row offset), computed with one pass along rows and one along columns, so the cost per cell
-//!   grows linearly with N. Full windows use the precomputed inverse of the constant normal
-//!   matrix (the classic fixed kernels); only windows holding nulls get their own solve.
+//!   row offset). The mask's 15 moments `sum u^p v^q M` (integer offsets u, v) are integers and
+//!   are kept exactly in `i64` as running sums that slide one cell along each row and one row
+//!   down each column (a binomial shift, exact, so nothing builds up along a line): their cost
+//!   per cell does not depend on N, and every window that holds nulls gets its exact normal
+//!   matrix. The data sums `sum s^p t^q z` are one pass along rows and one along columns, so
+//!   their cost per cell grows linearly with N. Full windows use the precomputed inverse of
+//!   the constant normal matrix (the classic fixed kernels); only windows holding nulls get
+//!   their own solve.
 //! - A cell is null when its centre is null, when fewer than `min_valid` of its window's cells
 //!   are valid, or when the valid cells do not determine the quadric: the 1-norm condition
 //!   number of the scaled normal matrix exceeds [`CONDITION_LIMIT`] or its Cholesky factor fails.
@@ -399,21 +404,65 @@ fn moment_index(p: usize, q: usize) -> usize {
     deg * (deg + 1) / 2 + q
 }
 
+/// Binomial coefficients `BINOMIAL[p][k]` = C(p, k) for p, k <= 4.
+const BINOMIAL: [[i64; 5]; 5] = [
+    [1, 0, 0, 0, 0],
+    [1, 1, 0, 0, 0],
+    [1, 2, 1, 0, 0],
+    [1, 3, 3, 1, 0],
+    [1, 4, 6, 4, 1],
+];
+
+/// Exact moment sums of an integer sequence over a window of half width m:
+/// `sums[k] = sum over v = -m..=m of v^k x(c + v)`, k < `sums.len()` <= 5. Moves them from
+/// centre c to c + 1, given `leaving` = x(c - m) and `entering` = x(c + m + 1): the sums over
+/// the new cells in the old offsets, then the binomial shift `(v - 1)^k`. Integer arithmetic,
+/// so a sum slid along a whole line is the same as one summed afresh (no error builds up);
+/// every term stays below 101^2 50^4 for windows up to 101 cells, far inside `i64`.
+fn slide_moments(sums: &mut [i64], leaving: i64, entering: i64, m: i64) {
+    let mut raw = [0i64; 5];
+    let (mut low, mut high) = (1i64, 1i64);
+    for (r, s) in raw.iter_mut().zip(sums.iter()) {
+        *r = s - low * leaving + high * entering;
+        low *= -m;
+        high *= m + 1;
+    }
+    for (p, s) in sums.iter_mut().enumerate() {
+        *s = (0..=p)
+            .map(|k| {
+                let sign = if (p - k) % 2 == 0 { 1 } else { -1 };
+                sign * BINOMIAL[p][k] * raw[k]
+            })
+            .sum();
+    }
+}
+
+/// The 15 mask moments `sum u^p v^q M` (integer offsets; `[p][q]`, p + q <= 4) scaled to the
+/// fit's coordinates s = u/m, t = v/m: each an exact integer divided by m^(p+q), one rounding.
+fn scaled_moments(exact: &[[i64; 5]; 5], m: usize) -> [f64; 15] {
+    let mut moments = [0.0; 15];
+    for p in 0..=4 {
+        for q in 0..=(4 - p) {
+            moments[moment_index(p, q)] = exact[p][q] as f64 / (m as f64).powi((p + q) as i32);
+        }
+    }
+    moments
+}
+
 /// The normal matrix of a full window in scaled coordinates.
 fn full_normal_matrix(m: usize) -> Matrix6<f64> {
-    let mut moments = [0.0; 15];
-    let mi = m as isize;
+    let mut exact = [[0i64; 5]; 5];
+    let mi = m as i64;
     for v in -mi..=mi {
         for u in -mi..=mi {
-            let (s, t) = (u as f64 / m as f64, v as f64 / m as f64);
-            for p in 0..=4 {
-                for q in 0..=(4 - p) {
-                    moments[moment_index(p, q)] += s.powi(p as i32) * t.powi(q as i32);
+            for (p, line) in exact.iter_mut().enumerate() {
+                for (q, sum) in line.iter_mut().enumerate().take(5 - p) {
+                    *sum += u.pow(p as u32) * v.pow(q as u32);
                 }
             }
         }
     }
-    normal_matrix(&moments)
+    normal_matrix(&scaled_moments(&exact, m))
 }
 
 /// Inverse of the full-window normal matrix (the fixed kernels' core).
@@ -497,8 +546,8 @@ struct Fitter<'a, T: Sample> {
     half: usize,
     /// s = u/m for u = -m..=m.
     offsets: Vec<f64>,
-    /// Powers 0..=4 of t = v/m for v = -m..=m.
-    row_powers: Vec<[f64; 5]>,
+    /// Powers 0..=2 of t = v/m for v = -m..=m.
+    row_powers: Vec<[f64; 3]>,
     full_count: f64,
     min_count: f64,
     full_inverse: Matrix6<f64>,
@@ -511,10 +560,50 @@ struct Fitter<'a, T: Sample> {
     full_power: f64,
 }
 
-/// Row sums of one tile: `mask[p]` = sum over u of s^p M, `data[p]` = sum of s^p M z.
+/// Row sums of one grid row: `mask[col][p]` = sum over u of u^p M (integer offsets, exact),
+/// `data[p][col]` = sum of s^p M z.
 struct RowSums {
-    mask: [Vec<f64>; 5],
+    mask: Vec<[i64; 5]>,
     data: [Vec<f64>; 3],
+}
+
+/// The mask moments of the windows centred on one grid row, per column: `[p][q]` = sum over the
+/// window of u^p v^q M (integer offsets), slid down the tile one row at a time.
+struct WindowMoments {
+    columns: Vec<[[i64; 5]; 5]>,
+}
+
+impl WindowMoments {
+    /// Summed afresh over `rows` (the 2m + 1 row sums of the first window row).
+    fn new(rows: &[RowSums], m: usize) -> Self {
+        let cols = rows[0].mask.len();
+        let mut columns = vec![[[0i64; 5]; 5]; cols];
+        for (line, v) in rows.iter().zip(-(m as i64)..) {
+            for (column, row_moments) in columns.iter_mut().zip(&line.mask) {
+                for p in 0..=4 {
+                    for q in 0..=(4 - p) {
+                        column[p][q] += row_moments[p] * v.pow(q as u32);
+                    }
+                }
+            }
+        }
+        Self { columns }
+    }
+
+    /// Moves every column's moments one row down: `leaving` is the row sums of the window's
+    /// old top row, `entering` those of its new bottom row.
+    fn slide(&mut self, leaving: &RowSums, entering: &RowSums, m: usize) {
+        for ((column, out), into) in self
+            .columns
+            .iter_mut()
+            .zip(&leaving.mask)
+            .zip(&entering.mask)
+        {
+            for (p, line) in column.iter_mut().enumerate() {
+                slide_moments(&mut line[..5 - p], out[p], into[p], m as i64);
+            }
+        }
+    }
 }
 
 impl<'a, T: Sample> Fitter<'a, T> {
@@ -545,10 +634,7 @@ impl<'a, T: Sample> Fitter<'a, T> {
             rows,
             half,
             offsets: offsets.clone(),
-            row_powers: offsets
-                .iter()
-                .map(|&t| [1.0, t, t * t, t * t * t, t * t * t * t])
-                .collect(),
+            row_powers: offsets.iter().map(|&t| [1.0, t, t * t]).collect(),
             full_count: (spec.size * spec.size) as f64,
             min_count: spec.min_count(),
             full_inverse,
@@ -564,41 +650,59 @@ impl<'a, T: Sample> Fitter<'a, T> {
     }
 
     /// Value at (row, col) as (mask, shifted z); cells outside the grid are nulls.
-    fn cell(&self, row: isize, col: usize) -> (f64, f64) {
+    fn cell(&self, row: isize, col: usize) -> (i64, f64) {
         if row < 0 || row >= self.rows.grid_rows as isize {
-            return (0.0, 0.0);
+            return (0, 0.0);
         }
         let v = self.rows.at(row as usize, col);
         if v.is_finite() {
-            (1.0, v - self.z_shift)
+            (1, v - self.z_shift)
         } else {
-            (0.0, 0.0)
+            (0, 0.0)
         }
     }
 
-    /// Pass along each grid row `row`: the sums over u of s^p M and s^p M z.
+    /// Pass along each grid row `row`: the sums over u of u^p M (slid, exact) and s^p M z.
     fn row_sums(&self, row: isize) -> RowSums {
         let cols = self.cols();
-        let (mut mask_row, mut data_row) = (vec![0.0; cols], vec![0.0; cols]);
+        let (mut mask_row, mut data_row) = (vec![0i64; cols], vec![0.0; cols]);
         for col in 0..cols {
             (mask_row[col], data_row[col]) = self.cell(row, col);
         }
         let mut sums = RowSums {
-            mask: std::array::from_fn(|_| vec![0.0; cols]),
+            mask: Vec::with_capacity(cols),
             data: std::array::from_fn(|_| vec![0.0; cols]),
         };
         let m = self.half as isize;
+        let mask_at = |col: isize| {
+            usize::try_from(col)
+                .ok()
+                .and_then(|c| mask_row.get(c))
+                .copied()
+                .unwrap_or(0)
+        };
+        let mut moments = [0i64; 5];
+        for (p, sum) in moments.iter_mut().enumerate() {
+            *sum = (-m..=m)
+                .map(|u| (u as i64).pow(p as u32) * mask_at(u))
+                .sum();
+        }
+        for col in 0..cols as isize {
+            sums.mask.push(moments);
+            slide_moments(
+                &mut moments,
+                mask_at(col - m),
+                mask_at(col + m + 1),
+                m as i64,
+            );
+        }
         for (iu, u) in (-m..=m).enumerate() {
             let s = self.offsets[iu];
-            let powers = [1.0, s, s * s, s * s * s, s * s * s * s];
+            let powers = [1.0, s, s * s];
             let lo = (-u).max(0) as usize;
             let hi = (cols as isize - u.max(0)).max(0) as usize;
             for col in lo..hi {
-                let src = (col as isize + u) as usize;
-                let (mv, zv) = (mask_row[src], data_row[src]);
-                for (line, w) in sums.mask.iter_mut().zip(&powers) {
-                    line[col] += w * mv;
-                }
+                let zv = data_row[(col as isize + u) as usize];
                 for (line, w) in sums.data.iter_mut().zip(&powers) {
                     line[col] += w * zv;
                 }
@@ -616,43 +720,45 @@ impl<'a, T: Sample> Fitter<'a, T> {
             .collect();
         let cols = self.cols();
         let mut out = Vec::with_capacity((r1 - r0) * cols);
+        let mut moments = WindowMoments::new(&sums[..2 * m + 1], m);
         for row in r0..r1 {
-            let window = &sums[row - r0..row - r0 + 2 * m + 1];
-            out.extend((0..cols).map(|col| self.fit_cell(window, row, col)));
+            let i = row - r0;
+            if i > 0 {
+                moments.slide(&sums[i - 1], &sums[i + 2 * m], m);
+            }
+            let window = &sums[i..i + 2 * m + 1];
+            out.extend((0..cols).map(|col| self.fit_cell(window, &moments.columns[col], row, col)));
         }
         out
     }
 
-    /// Fits one cell from the row sums of the 2m+1 rows of its window: one pass over the rows
-    /// for the count and right-hand side, a second for the mask moments only if the window
-    /// holds nulls.
-    fn fit_cell(&self, window: &[RowSums], row: usize, col: usize) -> Option<(Quadric, f64)> {
+    /// Fits one cell from the data row sums of the 2m+1 rows of its window (one pass over the
+    /// rows for the right-hand side) and its exact mask moments (used only if the window holds
+    /// nulls).
+    fn fit_cell(
+        &self,
+        window: &[RowSums],
+        mask_moments: &[[i64; 5]; 5],
+        row: usize,
+        col: usize,
+    ) -> Option<(Quadric, f64)> {
         if !self.rows.at(row, col).is_finite() {
             return None;
         }
-        let mut count = 0.0;
+        let count = mask_moments[0][0] as f64;
+        if count < self.min_count {
+            return None;
+        }
         let mut rhs = Vector6::zeros();
         for (line, t) in window.iter().zip(&self.row_powers) {
-            count += line.mask[0][col];
             for (k, &(p, q)) in BASIS.iter().enumerate() {
                 rhs[k] += t[q] * line.data[p][col];
             }
         }
-        if count < self.min_count {
-            return None;
-        }
         let (scaled, power) = if count == self.full_count {
             (self.full_inverse * rhs, self.full_power)
         } else {
-            let mut moments = [0.0; 15];
-            for (line, t) in window.iter().zip(&self.row_powers) {
-                for p in 0..=4 {
-                    let mp = line.mask[p][col];
-                    for q in 0..=(4 - p) {
-                        moments[moment_index(p, q)] += t[q] * mp;
-                    }
-                }
-            }
+            let moments = scaled_moments(mask_moments, self.half);
             let (solution, inverse) = solve_masked(&normal_matrix(&moments), &rhs)?;
             (solution, noise_power(&self.functionals, &inverse))
         };
@@ -699,6 +805,28 @@ mod tests {
             }
         }
         assert!(seen.iter().all(|&s| s));
+    }
+
+    #[test]
+    fn slid_mask_moments_equal_moments_summed_afresh() {
+        // The definition sum_v v^k x(c + v) summed directly at every centre of an irregular
+        // 0/1 line (zeros beyond its ends), against the slid sums, for every window half width.
+        let line: Vec<i64> = (0..97)
+            .map(|i| i64::from((i * 7 + i / 5) % 3 != 0))
+            .collect();
+        let at = |i: i64| usize::try_from(i).ok().and_then(|i| line.get(i)).copied();
+        let direct = |c: i64, m: i64, k: u32| -> i64 {
+            (-m..=m).map(|v| v.pow(k) * at(c + v).unwrap_or(0)).sum()
+        };
+        for m in [1i64, 2, 7, 50] {
+            let mut sums: [i64; 5] = std::array::from_fn(|k| direct(0, m, k as u32));
+            for c in 0..line.len() as i64 {
+                let expected: [i64; 5] = std::array::from_fn(|k| direct(c, m, k as u32));
+                assert_eq!(sums, expected, "m {m}, centre {c}");
+                let (out, into) = (at(c - m).unwrap_or(0), at(c + m + 1).unwrap_or(0));
+                slide_moments(&mut sums, out, into, m);
+            }
+        }
     }
 
     #[test]
