@@ -580,9 +580,9 @@ impl WindowMoments {
         let mut columns = vec![[[0i64; 5]; 5]; cols];
         for (line, v) in rows.iter().zip(-(m as i64)..) {
             for (column, row_moments) in columns.iter_mut().zip(&line.mask) {
-                for p in 0..=4 {
-                    for q in 0..=(4 - p) {
-                        column[p][q] += row_moments[p] * v.pow(q as u32);
+                for (p, (line, moment)) in column.iter_mut().zip(row_moments).enumerate() {
+                    for (q, sum) in line.iter_mut().enumerate().take(5 - p) {
+                        *sum += moment * v.pow(q as u32);
                     }
                 }
             }
