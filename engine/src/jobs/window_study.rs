@@ -127,6 +127,7 @@ impl WindowStudyJob {
                 &adaptive_path,
             )?,
         };
+        notices.extend(s.noise.caution());
         let spacing_m = {
             let (sx, sy) = g.spacing();
             (sx * g.metres_per_unit, sy * g.metres_per_unit)
@@ -301,6 +302,7 @@ impl WindowStudyJob {
                 .collect(),
             recommended_window: s.recommended,
             noise_model: s.noise_model(),
+            residual_short_wave_share: s.noise.short_wave_share,
             footprints: &s.noise.footprints,
             min_feature_m: self.fit.min_feature_m,
             min_window: s.min_window,
@@ -399,6 +401,9 @@ struct StudyJson<'a> {
     recommended_window: usize,
     /// The noise model the tests used, in words.
     noise_model: String,
+    /// The fit residuals' short-wavelength power over their mid-wavelength power (about 1 for
+    /// white noise).
+    residual_short_wave_share: Option<f64>,
     footprints: &'a [Footprint],
     min_feature_m: Option<f64>,
     /// The smallest window the adaptive map and the recommendation could take.

@@ -177,8 +177,8 @@ impl Study {
             })
             .collect();
         match stripes.is_empty() {
-            true => "white".to_string(),
-            false => format!("white + footprint: {}", stripes.join("; ")),
+            true => self.noise.model_name().to_string(),
+            false => format!("{}: {}", self.noise.model_name(), stripes.join("; ")),
         }
     }
 
@@ -198,10 +198,7 @@ impl Study {
             "window {} is the single window closest to the adaptive map (RMS difference {:.4}); the adaptive map kept larger windows wherever the derivatives' change stayed within the {} noise model{floor}",
             self.recommended,
             closest,
-            match self.noise.footprints.is_empty() {
-                true => "white",
-                false => "white + footprint",
-            }
+            self.noise.model_name()
         )
     }
 }

@@ -21,17 +21,37 @@ pub struct NoiseEstimate {
     pub n: usize,
     /// Periodic footprint found, strongest first (noise too, of known covariance).
     pub footprints: Vec<Footprint>,
+    /// The residual spectrum's short-wavelength power as a share of its mid-wavelength power
+    /// ([`footprint::SpectrumReading::short_wave_share`]; about 1 for white noise).
+    pub short_wave_share: Option<f64>,
 }
 
 impl NoiseEstimate {
-    /// The noise model's name for reports: `white`, or `white + footprint` when stripes were
-    /// found.
+    /// The noise model's name for reports: `white`, `white + footprint` when stripes were
+    /// found, or `correlated, modelled as white` when the residual spectrum is not white.
     pub fn model_name(&self) -> &'static str {
-        if self.footprints.is_empty() {
-            "white"
-        } else {
-            "white + footprint"
+        match (self.correlated(), self.footprints.is_empty()) {
+            (true, _) => "correlated, modelled as white",
+            (false, true) => "white",
+            (false, false) => "white + footprint",
         }
+    }
+
+    /// Whether the residuals' spectrum falls off at short wavelengths (see
+    /// [`footprint::WHITE_SHORT_WAVE_SHARE`]).
+    pub fn correlated(&self) -> bool {
+        self.short_wave_share
+            .is_some_and(|share| share < footprint::WHITE_SHORT_WAVE_SHARE)
+    }
+
+    /// The caution a study on this noise must carry, if any: correlated noise is modelled as
+    /// white, so larger windows look like they remove structure and the recommendation is
+    /// likely too small.
+    pub fn caution(&self) -> Option<String> {
+        let share = self.short_wave_share.filter(|_| self.correlated())?;
+        Some(format!(
+            "the fit residuals' short-wavelength power is {share:.2} of their mid-wavelength power (white noise gives about 1): the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free; the study models the noise as white, so the recommended window is likely too small, and footprint is not looked for"
+        ))
     }
 }
 
@@ -122,6 +142,7 @@ pub fn estimate_noise<T: Sample>(
     Ok(Some(NoiseEstimate {
         sigma,
         n,
+        short_wave_share: reading.short_wave_share,
         footprints: reading.footprints,
     }))
 }
