@@ -888,8 +888,9 @@ struct WindowStudyArgs {
     /// Also write the adaptive-window map and the chosen-window grid.
     #[arg(long)]
     adaptive: bool,
-    /// The smallest structure of interest, metres across: the adaptive map and the
-    /// recommendation take no window smaller than the largest window that fits within it.
+    /// The smallest structure of interest, metres across (trough to trough): the adaptive map
+    /// and the recommendation take no window smaller than the largest that still resolves it
+    /// (keeps 70% of a fold's crest curvature; about two thirds of its size).
     #[arg(long, value_name = "METRES", value_parser = positive_metres)]
     min_feature: Option<f64>,
     /// Remove a periodic acquisition footprint by a notch before the study (otherwise it is

@@ -180,8 +180,10 @@ fn footprint_filter_removes_the_stripes_and_says_so() {
 
 #[test]
 fn window_study_reports_footprint_and_keeps_to_the_min_feature() {
-    // The striped dome; --min-feature 240 m on 25 m bins allows no window below 9 (9 x 25 =
-    // 225 m fits within 240 m, 15 x 25 = 375 m does not).
+    // The striped dome; --min-feature 400 m on 25 m bins allows no window below 9: of a
+    // sinusoidal fold 400 m from trough to trough, window 9 keeps 0.81 of the crest curvature
+    // and window 15 0.52 (the closed-form N x N kernel of REFERENCES.md section 3 [D],
+    // evaluated with numpy), against the 0.7 required.
     let dir = tempfile::tempdir().unwrap();
     let input = striped_dome(dir.path());
     let out = dir.path().join("study");
@@ -192,7 +194,7 @@ fn window_study_reports_footprint_and_keeps_to_the_min_feature() {
         "3,5,9,15",
         "--adaptive",
         "--min-feature",
-        "240",
+        "400",
         "--out",
         out.to_str().unwrap(),
     ]);
@@ -216,7 +218,7 @@ fn window_study_reports_footprint_and_keeps_to_the_min_feature() {
         "{f}"
     );
     assert_eq!(json["min_window"], 9);
-    assert_eq!(json["min_feature_m"], 240.0);
+    assert_eq!(json["min_feature_m"], 400.0);
     assert!(json["recommended_window"].as_u64().unwrap() >= 9);
     assert!(json["noise_model"]
         .as_str()

@@ -55,9 +55,9 @@ pub struct CurvatureJob {
     /// its axis before fitting ([`crate::surface::study::footprint::notch`]); a note says what
     /// was removed. Off by default.
     pub footprint_filter: bool,
-    /// The window study only: the smallest structure of interest, metres across; the adaptive
-    /// map and the recommendation take no window smaller than the largest window that fits
-    /// within it ([`crate::surface::study::StudyPlan::set_min_feature`]).
+    /// The window study only: the smallest structure of interest, metres across (trough to
+    /// trough); the adaptive map and the recommendation take no window smaller than the
+    /// largest that still resolves it ([`crate::surface::study::StudyPlan::set_min_feature`]).
     pub min_feature_m: Option<f64>,
     /// With `despike`, also write the despiked horizon (`<stem>_despiked.tif`: positive-down
     /// depth in CRS units, busts null).

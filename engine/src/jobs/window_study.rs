@@ -234,7 +234,7 @@ impl WindowStudyJob {
             )
         })?;
         if let Some(metres) = self.fit.min_feature_m {
-            plan.set_min_feature(metres);
+            plan.set_min_feature(metres)?;
         }
         let mut writer = match adaptive_path {
             Some(path) => Some(self.create_adaptive(path, g, provenance, &plan.steps)?),

@@ -302,6 +302,43 @@ pub fn plan<'a, T: Sample>(
     Ok(Some(plan))
 }
 
+/// Least share of a fold's crest curvature a window allowed by `--min-feature` must keep (our
+/// choice: about the half-power point, 1/sqrt(2)).
+pub const MIN_FEATURE_RESPONSE: f64 = 0.7;
+
+/// The share of the true crest curvature that the full-window fit of `size` cells keeps for
+/// a sinusoidal fold `across_m` metres across (its wavelength, trough to trough) running along
+/// a grid axis: the window's kernel of the second derivative across the fold, `2 a u_x^2 + 2 c
+/// u_x u_y + 2 b u_y^2` for the unit vector u across it, applied to `cos(2 pi s / across)` (s
+/// the distance across, in metres) and divided by the true `-(2 pi / across)^2`; the smaller
+/// of the two axes.
+/// 1 for windows much smaller than the fold, falling as the window approaches it.
+pub fn crest_curvature_response(
+    geometry: &GridGeometry,
+    size: usize,
+    across_m: f64,
+) -> Result<f64> {
+    let kernels = crate::surface::window::full_window_kernels(geometry, size)?;
+    let g = &geometry.geo_transform;
+    let wavenumber = std::f64::consts::TAU / (across_m / geometry.metres_per_unit);
+    let m = (size / 2) as f64;
+    let response = |(ux, uy): (f64, f64)| {
+        let norm = ux.hypot(uy);
+        let (ux, uy) = (ux / norm, uy / norm);
+        let fitted: f64 = (kernels[0].indexed_iter())
+            .map(|((r, c), a)| {
+                let (dc, dr) = (c as f64 - m, r as f64 - m);
+                let (dx, dy) = (dc * g[1] + dr * g[2], dc * g[4] + dr * g[5]);
+                let (b, cross) = (kernels[1][(r, c)], kernels[2][(r, c)]);
+                let weight = 2.0 * a * ux * ux + 2.0 * cross * ux * uy + 2.0 * b * uy * uy;
+                weight * (wavenumber * (dx * ux + dy * uy)).cos()
+            })
+            .sum();
+        fitted / -(wavenumber * wavenumber)
+    };
+    Ok(response((g[1], g[4])).min(response((g[2], g[5]))))
+}
+
 /// Rows generated at a time for the perturbed horizon's mean.
 const NOISY_MEAN_ROWS: usize = 64;
 
@@ -312,17 +349,23 @@ const NOISY_MEAN_ROWS: usize = 64;
 const BATCH_CELL_BYTES: usize = 240;
 
 impl<T: Sample> StudyPlan<'_, T> {
-    /// Keeps the adaptive map and the recommendation from windows smaller than the smallest
-    /// structure of interest, `metres` across: the smallest window allowed is the largest
-    /// whose longer side (cells times the larger bin, in metres) is at most `metres` (the first
-    /// window when none is). Returns that window.
-    pub fn set_min_feature(&mut self, metres: f64) -> usize {
-        let (sx, sy) = self.geometry.spacing();
-        let bin_m = sx.max(sy) * self.geometry.metres_per_unit;
-        self.floor = (self.windows.iter())
-            .rposition(|&w| w as f64 * bin_m <= metres)
-            .unwrap_or(0);
-        self.windows[self.floor]
+    /// Keeps the adaptive map and the recommendation from windows smaller than needed for the
+    /// smallest structure of interest, `metres` across: the smallest window allowed is the
+    /// largest that still resolves such a structure, keeping at least
+    /// [`MIN_FEATURE_RESPONSE`] of the curvature at the crest of a fold `metres` across (from
+    /// trough to trough: one wavelength of a sinusoid, across either grid axis;
+    /// [`crest_curvature_response`]); the first window when none does. Returns that window,
+    /// about two thirds of the feature's size.
+    pub fn set_min_feature(&mut self, metres: f64) -> Result<usize> {
+        let mut floor = 0;
+        for (k, &w) in self.windows.iter().enumerate() {
+            if crest_curvature_response(self.geometry, w, metres)? < MIN_FEATURE_RESPONSE {
+                break;
+            }
+            floor = k;
+        }
+        self.floor = floor;
+        Ok(self.windows[floor])
     }
 
     /// Bytes the study holds per cell of a batch of rows (see [`StudyPlan::run`]).
@@ -820,6 +863,51 @@ mod tests {
             .map(inner)
             .chain(std::iter::once(inner(&s.adaptive)))
             .collect()
+    }
+
+    #[test]
+    fn the_smallest_feature_keeps_the_windows_that_resolve_it() {
+        // The crest response against the closed-form N x N kernel of a (REFERENCES.md section
+        // 3 [D]: a = sum z (i^2 - S2/N) / (N (S4 - S2^2/N) h^2)) applied to a fold constant
+        // along y, z = cos(2 pi x / F): response = 2 sum_i (i^2 - S2/N) cos(2 pi i h / F) /
+        // ((S4 - S2^2/N) h^2) / -(2 pi/F)^2 (the sum over j cancels N).
+        let g = grid(200);
+        let h = 25.0;
+        let closed = |n: usize, across: f64| {
+            let m = (n / 2) as i64;
+            let nf = n as f64;
+            let s2: f64 = (-m..=m).map(|i| (i * i) as f64).sum();
+            let s4: f64 = (-m..=m).map(|i| (i * i * i * i) as f64).sum();
+            let k = std::f64::consts::TAU / across;
+            let sum: f64 = (-m..=m)
+                .map(|i| ((i * i) as f64 - s2 / nf) * (k * i as f64 * h).cos())
+                .sum();
+            2.0 * sum / ((s4 - s2 * s2 / nf) * h * h) / -(k * k)
+        };
+        for (n, across) in [(3, 400.0), (9, 1000.0), (21, 1000.0), (31, 4000.0)] {
+            let r = crest_curvature_response(&g, n, across).unwrap();
+            assert!((r - closed(n, across)).abs() < 1e-9, "{n} {across}: {r}");
+        }
+        // The floor is the largest window keeping 70%, the next one keeps less.
+        let mut rng = SeededNoise::new(4);
+        let z = Array2::from_shape_fn((200, 200), |_| 1000.0 + 0.3 * rng.gaussian());
+        let windows = [3, 5, 7, 9, 11, 15, 21, 31];
+        let attribute = attribute_by_id("k_pos").unwrap();
+        let tolerance = FlatTolerance::for_grid(0.0, 25.0, 1.0);
+        let mut plan = plan(z.view(), &g, &windows, attribute, 0.75, tolerance)
+            .unwrap()
+            .unwrap();
+        for across in [300.0, 800.0, 1600.0] {
+            let floor = plan.set_min_feature(across).unwrap();
+            let k = windows.iter().position(|&w| w == floor).unwrap();
+            assert!(closed(floor, across) >= MIN_FEATURE_RESPONSE || k == 0);
+            if let Some(&next) = windows.get(k + 1) {
+                assert!(
+                    closed(next, across) < MIN_FEATURE_RESPONSE,
+                    "{across}: {next}"
+                );
+            }
+        }
     }
 
     #[test]
