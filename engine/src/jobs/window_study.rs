@@ -303,6 +303,7 @@ impl WindowStudyJob {
             recommended_window: s.recommended,
             noise_model: s.noise_model(),
             residual_short_wave_share: s.noise.short_wave_share,
+            noise_correlation_width_cells: s.noise.colour.as_ref().map(|c| c.width_cells),
             footprints: &s.noise.footprints,
             min_feature_m: self.fit.min_feature_m,
             min_window: s.min_window,
@@ -404,6 +405,8 @@ struct StudyJson<'a> {
     /// The fit residuals' short-wavelength power over their mid-wavelength power (about 1 for
     /// white noise).
     residual_short_wave_share: Option<f64>,
+    /// Width (cells) of the Gaussian that colours correlated noise; `None` for white noise.
+    noise_correlation_width_cells: Option<f64>,
     footprints: &'a [Footprint],
     min_feature_m: Option<f64>,
     /// The smallest window the adaptive map and the recommendation could take.

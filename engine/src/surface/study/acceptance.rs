@@ -9,7 +9,7 @@
 //! other draws, is the acceptance set, not used for tuning.
 
 use super::busts::{despike, BUST_FALSE_ALARM};
-use super::footprint::tests::add_stripes;
+use super::footprint::tests::{add_stripes, correlated_noise};
 use super::footprint::GridAxis;
 use super::tests::{fold, grid, horizon, run, true_errors};
 use crate::stats::SeededNoise;
@@ -24,6 +24,9 @@ pub(super) struct Case {
     sigma: f64,
     stripes: Option<(GridAxis, f64, f64)>,
     busts: Option<(f64, f64)>,
+    /// Width (cells) of the Gaussian smoothing that makes the noise correlated (white when
+    /// `None`).
+    correlation: Option<f64>,
     attribute: &'static str,
     seed: u64,
 }
@@ -54,6 +57,7 @@ pub(super) fn cases(set: u64, n: usize) -> Vec<Case> {
                 sigma,
                 stripes,
                 busts,
+                correlation: None,
                 attribute,
                 seed: 1000 * (set + 1) + i as u64,
             }
@@ -69,7 +73,15 @@ pub(super) fn steps_off(case: &Case) -> (usize, usize, usize) {
         fold((1300.0, 8700.0), 35.0, case.widths[0], true),
         fold((2500.0, 7800.0), 115.0, case.widths[1], false),
     ];
-    let (mut z, surface) = horizon(&g, shapes, case.sigma, case.seed);
+    let white = if case.correlation.is_some() {
+        0.0
+    } else {
+        case.sigma
+    };
+    let (mut z, surface) = horizon(&g, shapes, white, case.seed);
+    if let Some(width) = case.correlation {
+        z += &correlated_noise(z.nrows(), width, case.sigma, case.seed);
+    }
     if let Some((axis, period, amplitude)) = case.stripes {
         add_stripes(&mut z, axis, period, amplitude, 0.9);
     }
@@ -134,12 +146,45 @@ fn the_issues_three_horizons() {
             sigma: 0.3,
             stripes,
             busts,
+            correlation: None,
             attribute: "k_mean",
             seed: 77 + k as u64,
         };
         let (off, recommended, best) = steps_off(&case);
         assert!(off <= 1, "{case:?}: recommended {recommended}, best {best}");
     }
+}
+
+#[test]
+fn recommendation_on_correlated_noise_is_near_the_true_best() {
+    // Correlated picking noise (white noise smoothed by Gaussians of 0.5 to 1.5 cells, the
+    // test's own generator; nothing was tuned on these cases): the recommended window is
+    // within one step of the least-true-error window (analytic reference) in at least 90% of
+    // 12 cases and never more than two steps off. Modelled as white, the study recommended 3
+    // to 5 on such horizons where 21 to 31 were best.
+    let mut rng = SeededNoise::new(0xc0de);
+    let mut pick = |options: &[f64]| options[(rng.uniform() * options.len() as f64) as usize];
+    let cases: Vec<Case> = (0..12)
+        .map(|i| Case {
+            widths: [pick(&[200.0, 300.0, 450.0]), pick(&[600.0, 700.0, 1000.0])],
+            sigma: pick(&[0.1, 0.3, 0.6]),
+            stripes: None,
+            busts: None,
+            correlation: Some([0.5, 0.8, 1.2, 1.5][i % 4]),
+            attribute: if i % 3 == 2 { "k_pos" } else { "k_mean" },
+            seed: 5000 + i as u64,
+        })
+        .collect();
+    let results: Vec<(usize, usize, usize)> = cases.iter().map(steps_off).collect();
+    let within_one = results.iter().filter(|r| r.0 <= 1).count();
+    let report: Vec<String> = (cases.iter().zip(&results))
+        .map(|(c, r)| format!("{c:?}: recommended {} best {}", r.1, r.2))
+        .collect();
+    assert!(
+        within_one >= 11,
+        "{within_one} of 12 within one step: {report:#?}"
+    );
+    assert!(results.iter().all(|r| r.0 <= 2), "{report:#?}");
 }
 
 #[test]

@@ -654,7 +654,12 @@ pub(super) mod tests {
 
     /// `n` x `n` seeded white noise of sd 1 smoothed by a Gaussian of `width` cells (separable
     /// convolution, kernel cut at 4 widths, zero beyond the grid), scaled to sd `sigma`.
-    fn correlated_noise(n: usize, width: f64, sigma: f64, seed: u64) -> Array2<f64> {
+    pub(in crate::surface::study) fn correlated_noise(
+        n: usize,
+        width: f64,
+        sigma: f64,
+        seed: u64,
+    ) -> Array2<f64> {
         let mut rng = crate::stats::SeededNoise::new(seed);
         let white = Array2::from_shape_fn((n, n), |_| rng.gaussian());
         let reach = (4.0 * width).ceil() as isize;
@@ -714,18 +719,31 @@ pub(super) mod tests {
 
     #[test]
     fn correlated_noise_is_named_and_not_taken_for_footprint() {
-        // Gaussian-smoothed white noise (0.5 to 1.5 cells; the generator is the reference:
-        // no stripes, not white) on the fold horizon: the model says correlated, a caution
-        // is given and no footprint is reported (1.5 and 0.8 cells had been reported as
-        // stripes of 9 to 11 cells).
+        // Gaussian-smoothed white noise (0.5 to 1.5 cells, sd 0.3 m; the generator is the
+        // reference: no stripes, not white) on the fold horizon: the model says correlated
+        // with the generator's width and sd, a note is given and no footprint is reported
+        // (1.5 and 0.8 cells had been reported as stripes of 9 to 11 cells).
         for (k, width) in [0.5, 0.8, 1.5].into_iter().enumerate() {
             let (g, mut z) = folds(0.0, 720 + k as u64);
             z += &correlated_noise(z.nrows(), width, 0.3, 730 + k as u64);
             let n = estimate_noise(z.view(), &g).unwrap().unwrap();
             assert!(n.correlated(), "width {width}: {:?}", n.short_wave_share);
             assert!(n.footprints.is_empty(), "width {width}: {:?}", n.footprints);
-            assert_eq!(n.model_name(), "correlated, modelled as white");
-            assert!(n.caution().is_some_and(|c| c.contains("too small")));
+            // The colouring's width within 15% and the noise sd within 10% of the generator's.
+            let c = n.colour.as_ref().expect("a colouring");
+            assert!(
+                (c.width_cells / width - 1.0).abs() < 0.15,
+                "width {width}: {c:?}"
+            );
+            assert!(
+                (n.sigma / 0.3 - 1.0).abs() < 0.1,
+                "width {width}: sd {}",
+                n.sigma
+            );
+            assert!(n.model_name().starts_with("correlated (Gaussian"));
+            assert!(n
+                .caution()
+                .is_some_and(|c| c.contains("smoothed by a Gaussian")));
         }
     }
 

@@ -59,6 +59,7 @@
 
 pub mod busts;
 pub mod choice;
+pub mod colour;
 pub mod footprint;
 pub mod noise;
 pub mod thresholds;
@@ -177,7 +178,7 @@ impl Study {
             })
             .collect();
         match stripes.is_empty() {
-            true => self.noise.model_name().to_string(),
+            true => self.noise.model_name(),
             false => format!("{}: {}", self.noise.model_name(), stripes.join("; ")),
         }
     }
@@ -260,6 +261,7 @@ pub fn plan<'a, T: Sample>(
         attribute.order,
         noise.sigma,
         &noise.footprints,
+        noise.colour.as_ref(),
     )?;
     let per_km = match attribute.order {
         DerivativeOrder::First => 1.0,
@@ -489,8 +491,10 @@ impl<T: Sample> StudyPlan<'_, T> {
             }
             sums[k].distribution.merge(&clean.distribution);
             let ratio = previous.as_ref().map(|(prev, prev_power)| {
-                let known = (1.0 + FOOTPRINT_MARGIN) * self.steps[k - 1].footprint_change;
-                let expected = (prev_power - &clean.power) * self.noise.sigma.powi(2);
+                let step = &self.steps[k - 1];
+                let known = (1.0 + FOOTPRINT_MARGIN) * step.footprint_change;
+                let expected =
+                    (prev_power - &clean.power) * (self.noise.sigma.powi(2) * step.colour_factor);
                 pooled_ratio(prev, &clean.vectors, &expected, known, inner.clone())
             });
             let first = clean.vectors[0].slice(s![inner.clone(), ..]);
@@ -574,18 +578,38 @@ impl<T: Sample> StudyPlan<'_, T> {
         band.remove(0)
     }
 
-    /// The grid rows `rows` of the horizon plus seeded white noise of the estimated level and
-    /// the footprint found (stripes of its period and amplitude, phase 0 at index 0)
-    /// (row-major): cell `i` (row-major over the grid) takes the stream's `i`-th deviate, so
-    /// any band of rows is the same as in the whole perturbed horizon.
+    /// The grid rows `rows` of the horizon plus seeded noise of the estimated level and model
+    /// and the footprint found (stripes of its period and amplitude, phase 0 at index 0)
+    /// (row-major): white noise at cell `i` (row-major over the grid) takes the stream's `i`-th
+    /// deviate; correlated noise smooths the deviates of a grid larger by the colouring's reach
+    /// on every side (row-major over it) by its kernel. So any band of rows is the same as in
+    /// the whole perturbed horizon.
     fn noisy_rows(&self, rows: Range<usize>) -> Vec<f64> {
         let cols = self.depth.ncols();
         let per_row: Vec<Vec<f64>> = rows
             .into_par_iter()
             .map(|r| {
                 let mut rng = SeededNoise::new(NOISE_SEED);
-                // Two draws a deviate.
-                rng.skip(2 * (r * cols) as u64);
+                let mut coloured = self.noise.colour.as_ref().map(|c| {
+                    let (h, wide) = (c.reach(), cols + 2 * c.reach());
+                    // Two draws a deviate.
+                    rng.skip(2 * (r * wide) as u64);
+                    let mut down = vec![0.0; wide];
+                    for g in &c.factor {
+                        down.iter_mut().for_each(|v| *v += g * rng.gaussian());
+                    }
+                    (0..cols)
+                        .map(|col| {
+                            (0..=2 * h)
+                                .map(|j| c.factor[j] * down[col + j])
+                                .sum::<f64>()
+                        })
+                        .collect::<Vec<f64>>()
+                        .into_iter()
+                });
+                if coloured.is_none() {
+                    rng.skip(2 * (r * cols) as u64);
+                }
                 (0..cols)
                     .map(|c| {
                         let stripes: f64 = (self.noise.footprints.iter())
@@ -598,7 +622,11 @@ impl<T: Sample> StudyPlan<'_, T> {
                                 f.amplitude * (w * i as f64).cos()
                             })
                             .sum();
-                        self.depth[(r, c)].widen() + self.noise.sigma * rng.gaussian() + stripes
+                        let deviate = match coloured.as_mut() {
+                            Some(values) => values.next().unwrap_or(0.0),
+                            None => rng.gaussian(),
+                        };
+                        self.depth[(r, c)].widen() + self.noise.sigma * deviate + stripes
                     })
                     .collect()
             })

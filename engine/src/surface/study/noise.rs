@@ -2,8 +2,12 @@
 //! full 3 x 3 quadric fits, corrected for the centre's leverage (see the study's notes), and
 //! the periodic footprint in those residuals ([`super::footprint`]). Where footprint is found,
 //! the white part of the noise is read from the residuals' spectrum outside its peaks, since
-//! the stripes would swell the median absolute deviation.
+//! the stripes would swell the median absolute deviation. Where the residuals' spectrum is
+//! not white, the noise is modelled as correlated ([`super::colour`]): its Gaussian width from
+//! the residuals' neighbour correlation, its level from their scale over the coloured residual
+//! kernel's gain.
 
+use super::colour::{self, NoiseColour};
 use super::footprint::{self, AxisGeometry, Footprint};
 use crate::error::Result;
 use crate::grid::GridGeometry;
@@ -24,16 +28,19 @@ pub struct NoiseEstimate {
     /// The residual spectrum's short-wavelength power as a share of its mid-wavelength power
     /// ([`footprint::SpectrumReading::short_wave_share`]; about 1 for white noise).
     pub short_wave_share: Option<f64>,
+    /// The Gaussian colouring of correlated noise ([`colour`]); `None` for white noise.
+    pub colour: Option<NoiseColour>,
 }
 
 impl NoiseEstimate {
     /// The noise model's name for reports: `white`, `white + footprint` when stripes were
     /// found, or `correlated, modelled as white` when the residual spectrum is not white.
-    pub fn model_name(&self) -> &'static str {
-        match (self.correlated(), self.footprints.is_empty()) {
-            (true, _) => "correlated, modelled as white",
-            (false, true) => "white",
-            (false, false) => "white + footprint",
+    pub fn model_name(&self) -> String {
+        match (&self.colour, self.correlated(), self.footprints.is_empty()) {
+            (Some(c), _, _) => format!("correlated (Gaussian, {:.2} cells)", c.width_cells),
+            (None, true, _) => "correlated, modelled as white".into(),
+            (None, false, true) => "white".into(),
+            (None, false, false) => "white + footprint".into(),
         }
     }
 
@@ -49,15 +56,28 @@ impl NoiseEstimate {
     /// likely too small.
     pub fn caution(&self) -> Option<String> {
         let share = self.short_wave_share.filter(|_| self.correlated())?;
-        Some(format!(
-            "the fit residuals' short-wavelength power is {share:.2} of their mid-wavelength power (white noise gives about 1): the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free; the study models the noise as white, so the recommended window is likely too small, and footprint is not looked for"
-        ))
+        let spectrum = format!(
+            "the fit residuals' short-wavelength power is {share:.2} of their mid-wavelength power (white noise gives about 1): the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free"
+        );
+        Some(match &self.colour {
+            Some(c) if c.width_cells >= colour::MAX_WIDTH => format!(
+                "{spectrum}; it is modelled as white noise smoothed over {:.1} cells, the widest the study can tell from structure, so the noise may be underestimated and the recommended window too small; footprint is not looked for",
+                c.width_cells
+            ),
+            Some(c) => format!(
+                "{spectrum}; it is modelled as white noise smoothed by a Gaussian of {:.2} cells (from the residuals' neighbour correlation); footprint is not looked for",
+                c.width_cells
+            ),
+            None => format!(
+                "{spectrum}; the study models the noise as white, so the recommended window is likely too small, and footprint is not looked for"
+            ),
+        })
     }
 }
 
 /// Name of the noise estimator, for reports.
 pub const NOISE_ESTIMATOR: &str =
-    "1.4826 x median absolute deviation of 3 x 3 quadric-fit centre residuals / sqrt(1 - leverage)";
+    "1.4826 x median absolute deviation of 3 x 3 quadric-fit centre residuals / their noise gain (sqrt(1 - leverage) for white noise, |g * R| for correlated)";
 
 /// Rows per batch of the residuals' fit.
 const RESIDUAL_BATCH_ROWS: usize = 256;
@@ -99,15 +119,22 @@ pub fn estimate_noise<T: Sample>(
     depth: ArrayView2<T>,
     geometry: &GridGeometry,
 ) -> Result<Option<NoiseEstimate>> {
-    let leverage = crate::surface::window::full_window_kernels(geometry, 3)?[5][(1, 1)];
-    let mut residuals = centre_residuals(depth, geometry, 3, 1.0)?;
-    residuals.retain(|v| v.is_finite());
-    if residuals.is_empty() {
+    let mut residual_3 = -crate::surface::window::full_window_kernels(geometry, 3)?[5].clone();
+    let leverage = -residual_3[(1, 1)];
+    residual_3[(1, 1)] += 1.0;
+    let residuals = Array2::from_shape_vec(depth.dim(), centre_residuals(depth, geometry, 3, 1.0)?)
+        .expect("rows x cols residuals");
+    let mut finite: Vec<f64> = residuals
+        .iter()
+        .copied()
+        .filter(|v| v.is_finite())
+        .collect();
+    if finite.is_empty() {
         return Ok(None);
     }
-    let (_, mad) = median_and_mad(&mut residuals).unwrap_or((f64::NAN, f64::NAN));
-    let n = residuals.len();
-    drop(residuals);
+    let (_, mad) = median_and_mad(&mut finite).unwrap_or((f64::NAN, f64::NAN));
+    let n = finite.len();
+    drop(finite);
     // Stripes constant along one axis are fitted exactly by a 3 x 3 quadric (three values
     // along the other axis, three coefficients), so the spectrum reads 9 x 9 residuals (whose gain for stripes of 2 to 6 cells is 0.7 to 1.3).
     let size = SPECTRUM_WINDOW.min(depth.nrows()).min(depth.ncols());
@@ -135,8 +162,22 @@ pub fn estimate_noise<T: Sample>(
         ],
     };
     let reading = footprint::detect(&grid, &axes);
-    let sigma = match (reading.footprints.is_empty(), reading.white_variance) {
-        (false, Some(v)) => v.sqrt(),
+    drop(grid);
+    // The residuals' robust scale over the residual kernel's gain for the noise model:
+    // `|R| = sqrt(1 - leverage)` for white noise, `|g * R|` for coloured.
+    let colour = match reading.looks_white() {
+        true => None,
+        false => colour::measured_lag_one(residuals.view())
+            .and_then(|rho| colour::matching_colour(&residual_3, rho)),
+    };
+    let gain = |k: &Array2<f64>| k.iter().map(|v| v * v).sum::<f64>().sqrt();
+    let sigma = match (
+        &colour,
+        reading.footprints.is_empty(),
+        reading.white_variance,
+    ) {
+        (Some(c), _, _) => 1.4826 * mad / gain(&c.colour(&residual_3)),
+        (None, false, Some(v)) => v.sqrt(),
         _ => 1.4826 * mad / (1.0 - leverage).sqrt(),
     };
     Ok(Some(NoiseEstimate {
@@ -144,6 +185,7 @@ pub fn estimate_noise<T: Sample>(
         n,
         short_wave_share: reading.short_wave_share,
         footprints: reading.footprints,
+        colour,
     }))
 }
 

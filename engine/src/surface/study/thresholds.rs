@@ -4,6 +4,7 @@
 //! study's notes).
 
 use super::choice::POOL_RADIUS;
+use super::colour::NoiseColour;
 use super::footprint::{Footprint, GridAxis};
 use super::Vectors;
 use crate::error::Result;
@@ -46,6 +47,11 @@ pub struct StepTest {
     /// added to every cell's expectation.
     #[serde(rename = "footprint_squared_change")]
     pub footprint_change: f64,
+    /// The correlated noise's power on this step over white noise's of the same variance (1
+    /// for white noise): `sum (g * D)^2 / sum D^2` for the full windows' difference kernel `D`
+    /// ([`super::colour`]); each cell's own white expectation is scaled by it.
+    #[serde(rename = "correlated_noise_factor")]
+    pub colour_factor: f64,
     /// Degrees of freedom of the chi-square fitted to the pooled noise's first three cumulants.
     #[serde(rename = "degrees_of_freedom")]
     pub dof: f64,
@@ -92,7 +98,8 @@ pub fn footprint_power(d: &Vectors, footprints: &[Footprint]) -> f64 {
         .sum()
 }
 
-/// The noise model for `windows` under white noise of standard deviation `sigma` (see the
+/// The noise model for `windows` under white noise of standard deviation `sigma`, or white
+/// noise coloured by `colour` ([`super::colour`]: every kernel replaced by `g * D`), (see the
 /// module notes). Noise power of window k: `c_k = sum |K_k|^2` over its derivative kernels (per
 /// unit noise variance); step k's false-stop probability `p_k` solves
 /// `p_k t_k (c_(k-1) - c_K) = alpha c_K / (K - 1)`, a false stop costing about the threshold
@@ -109,20 +116,30 @@ pub fn noise_model(
     order: DerivativeOrder,
     sigma: f64,
     footprints: &[Footprint],
+    colour: Option<&NoiseColour>,
 ) -> Result<NoiseModel> {
-    let kernels = windows
+    let white = windows
         .iter()
         .map(|&n| derivative_kernels(geometry, n, order))
         .collect::<Result<Vec<_>>>()?;
+    let kernels: Vec<Vectors> = match colour {
+        None => white.clone(),
+        Some(c) => (white.iter())
+            .map(|d| std::array::from_fn(|j| c.colour(&d[j])))
+            .collect(),
+    };
     let power: Vec<f64> = kernels.iter().map(sum_of_squares).collect();
     let largest = *power.last().unwrap_or(&0.0);
     let budget = PROPAGATION_ALPHA * largest / windows.len().saturating_sub(1).max(1) as f64;
     let steps = kernels
         .windows(2)
         .zip(windows.windows(2))
+        .zip(white.windows(2))
         .zip(&power)
-        .map(|((pair, w), &smaller_power)| {
+        .map(|(((pair, w), white_pair), &smaller_power)| {
             let difference = kernel_difference(&pair[1], &pair[0]);
+            let white_difference = kernel_difference(&white_pair[1], &white_pair[0]);
+            let colour_factor = sum_of_squares(&difference) / sum_of_squares(&white_difference);
             let noise = PooledNoise::of(&difference, POOL_RADIUS);
             let (false_stop, threshold) = noise.step_threshold(budget, smaller_power - largest);
             let footprint_change = footprint_power(&difference, footprints);
@@ -131,6 +148,7 @@ pub fn noise_model(
                 to_window: w[1],
                 expected: sigma * sigma * noise.mean() + footprint_change,
                 footprint_change,
+                colour_factor,
                 dof: noise.dof(),
                 false_stop,
                 threshold,
@@ -310,8 +328,8 @@ mod tests {
         // 4.5 at N = 3, 2 x 2/35 + 2 / 100 at N = 5; the gradient 2 x 1/6 and 2 x 1/50.
         let (h, sigma) = (25.0, 0.4);
         let g = grid(40);
-        let hessian = noise_model(&g, &[3, 5], DerivativeOrder::Second, sigma, &[]).unwrap();
-        let gradient = noise_model(&g, &[3, 5], DerivativeOrder::First, sigma, &[]).unwrap();
+        let hessian = noise_model(&g, &[3, 5], DerivativeOrder::Second, sigma, &[], None).unwrap();
+        let gradient = noise_model(&g, &[3, 5], DerivativeOrder::First, sigma, &[], None).unwrap();
         let expected = [
             (hessian.derivative_noise_sd[0], 4.5f64.sqrt() / (h * h)),
             (
@@ -423,6 +441,69 @@ mod tests {
                 share < 1.5 * model && share > model / 1.5,
                 "step {k}: {share} of cells above 1.5, model {model}"
             );
+        }
+    }
+
+    #[test]
+    fn correlated_noise_power_matches_monte_carlo() {
+        // The noise-power identity for correlated noise, C = sigma^2 g * g (white noise
+        // smoothed by a Gaussian of 0.7 and 1.3 cells; the test's own generator, a direct
+        // convolution cut at four widths and scaled to sd 1), against fits of seeded noise:
+        // the mean squared change of the Hessian between consecutive windows over the
+        // interior matches the steps' expectation sum (g * D)^2 within 5%.
+        let g = grid(200);
+        let windows = [3, 5, 9, 15];
+        for width in [0.7, 1.3] {
+            let colour = crate::surface::study::colour::NoiseColour::gaussian(width);
+            let model = noise_model(
+                &g,
+                &windows,
+                DerivativeOrder::Second,
+                1.0,
+                &[],
+                Some(&colour),
+            )
+            .unwrap();
+            let (mut sums, mut cells) = ([0.0; 3], 0usize);
+            for seed in 0..4 {
+                let z = crate::surface::study::footprint::tests::correlated_noise(
+                    200,
+                    width,
+                    1.0,
+                    900 + seed,
+                );
+                let fits: Vec<Vectors> = windows
+                    .iter()
+                    .map(|&n| {
+                        let spec = WindowSpec {
+                            size: n,
+                            min_valid: 1.0,
+                        };
+                        let field =
+                            crate::surface::window::fit_quadrics(z.view(), &g, &spec, &|_| {})
+                                .unwrap();
+                        derivative_vectors(&field, DerivativeOrder::Second)
+                    })
+                    .collect();
+                for (k, sum) in sums.iter_mut().enumerate() {
+                    for r in 20..180 {
+                        for c in 20..180 {
+                            *sum += (0..3)
+                                .map(|i| (fits[k + 1][i][(r, c)] - fits[k][i][(r, c)]).powi(2))
+                                .sum::<f64>();
+                        }
+                    }
+                }
+                cells += 160 * 160;
+            }
+            for (k, (sum, step)) in sums.iter().zip(&model.steps).enumerate() {
+                let mean = sum / cells as f64;
+                let expected = step.expected;
+                assert!(
+                    (mean / expected - 1.0).abs() < 0.05,
+                    "width {width} step {k}: Monte Carlo {mean} vs model {expected}"
+                );
+            }
         }
     }
 
