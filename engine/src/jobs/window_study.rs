@@ -405,8 +405,9 @@ struct StudyJson<'a> {
     /// The fit residuals' short-wavelength power over their mid-wavelength power (about 1 for
     /// white noise).
     residual_short_wave_share: Option<f64>,
-    /// Width (cells) of the Gaussian that colours correlated noise; `None` for white noise.
-    noise_correlation_width_cells: Option<f64>,
+    /// Widths (cells, along rows and along columns) of the Gaussian that colours correlated
+    /// noise; `None` for white noise.
+    noise_correlation_width_cells: Option<[f64; 2]>,
     footprints: &'a [Footprint],
     min_feature_m: Option<f64>,
     /// The smallest window the adaptive map and the recommendation could take.

@@ -591,19 +591,17 @@ impl<T: Sample> StudyPlan<'_, T> {
             .map(|r| {
                 let mut rng = SeededNoise::new(NOISE_SEED);
                 let mut coloured = self.noise.colour.as_ref().map(|c| {
-                    let (h, wide) = (c.reach(), cols + 2 * c.reach());
+                    let [hc, _] = c.reach();
+                    let wide = cols + 2 * hc;
                     // Two draws a deviate.
                     rng.skip(2 * (r * wide) as u64);
                     let mut down = vec![0.0; wide];
-                    for g in &c.factor {
+                    for g in &c.factors[1] {
                         down.iter_mut().for_each(|v| *v += g * rng.gaussian());
                     }
+                    let along = &c.factors[0];
                     (0..cols)
-                        .map(|col| {
-                            (0..=2 * h)
-                                .map(|j| c.factor[j] * down[col + j])
-                                .sum::<f64>()
-                        })
+                        .map(|col| (0..=2 * hc).map(|j| along[j] * down[col + j]).sum::<f64>())
                         .collect::<Vec<f64>>()
                         .into_iter()
                 });

@@ -37,41 +37,44 @@ impl NoiseEstimate {
     /// found, or `correlated, modelled as white` when the residual spectrum is not white.
     pub fn model_name(&self) -> String {
         match (&self.colour, self.correlated(), self.footprints.is_empty()) {
-            (Some(c), _, _) => format!("correlated (Gaussian, {:.2} cells)", c.width_cells),
+            (Some(c), _, _) => format!("correlated (Gaussian, {})", c.describe()),
             (None, true, _) => "correlated, modelled as white".into(),
             (None, false, true) => "white".into(),
             (None, false, false) => "white + footprint".into(),
         }
     }
 
-    /// Whether the residuals' spectrum falls off at short wavelengths (see
-    /// [`footprint::WHITE_SHORT_WAVE_SHARE`]).
+    /// Whether the noise is correlated: a colouring was found, or the residuals' spectrum falls
+    /// off at short wavelengths (see [`footprint::WHITE_SHORT_WAVE_SHARE`]).
     pub fn correlated(&self) -> bool {
+        self.colour.is_some() || self.red_spectrum()
+    }
+
+    fn red_spectrum(&self) -> bool {
         self.short_wave_share
             .is_some_and(|share| share < footprint::WHITE_SHORT_WAVE_SHARE)
     }
 
-    /// The caution a study on this noise must carry, if any: correlated noise is modelled as
-    /// white, so larger windows look like they remove structure and the recommendation is
-    /// likely too small.
+    /// The note a study on this noise carries, if any: how correlated noise is modelled, and
+    /// the caution that the recommendation is likely too small where it is modelled as white
+    /// or capped at the widest colouring.
     pub fn caution(&self) -> Option<String> {
-        let share = self.short_wave_share.filter(|_| self.correlated())?;
-        let spectrum = format!(
-            "the fit residuals' short-wavelength power is {share:.2} of their mid-wavelength power (white noise gives about 1): the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free"
-        );
-        Some(match &self.colour {
-            Some(c) if c.width_cells >= colour::MAX_WIDTH => format!(
-                "{spectrum}; it is modelled as white noise smoothed over {:.1} cells, the widest the study can tell from structure, so the noise may be underestimated and the recommended window too small; footprint is not looked for",
-                c.width_cells
+        let spectrum = self.short_wave_share.filter(|_| self.red_spectrum()).map(|share| format!(
+            "the fit residuals' short-wavelength power is {share:.2} of their mid-wavelength power (white noise gives about 1), so footprint is not looked for; "
+        )).unwrap_or_default();
+        let model = match &self.colour {
+            Some(c) if c.width_cells.iter().any(|&w| w >= colour::MAX_WIDTH) => format!(
+                "the picking noise is spatially correlated and modelled as white noise smoothed by a Gaussian ({}), the widest the study can tell from structure, so the noise may be underestimated and the recommended window too small",
+                c.describe()
             ),
             Some(c) => format!(
-                "{spectrum}; it is modelled as white noise smoothed by a Gaussian of {:.2} cells (from the residuals' neighbour correlation); footprint is not looked for",
-                c.width_cells
+                "the picking noise is spatially correlated (neighbouring residuals), modelled as white noise smoothed by a Gaussian ({})",
+                c.describe()
             ),
-            None => format!(
-                "{spectrum}; the study models the noise as white, so the recommended window is likely too small, and footprint is not looked for"
-            ),
-        })
+            None if self.red_spectrum() => "the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free, but its neighbouring residuals do not show it, so it is modelled as white and the recommended window is likely too small".to_string(),
+            None => return None,
+        };
+        Some(format!("{spectrum}{model}"))
     }
 }
 
@@ -165,10 +168,11 @@ pub fn estimate_noise<T: Sample>(
     drop(grid);
     // The residuals' robust scale over the residual kernel's gain for the noise model:
     // `|R| = sqrt(1 - leverage)` for white noise, `|g * R|` for coloured.
-    let colour = match reading.looks_white() {
-        true => None,
-        false => colour::measured_lag_one(residuals.view())
-            .and_then(|rho| colour::matching_colour(&residual_3, rho)),
+    // Footprint (on a white spectrum) and correlation are not modelled together: stripes of
+    // long period correlate neighbours too.
+    let colour = match reading.footprints.is_empty() {
+        true => colour::matching_colour(&residual_3, colour::measured_lag_one(residuals.view())),
+        false => None,
     };
     let gain = |k: &Array2<f64>| k.iter().map(|v| v * v).sum::<f64>().sqrt();
     let sigma = match (

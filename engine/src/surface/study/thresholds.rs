@@ -187,11 +187,12 @@ fn sum_of_squares(v: &Vectors) -> f64 {
 
 /// `larger - smaller` with the smaller kernels centred in the larger window.
 fn kernel_difference(larger: &Vectors, smaller: &Vectors) -> Vectors {
-    let offset = (larger[0].nrows() - smaller[0].nrows()) / 2;
+    let rows = (larger[0].nrows() - smaller[0].nrows()) / 2;
+    let cols = (larger[0].ncols() - smaller[0].ncols()) / 2;
     std::array::from_fn(|k| {
         let mut d = larger[k].clone();
         for ((r, c), v) in smaller[k].indexed_iter() {
-            d[(r + offset, c + offset)] -= v;
+            d[(r + rows, c + cols)] -= v;
         }
         d
     })
@@ -286,12 +287,13 @@ impl PooledNoise {
     }
 }
 
-/// `sum_u a(u) b(u + s)` over the cells where both are defined (zero beyond the kernels).
+/// `sum_u a(u) b(u + s)` over the cells where both are defined (zero beyond the kernels; both
+/// of one shape).
 fn cross_correlation(a: &Array2<f64>, b: &Array2<f64>, si: isize, sj: isize) -> f64 {
-    let n = a.nrows() as isize;
+    let (rows, cols) = (a.nrows() as isize, a.ncols() as isize);
     let mut sum = 0.0;
-    for r in 0.max(-si)..n.min(n - si) {
-        for c in 0.max(-sj)..n.min(n - sj) {
+    for r in 0.max(-si)..rows.min(rows - si) {
+        for c in 0.max(-sj)..cols.min(cols - sj) {
             sum += a[(r as usize, c as usize)] * b[((r + si) as usize, (c + sj) as usize)];
         }
     }
@@ -454,7 +456,7 @@ mod tests {
         let g = grid(200);
         let windows = [3, 5, 9, 15];
         for width in [0.7, 1.3] {
-            let colour = crate::surface::study::colour::NoiseColour::gaussian(width);
+            let colour = crate::surface::study::colour::NoiseColour::gaussian(width, width);
             let model = noise_model(
                 &g,
                 &windows,
