@@ -63,6 +63,9 @@ pub(super) struct Choice {
     pub(super) chosen: Array2<Option<usize>>,
     /// Whether the cell may still take a larger window.
     open: Array2<bool>,
+    /// Whether the cell stopped because the next window had no fit (a gap or edge within
+    /// its reach, or too few valid cells), not by the test.
+    pub(super) held_by_data: Array2<bool>,
 }
 
 impl Choice {
@@ -70,6 +73,7 @@ impl Choice {
         Self {
             chosen: Array2::from_elem(dim, None),
             open: Array2::from_elem(dim, true),
+            held_by_data: Array2::from_elem(dim, false),
         }
     }
 
@@ -84,7 +88,8 @@ impl Choice {
     ) {
         ndarray::Zip::indexed(&mut self.chosen)
             .and(&mut self.open)
-            .for_each(|at, chosen, open| {
+            .and(&mut self.held_by_data)
+            .for_each(|at, chosen, open, held| {
                 let fitted = first[at].is_finite();
                 match chosen {
                     None if fitted => *chosen = Some(k),
@@ -97,6 +102,7 @@ impl Choice {
                             *chosen = Some(k);
                         } else {
                             *open = false;
+                            *held = !fitted;
                         }
                     }
                     _ => {}
