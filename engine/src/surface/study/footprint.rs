@@ -767,6 +767,26 @@ pub(super) mod tests {
     }
 
     #[test]
+    fn structure_alone_is_not_read_as_correlated_noise() {
+        // Noise-free folds (three widths, 250 to 700 m, with a dome) and the same with 0.02 m
+        // of white noise: residuals of smooth structure correlate neighbours as smoothed noise
+        // does, but their level grows with the window; the generator has no correlated noise
+        // (the reference), so none may be modelled. A review found such horizons read as
+        // noise smoothed over 2 cells at 1.4 m, and window 15 recommended against a best of 3.
+        let g = grid(140);
+        let shapes = vec![
+            fold((1300.0, 8700.0), 35.0, 250.0, true),
+            fold((2400.0, 7900.0), 110.0, 700.0, false),
+            fold((2000.0, 8200.0), 160.0, 400.0, true),
+        ];
+        for (k, sigma) in [0.0, 0.02].into_iter().enumerate() {
+            let (z, _) = horizon(&g, shapes.clone(), sigma, 780 + k as u64);
+            let n = estimate_noise(z.view(), &g).unwrap().unwrap();
+            assert!(n.colour.is_none(), "sigma {sigma}: {:?}", n.colour);
+        }
+    }
+
+    #[test]
     fn noise_smoothed_along_one_axis_is_read_on_that_axis() {
         // White noise smoothed along rows only or along columns only (as a grid interpolated
         // along one survey axis gives; the generator's widths are the reference): correlated,

@@ -82,6 +82,46 @@ impl NoiseEstimate {
 pub const NOISE_ESTIMATOR: &str =
     "1.4826 x median absolute deviation of 3 x 3 quadric-fit centre residuals / their noise gain (sqrt(1 - leverage) for white noise, |g * R| for correlated)";
 
+/// Least short-wave share (see [`footprint::SpectrumReading::short_wave_share`]) below which a
+/// colouring is looked for (our choice: white noise reads 0.75 to 1.3, so this alone does not
+/// call noise correlated; the level test below decides).
+const COLOUR_SHORT_WAVE_SHARE: f64 = 0.9;
+
+/// Largest ratio (either way) between the noise levels a colouring implies through the 3 x 3
+/// and the 9 x 9 fit residuals for it to be taken (our choice: on correlated noise of 0.4 to
+/// 1.5 cells over folds of 200 m and wider the two agree within 8%; on a review's rough
+/// horizons (folds of 250 m and more, domes), noise-free or with correlated noise small
+/// beside the structure, 1.37 to 6.9, and white noise there gives the better window).
+const LEVEL_AGREEMENT: f64 = 1.25;
+
+/// The noise level `colour` implies through the centre residuals of full 9 x 9 fits: their
+/// normalised median absolute deviation over the coloured residual kernel's gain; `None`
+/// without such residuals.
+fn consistency_level<T: Sample>(
+    depth: ArrayView2<T>,
+    geometry: &GridGeometry,
+    colour: &NoiseColour,
+) -> Result<Option<f64>> {
+    let size = CONSISTENCY_WINDOW;
+    if depth.nrows() < size || depth.ncols() < size {
+        return Ok(None);
+    }
+    let mut kernel = -crate::surface::window::full_window_kernels(geometry, size)?[5].clone();
+    kernel[(size / 2, size / 2)] += 1.0;
+    let mut residuals = centre_residuals(depth, geometry, size, 1.0)?;
+    residuals.retain(|v| v.is_finite());
+    let gain = colour
+        .colour(&kernel)
+        .iter()
+        .map(|v| v * v)
+        .sum::<f64>()
+        .sqrt();
+    Ok(median_and_mad(&mut residuals).map(|(_, mad)| 1.4826 * mad / gain))
+}
+
+/// Window edge length of the fits that check a colouring.
+const CONSISTENCY_WINDOW: usize = 9;
+
 /// Rows per batch of the residuals' fit.
 const RESIDUAL_BATCH_ROWS: usize = 256;
 
@@ -170,11 +210,30 @@ pub fn estimate_noise<T: Sample>(
     // `|R| = sqrt(1 - leverage)` for white noise, `|g * R|` for coloured.
     // Footprint (on a white spectrum) and correlation are not modelled together: stripes of
     // long period correlate neighbours too.
-    let colour = match reading.footprints.is_empty() {
+    let gain = |k: &Array2<f64>| k.iter().map(|v| v * v).sum::<f64>().sqrt();
+    let colour = match reading.footprints.is_empty()
+        && reading
+            .short_wave_share
+            .is_some_and(|share| share < COLOUR_SHORT_WAVE_SHARE)
+    {
         true => colour::matching_colour(&residual_3, colour::measured_lag_one(residuals.view())),
         false => None,
     };
-    let gain = |k: &Array2<f64>| k.iter().map(|v| v * v).sum::<f64>().sqrt();
+    drop(residuals);
+    // The colouring must explain the residuals of a larger window too: noise gives the same
+    // level through both windows' kernels, structure (whose misfit grows with the window, and
+    // which correlates neighbouring residuals as smoothed noise does) a larger one; then the
+    // noise cannot be told from structure and is modelled as white.
+    let colour = match colour {
+        Some(c) => {
+            let level_3 = 1.4826 * mad / gain(&c.colour(&residual_3));
+            let level_9 = consistency_level(depth, geometry, &c)?;
+            level_9
+                .filter(|&l9| (l9 / level_3).ln().abs() <= LEVEL_AGREEMENT.ln())
+                .map(|_| c)
+        }
+        None => None,
+    };
     let sigma = match (
         &colour,
         reading.footprints.is_empty(),
