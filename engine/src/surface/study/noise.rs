@@ -71,7 +71,7 @@ impl NoiseEstimate {
                 "the picking noise is spatially correlated (neighbouring residuals), modelled as white noise smoothed by a Gaussian ({})",
                 c.describe()
             ),
-            None if self.red_spectrum() => "the picking noise is spatially correlated (a smoothed or resampled grid) or the horizon nearly noise-free, but its neighbouring residuals do not show it, so it is modelled as white and the recommended window is likely too small".to_string(),
+            None if self.red_spectrum() => "the picking noise may be spatially correlated (a smoothed or resampled grid), or the residuals are structure (a nearly noise-free or rough horizon); the two cannot be told apart here, so the noise is modelled as white, and if it is correlated the recommended window is too small".to_string(),
             None => return None,
         };
         Some(format!("{spectrum}{model}"))
