@@ -446,6 +446,38 @@ mod tests {
         }
     }
 
+    /// Adds to `sums[k]` the squared change of the fitted Hessian from window k to k + 1 over
+    /// the interior of the 200 x 200 noise `z` (20 cells in from each edge); returns the cells.
+    fn add_step_changes(
+        z: &Array2<f64>,
+        g: &GridGeometry,
+        windows: &[usize; 4],
+        sums: &mut [f64; 3],
+    ) -> usize {
+        let fits: Vec<Vectors> = windows
+            .iter()
+            .map(|&n| {
+                let spec = WindowSpec {
+                    size: n,
+                    min_valid: 1.0,
+                };
+                let field =
+                    crate::surface::window::fit_quadrics(z.view(), g, &spec, &|_| {}).unwrap();
+                derivative_vectors(&field, DerivativeOrder::Second)
+            })
+            .collect();
+        for (k, sum) in sums.iter_mut().enumerate() {
+            for r in 20..180 {
+                for c in 20..180 {
+                    *sum += (0..3)
+                        .map(|i| (fits[k + 1][i][(r, c)] - fits[k][i][(r, c)]).powi(2))
+                        .sum::<f64>();
+                }
+            }
+        }
+        160 * 160
+    }
+
     #[test]
     fn correlated_noise_power_matches_monte_carlo() {
         // The noise-power identity for correlated noise, C = sigma^2 g * g (white noise
@@ -474,29 +506,7 @@ mod tests {
                     1.0,
                     900 + seed,
                 );
-                let fits: Vec<Vectors> = windows
-                    .iter()
-                    .map(|&n| {
-                        let spec = WindowSpec {
-                            size: n,
-                            min_valid: 1.0,
-                        };
-                        let field =
-                            crate::surface::window::fit_quadrics(z.view(), &g, &spec, &|_| {})
-                                .unwrap();
-                        derivative_vectors(&field, DerivativeOrder::Second)
-                    })
-                    .collect();
-                for (k, sum) in sums.iter_mut().enumerate() {
-                    for r in 20..180 {
-                        for c in 20..180 {
-                            *sum += (0..3)
-                                .map(|i| (fits[k + 1][i][(r, c)] - fits[k][i][(r, c)]).powi(2))
-                                .sum::<f64>();
-                        }
-                    }
-                }
-                cells += 160 * 160;
+                cells += add_step_changes(&z, &g, &windows, &mut sums);
             }
             for (k, (sum, step)) in sums.iter().zip(&model.steps).enumerate() {
                 let mean = sum / cells as f64;
@@ -540,29 +550,7 @@ mod tests {
                 crate::surface::study::footprint::tests::add_stripes(
                     &mut z, axis, period, amplitude, phase,
                 );
-                let fits: Vec<Vectors> = windows
-                    .iter()
-                    .map(|&n| {
-                        let spec = WindowSpec {
-                            size: n,
-                            min_valid: 1.0,
-                        };
-                        let field =
-                            crate::surface::window::fit_quadrics(z.view(), &g, &spec, &|_| {})
-                                .unwrap();
-                        derivative_vectors(&field, DerivativeOrder::Second)
-                    })
-                    .collect();
-                for (k, sum) in sums.iter_mut().enumerate() {
-                    for r in 20..180 {
-                        for c in 20..180 {
-                            *sum += (0..3)
-                                .map(|i| (fits[k + 1][i][(r, c)] - fits[k][i][(r, c)]).powi(2))
-                                .sum::<f64>();
-                        }
-                    }
-                }
-                cells += 160 * 160;
+                cells += add_step_changes(&z, &g, &windows, &mut sums);
             }
             for k in 0..3 {
                 let d = kernel_difference(&kernels[k + 1], &kernels[k]);
