@@ -108,6 +108,10 @@ fn median_by<T: Copy>(values: &mut [T], key: impl Fn(T) -> f64) -> Option<f64> {
     Some(0.5 * (below + upper))
 }
 
+/// The factor that turns a median absolute deviation into a standard deviation for normal
+/// data (`1 / Phi^-1(3/4)`; Hampel 1974, J. Amer. Statist. Assoc. 69:383).
+pub const MAD_TO_SD: f64 = 1.4826;
+
 /// The [`median`] of `values` and their median absolute deviation from it (MAD,
 /// `median |x - median|`, unscaled: 1.4826 MAD estimates the standard deviation of normal data,
 /// Hampel 1974, J. Amer. Statist. Assoc. 69:383); `None` when empty. `values` is reordered in

@@ -392,6 +392,15 @@ pub fn full_window_kernels(geometry: &GridGeometry, size: usize) -> Result<[Arra
     Ok(kernels)
 }
 
+/// The kernel of a full window's centre residual `z_c - f` (`[row, col]`): the identity at
+/// the centre minus the fitted value's kernel (coefficient f of [`full_window_kernels`]).
+/// Its centre entry is `1 - h`, h the centre's leverage.
+pub fn centre_residual_kernel(geometry: &GridGeometry, size: usize) -> Result<Array2<f64>> {
+    let mut kernel = -full_window_kernels(geometry, size)?[5].clone();
+    kernel[(size / 2, size / 2)] += 1.0;
+    Ok(kernel)
+}
+
 /// Value of basis function k at scaled offset (s, t).
 fn basis_value(k: usize, s: f64, t: f64) -> f64 {
     let (p, q) = BASIS[k];

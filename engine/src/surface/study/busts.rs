@@ -17,6 +17,7 @@
 
 use crate::error::Result;
 use crate::grid::GridGeometry;
+use crate::stats::MAD_TO_SD;
 use crate::surface::window::{WindowFit, WindowSpec};
 use ndarray::Array2;
 use serde::Serialize;
@@ -93,7 +94,7 @@ pub fn despike(
         let (u, offsets) = standardised_residuals(depth, geometry)?;
         let mut finite: Vec<f64> = u.iter().copied().filter(|v| v.is_finite()).collect();
         found.scale =
-            crate::stats::median_and_mad(&mut finite).map_or(f64::NAN, |(_, mad)| 1.4826 * mad);
+            crate::stats::median_and_mad(&mut finite).map_or(f64::NAN, |(_, mad)| MAD_TO_SD * mad);
         let limit = threshold * found.scale;
         if limit.is_nan() || limit <= 0.0 {
             break;

@@ -15,7 +15,7 @@
 //! [`MAX_WIDTH`] cells cannot be told from structure on one horizon and is capped there; below
 //! [`MIN_WIDTH`] on both axes the noise is white.
 
-use crate::stats::median_and_mad;
+use crate::stats::{median_and_mad, MAD_TO_SD};
 use ndarray::{Array2, ArrayView2};
 
 /// Widest Gaussian (cells) the estimate may return.
@@ -32,9 +32,6 @@ const WIDTH_STEP: f64 = 0.02;
 
 /// Rounds of the alternating search over the two axes.
 const ROUNDS: usize = 3;
-
-/// Normalised median absolute deviation factor for Gaussian data.
-const MAD_TO_SD: f64 = 1.4826;
 
 /// Most neighbour pairs [`measured_lag_one`] reads per axis (an even subsample of rows beyond).
 const MAX_PAIRS: usize = 1 << 20;
@@ -205,8 +202,7 @@ mod tests {
             (9, 9),
             String::new(),
         );
-        let mut r = -crate::surface::window::full_window_kernels(&g, 3).unwrap()[5].clone();
-        r[(1, 1)] += 1.0;
+        let r = crate::surface::window::centre_residual_kernel(&g, 3).unwrap();
         // (Below about 0.2 cells the Gaussian is an impulse: equal, not greater.)
         let white = lag_one(&r, 0);
         let mut last = white;

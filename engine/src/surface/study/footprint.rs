@@ -471,14 +471,14 @@ impl AxisSpectrum {
     }
 
     /// The median lower-quartile ratio of the upper third of the tested bins over that of the
-    /// lower third, bins in a peak left out (see the module notes); `None` with fewer than
+    /// lower third of `ratio` ([`AxisSpectrum::quartile_ratio`]), bins in a peak left out (see
+    /// the module notes); `None` with fewer than
     /// [`SHAPE_SEGMENTS`] kept.
-    fn short_wave_share(&self, in_peak: &[bool]) -> Option<f64> {
+    fn short_wave_share(&self, ratio: &[f64], in_peak: &[bool]) -> Option<f64> {
         if self.kept < SHAPE_SEGMENTS {
             return None;
         }
         let lowest = (self.len as f64 / MAX_PERIOD).ceil() as usize;
-        let ratio = self.quartile_ratio();
         let third = (ratio.len() - lowest) / 3;
         let outside = |bins: std::ops::Range<usize>| -> Vec<f64> {
             bins.filter(|&k| !in_peak[k]).map(|k| ratio[k]).collect()
@@ -578,7 +578,7 @@ impl AxisSpectrum {
         AxisReading {
             footprints: found,
             outside,
-            short_wave_share: self.short_wave_share(&in_peak),
+            short_wave_share: self.short_wave_share(&quartile_ratio, &in_peak),
         }
     }
 }

@@ -599,26 +599,33 @@ impl<T: Sample> StudyPlan<'_, T> {
             .into_par_iter()
             .map(|r| {
                 let mut rng = SeededNoise::new(NOISE_SEED);
-                let mut coloured = self.noise.colour.as_ref().map(|c| {
-                    let [hc, _] = c.reach();
-                    let wide = cols + 2 * hc;
-                    // Two draws a deviate.
-                    rng.skip(2 * (r * wide) as u64);
-                    let mut down = vec![0.0; wide];
-                    for g in &c.factors[1] {
-                        down.iter_mut().for_each(|v| *v += g * rng.gaussian());
+                // Two draws a deviate.
+                let deviates: Vec<f64> = match &self.noise.colour {
+                    None => {
+                        rng.skip(2 * (r * cols) as u64);
+                        (0..cols).map(|_| rng.gaussian()).collect()
                     }
-                    let along = &c.factors[0];
-                    (0..cols)
-                        .map(|col| (0..=2 * hc).map(|j| along[j] * down[col + j]).sum::<f64>())
-                        .collect::<Vec<f64>>()
-                        .into_iter()
-                });
-                if coloured.is_none() {
-                    rng.skip(2 * (r * cols) as u64);
-                }
-                (0..cols)
-                    .map(|c| {
+                    Some(c) => {
+                        let [hc, _] = c.reach();
+                        let wide = cols + 2 * hc;
+                        rng.skip(2 * (r * wide) as u64);
+                        let mut down = vec![0.0; wide];
+                        for g in &c.factors[1] {
+                            down.iter_mut().for_each(|v| *v += g * rng.gaussian());
+                        }
+                        (0..cols)
+                            .map(|col| {
+                                c.factors[0]
+                                    .iter()
+                                    .zip(&down[col..])
+                                    .map(|(g, v)| g * v)
+                                    .sum()
+                            })
+                            .collect()
+                    }
+                };
+                (deviates.into_iter().enumerate())
+                    .map(|(c, deviate)| {
                         let stripes: f64 = (self.noise.footprints.iter())
                             .map(|f| {
                                 let i = match f.axis {
@@ -629,10 +636,6 @@ impl<T: Sample> StudyPlan<'_, T> {
                                 f.amplitude * (w * i as f64).cos()
                             })
                             .sum();
-                        let deviate = match coloured.as_mut() {
-                            Some(values) => values.next().unwrap_or(0.0),
-                            None => rng.gaussian(),
-                        };
                         self.depth[(r, c)].widen() + self.noise.sigma * deviate + stripes
                     })
                     .collect()

@@ -11,8 +11,8 @@ use super::colour::{self, NoiseColour};
 use super::footprint::{self, AxisGeometry, Footprint};
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::stats::median_and_mad;
-use crate::surface::window::{Sample, WindowFit, WindowSpec};
+use crate::stats::{median_and_mad, MAD_TO_SD};
+use crate::surface::window::{centre_residual_kernel, Sample, WindowFit, WindowSpec};
 use ndarray::{Array2, ArrayView2};
 
 /// The horizon's noise estimate.
@@ -88,39 +88,11 @@ pub const NOISE_ESTIMATOR: &str =
 const COLOUR_SHORT_WAVE_SHARE: f64 = 0.9;
 
 /// Largest ratio (either way) between the noise levels a colouring implies through the 3 x 3
-/// and the 9 x 9 fit residuals for it to be taken (our choice: on correlated noise of 0.4 to
+/// and the spectrum's 9 x 9 fit residuals for it to be taken (our choice: on correlated noise of 0.4 to
 /// 1.5 cells over folds of 200 m and wider the two agree within 8%; on a review's rough
 /// horizons (folds of 250 m and more, domes), noise-free or with correlated noise small
 /// beside the structure, 1.37 to 6.9, and white noise there gives the better window).
 const LEVEL_AGREEMENT: f64 = 1.25;
-
-/// The noise level `colour` implies through the centre residuals of full 9 x 9 fits: their
-/// normalised median absolute deviation over the coloured residual kernel's gain; `None`
-/// without such residuals.
-fn consistency_level<T: Sample>(
-    depth: ArrayView2<T>,
-    geometry: &GridGeometry,
-    colour: &NoiseColour,
-) -> Result<Option<f64>> {
-    let size = CONSISTENCY_WINDOW;
-    if depth.nrows() < size || depth.ncols() < size {
-        return Ok(None);
-    }
-    let mut kernel = -crate::surface::window::full_window_kernels(geometry, size)?[5].clone();
-    kernel[(size / 2, size / 2)] += 1.0;
-    let mut residuals = centre_residuals(depth, geometry, size, 1.0)?;
-    residuals.retain(|v| v.is_finite());
-    let gain = colour
-        .colour(&kernel)
-        .iter()
-        .map(|v| v * v)
-        .sum::<f64>()
-        .sqrt();
-    Ok(median_and_mad(&mut residuals).map(|(_, mad)| 1.4826 * mad / gain))
-}
-
-/// Window edge length of the fits that check a colouring.
-const CONSISTENCY_WINDOW: usize = 9;
 
 /// Rows per batch of the residuals' fit.
 const RESIDUAL_BATCH_ROWS: usize = 256;
@@ -162,9 +134,7 @@ pub fn estimate_noise<T: Sample>(
     depth: ArrayView2<T>,
     geometry: &GridGeometry,
 ) -> Result<Option<NoiseEstimate>> {
-    let mut residual_3 = -crate::surface::window::full_window_kernels(geometry, 3)?[5].clone();
-    let leverage = -residual_3[(1, 1)];
-    residual_3[(1, 1)] += 1.0;
+    let residual_3 = centre_residual_kernel(geometry, 3)?;
     let residuals = Array2::from_shape_vec(depth.dim(), centre_residuals(depth, geometry, 3, 1.0)?)
         .expect("rows x cols residuals");
     let mut finite: Vec<f64> = residuals
@@ -186,9 +156,7 @@ pub fn estimate_noise<T: Sample>(
         centre_residuals(depth, geometry, size, SPECTRUM_MIN_VALID)?,
     )
     .expect("rows x cols residuals");
-    let mut residual_kernel =
-        -crate::surface::window::full_window_kernels(geometry, size)?[5].clone();
-    residual_kernel[(size / 2, size / 2)] += 1.0;
+    let residual_kernel = centre_residual_kernel(geometry, size)?;
     let g = &geometry.geo_transform;
     let (sx, sy) = geometry.spacing();
     let axes = AxisGeometry {
@@ -205,7 +173,6 @@ pub fn estimate_noise<T: Sample>(
         ],
     };
     let reading = footprint::detect(&grid, &axes);
-    drop(grid);
     // The residuals' robust scale over the residual kernel's gain for the noise model:
     // `|R| = sqrt(1 - leverage)` for white noise, `|g * R|` for coloured.
     // Footprint (on a white spectrum) and correlation are not modelled together: stripes of
@@ -220,28 +187,29 @@ pub fn estimate_noise<T: Sample>(
         false => None,
     };
     drop(residuals);
-    // The colouring must explain the residuals of a larger window too: noise gives the same
-    // level through both windows' kernels, structure (whose misfit grows with the window, and
-    // which correlates neighbouring residuals as smoothed noise does) a larger one; then the
-    // noise cannot be told from structure and is modelled as white.
-    let colour = match colour {
-        Some(c) => {
-            let level_3 = 1.4826 * mad / gain(&c.colour(&residual_3));
-            let level_9 = consistency_level(depth, geometry, &c)?;
-            level_9
-                .filter(|&l9| (l9 / level_3).ln().abs() <= LEVEL_AGREEMENT.ln())
-                .map(|_| c)
-        }
-        None => None,
-    };
+    let level =
+        |c: &NoiseColour, mad: f64, kernel: &Array2<f64>| MAD_TO_SD * mad / gain(&c.colour(kernel));
+    // The colouring must explain the spectrum's larger-window residuals too: noise gives the
+    // same level through both windows' kernels, structure (whose misfit grows with the window,
+    // and which correlates neighbouring residuals as smoothed noise does) a larger one; then
+    // the noise cannot be told from structure and is modelled as white.
+    let colour = colour.filter(|c| {
+        let mut larger: Vec<f64> = grid.iter().copied().filter(|v| v.is_finite()).collect();
+        median_and_mad(&mut larger).is_some_and(|(_, mad_9)| {
+            let ratio = level(c, mad_9, &axes.residual_kernel) / level(c, mad, &residual_3);
+            ratio.ln().abs() <= LEVEL_AGREEMENT.ln()
+        })
+    });
+    drop(grid);
     let sigma = match (
         &colour,
         reading.footprints.is_empty(),
         reading.white_variance,
     ) {
-        (Some(c), _, _) => 1.4826 * mad / gain(&c.colour(&residual_3)),
+        (Some(c), _, _) => level(c, mad, &residual_3),
         (None, false, Some(v)) => v.sqrt(),
-        _ => 1.4826 * mad / (1.0 - leverage).sqrt(),
+        // The centre entry of R is 1 - leverage.
+        _ => MAD_TO_SD * mad / residual_3[(1, 1)].sqrt(),
     };
     Ok(Some(NoiseEstimate {
         sigma,
