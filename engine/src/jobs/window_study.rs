@@ -597,6 +597,17 @@ fn stage_chart(
         [0, 0, 0],
         1.0,
     );
+    // Labels on the marker lines end at the line at the right edge and start at it at the
+    // left edge, so they stay inside the picture.
+    let (first_window, last_window) = (
+        s.windows.first().map_or(0, |w| w.window),
+        s.windows.last().map_or(0, |w| w.window),
+    );
+    let marker_anchor = |window: usize| match window {
+        w if w == last_window => Anchor::End,
+        w if w == first_window => Anchor::Start,
+        _ => Anchor::Middle,
+    };
     for wf in &s.windows {
         let xx = x(wf.window);
         fig.line(vec![(xx, bottom), (xx, bottom + 5.0)], [0, 0, 0], 1.0);
@@ -614,7 +625,7 @@ fn stage_chart(
                 top + 12.0,
                 11.0,
                 format!("smallest allowed {}", wf.window),
-                Anchor::Middle,
+                marker_anchor(wf.window),
             );
         }
         if wf.window == s.recommended {
@@ -624,7 +635,7 @@ fn stage_chart(
                 top - 6.0,
                 12.0,
                 format!("recommended {}", wf.window),
-                Anchor::Middle,
+                marker_anchor(wf.window),
             );
         }
     }

@@ -198,7 +198,7 @@ impl Study {
             ),
         };
         format!(
-            "window {} is the single window closest to the adaptive map (RMS difference {:.4}); the adaptive map kept larger windows wherever the derivatives' change stayed within the {} noise model{floor}",
+            "window {} is the single window closest to the adaptive map (RMS difference {:.4}); the adaptive map kept larger windows wherever the derivatives' change stayed within the noise model ({}){floor}",
             self.recommended,
             closest,
             self.noise.model_name()
