@@ -20,8 +20,9 @@ fn geometry(cols: usize, rows: usize, rotation_deg: f64, dx: f64, dy: f64) -> Gr
     }
 }
 
-/// A rough random surface (random quadratic plus random waves) with ~`null_share` nulls.
-fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
+/// A rough random surface (random quadratic plus random waves) with ~`null_share` nulls, all
+/// of it times `scale`.
+fn random_values(g: &GridGeometry, seed: u64, null_share: f64, scale: f64) -> Array2<f64> {
     let mut rng = SeededNoise::new(seed);
     let waves: Vec<[f64; 4]> = (0..5)
         .map(|_| {
@@ -48,7 +49,7 @@ fn random_values(g: &GridGeometry, seed: u64, null_share: f64) -> Array2<f64> {
         if rng.uniform() < null_share {
             f64::NAN
         } else {
-            z
+            scale * z
         }
     })
 }
@@ -108,8 +109,20 @@ fn coefficients(q: &Quadric) -> [f64; 5] {
 }
 
 fn compare(rotation: f64, dx: f64, dy: f64, n: usize, null_share: f64, seed: u64) {
+    compare_scaled(rotation, dx, dy, n, null_share, seed, 1.0);
+}
+
+fn compare_scaled(
+    rotation: f64,
+    dx: f64,
+    dy: f64,
+    n: usize,
+    null_share: f64,
+    seed: u64,
+    scale: f64,
+) {
     let g = geometry(41, 37, rotation, dx, dy);
-    let values = random_values(&g, seed, null_share);
+    let values = random_values(&g, seed, null_share, scale);
     let spec = WindowSpec {
         size: n,
         min_valid: 0.75,
@@ -164,6 +177,16 @@ fn rotated_non_square_grid_matches_reference() {
 }
 
 #[test]
+fn surfaces_of_any_magnitude_match_reference() {
+    // The fit turns z into integers on a quantum set by the grid's spread (window.rs,
+    // ZOrigin): surfaces scaled down to kilometres (2 +- 0.1) and up by 50 (1e5 +- 5000) must
+    // agree with the reference as closely as the unscaled one, nulls included.
+    for (n, scale) in [(3, 50.0), (5, 1e-3), (9, 50.0), (11, 1e-3)] {
+        compare_scaled(20.0, 25.0, 25.0, n, 0.1, 200 + n as u64, scale);
+    }
+}
+
+#[test]
 fn grid_without_nulls_matches_reference_at_edges() {
     // Edges are nulls outside the grid: the masked path near the border, kernels inside.
     compare(10.0, 20.0, 30.0, 9, 0.0, 7);
@@ -176,7 +199,7 @@ fn masked_noise_power_matches_the_reference_covariance() {
     // Lee 2003, ch. 3), inverted here by LAPACK; sum_c t_c^T (X^T X)^-1 t_c for the rows t_c
     // of the Hessian and gradient vectors, on a rotated non-square grid with random nulls.
     let g = geometry(33, 29, 40.0, 25.0, 12.5);
-    let values = random_values(&g, 11, 0.15);
+    let values = random_values(&g, 11, 0.15, 1.0);
     let n = 7;
     let spec = WindowSpec {
         size: n,
