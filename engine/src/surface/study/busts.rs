@@ -20,6 +20,7 @@ use crate::grid::GridGeometry;
 use crate::stats::MAD_TO_SD;
 use crate::surface::window::{WindowFit, WindowSpec};
 use ndarray::Array2;
+use rayon::prelude::*;
 use serde::Serialize;
 use statrs::distribution::{ContinuousCDF, Normal};
 
@@ -160,37 +161,67 @@ fn standardised_residuals(
 /// the window is reached from the centre through valid cells of the window (4-neighbours).
 /// A window cut in two reaches across a gap (a fault gap), whose far side the quadric cannot
 /// share; scattered nulls or the edge of a hole leave it whole, and the masked fit holds.
+/// Windows holding no null inside the grid are whole (the grid's edge clips them to a
+/// rectangle) and are not searched.
 fn not_cut_by_nulls(depth: &Array2<f64>) -> Array2<bool> {
+    let (rows, cols) = depth.dim();
+    let half = BUST_WINDOW / 2;
+    // Per row, the number of invalid cells before each column.
+    let before: Vec<Vec<u32>> = depth
+        .rows()
+        .into_iter()
+        .map(|row| {
+            let counts = row.iter().scan(0, |n, v| {
+                *n += u32::from(!v.is_finite());
+                Some(*n)
+            });
+            std::iter::once(0).chain(counts).collect()
+        })
+        .collect();
+    let holds_nulls = |r: usize, c: usize| {
+        let span = c.saturating_sub(half)..(c + half + 1).min(cols);
+        (r.saturating_sub(half)..(r + half + 1).min(rows))
+            .any(|rr| before[rr][span.end] > before[rr][span.start])
+    };
+    let whole: Vec<bool> = (0..rows)
+        .into_par_iter()
+        .flat_map_iter(|r| {
+            (0..cols).map(move |c| {
+                !depth[(r, c)].is_nan() && (!holds_nulls(r, c) || reached_whole(depth, r, c))
+            })
+        })
+        .collect();
+    Array2::from_shape_vec((rows, cols), whole).expect("rows x cols flags")
+}
+
+/// Whether every valid cell of the `BUST_WINDOW` window centred on (r, c) is reached from the
+/// centre through valid cells of the window (4-neighbours; cells outside the grid are nulls).
+fn reached_whole(depth: &Array2<f64>, r: usize, c: usize) -> bool {
     let (rows, cols) = depth.dim();
     let half = (BUST_WINDOW / 2) as isize;
     let edge = BUST_WINDOW;
-    Array2::from_shape_fn((rows, cols), |(r, c)| {
-        if depth[(r, c)].is_nan() {
-            return false;
-        }
-        let valid = |dr: isize, dc: isize| {
-            let (rr, cc) = (r as isize + dr, c as isize + dc);
-            (0..rows as isize).contains(&rr)
-                && (0..cols as isize).contains(&cc)
-                && depth[(rr as usize, cc as usize)].is_finite()
-        };
-        let index = |dr: isize, dc: isize| ((dr + half) as usize) * edge + (dc + half) as usize;
-        let mut reached = vec![false; edge * edge];
-        let mut stack = vec![(0isize, 0isize)];
-        reached[index(0, 0)] = true;
-        while let Some((dr, dc)) = stack.pop() {
-            for (nr, nc) in [(dr - 1, dc), (dr + 1, dc), (dr, dc - 1), (dr, dc + 1)] {
-                let inside = nr.abs() <= half && nc.abs() <= half;
-                if inside && !reached[index(nr, nc)] && valid(nr, nc) {
-                    reached[index(nr, nc)] = true;
-                    stack.push((nr, nc));
-                }
+    let valid = |dr: isize, dc: isize| {
+        let (rr, cc) = (r as isize + dr, c as isize + dc);
+        (0..rows as isize).contains(&rr)
+            && (0..cols as isize).contains(&cc)
+            && depth[(rr as usize, cc as usize)].is_finite()
+    };
+    let index = |dr: isize, dc: isize| ((dr + half) as usize) * edge + (dc + half) as usize;
+    let mut reached = [false; BUST_WINDOW * BUST_WINDOW];
+    let mut stack = vec![(0isize, 0isize)];
+    reached[index(0, 0)] = true;
+    while let Some((dr, dc)) = stack.pop() {
+        for (nr, nc) in [(dr - 1, dc), (dr + 1, dc), (dr, dc - 1), (dr, dc + 1)] {
+            let inside = nr.abs() <= half && nc.abs() <= half;
+            if inside && !reached[index(nr, nc)] && valid(nr, nc) {
+                reached[index(nr, nc)] = true;
+                stack.push((nr, nc));
             }
         }
-        (-half..=half)
-            .flat_map(|dr| (-half..=half).map(move |dc| (dr, dc)))
-            .all(|(dr, dc)| !valid(dr, dc) || reached[index(dr, dc)])
-    })
+    }
+    (-half..=half)
+        .flat_map(|dr| (-half..=half).map(move |dc| (dr, dc)))
+        .all(|(dr, dc)| !valid(dr, dc) || reached[index(dr, dc)])
 }
 
 /// Cells (row, column) whose `|u|` exceeds `limit`, is the largest in their 3 x 3
@@ -313,6 +344,33 @@ mod tests {
                 busts.scale
             );
         }
+    }
+
+    #[test]
+    fn windows_without_nulls_skip_the_search_and_nothing_else_changes() {
+        // The definition (the 4-neighbour search of every window) against the shortcut that
+        // skips windows holding no null, on a grid with scattered nulls, a hole, a diagonal
+        // fault gap one cell wide and the grid's edges.
+        let (rows, cols) = (40, 37);
+        let mut rng = SeededNoise::new(41);
+        let z = Array2::from_shape_fn((rows, cols), |(r, c)| {
+            let gap = c == r / 2 + 5;
+            let hole = (20..26).contains(&r) && (25..31).contains(&c);
+            if gap || hole || rng.uniform() < 0.03 {
+                f64::NAN
+            } else {
+                1.0
+            }
+        });
+        let flags = not_cut_by_nulls(&z);
+        let definition = Array2::from_shape_fn((rows, cols), |(r, c)| {
+            !z[(r, c)].is_nan() && reached_whole(&z, r, c)
+        });
+        assert_eq!(flags, definition);
+        // The gap cuts windows in two, so both answers occur.
+        assert!(
+            flags.iter().any(|&f| f) && flags.iter().zip(&z).any(|(&f, v)| !f && v.is_finite())
+        );
     }
 
     #[test]
