@@ -15,7 +15,9 @@ use crate::io::{
 };
 use crate::io::{stage_float_geotiff, BandOut};
 use crate::provenance::Provenance;
-use crate::surface::curvature::{evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES};
+use crate::surface::curvature::{
+    attribute_by_id, evaluate_cells, AttributeDef, FlatTolerance, ATTRIBUTES,
+};
 use crate::surface::horizon::{Horizon, HorizonSource};
 use crate::surface::study::busts::{self, Busts, BUST_FALSE_ALARM, BUST_TEST};
 use crate::surface::study::footprint::notch;
@@ -661,7 +663,7 @@ pub struct WindowReport {
     pub path: PathBuf,
     /// Share of cells with no fit.
     pub null_share: f64,
-    /// (attribute id, value range) per band.
+    /// (attribute id, value range in the attribute's unit) per band.
     pub ranges: Vec<(&'static str, Option<(f32, f32)>)>,
 }
 
@@ -686,8 +688,9 @@ impl fmt::Display for CurvatureReport {
                 100.0 * w.null_share
             )?;
             for (id, range) in &w.ranges {
+                let unit = attribute_by_id(id).map_or("", |a| a.unit);
                 match range {
-                    Some((lo, hi)) => writeln!(f, "    {id:<12} {lo:>12.5} .. {hi:<12.5}")?,
+                    Some((lo, hi)) => writeln!(f, "    {id:<12} {lo:>12.5} .. {hi:<12.5} {unit}")?,
                     None => writeln!(f, "    {id:<12} all null")?,
                 }
             }
