@@ -38,6 +38,22 @@ use std::path::{Path, PathBuf};
 /// Name of the bust files (`.csv`, `.gpkg`, `.geojson`).
 const BUSTS_NAME: &str = "window_study_busts";
 
+/// Largest ratio of bin sides (long over short) read as square.
+const SQUARE_BINS: f64 = 1.05;
+
+/// A caution when the bins (`spacing_m`, metres along rows and columns) are not square: the
+/// windows are square in cells, so they span different distances along the two axes, and on
+/// generated horizons with 2:1 bins the recommendation was about one window step off the
+/// least-true-error window (a review's measurement; README, window study).
+fn non_square_caution((along_row, along_column): (f64, f64)) -> Option<String> {
+    let ratio = along_row.max(along_column) / along_row.min(along_column);
+    (ratio > SQUARE_BINS).then(|| {
+        format!(
+            "bins are {along_row:.4} x {along_column:.4} m, not square: the windows are square in cells and span {ratio:.2} times more ground along one axis, and the recommended window may be about one step off"
+        )
+    })
+}
+
 /// Long side in pixels of each map of the window-study panel.
 const PANEL_MAP_SIZE: f64 = 300.0;
 
@@ -132,6 +148,7 @@ impl WindowStudyJob {
             let (sx, sy) = g.spacing();
             (sx * g.metres_per_unit, sy * g.metres_per_unit)
         };
+        notices.extend(non_square_caution(spacing_m));
         let mut staged = vec![
             stage_bytes(
                 &out.join("window_study.json"),
@@ -792,6 +809,16 @@ impl fmt::Display for WindowStudyReport {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn bins_not_square_get_a_caution() {
+        // By hand: 25 x 12.5 m bins are 2:1; 25 x 24.5 m (2% apart) read as square.
+        assert_eq!(non_square_caution((25.0, 25.0)), None);
+        assert_eq!(non_square_caution((25.0, 24.5)), None);
+        let caution = non_square_caution((25.0, 12.5)).expect("2:1 bins");
+        assert!(caution.contains("2.00 times"), "{caution}");
+        assert!(non_square_caution((12.5, 25.0)).is_some());
+    }
 
     #[test]
     fn horizon_noise_is_stated_in_the_horizons_z_unit() {
