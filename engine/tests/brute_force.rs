@@ -178,9 +178,9 @@ fn rotated_non_square_grid_matches_reference() {
 
 #[test]
 fn surfaces_of_any_magnitude_match_reference() {
-    // The fit turns z into integers on a quantum set by the grid's spread (window.rs,
-    // ZOrigin): surfaces scaled down to kilometres (2 +- 0.1) and up by 50 (1e5 +- 5000) must
-    // agree with the reference as closely as the unscaled one, nulls included.
+    // The fit's sums run in floating point about the grid's mean: surfaces scaled down to
+    // kilometres (2 +- 0.1) and up by 50 (1e5 +- 5000) must agree with the reference as
+    // closely as the unscaled one (relative tolerance), nulls included.
     for (n, scale) in [(3, 50.0), (5, 1e-3), (9, 50.0), (11, 1e-3)] {
         compare_scaled(20.0, 25.0, 25.0, n, 0.1, 200 + n as u64, scale);
     }

@@ -49,7 +49,7 @@ fn non_square_caution((along_row, along_column): (f64, f64)) -> Option<String> {
     let ratio = along_row.max(along_column) / along_row.min(along_column);
     (ratio > SQUARE_BINS).then(|| {
         format!(
-            "bins are {along_row:.4} x {along_column:.4} m, not square: the windows are square in cells and span {ratio:.2} times more ground along one axis, and the recommended window may be about one step off"
+            "bins are {along_row:.2} x {along_column:.2} m, not square: the windows are square in cells and span {ratio:.2} times as much ground along one axis, and the recommended window may be about one step off"
         )
     })
 }
