@@ -1362,10 +1362,24 @@ fn completion_outcomes_are_joined_and_tested_against_the_stage_metrics() {
     );
     let text = std::fs::read_to_string(out.join("outcomes.csv")).unwrap();
     assert!(
-        text.starts_with("outcome,metric,level,n,rho,ci_low,ci_high,p_value\n"),
+        text.starts_with("outcome,metric,level,n,rho,ci_low,ci_high,p_value,q_value\n"),
         "{text}"
     );
     let rows = csv_rows(&out.join("outcomes.csv"));
+    // q is the Benjamini-Hochberg adjusted p over every row (Benjamini & Hochberg 1995):
+    // min over the p-values at least as large, p' of rank j among m, of min(1, m p' / j).
+    let p_values: Vec<f64> = rows.iter().map(|r| r["p_value"].parse().unwrap()).collect();
+    let mut sorted = p_values.clone();
+    sorted.sort_by(f64::total_cmp);
+    let m = sorted.len() as f64;
+    for (row, p) in rows.iter().zip(&p_values) {
+        let first = sorted.iter().position(|v| v == p).unwrap();
+        let expected = (first..sorted.len())
+            .map(|j| (m * sorted[j] / (j + 1) as f64).min(1.0))
+            .fold(f64::INFINITY, f64::min);
+        let q: f64 = row["q_value"].parse().unwrap();
+        assert!((q - expected).abs() < 1e-12, "{row:?}: q {q} vs {expected}");
+    }
     let angle = rows
         .iter()
         .find(|r| r["metric"] == "angle_to_well" && r["level"] == "stage")

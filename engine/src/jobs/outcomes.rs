@@ -14,7 +14,7 @@ use crate::draw::figure::{Anchor, Figure, Mark};
 use crate::draw::scatter::{draw_panel, group_colour, Panel};
 use crate::error::{FlexureError, Result};
 use crate::io::table::{is_null_word, ColumnSpec, Table};
-use crate::stats::rank::{rank_test, Dependence, RankTest};
+use crate::stats::rank::{false_discovery_adjusted, rank_test, Dependence, RankTest};
 use serde::Serialize;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -31,7 +31,8 @@ pub const FEW: usize = 10;
 /// What the outcome analysis says with every result.
 pub const OUTCOME_CAUTION: &str = "Outcome relations are rank correlations on these wells \
 only: a local empirical relation, not a forecast. With many outcome and metric pairs, about one \
-test in twenty falls below p = 0.05 by chance; neighbouring stages are not independent (the \
+test in twenty falls below p = 0.05 by chance (q adjusts p for the number of tests: \
+Benjamini-Hochberg); neighbouring stages are not independent (the \
 tests keep each well's order), a trend along the well shared by a metric and an outcome (a \
 design change from heel to toe, a drift in the anisotropy) reads as a relation, and a \
 correlation does not say why.";
@@ -225,6 +226,10 @@ pub struct OutcomeTest {
     pub ci_high: f64,
     /// Two-sided permutation p-value.
     pub p_value: f64,
+    /// The p-value adjusted for every test of the run, stage and well level together
+    /// (Benjamini-Hochberg, [`false_discovery_adjusted`]): the false discovery rate at which
+    /// this relation would count as a finding.
+    pub q_value: f64,
 }
 
 /// A (metric, outcome, well index) point of a scatter plot.
@@ -276,6 +281,14 @@ pub fn analyse(
     if let Some(table) = production {
         analysis.notes.extend(table.notes.iter().cloned());
         well_tests(metric_names, stages, table, per_length, &mut analysis);
+    }
+    let p_values: Vec<f64> = analysis.tests.iter().map(|t| t.p_value).collect();
+    for (test, q) in analysis
+        .tests
+        .iter_mut()
+        .zip(false_discovery_adjusted(&p_values))
+    {
+        test.q_value = q;
     }
     analysis
 }
@@ -518,6 +531,8 @@ fn push(
             ci_low: t.ci.0,
             ci_high: t.ci.1,
             p_value: t.p_value,
+            // Set once every test of the run is known.
+            q_value: f64::NAN,
         });
     }
 }
@@ -564,7 +579,7 @@ fn abbreviated(items: &[String]) -> String {
 
 impl OutcomeAnalysis {
     /// `outcomes.csv`: one row per test (`outcome, metric, level, n, rho, ci_low, ci_high,
-    /// p_value`).
+    /// p_value, q_value`).
     pub fn csv(&self) -> Result<String> {
         let mut writer = csv::Writer::from_writer(Vec::new());
         for t in &self.tests {

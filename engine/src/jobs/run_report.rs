@@ -51,7 +51,7 @@ const PLAN_COLUMNS: [(&str, &str); 8] = [
 ];
 
 /// Outcome-test columns shown in the report.
-const OUTCOME_COLUMNS: [(&str, &str); 8] = [
+const OUTCOME_COLUMNS: [(&str, &str); 9] = [
     ("outcome", "outcome"),
     ("metric", "stage metric"),
     ("level", "level"),
@@ -60,6 +60,7 @@ const OUTCOME_COLUMNS: [(&str, &str); 8] = [
     ("ci_low", "95% low"),
     ("ci_high", "95% high"),
     ("p_value", "p"),
+    ("q_value", "q (all tests)"),
 ];
 
 /// Outcome tests listed in the report.

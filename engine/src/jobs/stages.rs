@@ -1607,8 +1607,16 @@ impl fmt::Display for StagesReport {
             for t in ranked.iter().take(OUTCOMES_SHOWN) {
                 writeln!(
                     f,
-                    "  {} vs {} ({:?}): rho {:.2} [{:.2}, {:.2}], p {:.3}, n {}",
-                    t.outcome, t.metric, t.level, t.rho, t.ci_low, t.ci_high, t.p_value, t.n
+                    "  {} vs {} ({:?}): rho {:.2} [{:.2}, {:.2}], p {:.3}, q {:.3}, n {}",
+                    t.outcome,
+                    t.metric,
+                    t.level,
+                    t.rho,
+                    t.ci_low,
+                    t.ci_high,
+                    t.p_value,
+                    t.q_value,
+                    t.n
                 )?;
             }
             for note in &a.notes {
