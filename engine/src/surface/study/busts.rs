@@ -17,7 +17,7 @@
 
 use crate::error::Result;
 use crate::grid::GridGeometry;
-use crate::stats::MAD_TO_SD;
+use crate::stats::{median_and_mad, MAD_TO_SD};
 use crate::surface::window::{WindowFit, WindowSpec};
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -94,8 +94,7 @@ pub fn despike(
     for _ in 0..MAX_PASSES {
         let (u, offsets) = standardised_residuals(depth, geometry)?;
         let mut finite: Vec<f64> = u.iter().copied().filter(|v| v.is_finite()).collect();
-        found.scale =
-            crate::stats::median_and_mad(&mut finite).map_or(f64::NAN, |(_, mad)| MAD_TO_SD * mad);
+        found.scale = median_and_mad(&mut finite).map_or(f64::NAN, |(_, mad)| MAD_TO_SD * mad);
         let limit = threshold * found.scale;
         if limit.is_nan() || limit <= 0.0 {
             break;
